@@ -1,0 +1,51 @@
+// Command sluice turns the stream of tomography scans of a two-phase flow
+// experiment into checked time series of saturation, capillary pressure,
+// interfacial areas, contact angles and ganglia. See README.md.
+package main
+
+import (
+	"fmt"
+	"os"
+)
+
+func main() {
+	os.Exit(run(os.Args[1:]))
+}
+
+// command is one subcommand of sluice.
+type command struct {
+	name, summary string
+	run           func(args []string) int
+}
+
+func commands() []command {
+	return []command{
+		{"measure", "measure a label or grey volume (raw, TIFF stack, Zarr)", runMeasure},
+		{"version", "print the version", func([]string) int { fmt.Println("sluice", Version); return 0 }},
+	}
+}
+
+func run(args []string) int {
+	if len(args) == 0 || args[0] == "-h" || args[0] == "--help" || args[0] == "help" {
+		usage()
+		if len(args) == 0 {
+			return 2
+		}
+		return 0
+	}
+	for _, c := range commands() {
+		if c.name == args[0] {
+			return c.run(args[1:])
+		}
+	}
+	fmt.Fprintf(os.Stderr, "sluice: unknown command %q (run `sluice help`)\n", args[0])
+	return 2
+}
+
+func usage() {
+	fmt.Fprintln(os.Stderr, "usage: sluice COMMAND [flags] [args]\n\ncommands:")
+	for _, c := range commands() {
+		fmt.Fprintf(os.Stderr, "  %-10s %s\n", c.name, c.summary)
+	}
+	fmt.Fprintln(os.Stderr, "\nRun `sluice COMMAND -h` for the flags of a command.")
+}

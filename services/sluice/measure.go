@@ -1,0 +1,193 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"runtime"
+	"text/tabwriter"
+
+	"sluice/pkg/measure"
+	"sluice/pkg/phase"
+	"sluice/pkg/volio"
+	"sluice/pkg/volume"
+)
+
+// inputFlags are the flags shared by every command that reads a volume.
+type inputFlags struct {
+	shape, dtype, byteOrder, voxelSize string
+	maxVoxels                          int64
+}
+
+func (f *inputFlags) register(fs *flag.FlagSet) {
+	fs.StringVar(&f.shape, "shape", "", "shape `Z,Y,X` of a raw file without header")
+	fs.StringVar(&f.dtype, "dtype", "", "voxel type of a raw file: uint8, uint16 or float32")
+	fs.StringVar(&f.byteOrder, "byte-order", "little", "byte order of a raw file: little or big")
+	fs.StringVar(&f.voxelSize, "voxel-size", "", "voxel edge with unit (nm, um, mm, m), e.g. 2.5um (default: from the file, else 1um)")
+	fs.Int64Var(&f.maxVoxels, "max-voxels", 4_000_000_000, "refuse volumes with more voxels than this")
+}
+
+// options turns the flags into reader options.
+func (f *inputFlags) options() (volio.Options, error) {
+	opt := volio.Options{MaxVoxels: f.maxVoxels, ByteOrder: f.byteOrder}
+	if f.shape != "" {
+		s, err := parseShape(f.shape)
+		if err != nil {
+			return opt, err
+		}
+		opt.Shape = s
+	}
+	if f.dtype != "" {
+		d, err := volume.ParseDType(f.dtype)
+		if err != nil {
+			return opt, err
+		}
+		opt.DType = d
+	}
+	if f.voxelSize != "" {
+		v, err := volume.ParseLength(f.voxelSize)
+		if err != nil {
+			return opt, err
+		}
+		opt.VoxelSize = v
+	}
+	return opt, nil
+}
+
+// measureFlags configure the measurement.
+type measureFlags struct {
+	solid, wetting, nonwetting uint
+	ift                        float64
+	connectivity               int
+	flowAxis                   string
+	exclude, sigma             float64
+	tile, workers              int
+}
+
+func (m *measureFlags) register(fs *flag.FlagSet) {
+	d := measure.Defaults()
+	fs.UintVar(&m.solid, "solid", uint(d.Codes.Solid), "label code of the solid phase")
+	fs.UintVar(&m.wetting, "wetting", uint(d.Codes.Wetting), "label code of the wetting phase")
+	fs.UintVar(&m.nonwetting, "nonwetting", uint(d.Codes.Nonwetting), "label code of the nonwetting phase")
+	fs.Float64Var(&m.ift, "ift", 0, "interfacial tension σ in N/m (e.g. 0.07275 water–air at 20 °C); without it capillary pressure is omitted")
+	fs.IntVar(&m.connectivity, "connectivity", 26, "connectivity of nonwetting clusters and Euler characteristics: 26 or 6")
+	fs.StringVar(&m.flowAxis, "flow-axis", "z", "axis from inlet to outlet: z, y or x")
+	fs.Float64Var(&m.exclude, "exclude", d.Curvature.Exclude, "ignore interface within this many voxels of the solid for curvature")
+	fs.Float64Var(&m.sigma, "curvature-sigma", d.Curvature.Sigma, "Gaussian smoothing (voxels) of the level-set curvature")
+	fs.IntVar(&m.tile, "tile", 128, "tile edge in voxels for parallel measurement (results do not depend on it)")
+	fs.IntVar(&m.workers, "workers", runtime.GOMAXPROCS(0), "parallel tiles")
+}
+
+func (m *measureFlags) options() (measure.Options, error) {
+	o := measure.Defaults()
+	if m.solid > 254 || m.wetting > 254 || m.nonwetting > 254 {
+		return o, fmt.Errorf("label codes must be 0…254 (255 marks voxels outside the sample)")
+	}
+	o.Codes = phase.Codes{Solid: uint8(m.solid), Wetting: uint8(m.wetting), Nonwetting: uint8(m.nonwetting)}
+	o.IFT = m.ift
+	o.Connectivity = m.connectivity
+	switch m.flowAxis {
+	case "z":
+		o.FlowAxis = 0
+	case "y":
+		o.FlowAxis = 1
+	case "x":
+		o.FlowAxis = 2
+	default:
+		return o, fmt.Errorf("bad flow axis %q (want z, y or x)", m.flowAxis)
+	}
+	o.Curvature.Exclude = m.exclude
+	o.Curvature.Sigma = m.sigma
+	return o, o.Validate()
+}
+
+func runMeasure(args []string) int {
+	fs := flag.NewFlagSet("measure", flag.ContinueOnError)
+	fs.Usage = func() {
+		fmt.Fprintln(fs.Output(), "usage: sluice measure [flags] FILE\n\nFILE is a raw file, a directory of TIFF slices or a Zarr array.")
+		fs.PrintDefaults()
+	}
+	var in inputFlags
+	var mf measureFlags
+	in.register(fs)
+	mf.register(fs)
+	labels := fs.Bool("labels", false, "FILE holds phase codes (a segmented volume)")
+	asJSON := fs.Bool("json", false, "print one JSON object instead of a table")
+	pos, err := parseInterspersed(fs, args)
+	if err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return exitOK
+		}
+		return exitBadInput
+	}
+	if len(pos) != 1 {
+		return fail(exitBadInput, "measure: want exactly one FILE, got %d", len(pos))
+	}
+	path := pos[0]
+	ropt, err := in.options()
+	if err != nil {
+		return fail(exitBadInput, "measure: %s: %v", path, err)
+	}
+	mopt, err := mf.options()
+	if err != nil {
+		return fail(exitBadInput, "measure: %v", err)
+	}
+	if !*labels {
+		return fail(exitBadInput, "measure: %s: grey-scale input needs segmentation, which this build does not have yet; pass --labels for a segmented volume", path)
+	}
+	v, err := volio.Open(path, ropt)
+	if err != nil {
+		return fail(exitBadInput, "%v", err)
+	}
+	lab, ok := v.(*volume.Labels)
+	if !ok {
+		return fail(exitBadInput, "measure: %s: --labels wants uint8 phase codes, file holds %s", path, v.DType())
+	}
+	if lab.VoxelSize == 0 {
+		lab.VoxelSize = 1e-6
+	}
+	res, err := measure.Volume(lab, mopt, mf.tile, mf.workers)
+	if err != nil {
+		return fail(exitFailure, "measure: %s: %v", path, err)
+	}
+	if *asJSON {
+		enc := json.NewEncoder(os.Stdout)
+		enc.SetIndent("", "  ")
+		if err := enc.Encode(res); err != nil {
+			return fail(exitFailure, "measure: %v", err)
+		}
+		return exitOK
+	}
+	printTable(os.Stdout, path, res)
+	return exitOK
+}
+
+func printTable(w io.Writer, path string, r *measure.Result) {
+	tw := tabwriter.NewWriter(w, 0, 2, 2, ' ', 0)
+	f := func(p *float64, scale float64, format string) string {
+		if p == nil {
+			return "—"
+		}
+		return fmt.Sprintf(format, *p*scale)
+	}
+	fmt.Fprintf(tw, "file\t%s\t\n", path)
+	fmt.Fprintf(tw, "shape (z,y,x)\t%d × %d × %d\tvoxels\n", r.Shape[0], r.Shape[1], r.Shape[2])
+	fmt.Fprintf(tw, "voxel size\t%.4g\tµm\n", r.VoxelSize*1e6)
+	fmt.Fprintf(tw, "porosity\t%s\t\n", f(r.Porosity, 1, "%.4f"))
+	fmt.Fprintf(tw, "saturation wetting / nonwetting\t%s / %s\t\n", f(r.SatWetting, 1, "%.4f"), f(r.SatNonwetting, 1, "%.4f"))
+	fmt.Fprintf(tw, "interfacial area w–n / w–s / n–s\t%.4g / %.4g / %.4g\tmm²\n", r.AreaWN*1e6, r.AreaWS*1e6, r.AreaNS*1e6)
+	fmt.Fprintf(tw, "specific area w–n\t%s\t1/mm\n", f(r.SpecificWN, 1e-3, "%.4g"))
+	fmt.Fprintf(tw, "curvature κ w–n mean / median\t%s / %s\t1/mm\n", f(r.CurvMean, 1e-3, "%.4g"), f(r.CurvMedian, 1e-3, "%.4g"))
+	fmt.Fprintf(tw, "capillary pressure σκ mean / median\t%s / %s\tkPa\n", f(r.Pc, 1e-3, "%.4g"), f(r.PcMedian, 1e-3, "%.4g"))
+	fmt.Fprintf(tw, "contact angle (through wetting) mean / median / sd\t%s / %s / %s\t° (%d samples)\n",
+		f(r.AngleMean, 1, "%.1f"), f(r.AngleMedian, 1, "%.1f"), f(r.AngleStd, 1, "%.1f"), r.AngleSamples)
+	fmt.Fprintf(tw, "Euler characteristic n / w / s\t%d / %d / %d\t%d-connected\n", r.EulerNonwetting, r.EulerWetting, r.EulerSolid, r.Connectivity)
+	fmt.Fprintf(tw, "ganglia\t%d\tclusters\n", r.GangliaCount)
+	fmt.Fprintf(tw, "largest ganglion\t%s\tof nonwetting volume\n", f(r.LargestFraction, 1, "%.4f"))
+	fmt.Fprintf(tw, "nonwetting percolates (%s)\t%v\t\n", r.FlowAxis, r.Percolates)
+	tw.Flush()
+	fmt.Fprintln(w, "Image-derived capillary pressure and contact angles are estimates; their error grows as radii of curvature approach a few voxels.")
+}
