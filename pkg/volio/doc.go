@@ -1,0 +1,72 @@
+// Package volio reads and writes grey-value and label volumes in three
+// formats: raw binary, stacks of 2-D TIFF slices, and Zarr v2 arrays.
+//
+// Every reader first reads a small header, checks shape × dtype against the
+// file size and against Options.MaxVoxels, and only then allocates (the
+// habit of image.DecodeConfig). OpenStream reads a volume slab by slab for
+// ingest; Open reads it whole. Errors are one line naming the file:
+//
+//	volio: scan.raw: truncated raw volume: got 1048576 of 2097152 bytes
+//
+// and unwrap to ErrTruncated, ErrFormat, ErrTooLarge or an fs error.
+//
+// # Raw volumes
+//
+// A raw volume is nz·ny·nx voxels in C order (x fastest, then y, then z),
+// each uint8, uint16 or float32 (IEEE 754) in little- or big-endian byte
+// order, optionally after a fixed number of leading bytes. Its description
+// comes from Options or from a JSON header of sluice's own design stored
+// next to it as <file>.sluice.json:
+//
+//	{
+//	  "shape": [nz, ny, nx],          required
+//	  "dtype": "uint16",              required: uint8, uint16 or float32
+//	  "byte_order": "little",         little (default) or big
+//	  "voxel_size": "2.5um",          voxel edge with a unit: nm, um, mm or m
+//	  "time_s": 1830.5,               acquisition time in seconds, optional
+//	  "header_bytes": 0               bytes to skip before the first voxel
+//	}
+//
+// Unknown fields are rejected (to catch typos). The file must hold exactly
+// header_bytes + nz·ny·nx·size bytes: fewer is ErrTruncated, more is
+// ErrFormat. WriteRaw writes both files.
+//
+// # TIFF stacks
+//
+// A directory of single-image TIFF files (.tif/.tiff), one per z slice,
+// sorted in natural order of the file names ("z2" before "z10"). Each slice
+// is 8- or 16-bit unsigned grey or 32-bit IEEE float (SampleFormat 3), as in
+// the TIFF 6.0 specification (Adobe, 1992). Uncompressed and Deflate strips
+// (with or without horizontal-differencing predictor) are decoded by our own
+// baseline reader, which checks every offset against the file size; other
+// 8/16-bit encodings (LZW, PackBits, tiles) go through golang.org/x/image/tiff.
+// Voxel size and time, which TIFF tags do not carry, come from an optional
+// stack.sluice.json inside the directory ({"shape", "dtype", "voxel_size",
+// "time_s"}, all optional; shape and dtype must agree with the slices) or
+// from Options. EncodeTIFF and WriteTIFFStack write uncompressed,
+// little-endian, single-strip baseline TIFF.
+//
+// # Zarr v2
+//
+// A 3-D array per the Zarr storage specification version 2
+// (zarr.readthedocs.io, "Zarr Storage Specification Version 2"): a .zarray
+// JSON document (zarr_format 2, shape, chunks, dtype "|u1", "<u2", ">u2",
+// "<f4" or ">f4", compressor null or {"id": "zstd", "level": N} — zlib and
+// gzip are also read — fill_value, order "C", filters null,
+// dimension_separator "." or "/") and one key per chunk, "iz.iy.ix" or
+// "iz/iy/ix". Chunks are always stored at full chunk shape, edge chunks
+// padded with the fill value; missing chunks read as the fill value. We write
+// "/" separators, little-endian dtypes and .zattrs holding "voxel_size"
+// ("2.5um") and "time_s" besides any caller attributes. The zstd codec is
+// the Zstandard frame format of RFC 8878 (github.com/klauspost/compress/zstd).
+//
+// Storage goes through Bucket, a two-method key-value interface; Dir is a
+// Bucket on a local directory with atomic writes. An object store adapter
+// only needs Get and Put.
+//
+// # Memory layout
+//
+// Volumes are volume.Volume[T] whose Pix is in C order,
+// Pix[((z-z0)*NY + (y-y0))*NX + (x-x0)]; ReadSlab and ReadBox return
+// volumes whose Box holds global coordinates.
+package volio

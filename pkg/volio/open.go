@@ -1,0 +1,160 @@
+package volio
+
+import (
+	"context"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"sluice/pkg/volume"
+)
+
+// DefaultMaxVoxels is the voxel limit used when Options.MaxVoxels is zero:
+// 4·10⁹ voxels, a little over a 1600³ scan.
+const DefaultMaxVoxels = 4_000_000_000
+
+// Options say how to read a volume. Fields a file carries itself (a raw
+// header, TIFF tags, Zarr metadata) take precedence over VoxelSize; Shape,
+// DType, ByteOrder and HeaderBytes must agree with a raw header if both are
+// given.
+type Options struct {
+	// Shape is the raw volume shape (nz, ny, nx).
+	Shape [3]int
+	// DType is the raw voxel type.
+	DType volume.DType
+	// ByteOrder of raw voxels: "little" (default) or "big".
+	ByteOrder string
+	// HeaderBytes is the number of bytes to skip at the start of a raw file.
+	HeaderBytes int64
+	// VoxelSize is the voxel edge in metres, used when the input carries none.
+	VoxelSize float64
+	// MaxVoxels bounds the size of any volume or slab read
+	// (default DefaultMaxVoxels). Inputs above it fail with ErrTooLarge
+	// before anything big is allocated.
+	MaxVoxels int64
+}
+
+func (o Options) limit() int64 {
+	if o.MaxVoxels > 0 {
+		return o.MaxVoxels
+	}
+	return DefaultMaxVoxels
+}
+
+// Header describes a volume without its voxels.
+type Header struct {
+	Format    string // "raw", "tiff" or "zarr"
+	Shape     [3]int // (nz, ny, nx)
+	DType     volume.DType
+	VoxelSize float64 // metres; 0 if unknown
+	TimeS     float64 // acquisition time in seconds, if HasTime
+	HasTime   bool
+}
+
+// Stream reads a volume slab by slab, never holding all of it.
+type Stream interface {
+	// Header returns shape, dtype and voxel size.
+	Header() Header
+	// ReadSlab returns the slices z0 <= z < z1 as a volume whose Box is
+	// [z0:z1, 0:ny, 0:nx] in global coordinates.
+	ReadSlab(z0, z1 int) (volume.Any, error)
+	// Close releases open files.
+	Close() error
+}
+
+// Open reads a whole volume from path, detecting the format:
+//   - a directory containing .zarray: a Zarr v2 array;
+//   - any other directory: a stack of 2-D TIFF slices;
+//   - a file ending in .tif or .tiff: a single slice (nz = 1);
+//   - any other file: raw voxels, described by <path>.sluice.json or opt
+//     (a path ending in .sluice.json names the raw file beside it).
+func Open(path string, opt Options) (volume.Any, error) {
+	s, err := OpenStream(path, opt)
+	if err != nil {
+		return nil, err
+	}
+	defer s.Close()
+	return s.ReadSlab(0, s.Header().Shape[0])
+}
+
+// ReadHeader reads only what is needed to describe the volume at path,
+// validating shape × dtype against the file size and the voxel limit.
+func ReadHeader(path string, opt Options) (Header, error) {
+	s, err := OpenStream(path, opt)
+	if err != nil {
+		return Header{}, err
+	}
+	defer s.Close()
+	return s.Header(), nil
+}
+
+// OpenStream opens the volume at path (formats as for Open) for slab-wise
+// reading. It reads headers only; the voxel limit applies to the whole
+// volume and to each slab.
+func OpenStream(path string, opt Options) (Stream, error) {
+	path = strings.TrimSuffix(path, headerSuffix)
+	fi, err := os.Stat(path)
+	if err != nil {
+		return nil, osErr(path, err)
+	}
+	if fi.IsDir() {
+		if _, err := os.Stat(filepath.Join(path, ".zarray")); err == nil {
+			return openZarrStream(path, opt)
+		}
+		return openStack(path, opt)
+	}
+	if isTIFFName(path) {
+		return openStackFiles(path, []string{path}, false, opt)
+	}
+	return openRaw(path, opt)
+}
+
+// zarrStream adapts a Zarr array to Stream.
+type zarrStream struct {
+	z *Zarr
+	h Header
+}
+
+func openZarrStream(path string, opt Options) (Stream, error) {
+	z, err := OpenZarr(context.Background(), Dir(path), "")
+	if err != nil {
+		return nil, err
+	}
+	z.limit = opt.limit()
+	m := z.Meta()
+	if _, ok := mulLimit(m.Shape, opt.limit()); !ok {
+		return nil, fileErr(path, ErrTooLarge, "Zarr array of %d×%d×%d voxels exceeds the limit of %d",
+			m.Shape[0], m.Shape[1], m.Shape[2], opt.limit())
+	}
+	vs := m.VoxelSize
+	if vs == 0 {
+		vs = opt.VoxelSize
+	}
+	return &zarrStream{z: z, h: Header{Format: "zarr", Shape: m.Shape, DType: m.DType, VoxelSize: vs, TimeS: m.TimeS, HasTime: m.HasTime}}, nil
+}
+
+func (s *zarrStream) Header() Header { return s.h }
+func (s *zarrStream) Close() error   { return nil }
+
+func (s *zarrStream) ReadSlab(z0, z1 int) (volume.Any, error) {
+	if z0 < 0 || z1 > s.h.Shape[0] || z0 >= z1 {
+		return nil, fileErr(string(s.z.bucketName()), ErrFormat, "slab %d:%d outside 0:%d", z0, z1, s.h.Shape[0])
+	}
+	v, err := s.z.ReadBox(context.Background(), volume.Box{Min: [3]int{z0, 0, 0}, Max: [3]int{z1, s.h.Shape[1], s.h.Shape[2]}})
+	if err != nil {
+		return nil, err
+	}
+	setVoxelSize(v, s.h.VoxelSize)
+	return v, nil
+}
+
+func setVoxelSize(v volume.Any, vs float64) {
+	switch t := v.(type) {
+	case *volume.Volume[uint8]:
+		t.VoxelSize = vs
+	case *volume.Volume[uint16]:
+		t.VoxelSize = vs
+	case *volume.Volume[float32]:
+		t.VoxelSize = vs
+	}
+}

@@ -1,0 +1,454 @@
+package volio
+
+import (
+	"bytes"
+	"compress/zlib"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"image"
+	"io"
+	"math"
+
+	xtiff "golang.org/x/image/tiff"
+
+	"sluice/pkg/volume"
+)
+
+// TIFF tag numbers and values used here (TIFF 6.0, Adobe 1992; SampleFormat
+// from the same specification, section 19).
+const (
+	tagImageWidth      = 256
+	tagImageLength     = 257
+	tagBitsPerSample   = 258
+	tagCompression     = 259
+	tagPhotometric     = 262
+	tagStripOffsets    = 273
+	tagSamplesPerPixel = 277
+	tagRowsPerStrip    = 278
+	tagStripByteCounts = 279
+	tagPlanarConfig    = 284
+	tagPredictor       = 317
+	tagTileWidth       = 322
+	tagSampleFormat    = 339
+
+	compNone         = 1
+	compDeflate      = 8
+	compDeflateOld   = 32946
+	photoWhiteIsZero = 0
+	photoBlackIsZero = 1
+	sampleUint       = 1
+	sampleFloat      = 3
+
+	typeShort = 3
+	typeLong  = 4
+)
+
+// tiffInfo is what we need from the first image file directory.
+type tiffInfo struct {
+	order         binary.ByteOrder
+	width, height int
+	bits          int
+	spp           int
+	sampleFormat  int
+	compression   int
+	photometric   int
+	predictor     int
+	rowsPerStrip  int
+	tiled         bool
+	stripOffsets  []uint64
+	stripCounts   []uint64
+}
+
+func (t tiffInfo) dtype() volume.DType {
+	switch {
+	case t.bits == 8 && t.sampleFormat == sampleUint:
+		return volume.Uint8
+	case t.bits == 16 && t.sampleFormat == sampleUint:
+		return volume.Uint16
+	case t.bits == 32 && t.sampleFormat == sampleFloat:
+		return volume.Float32
+	}
+	return 0
+}
+
+// ownPath reports whether our baseline strip reader handles the image;
+// otherwise 8/16-bit images go to golang.org/x/image/tiff.
+func (t tiffInfo) ownPath() bool {
+	return !t.tiled && t.spp == 1 && (t.compression == compNone || t.compression == compDeflate || t.compression == compDeflateOld) &&
+		(t.predictor == 1 || (t.predictor == 2 && t.bits != 32))
+}
+
+var errTIFFShort = errors.New("short")
+
+// readTIFFInfo parses the header and first IFD of a classic TIFF file of the
+// given size. It checks every offset against size and the image against
+// limit voxels before anything proportional to the image is allocated.
+func readTIFFInfo(r io.ReaderAt, size int64, limit int64) (tiffInfo, error) {
+	var t tiffInfo
+	var hdr [8]byte
+	if size < 8 {
+		return t, fmt.Errorf("%w: file of %d bytes is shorter than a TIFF header", ErrTruncated, size)
+	}
+	if _, err := r.ReadAt(hdr[:], 0); err != nil {
+		return t, err
+	}
+	switch string(hdr[:4]) {
+	case "II*\x00":
+		t.order = binary.LittleEndian
+	case "MM\x00*":
+		t.order = binary.BigEndian
+	case "II+\x00", "MM\x00+":
+		return t, fmt.Errorf("%w: BigTIFF is not supported", ErrFormat)
+	default:
+		return t, fmt.Errorf("%w: not a TIFF file (magic % x)", ErrFormat, hdr[:4])
+	}
+	ifd := int64(t.order.Uint32(hdr[4:]))
+	if ifd < 8 || ifd+2 > size {
+		return t, fmt.Errorf("%w: IFD offset %d outside the file of %d bytes", ErrTruncated, ifd, size)
+	}
+	var nb [2]byte
+	if _, err := r.ReadAt(nb[:], ifd); err != nil {
+		return t, err
+	}
+	n := int64(t.order.Uint16(nb[:]))
+	if n == 0 || ifd+2+12*n > size {
+		return t, fmt.Errorf("%w: IFD of %d entries at %d does not fit in %d bytes", ErrTruncated, n, ifd, size)
+	}
+	entries := make([]byte, 12*n)
+	if _, err := r.ReadAt(entries, ifd+2); err != nil {
+		return t, err
+	}
+	t.spp, t.sampleFormat, t.compression, t.photometric, t.predictor = 1, sampleUint, compNone, -1, 1
+	bitsSeen := false
+	for i := int64(0); i < n; i++ {
+		e := entries[12*i : 12*i+12]
+		tag := t.order.Uint16(e)
+		typ := t.order.Uint16(e[2:])
+		count := int64(t.order.Uint32(e[4:]))
+		// values reads the entry's SHORT or LONG values; max bounds count.
+		values := func(max int64) ([]uint64, error) {
+			var sz int64
+			switch typ {
+			case typeShort:
+				sz = 2
+			case typeLong:
+				sz = 4
+			default:
+				return nil, fmt.Errorf("%w: tag %d has type %d, want SHORT or LONG", ErrFormat, tag, typ)
+			}
+			if count < 1 || count > max {
+				return nil, fmt.Errorf("%w: tag %d has %d values, want 1 to %d", ErrFormat, tag, count, max)
+			}
+			raw := e[8:12]
+			if count*sz > 4 {
+				off := int64(t.order.Uint32(e[8:]))
+				if off+count*sz > size {
+					return nil, fmt.Errorf("%w: tag %d values at %d+%d beyond the file of %d bytes", ErrTruncated, tag, off, count*sz, size)
+				}
+				raw = make([]byte, count*sz)
+				if _, err := r.ReadAt(raw, off); err != nil {
+					return nil, err
+				}
+			}
+			out := make([]uint64, count)
+			for k := range out {
+				if sz == 2 {
+					out[k] = uint64(t.order.Uint16(raw[2*k:]))
+				} else {
+					out[k] = uint64(t.order.Uint32(raw[4*k:]))
+				}
+			}
+			return out, nil
+		}
+		one := func() (int, error) {
+			v, err := values(4)
+			if err != nil {
+				return 0, err
+			}
+			return int(v[0]), nil
+		}
+		var err error
+		switch tag {
+		case tagImageWidth:
+			t.width, err = one()
+		case tagImageLength:
+			t.height, err = one()
+		case tagBitsPerSample:
+			var v []uint64
+			v, err = values(4)
+			if err == nil {
+				t.bits, bitsSeen = int(v[0]), true
+				for _, b := range v {
+					if int(b) != t.bits {
+						err = fmt.Errorf("%w: mixed bits per sample %v", ErrFormat, v)
+					}
+				}
+			}
+		case tagCompression:
+			t.compression, err = one()
+		case tagPhotometric:
+			t.photometric, err = one()
+		case tagSamplesPerPixel:
+			t.spp, err = one()
+		case tagRowsPerStrip:
+			t.rowsPerStrip, err = one()
+		case tagPredictor:
+			t.predictor, err = one()
+		case tagSampleFormat:
+			t.sampleFormat, err = one()
+		case tagTileWidth:
+			t.tiled = true
+		case tagStripOffsets:
+			// Each strip holds at least one row, so there are at most
+			// size/4 of them in any file that fits (checked again below).
+			t.stripOffsets, err = values(size / 2)
+		case tagStripByteCounts:
+			t.stripCounts, err = values(size / 2)
+		}
+		if err != nil {
+			return t, err
+		}
+	}
+	if !bitsSeen {
+		t.bits = 1
+	}
+	if t.width < 1 || t.height < 1 {
+		return t, fmt.Errorf("%w: image of %d×%d pixels", ErrFormat, t.width, t.height)
+	}
+	if _, ok := mulLimit([3]int{1, t.height, t.width}, limit); !ok {
+		return t, fmt.Errorf("%w: slice of %d×%d pixels exceeds the limit of %d voxels", ErrTooLarge, t.width, t.height, limit)
+	}
+	if t.spp != 1 {
+		return t, fmt.Errorf("%w: %d samples per pixel, want 1 (grey)", ErrFormat, t.spp)
+	}
+	if t.photometric != photoBlackIsZero && t.photometric != photoWhiteIsZero {
+		return t, fmt.Errorf("%w: photometric interpretation %d, want grey (0 or 1)", ErrFormat, t.photometric)
+	}
+	if t.dtype() == 0 {
+		return t, fmt.Errorf("%w: %d-bit samples of format %d, want 8/16-bit unsigned or 32-bit float", ErrFormat, t.bits, t.sampleFormat)
+	}
+	if t.photometric == photoWhiteIsZero && t.bits == 32 {
+		return t, fmt.Errorf("%w: white-is-zero float image", ErrFormat)
+	}
+	if !t.tiled {
+		if t.rowsPerStrip < 1 || t.rowsPerStrip > t.height {
+			t.rowsPerStrip = t.height
+		}
+		strips := (t.height + t.rowsPerStrip - 1) / t.rowsPerStrip
+		if len(t.stripOffsets) != strips || len(t.stripCounts) != strips {
+			return t, fmt.Errorf("%w: %d strip offsets and %d byte counts for %d strips", ErrFormat, len(t.stripOffsets), len(t.stripCounts), strips)
+		}
+		for k := range t.stripOffsets {
+			if t.stripOffsets[k]+t.stripCounts[k] > uint64(size) {
+				return t, fmt.Errorf("%w: strip %d at %d+%d beyond the file of %d bytes", ErrTruncated, k, t.stripOffsets[k], t.stripCounts[k], size)
+			}
+		}
+	}
+	return t, nil
+}
+
+// decodeTIFF reads the first image of the TIFF in r (of size bytes) into the
+// z-slice z of v, whose y and x extents must equal the image's.
+func decodeTIFF(r io.ReaderAt, size int64, t tiffInfo, v volume.Any, z int) error {
+	if t.ownPath() {
+		return decodeStrips(r, t, v, z)
+	}
+	if t.bits == 32 {
+		return fmt.Errorf("%w: float TIFF with compression %d, predictor %d or tiles is not supported", ErrFormat, t.compression, t.predictor)
+	}
+	img, err := xtiff.Decode(io.NewSectionReader(r, 0, size))
+	if err != nil {
+		return fmt.Errorf("%w: %v", ErrFormat, err)
+	}
+	b := img.Bounds()
+	if b.Dx() != t.width || b.Dy() != t.height {
+		return fmt.Errorf("%w: decoded %v, header says %d×%d", ErrFormat, b, t.width, t.height)
+	}
+	off := pixOffset(v, z, 0, 0)
+	switch m := img.(type) {
+	case *image.Gray:
+		vv, ok := v.(*volume.Volume[uint8])
+		if !ok {
+			return fmt.Errorf("%w: 8-bit image into a %v volume", ErrFormat, v.DType())
+		}
+		for y := 0; y < t.height; y++ {
+			copy(vv.Pix[off+y*t.width:][:t.width], m.Pix[y*m.Stride:][:t.width])
+		}
+	case *image.Gray16:
+		vv, ok := v.(*volume.Volume[uint16])
+		if !ok {
+			return fmt.Errorf("%w: 16-bit image into a %v volume", ErrFormat, v.DType())
+		}
+		for y := 0; y < t.height; y++ {
+			row := m.Pix[y*m.Stride:]
+			for x := 0; x < t.width; x++ {
+				vv.Pix[off+y*t.width+x] = uint16(row[2*x])<<8 | uint16(row[2*x+1])
+			}
+		}
+	default:
+		return fmt.Errorf("%w: decoded a %T, want grey", ErrFormat, img)
+	}
+	return nil
+}
+
+// decodeStrips reads uncompressed or Deflate strips (baseline TIFF 6.0,
+// section 3 and 9; Deflate per the Adobe TIFF technical note 2002) with
+// predictor 1 or 2 (horizontal differencing, section 14).
+func decodeStrips(r io.ReaderAt, t tiffInfo, v volume.Any, z int) error {
+	bps := t.bits / 8
+	rowBytes := t.width * bps
+	off := pixOffset(v, z, 0, 0)
+	var buf []byte
+	for k := range t.stripOffsets {
+		y0 := k * t.rowsPerStrip
+		rows := min(t.rowsPerStrip, t.height-y0)
+		want := rows * rowBytes
+		if cap(buf) < want {
+			buf = make([]byte, want)
+		}
+		buf = buf[:want]
+		sr := io.NewSectionReader(r, int64(t.stripOffsets[k]), int64(t.stripCounts[k]))
+		if t.compression == compNone {
+			if int(t.stripCounts[k]) < want {
+				return fmt.Errorf("%w: strip %d has %d bytes, want %d", ErrTruncated, k, t.stripCounts[k], want)
+			}
+			if _, err := io.ReadFull(sr, buf); err != nil {
+				return fmt.Errorf("%w: strip %d: %v", ErrTruncated, k, err)
+			}
+		} else {
+			zr, err := zlib.NewReader(sr)
+			if err != nil {
+				return fmt.Errorf("%w: strip %d: %v", ErrFormat, k, err)
+			}
+			_, err = io.ReadFull(zr, buf)
+			zr.Close()
+			if err != nil {
+				return fmt.Errorf("%w: strip %d inflates to fewer than %d bytes: %v", ErrTruncated, k, want, err)
+			}
+		}
+		if t.predictor == 2 {
+			undoHorizontal(buf, rows, t.width, bps, t.order)
+		}
+		decodeAt(v, off+y0*t.width, buf, t.order)
+	}
+	if t.photometric == photoWhiteIsZero {
+		invert(v, off, t.width*t.height)
+	}
+	return nil
+}
+
+// undoHorizontal reverses TIFF predictor 2 on rows of 8- or 16-bit samples.
+func undoHorizontal(buf []byte, rows, width, bps int, o binary.ByteOrder) {
+	for y := 0; y < rows; y++ {
+		row := buf[y*width*bps:][:width*bps]
+		if bps == 1 {
+			for x := 1; x < width; x++ {
+				row[x] += row[x-1]
+			}
+			continue
+		}
+		for x := 1; x < width; x++ {
+			o.PutUint16(row[2*x:], o.Uint16(row[2*x:])+o.Uint16(row[2*x-2:]))
+		}
+	}
+}
+
+func invert(v volume.Any, off, n int) {
+	switch t := v.(type) {
+	case *volume.Volume[uint8]:
+		for i := off; i < off+n; i++ {
+			t.Pix[i] = math.MaxUint8 - t.Pix[i]
+		}
+	case *volume.Volume[uint16]:
+		for i := off; i < off+n; i++ {
+			t.Pix[i] = math.MaxUint16 - t.Pix[i]
+		}
+	}
+}
+
+// EncodeTIFF writes slice z of v as a baseline, uncompressed, little-endian
+// TIFF with one strip: 8- or 16-bit unsigned grey, or 32-bit IEEE float
+// (SampleFormat 3).
+func EncodeTIFF(w io.Writer, v volume.Any, z int) error {
+	if err := checkVolume(v); err != nil {
+		return fmt.Errorf("volio: %v", err)
+	}
+	b := v.Bounds()
+	if z < b.Min[0] || z >= b.Max[0] {
+		return fmt.Errorf("volio: slice %d outside %v", z, b)
+	}
+	s := b.Size()
+	height, width := s[1], s[2]
+	bps := v.DType().Size()
+	data := int64(width) * int64(height) * int64(bps)
+	if data > math.MaxUint32-1024 {
+		return fmt.Errorf("volio: slice of %d bytes is too big for a classic TIFF", data)
+	}
+	format := sampleUint
+	if v.DType() == volume.Float32 {
+		format = sampleFloat
+	}
+	type entry struct{ tag, typ, val uint32 }
+	entries := []entry{ // sorted by tag, as TIFF requires
+		{tagImageWidth, typeLong, uint32(width)},
+		{tagImageLength, typeLong, uint32(height)},
+		{tagBitsPerSample, typeShort, uint32(8 * bps)},
+		{tagCompression, typeShort, compNone},
+		{tagPhotometric, typeShort, photoBlackIsZero},
+		{tagStripOffsets, typeLong, 0}, // patched below
+		{tagSamplesPerPixel, typeShort, 1},
+		{tagRowsPerStrip, typeLong, uint32(height)},
+		{tagStripByteCounts, typeLong, uint32(data)},
+		{tagPlanarConfig, typeShort, 1},
+		{tagSampleFormat, typeShort, uint32(format)},
+	}
+	le := binary.LittleEndian
+	ifdLen := 2 + 12*len(entries) + 4
+	pixOff := 8 + ifdLen
+	head := make([]byte, pixOff)
+	copy(head, "II*\x00")
+	le.PutUint32(head[4:], 8)
+	le.PutUint16(head[8:], uint16(len(entries)))
+	for i, e := range entries {
+		p := head[10+12*i:]
+		le.PutUint16(p, uint16(e.tag))
+		le.PutUint16(p[2:], uint16(e.typ))
+		le.PutUint32(p[4:], 1)
+		if e.tag == tagStripOffsets {
+			e.val = uint32(pixOff)
+		}
+		if e.typ == typeShort {
+			le.PutUint16(p[8:], uint16(e.val))
+		} else {
+			le.PutUint32(p[8:], e.val)
+		}
+	}
+	// next IFD offset = 0 (already zero)
+	if _, err := w.Write(head); err != nil {
+		return err
+	}
+	row := make([]byte, width*bps)
+	for y := 0; y < height; y++ {
+		encodeAt(row, v, pixOffset(v, z, b.Min[1]+y, b.Min[2]), le)
+		if _, err := w.Write(row); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// decodeTIFFBytes reads a single-slice TIFF held in memory (used by the
+// fuzz test and handy for small slices).
+func decodeTIFFBytes(data []byte, limit int64) (volume.Any, error) {
+	r := bytes.NewReader(data)
+	t, err := readTIFFInfo(r, int64(len(data)), limit)
+	if err != nil {
+		return nil, err
+	}
+	v := newVolume(t.dtype(), volume.BoxOf(1, t.height, t.width), 0)
+	if err := decodeTIFF(r, int64(len(data)), t, v, 0); err != nil {
+		return nil, err
+	}
+	return v, nil
+}
