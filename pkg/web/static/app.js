@@ -1,0 +1,206 @@
+// sluice live page: fetches the series of a campaign, draws it on canvases
+// and redraws when the server announces a completed step (server-sent
+// events). Hand-written; no external libraries.
+"use strict";
+
+// Line colours, chosen to stay distinct for the common red–green colour
+// vision deficiencies: they differ in lightness as well as hue (dark blue,
+// amber, dark magenta, light sky) and every series also has its own marker.
+const C = { a: "#1d3f8f", b: "#d98a00", c: "#8c2d73", d: "#4aa3d8", grid: "#e4e4e4", axis: "#555" };
+
+const state = { campaign: null, series: [], steps: [], events: [], lastStep: null };
+
+function qs(id) { return document.getElementById(id); }
+function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }
+function fmt(v, d) { return v === null || v === undefined ? "—" : Number(v).toFixed(d); }
+
+async function getJSON(url) {
+  const r = await fetch(url, { cache: "no-store" });
+  if (!r.ok) throw new Error(url + ": " + r.status);
+  return r.json();
+}
+
+// ---- plotting -------------------------------------------------------------
+
+function niceRange(lo, hi) {
+  if (lo === hi) { const d = Math.abs(lo) * 0.1 || 1; lo -= d; hi += d; }
+  const span = hi - lo, step = Math.pow(10, Math.floor(Math.log10(span / 4)));
+  const m = [1, 2, 5, 10].find(k => span / (k * step) <= 6) * step;
+  return { lo: Math.floor(lo / m) * m, hi: Math.ceil(hi / m) * m, step: m };
+}
+
+// plot draws series = [{name, color, marker, pts: [[x,y],...], line: bool}]
+// with labelled axes, and records the number of drawn points on the canvas
+// (data-points) so tests and people can tell an empty plot from a full one.
+function plot(canvas, series, xlabel, ylabel, opts = {}) {
+  const ctx = canvas.getContext("2d"), W = canvas.width, H = canvas.height;
+  const L = 62, R = 12, T = 12, B = 40;
+  ctx.clearRect(0, 0, W, H);
+  const all = series.flatMap(s => s.pts.filter(p => num(p[0]) !== null && num(p[1]) !== null));
+  canvas.dataset.points = String(all.length);
+  ctx.font = "12px system-ui, sans-serif";
+  if (all.length === 0) {
+    ctx.fillStyle = C.axis; ctx.fillText("waiting for data…", W / 2 - 50, H / 2); return;
+  }
+  const xs = niceRange(opts.xmin ?? Math.min(...all.map(p => p[0])), opts.xmax ?? Math.max(...all.map(p => p[0])));
+  const ys = niceRange(opts.ymin ?? Math.min(...all.map(p => p[1])), opts.ymax ?? Math.max(...all.map(p => p[1])));
+  const X = x => L + (x - xs.lo) / (xs.hi - xs.lo) * (W - L - R);
+  const Y = y => H - B - (y - ys.lo) / (ys.hi - ys.lo) * (H - T - B);
+  ctx.strokeStyle = C.grid; ctx.fillStyle = C.axis; ctx.lineWidth = 1;
+  for (let x = xs.lo; x <= xs.hi + xs.step / 2; x += xs.step) {
+    ctx.beginPath(); ctx.moveTo(X(x), T); ctx.lineTo(X(x), H - B); ctx.stroke();
+    ctx.fillText(+x.toPrecision(6) + "", X(x) - 10, H - B + 14);
+  }
+  for (let y = ys.lo; y <= ys.hi + ys.step / 2; y += ys.step) {
+    ctx.beginPath(); ctx.moveTo(L, Y(y)); ctx.lineTo(W - R, Y(y)); ctx.stroke();
+    ctx.fillText(+y.toPrecision(6) + "", 4, Y(y) + 4);
+  }
+  ctx.strokeStyle = C.axis; ctx.strokeRect(L, T, W - L - R, H - T - B);
+  ctx.fillText(xlabel, L + (W - L - R) / 2 - xlabel.length * 3, H - 6);
+  ctx.save(); ctx.translate(12, T + (H - T - B) / 2 + ylabel.length * 3); ctx.rotate(-Math.PI / 2);
+  ctx.fillText(ylabel, 0, 0); ctx.restore();
+  let lx = L + 8;
+  for (const s of series) {
+    const pts = s.pts.filter(p => num(p[0]) !== null && num(p[1]) !== null);
+    ctx.strokeStyle = s.color; ctx.fillStyle = s.color; ctx.lineWidth = 2;
+    if (s.bars) {
+      const bw = Math.max(1, (X(xs.lo + 1) - X(xs.lo)) * 0.9);
+      ctx.globalAlpha = s.alpha ?? 1;
+      for (const p of pts) ctx.fillRect(X(p[0]), Y(p[1]), bw, Y(ys.lo) - Y(p[1]));
+      ctx.globalAlpha = 1;
+    } else {
+      if (s.line !== false && pts.length > 1) {
+        ctx.beginPath(); pts.forEach((p, i) => i ? ctx.lineTo(X(p[0]), Y(p[1])) : ctx.moveTo(X(p[0]), Y(p[1]))); ctx.stroke();
+      }
+      for (const p of pts) marker(ctx, s.marker, X(p[0]), Y(p[1]));
+    }
+    ctx.fillRect(lx, T + 6, 14, 4); ctx.fillStyle = C.axis; ctx.fillText(s.name, lx + 18, T + 12);
+    lx += 30 + ctx.measureText(s.name).width;
+  }
+}
+
+function marker(ctx, kind, x, y) {
+  ctx.beginPath();
+  if (kind === "square") ctx.rect(x - 3, y - 3, 6, 6);
+  else if (kind === "triangle") { ctx.moveTo(x, y - 4); ctx.lineTo(x + 4, y + 3); ctx.lineTo(x - 4, y + 3); ctx.closePath(); }
+  else if (kind === "diamond") { ctx.moveTo(x, y - 4); ctx.lineTo(x + 4, y); ctx.lineTo(x, y + 4); ctx.lineTo(x - 4, y); ctx.closePath(); }
+  else ctx.arc(x, y, 3, 0, 2 * Math.PI);
+  ctx.fill();
+}
+
+// ---- panels ---------------------------------------------------------------
+
+function col(key, scale = 1) { return state.series.map(r => [r.time_s, num(r[key]) === null ? null : r[key] * scale]); }
+function pair(kx, ky, sy = 1) { return state.series.map(r => [num(r[kx]), num(r[ky]) === null ? null : r[ky] * sy]); }
+
+function draw() {
+  plot(qs("plot-sat"), [
+    { name: "S_w", color: C.a, marker: "circle", pts: col("saturation_wetting") },
+    { name: "S_n", color: C.b, marker: "square", pts: col("saturation_nonwetting") }], "time (s)", "saturation (–)", { ymin: 0, ymax: 1 });
+  plot(qs("plot-pc"), [
+    { name: "Pc mean", color: C.c, marker: "circle", pts: col("capillary_pressure_pa", 1e-3) },
+    { name: "Pc median", color: C.d, marker: "triangle", pts: col("capillary_pressure_median_pa", 1e-3) }], "time (s)", "Pc (kPa)");
+  plot(qs("plot-awn"), [{ name: "a_wn", color: C.a, marker: "diamond", pts: col("specific_area_wn_per_m", 1e-3) }], "time (s)", "a_wn (1/mm)");
+  plot(qs("plot-pcs"), [{ name: "Pc(S_w)", color: C.c, marker: "circle", pts: pair("saturation_wetting", "capillary_pressure_pa", 1e-3) }], "S_w (–)", "Pc (kPa)", { xmin: 0, xmax: 1 });
+  plot(qs("plot-as"), [{ name: "a_wn(S_w)", color: C.a, marker: "square", pts: pair("saturation_wetting", "specific_area_wn_per_m", 1e-3) }], "S_w (–)", "a_wn (1/mm)", { xmin: 0, xmax: 1 });
+  const last = state.series[state.series.length - 1];
+  const run = new Array(180).fill(0);
+  let nrun = 0;
+  for (const r of state.series) (r.contact_angle_histogram || []).forEach((c, i) => { run[i] += c; nrun += c; });
+  const lh = (last && last.contact_angle_histogram) || [];
+  const nl = lh.reduce((a, b) => a + b, 0);
+  plot(qs("plot-angle"), [
+    { name: "all steps", color: C.d, bars: true, alpha: 0.6, pts: run.map((c, i) => [i, nrun ? c / nrun : 0]) },
+    { name: "latest step", color: C.c, marker: "circle", line: true, pts: nl ? lh.map((c, i) => [i + 0.5, c / nl]) : [] }],
+    "contact angle θ through wetting phase (°)", "fraction per 1°", { xmin: 0, xmax: 180, ymin: 0 });
+  plot(qs("plot-ganglia"), [
+    { name: "ganglia count / 100", color: C.b, marker: "square", pts: col("ganglia_count", 0.01) },
+    { name: "largest-cluster fraction", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], "time (s)", "count/100, fraction", { ymin: 0 });
+  const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s, s.latency_s]);
+  plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], "time (s)", "ingest → series (s)", { ymin: 0 });
+  summary(last);
+  stepsTable();
+  banners();
+}
+
+function summary(r) {
+  const s = qs("summary");
+  if (!r) { s.innerHTML = "<div>No completed step yet.</div>"; return; }
+  const items = [
+    ["latest step", r.step], ["time", fmt(r.time_s, 0) + " s"], ["porosity", fmt(r.porosity, 3)],
+    ["S_w", fmt(r.saturation_wetting, 3)], ["Pc", r.capillary_pressure_pa === null ? "— (no σ)" : fmt(r.capillary_pressure_pa / 1e3, 2) + " kPa"],
+    ["θ mean ± sd", fmt(r.contact_angle_mean_deg, 1) + " ± " + fmt(r.contact_angle_std_deg, 1) + "°"],
+    ["ganglia", r.ganglia_count], ["percolating", r.nonwetting_percolates ? "yes" : "no"], ["voxel", fmt(r.voxel_size_m * 1e6, 2) + " µm"]];
+  s.innerHTML = items.map(([k, v]) => `<div>${k}<b>${v}</b></div>`).join("");
+}
+
+function stepsTable() {
+  const tb = qs("steps").querySelector("tbody");
+  tb.innerHTML = state.steps.slice().reverse().map(s =>
+    `<tr><td>${s.step}</td><td>${fmt(s.time_s, 0)}</td><td class="${s.status}">${s.status}</td><td>${s.tiles_done}/${s.tiles_total}</td><td>${s.latency_s ? fmt(s.latency_s, 1) : ""}</td><td>${s.reason || ""}</td></tr>`).join("");
+}
+
+function banners() {
+  const b = [];
+  const failed = state.steps.filter(s => s.status === "failed");
+  const inflight = state.steps.filter(s => s.status === "processing" || s.status === "ingested");
+  for (const e of state.events) b.push(["banner-event", `${e.kind === "breakthrough" ? "Breakthrough" : "Steady state"} at step ${e.step} (t = ${fmt(e.time_s, 0)} s): ${e.detail || ""}`]);
+  for (const f of failed) b.push(["banner-fail", `Step ${f.step} failed: ${f.reason}`]);
+  if (inflight.length) b.push(["banner-info", `Processing ${inflight.map(s => s.step + " (" + s.tiles_done + "/" + s.tiles_total + " tiles)").join(", ")}`]);
+  else if (state.series.length) b.push(["banner-info", `Up to date: ${state.series.length} steps measured.`]);
+  else b.push(["banner-info", "Waiting for the first scan."]);
+  qs("banners").innerHTML = b.map(([c, t]) => `<div class="${c}">${t}</div>`).join("");
+}
+
+async function health() {
+  try {
+    const h = await getJSON("/api/health");
+    qs("health").innerHTML = `<div>queue (live / batch)<b>${h.queue_live} / ${h.queue_batch}</b></div><div>tiles/s<b>${fmt(h.tiles_per_s, 2)}</b></div><div>latest step latency<b>${fmt(h.step_latency_s, 1)} s</b></div><div>version<b>${h.version}</b></div>`;
+  } catch (e) { /* shown by the connection pill */ }
+}
+
+async function refresh() {
+  if (!state.campaign) return;
+  const c = encodeURIComponent(state.campaign);
+  const [series, steps, events] = await Promise.all([
+    getJSON(`/api/campaigns/${c}/series.json`).catch(() => []),
+    getJSON(`/api/campaigns/${c}/steps`).catch(() => []),
+    getJSON(`/api/campaigns/${c}/events`).catch(() => [])]);
+  state.series = series || []; state.steps = steps || []; state.events = events || [];
+  qs("csv").href = `/api/campaigns/${c}/series.csv`; qs("json").href = `/api/campaigns/${c}/series.json`;
+  const last = state.series[state.series.length - 1];
+  if (last && last.step !== state.lastStep) {
+    state.lastStep = last.step;
+    qs("preview").src = `/api/campaigns/${c}/steps/${encodeURIComponent(last.step)}/preview.png?t=${Date.now()}`;
+    qs("preview-step").textContent = `(step ${last.step})`;
+  }
+  draw();
+  health();
+}
+
+async function campaigns() {
+  const list = await getJSON("/api/campaigns").catch(() => []);
+  const sel = qs("campaign");
+  const want = new URLSearchParams(location.search).get("campaign");
+  const names = list.map(c => c.name);
+  if (sel.options.length !== names.length) sel.innerHTML = names.map(n => `<option>${n}</option>`).join("");
+  if (!state.campaign && names.length) state.campaign = names.includes(want) ? want : names[0];
+  sel.value = state.campaign || "";
+  qs("campaign-name").textContent = state.campaign || "(no campaign yet)";
+}
+
+function connect() {
+  const es = new EventSource("/api/stream");
+  es.addEventListener("hello", () => { qs("conn").textContent = "live"; qs("conn").className = "pill ok"; });
+  es.addEventListener("step", async () => { await campaigns(); refresh(); });
+  es.addEventListener("progress", () => refresh());
+  es.addEventListener("event", () => refresh());
+  es.onerror = () => { qs("conn").textContent = "reconnecting…"; qs("conn").className = "pill bad"; };
+}
+
+qs("campaign").addEventListener("change", e => { state.campaign = e.target.value; state.lastStep = null; refresh(); });
+(async function main() {
+  await campaigns(); await refresh(); connect();
+  // A slow poll as well, so the page recovers if an event was missed.
+  setInterval(async () => { await campaigns(); refresh(); }, 10000);
+})();

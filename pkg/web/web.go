@@ -1,0 +1,234 @@
+// Package web serves the live view of a running displacement experiment:
+// a JSON API over campaigns, steps, series, results and previews, a
+// server-sent-event stream that announces completed steps and experiment
+// events, and a page (embedded in the binary, no separate front end) that
+// plots the series as they grow.
+package web
+
+import (
+	"context"
+	"embed"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io/fs"
+	"log/slog"
+	"net/http"
+	"strconv"
+	"strings"
+	"sync"
+	"time"
+)
+
+//go:embed static
+var static embed.FS
+
+// CampaignInfo summarises one campaign for the campaign list.
+type CampaignInfo struct {
+	Name       string  `json:"name"`
+	Steps      int     `json:"steps"`
+	Done       int     `json:"done"`
+	Failed     int     `json:"failed"`
+	LatestStep string  `json:"latest_step,omitempty"`
+	LatestTime float64 `json:"latest_time_s"`
+	ParamHash  string  `json:"param_hash,omitempty"`
+}
+
+// StepStatus is the state of one step.
+type StepStatus struct {
+	Step       string  `json:"step"`
+	TimeS      float64 `json:"time_s"`
+	Status     string  `json:"status"` // ingested, processing, done, failed
+	Reason     string  `json:"reason,omitempty"`
+	TilesDone  int     `json:"tiles_done"`
+	TilesTotal int     `json:"tiles_total"`
+	LatencyS   float64 `json:"latency_s,omitempty"`
+}
+
+// Health is the pipeline health shown on the page.
+type Health struct {
+	QueueLive    int64   `json:"queue_live"`
+	QueueBatch   int64   `json:"queue_batch"`
+	TilesPerS    float64 `json:"tiles_per_s"`
+	StepLatencyS float64 `json:"step_latency_s"` // latest step
+	Workers      int     `json:"workers"`
+	Uptime       float64 `json:"uptime_s"`
+	Version      string  `json:"version"`
+}
+
+// Source is what the aggregator provides to the web view. Errors wrapping
+// fs.ErrNotExist become 404.
+type Source interface {
+	Campaigns(ctx context.Context) ([]CampaignInfo, error)
+	Steps(ctx context.Context, campaign string) ([]StepStatus, error)
+	SeriesJSON(ctx context.Context, campaign string) ([]byte, error)
+	SeriesCSV(ctx context.Context, campaign string) ([]byte, error)
+	Result(ctx context.Context, campaign, step string) ([]byte, error)
+	Events(ctx context.Context, campaign string) ([]byte, error)
+	// Preview renders the three orthogonal slices through point (z, y, x);
+	// a negative coordinate means the centre.
+	Preview(ctx context.Context, campaign, step string, point [3]int) ([]byte, error)
+	Health(ctx context.Context) Health
+}
+
+// Hub fans messages out to server-sent-event clients.
+type Hub struct {
+	mu      sync.Mutex
+	clients map[chan []byte]struct{}
+}
+
+// NewHub returns an empty hub.
+func NewHub() *Hub { return &Hub{clients: map[chan []byte]struct{}{}} }
+
+// Publish sends an event of the given kind with a JSON body to every client;
+// slow clients miss messages rather than block the aggregator.
+func (h *Hub) Publish(kind string, v any) {
+	b, err := json.Marshal(v)
+	if err != nil {
+		return
+	}
+	msg := []byte(fmt.Sprintf("event: %s\ndata: %s\n\n", kind, b))
+	h.mu.Lock()
+	defer h.mu.Unlock()
+	for c := range h.clients {
+		select {
+		case c <- msg:
+		default:
+		}
+	}
+}
+
+func (h *Hub) subscribe() chan []byte {
+	c := make(chan []byte, 64)
+	h.mu.Lock()
+	h.clients[c] = struct{}{}
+	h.mu.Unlock()
+	return c
+}
+
+func (h *Hub) unsubscribe(c chan []byte) {
+	h.mu.Lock()
+	delete(h.clients, c)
+	h.mu.Unlock()
+}
+
+// Handler returns the routes of the live view on a new mux; extra routes
+// (metrics, health) can be added by the caller.
+func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
+	if log == nil {
+		log = slog.Default()
+	}
+	mux := http.NewServeMux()
+	sub, _ := fs.Sub(static, "static")
+	files := http.FileServerFS(sub)
+	mux.Handle("GET /", files)
+	mux.HandleFunc("GET /api/campaigns", func(w http.ResponseWriter, r *http.Request) {
+		v, err := src.Campaigns(r.Context())
+		writeJSON(w, v, err)
+	})
+	mux.HandleFunc("GET /api/campaigns/{c}/steps", func(w http.ResponseWriter, r *http.Request) {
+		v, err := src.Steps(r.Context(), r.PathValue("c"))
+		writeJSON(w, v, err)
+	})
+	mux.HandleFunc("GET /api/campaigns/{c}/series.json", func(w http.ResponseWriter, r *http.Request) {
+		b, err := src.SeriesJSON(r.Context(), r.PathValue("c"))
+		writeBytes(w, "application/json", b, err)
+	})
+	mux.HandleFunc("GET /api/campaigns/{c}/series.csv", func(w http.ResponseWriter, r *http.Request) {
+		b, err := src.SeriesCSV(r.Context(), r.PathValue("c"))
+		if err == nil {
+			w.Header().Set("Content-Disposition", fmt.Sprintf("attachment; filename=%q", r.PathValue("c")+"-series.csv"))
+		}
+		writeBytes(w, "text/csv; charset=utf-8", b, err)
+	})
+	mux.HandleFunc("GET /api/campaigns/{c}/events", func(w http.ResponseWriter, r *http.Request) {
+		b, err := src.Events(r.Context(), r.PathValue("c"))
+		writeBytes(w, "application/json", b, err)
+	})
+	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/result", func(w http.ResponseWriter, r *http.Request) {
+		b, err := src.Result(r.Context(), r.PathValue("c"), r.PathValue("s"))
+		writeBytes(w, "application/json", b, err)
+	})
+	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/preview.png", func(w http.ResponseWriter, r *http.Request) {
+		p := [3]int{-1, -1, -1}
+		for i, k := range []string{"z", "y", "x"} {
+			if s := r.URL.Query().Get(k); s != "" {
+				n, err := strconv.Atoi(s)
+				if err != nil || n < 0 {
+					http.Error(w, "bad "+k, http.StatusBadRequest)
+					return
+				}
+				p[i] = n
+			}
+		}
+		b, err := src.Preview(r.Context(), r.PathValue("c"), r.PathValue("s"), p)
+		if err == nil {
+			w.Header().Set("Cache-Control", "max-age=60")
+		}
+		writeBytes(w, "image/png", b, err)
+	})
+	mux.HandleFunc("GET /api/health", func(w http.ResponseWriter, r *http.Request) {
+		writeJSON(w, src.Health(r.Context()), nil)
+	})
+	mux.HandleFunc("GET /api/stream", func(w http.ResponseWriter, r *http.Request) {
+		fl, ok := w.(http.Flusher)
+		if !ok {
+			http.Error(w, "streaming unsupported", http.StatusInternalServerError)
+			return
+		}
+		w.Header().Set("Content-Type", "text/event-stream")
+		w.Header().Set("Cache-Control", "no-cache")
+		c := hub.subscribe()
+		defer hub.unsubscribe(c)
+		fmt.Fprintf(w, "event: hello\ndata: {}\n\n")
+		fl.Flush()
+		tick := time.NewTicker(15 * time.Second)
+		defer tick.Stop()
+		for {
+			select {
+			case <-r.Context().Done():
+				return
+			case msg := <-c:
+				w.Write(msg)
+				fl.Flush()
+			case <-tick.C:
+				fmt.Fprintf(w, ": keep-alive\n\n")
+				fl.Flush()
+			}
+		}
+	})
+	return mux
+}
+
+func status(err error) int {
+	switch {
+	case errors.Is(err, fs.ErrNotExist):
+		return http.StatusNotFound
+	case errors.Is(err, ErrBadRequest):
+		return http.StatusBadRequest
+	}
+	return http.StatusInternalServerError
+}
+
+// ErrBadRequest marks errors caused by the request (bad names, points).
+var ErrBadRequest = errors.New("bad request")
+
+func writeJSON(w http.ResponseWriter, v any, err error) {
+	if err != nil {
+		http.Error(w, oneLine(err), status(err))
+		return
+	}
+	w.Header().Set("Content-Type", "application/json")
+	json.NewEncoder(w).Encode(v)
+}
+
+func writeBytes(w http.ResponseWriter, ctype string, b []byte, err error) {
+	if err != nil {
+		http.Error(w, oneLine(err), status(err))
+		return
+	}
+	w.Header().Set("Content-Type", ctype)
+	w.Write(b)
+}
+
+func oneLine(err error) string { return strings.ReplaceAll(err.Error(), "\n", " ") }

@@ -1,0 +1,215 @@
+package ingest
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"time"
+
+	"sluice/pkg/layout"
+)
+
+// Arrival is one scan found complete in a watched directory.
+type Arrival struct {
+	// Path is the volume: a raw file, a TIFF-slice directory or a Zarr
+	// array directory.
+	Path string
+	// Step is the step name derived from the file name.
+	Step string
+	// TimeS is the experiment time of the scan in seconds, from the marker
+	// file, else from the raw header, else the marker's modification time
+	// relative to the first scan seen.
+	TimeS float64
+}
+
+// Marker is the suffix of the file a reconstruction pipeline writes last,
+// next to a finished volume: "scan_0042.raw" is complete once
+// "scan_0042.raw.done" exists. The marker may be empty or hold JSON
+// {"time_s": 1234.5}.
+//
+// Why a marker: beamline reconstruction writes large volumes slice by slice
+// or in chunks over tens of seconds, and a file whose size has stopped
+// changing may still be incomplete (the writer can pause between slabs);
+// a marker written after the last byte is the signal acquisition and
+// reconstruction software already know how to give (it is how data-transfer
+// tools at facilities usually hand over files — common practice). For
+// writers that cannot make one, Watcher.Settle falls back to "size and
+// modification time unchanged for this long".
+const Marker = ".done"
+
+// Watcher finds complete scans in a directory, each once.
+type Watcher struct {
+	Dir string
+	// Settle, if positive, also accepts scans without a marker once their
+	// size and modification time have not changed for this long.
+	Settle time.Duration
+	// Poll is the scan interval (default 1 s).
+	Poll time.Duration
+	Log  *slog.Logger
+
+	seen   map[string]bool
+	sizes  map[string]sizeSeen
+	t0     time.Time
+	t0Set  bool
+	failed map[string]bool
+}
+
+type sizeSeen struct {
+	size  int64
+	mtime time.Time
+	since time.Time
+}
+
+// Run calls found for every complete scan, in name order within a poll,
+// until ctx ends. An error from found is logged and the scan is not retried
+// (bad input must not stop the campaign).
+func (w *Watcher) Run(ctx context.Context, found func(Arrival) error) error {
+	if w.Poll <= 0 {
+		w.Poll = time.Second
+	}
+	if w.Log == nil {
+		w.Log = slog.Default()
+	}
+	t := time.NewTicker(w.Poll)
+	defer t.Stop()
+	for {
+		arr, err := w.Scan()
+		if err != nil {
+			w.Log.Warn("watch: cannot read directory", "dir", w.Dir, "err", err)
+		}
+		for _, a := range arr {
+			if err := found(a); err != nil {
+				w.Log.Error("ingest failed; continuing with the next scan", "path", a.Path, "err", err)
+			}
+		}
+		select {
+		case <-ctx.Done():
+			return nil
+		case <-t.C:
+		}
+	}
+}
+
+// Scan returns the scans that became complete since the last call.
+func (w *Watcher) Scan() ([]Arrival, error) {
+	if w.seen == nil {
+		w.seen, w.sizes, w.failed = map[string]bool{}, map[string]sizeSeen{}, map[string]bool{}
+	}
+	ents, err := os.ReadDir(w.Dir)
+	if err != nil {
+		return nil, err
+	}
+	names := map[string]bool{}
+	for _, e := range ents {
+		names[e.Name()] = true
+	}
+	var out []Arrival
+	keys := make([]string, 0, len(ents))
+	for _, e := range ents {
+		keys = append(keys, e.Name())
+	}
+	sort.Strings(keys)
+	now := time.Now()
+	for _, name := range keys {
+		if w.seen[name] || strings.HasSuffix(name, Marker) || strings.HasSuffix(name, ".sluice.json") || strings.HasPrefix(name, ".") {
+			continue
+		}
+		path := filepath.Join(w.Dir, name)
+		marker := path + Marker
+		var timeS float64
+		hasTime := false
+		if names[name+Marker] {
+			if b, err := os.ReadFile(marker); err == nil && len(strings.TrimSpace(string(b))) > 0 {
+				var m struct {
+					TimeS *float64 `json:"time_s"`
+				}
+				if json.Unmarshal(b, &m) == nil && m.TimeS != nil {
+					timeS, hasTime = *m.TimeS, true
+				}
+			}
+		} else if w.Settle > 0 {
+			size, mtime, err := treeSize(path)
+			if err != nil {
+				continue
+			}
+			s, ok := w.sizes[name]
+			if !ok || s.size != size || !s.mtime.Equal(mtime) {
+				w.sizes[name] = sizeSeen{size: size, mtime: mtime, since: now}
+				continue
+			}
+			if now.Sub(s.since) < w.Settle {
+				continue
+			}
+		} else {
+			continue
+		}
+		w.seen[name] = true
+		step, err := StepName(name)
+		if err != nil {
+			w.Log.Error("watch: skipping scan", "path", path, "err", err)
+			continue
+		}
+		if !hasTime {
+			fi, err := os.Stat(path)
+			if err == nil {
+				if !w.t0Set {
+					w.t0, w.t0Set = fi.ModTime(), true
+				}
+				timeS = fi.ModTime().Sub(w.t0).Seconds()
+			}
+		}
+		out = append(out, Arrival{Path: path, Step: step, TimeS: timeS})
+	}
+	return out, nil
+}
+
+// StepName derives a step name from a file name: lower case, extension
+// (.raw, .zarr, .tif …) dropped, characters outside [a-z0-9._-] replaced by
+// '-'.
+func StepName(file string) (string, error) {
+	base := strings.ToLower(filepath.Base(file))
+	for _, ext := range []string{".raw", ".zarr", ".tiff", ".tif", ".vol", ".bin"} {
+		base = strings.TrimSuffix(base, ext)
+	}
+	b := []byte(base)
+	for i, c := range b {
+		if !(c >= 'a' && c <= 'z' || c >= '0' && c <= '9' || c == '.' || c == '_' || c == '-') {
+			b[i] = '-'
+		}
+	}
+	s := strings.TrimLeft(string(b), "._-")
+	if len(s) > layout.MaxNameLen {
+		s = s[:layout.MaxNameLen]
+	}
+	if err := layout.CheckName("step", s); err != nil {
+		return "", fmt.Errorf("ingest: %s: cannot derive a step name: %w", file, err)
+	}
+	return s, nil
+}
+
+// treeSize sums the sizes of a file or of all files under a directory and
+// returns the latest modification time.
+func treeSize(path string) (int64, time.Time, error) {
+	var size int64
+	var latest time.Time
+	err := filepath.WalkDir(path, func(p string, d os.DirEntry, err error) error {
+		if err != nil {
+			return err
+		}
+		fi, err := d.Info()
+		if err != nil {
+			return err
+		}
+		size += fi.Size()
+		if fi.ModTime().After(latest) {
+			latest = fi.ModTime()
+		}
+		return nil
+	})
+	return size, latest, err
+}
