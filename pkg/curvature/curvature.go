@@ -1,0 +1,242 @@
+// Package curvature measures the total curvature κ = k1 + k2 of the
+// wetting–nonwetting interface by the co-area-weighted level-set method, the
+// image-side half of Young–Laplace capillary pressure Pc = σκ.
+//
+// # Method
+//
+// Let φ be the smoothed nonwetting indicator. The curvature of the level set
+// through a point is κ = −∇·(∇φ/|∇φ|) (normal −∇φ/|∇φ| points out of the
+// nonwetting phase, so κ > 0 where nonwetting bulges into wetting; a
+// nonwetting ball of radius R has κ = 2/R). Instead of locating the φ = ½
+// surface, every voxel of the transition band is used, weighted by |∇φ|. By
+// the co-area formula
+//
+//	∫ g |∇φ| dV = ∫₀¹ ( ∫_{φ=t} g dA ) dt,
+//
+// so Σ|∇φ| over the band is the area averaged over the level sets, Σκ|∇φ| the
+// integrated curvature, and their ratio the area-weighted mean κ (science.md
+// §3; the band-weighted approach follows Akai et al. 2019, Materials 12:2138,
+// whose error figures — pore Pc within 30 % for radii > 6 voxels, average Pc
+// within 11 % for > 10 voxels — are the published yardstick). Both sums are
+// plain sums over voxels, hence additive over tiles.
+//
+// For a sphere the level set t has radius R + δ(t) with δ antisymmetric about
+// t = ½ to first order, so Σκ|∇φ| ∝ ∫2(R+δ)dt = 2R is unbiased while
+// Σ|∇φ| ∝ ∫(R+δ)² dt = R² + ⟨δ²⟩; the mean is low by about ⟨δ²⟩/R² ≈ σ²/R²
+// (our own derivation; −2 % at σ = 1.5, R = 10). Sampling only the ½ level set
+// with central differences is far worse (+24…+63 %, science.md) and is not
+// done.
+//
+// # Only the w–n interface
+//
+// φ is the normalised convolution φ = G∗χ_n / G∗χ_{n∪w} (package levelset):
+// the solid is left out of both sums, so a nonwetting–solid or wetting–solid
+// wall produces no gradient and the band holds only the w–n interface. Where
+// that interface meets the solid the curvature is corrupted by the contact
+// line and by the smoothing reaching across the wall, so voxels within
+// Options.Exclude voxels (Euclidean, centre to centre) of a solid voxel are
+// left out (science.md: exclude 2–3 voxels from the solid). The default is 3:
+// the curvature at a voxel depends on φ up to r + 1 voxels away (r = kernel
+// radius), and near a wall that φ comes from a kernel cut by the wall, whose
+// value belongs to a point shifted away from the wall; where the interface
+// is not perpendicular to the wall this bends the level sets (our own
+// analysis; measured +10 % on a 60° drop with 2, +2 % with 3).
+//
+// # Band
+//
+// Voxels are used when they are pore voxels with Band ≤ φ ≤ 1 − Band; far
+// outside the band |∇φ| is tiny and κ is rounding noise. Area is rescaled by
+// 1/(1 − 2·Band) so that it estimates the interface area (co-area over the
+// kept levels).
+//
+// # Histogram and median
+//
+// Hist holds Σ|∇φ| per κ bin: HistBins bins of width (HistMax−HistMin)/
+// HistBins over [HistMin, HistMax) in 1/voxel, values outside clamped to the
+// end bins. The median is the area-weighted median, linearly interpolated
+// inside its bin.
+package curvature
+
+import (
+	"math"
+
+	"sluice/pkg/levelset"
+	"sluice/pkg/phase"
+	"sluice/pkg/volume"
+)
+
+// Options sets the smoothing and the exclusion near the solid.
+type Options struct {
+	// Sigma is the Gaussian standard deviation in voxels (default 1.5).
+	Sigma float64 `json:"sigma"`
+	// Exclude drops band voxels whose centre lies within this distance
+	// (voxels, Euclidean, centre to centre) of a solid voxel centre
+	// (default 3; negative disables the exclusion). On flat walls 3 drops
+	// the first three voxel layers: with 2, drops of 60° on a wall came out
+	// +10 % (mean, σ = 1.5, R = 20), with 3 within ±3.5 % (see the tests).
+	Exclude float64 `json:"exclude"`
+}
+
+// Defaults.
+const (
+	DefaultSigma   = 1.5
+	DefaultExclude = 3.0
+	// Band is the lowest φ (and 1 − the highest) used.
+	Band = 0.02
+)
+
+// Histogram layout, κ in 1/voxel.
+const (
+	HistBins = 4000
+	HistMin  = -1.0
+	HistMax  = 1.0
+)
+
+func (o Options) norm() Options {
+	if o.Sigma <= 0 {
+		o.Sigma = DefaultSigma
+	}
+	if o.Exclude == 0 {
+		o.Exclude = DefaultExclude
+	}
+	return o
+}
+
+// Halo returns the halo a tile needs for its result to equal the
+// whole-volume result on its core: the kernel radius, one voxel for the
+// central differences and the exclusion radius, whichever reach is wider.
+func (o Options) Halo() int {
+	o = o.norm()
+	h := levelset.Radius(o.Sigma) + 1
+	if e := int(math.Ceil(o.Exclude)); e > h {
+		h = e
+	}
+	return h
+}
+
+// Partial is one tile's contribution; partials add.
+type Partial struct {
+	// Area is Σ|∇φ|/(1−2·Band) over the band (voxel² — the interface area).
+	Area float64 `json:"area"`
+	// KappaArea is Σκ|∇φ|/(1−2·Band) (voxel — the integrated curvature).
+	KappaArea float64 `json:"kappa_area"`
+	// Kappa2Area is Σκ²|∇φ|/(1−2·Band), for the spread.
+	Kappa2Area float64 `json:"kappa2_area"`
+	// Voxels is the number of band voxels used.
+	Voxels int64 `json:"voxels"`
+	// Hist is the area-weighted κ histogram (see package doc); nil when
+	// empty.
+	Hist []float64 `json:"hist,omitempty"`
+}
+
+// Measure returns the partial of the voxels of core (clipped to lab.Box).
+// lab must cover core plus Halo() voxels on every side, clipped to the scan.
+func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core volume.Box, opt Options) Partial {
+	opt = opt.norm()
+	var p Partial
+	core = core.Intersect(lab.Box)
+	if core.Empty() {
+		return p
+	}
+	pore := levelset.Union(wetting, nonwetting)
+	phi := levelset.Fraction(lab, nonwetting, pore, core.Grow(1), opt.Sigma)
+	near := levelset.Near(lab, solid, core, opt.Exclude)
+	scale := 1 / (1 - 2*Band)
+	i := 0
+	for z := core.Min[0]; z < core.Max[0]; z++ {
+		for y := core.Min[1]; y < core.Max[1]; y++ {
+			row := lab.Pix[lab.Index(z, y, core.Min[2]):]
+			for x := core.Min[2]; x < core.Max[2]; x, i = x+1, i+1 {
+				if !pore[row[x-core.Min[2]]] || near.Pix[i] != 0 {
+					continue
+				}
+				f := float64(phi.At(z, y, x))
+				if !(f >= Band && f <= 1-Band) {
+					continue
+				}
+				g, ok := levelset.Gradient(phi, z, y, x)
+				if !ok {
+					continue
+				}
+				h, ok := levelset.Hessian(phi, z, y, x)
+				if !ok {
+					continue
+				}
+				k := levelset.TotalCurvature(g, h)
+				if math.IsNaN(k) {
+					continue
+				}
+				w := math.Sqrt(g[0]*g[0]+g[1]*g[1]+g[2]*g[2]) * scale
+				p.Area += w
+				p.KappaArea += k * w
+				p.Kappa2Area += k * k * w
+				p.Voxels++
+				if p.Hist == nil {
+					p.Hist = make([]float64, HistBins)
+				}
+				p.Hist[bin(k)] += w
+			}
+		}
+	}
+	return p
+}
+
+func bin(k float64) int {
+	b := int(math.Floor((k - HistMin) / (HistMax - HistMin) * HistBins))
+	return min(max(b, 0), HistBins-1)
+}
+
+// Add accumulates q into p.
+func (p *Partial) Add(q *Partial) {
+	p.Area += q.Area
+	p.KappaArea += q.KappaArea
+	p.Kappa2Area += q.Kappa2Area
+	p.Voxels += q.Voxels
+	if q.Hist != nil {
+		if p.Hist == nil {
+			p.Hist = make([]float64, len(q.Hist))
+		}
+		for i, v := range q.Hist {
+			p.Hist[i] += v
+		}
+	}
+}
+
+// Mean returns the area-weighted mean total curvature Σκ|∇φ|/Σ|∇φ| in
+// 1/voxel, NaN without interface.
+func (p *Partial) Mean() float64 {
+	if p.Area <= 0 {
+		return math.NaN()
+	}
+	return p.KappaArea / p.Area
+}
+
+// Std returns the area-weighted standard deviation of κ in 1/voxel.
+func (p *Partial) Std() float64 {
+	if p.Area <= 0 {
+		return math.NaN()
+	}
+	m := p.Mean()
+	return math.Sqrt(math.Max(p.Kappa2Area/p.Area-m*m, 0))
+}
+
+// Median returns the area-weighted median κ in 1/voxel from the
+// histogram, NaN without interface.
+func (p *Partial) Median() float64 {
+	tot := 0.0
+	for _, v := range p.Hist {
+		tot += v
+	}
+	if !(tot > 0) {
+		return math.NaN()
+	}
+	half, acc := tot/2, 0.0
+	width := (HistMax - HistMin) / float64(len(p.Hist))
+	for i, v := range p.Hist {
+		if v > 0 && acc+v >= half {
+			return HistMin + width*(float64(i)+(half-acc)/v)
+		}
+		acc += v
+	}
+	return HistMax
+}
