@@ -1,0 +1,143 @@
+package series
+
+import (
+	"bytes"
+	"encoding/csv"
+	"strconv"
+)
+
+type kind uint8
+
+const (
+	kindFloat kind = iota
+	kindInt
+	kindBool
+	kindString
+)
+
+// Column is one scalar column of series.csv: its header (the JSON key of
+// the measurement) and how to read it from a Row.
+type Column struct {
+	Key  string
+	Unit string
+	kind kind
+	get  func(*Row) any
+}
+
+func (c Column) float(r *Row) *float64 {
+	if c.kind != kindFloat {
+		return nil
+	}
+	return c.get(r).(*float64)
+}
+
+func fcol(key, unit string, f func(*Row) *float64) Column {
+	return Column{Key: key, Unit: unit, kind: kindFloat, get: func(r *Row) any { return f(r) }}
+}
+
+func icol(key, unit string, f func(*Row) *int64) Column {
+	return Column{Key: key, Unit: unit, kind: kindInt, get: func(r *Row) any { return f(r) }}
+}
+
+// Columns is the fixed column order of series.csv after `step` and
+// `time_s`. The order is part of the file format: new columns are only
+// ever appended.
+//
+//	voxel_size_m, porosity, saturation_wetting, saturation_nonwetting,
+//	area_wn_m2, area_ws_m2, area_ns_m2,
+//	specific_area_wn_per_m, specific_area_ws_per_m, specific_area_ns_per_m,
+//	curvature_wn_mean_per_m, curvature_wn_median_per_m, ift_n_per_m,
+//	capillary_pressure_pa, capillary_pressure_median_pa,
+//	contact_angle_mean_deg, contact_angle_median_deg, contact_angle_std_deg,
+//	contact_angle_samples, euler_nonwetting, euler_wetting, euler_solid,
+//	ganglia_count, ganglion_largest_fraction, nonwetting_percolates,
+//	nonwetting_trapped_fraction, connectivity, flow_axis
+//
+// Null values are empty cells; booleans are `true`/`false`.
+var Columns = []Column{
+	fcol("voxel_size_m", "m", func(r *Row) *float64 { return r.VoxelSize }),
+	fcol("porosity", "1", func(r *Row) *float64 { return r.Porosity }),
+	fcol("saturation_wetting", "1", func(r *Row) *float64 { return r.SatWetting }),
+	fcol("saturation_nonwetting", "1", func(r *Row) *float64 { return r.SatNonwetting }),
+	fcol("area_wn_m2", "m2", func(r *Row) *float64 { return r.AreaWN }),
+	fcol("area_ws_m2", "m2", func(r *Row) *float64 { return r.AreaWS }),
+	fcol("area_ns_m2", "m2", func(r *Row) *float64 { return r.AreaNS }),
+	fcol("specific_area_wn_per_m", "1/m", func(r *Row) *float64 { return r.SpecificWN }),
+	fcol("specific_area_ws_per_m", "1/m", func(r *Row) *float64 { return r.SpecificWS }),
+	fcol("specific_area_ns_per_m", "1/m", func(r *Row) *float64 { return r.SpecificNS }),
+	fcol("curvature_wn_mean_per_m", "1/m", func(r *Row) *float64 { return r.CurvMean }),
+	fcol("curvature_wn_median_per_m", "1/m", func(r *Row) *float64 { return r.CurvMedian }),
+	fcol("ift_n_per_m", "N/m", func(r *Row) *float64 { return r.IFT }),
+	fcol("capillary_pressure_pa", "Pa", func(r *Row) *float64 { return r.Pc }),
+	fcol("capillary_pressure_median_pa", "Pa", func(r *Row) *float64 { return r.PcMedian }),
+	fcol("contact_angle_mean_deg", "deg", func(r *Row) *float64 { return r.AngleMean }),
+	fcol("contact_angle_median_deg", "deg", func(r *Row) *float64 { return r.AngleMedian }),
+	fcol("contact_angle_std_deg", "deg", func(r *Row) *float64 { return r.AngleStd }),
+	icol("contact_angle_samples", "1", func(r *Row) *int64 { return r.AngleSamples }),
+	icol("euler_nonwetting", "1", func(r *Row) *int64 { return r.EulerNonwetting }),
+	icol("euler_wetting", "1", func(r *Row) *int64 { return r.EulerWetting }),
+	icol("euler_solid", "1", func(r *Row) *int64 { return r.EulerSolid }),
+	icol("ganglia_count", "1", func(r *Row) *int64 { return r.GangliaCount }),
+	fcol("ganglion_largest_fraction", "1", func(r *Row) *float64 { return r.LargestFraction }),
+	{Key: "nonwetting_percolates", Unit: "bool", kind: kindBool, get: func(r *Row) any { return r.Percolates }},
+	fcol("nonwetting_trapped_fraction", "1", func(r *Row) *float64 { return r.TrappedFraction }),
+	icol("connectivity", "1", func(r *Row) *int64 { return r.Connectivity }),
+	{Key: "flow_axis", Unit: "", kind: kindString, get: func(r *Row) any { return r.FlowAxis }},
+}
+
+// Cell returns the CSV text of column c in row r ("" for null).
+func (c Column) Cell(r *Row) string {
+	switch v := c.get(r).(type) {
+	case *float64:
+		if v != nil {
+			return strconv.FormatFloat(*v, 'g', -1, 64)
+		}
+	case *int64:
+		if v != nil {
+			return strconv.FormatInt(*v, 10)
+		}
+	case *bool:
+		if v != nil {
+			return strconv.FormatBool(*v)
+		}
+	case *string:
+		if v != nil {
+			return *v
+		}
+	}
+	return ""
+}
+
+// Header returns the CSV header: step, time_s, then Columns.
+func Header() []string {
+	h := []string{"step", "time_s"}
+	for _, c := range Columns {
+		h = append(h, c.Key)
+	}
+	return h
+}
+
+// EncodeCSV writes rows as series.csv (RFC 4180, header line first).
+func EncodeCSV(rows []Row) ([]byte, error) {
+	var buf bytes.Buffer
+	w := csv.NewWriter(&buf)
+	if err := w.Write(Header()); err != nil {
+		return nil, err
+	}
+	rec := make([]string, 0, 2+len(Columns))
+	for i := range rows {
+		r := &rows[i]
+		if err := r.checkFinite(); err != nil {
+			return nil, err
+		}
+		rec = append(rec[:0], r.Step, strconv.FormatFloat(r.Time, 'g', -1, 64))
+		for _, c := range Columns {
+			rec = append(rec, c.Cell(r))
+		}
+		if err := w.Write(rec); err != nil {
+			return nil, err
+		}
+	}
+	w.Flush()
+	return buf.Bytes(), w.Error()
+}

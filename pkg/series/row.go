@@ -1,0 +1,211 @@
+// Package series keeps a campaign's time series: one row per step of a
+// displacement experiment, holding the step name, its acquisition time and
+// the scalar results of that step's measurement (the keys of
+// `sluice measure --json`, see pkg/measure.Result).
+//
+// The series lives in two files next to each other (architecture.md,
+// storage layout):
+//
+//	campaigns/<campaign>/series.json   JSON array of rows, every key, histograms included
+//	campaigns/<campaign>/series.csv    the scalar columns of Columns, in that order
+//
+// Rows are upserted: a step seen again replaces its row, so reprocessing or a
+// redelivered aggregation never adds a second row for one step. Rows are kept
+// sorted by time, then by step name. Files are written through a Store whose
+// Put must replace the whole object atomically (an S3 PUT does; Dir writes a
+// temporary file and renames it), so a reader never sees half a series.
+//
+// The package decodes the measurement keys it knows into Row; keys it does
+// not know (minkowski, clusters, later additions) are kept verbatim in
+// Row.Extra and written back unchanged, so an upsert never loses data.
+package series
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"math"
+	"sort"
+)
+
+// Row is one step of a campaign's series. Pointer fields are null in JSON
+// when the quantity could not be computed (no interface, no σ, ...).
+// Units are SI as in the measurement result.
+type Row struct {
+	Step string  `json:"step"`
+	Time float64 `json:"time_s"`
+
+	VoxelSize       *float64 `json:"voxel_size_m"`
+	Porosity        *float64 `json:"porosity"`
+	SatWetting      *float64 `json:"saturation_wetting"`
+	SatNonwetting   *float64 `json:"saturation_nonwetting"`
+	AreaWN          *float64 `json:"area_wn_m2"`
+	AreaWS          *float64 `json:"area_ws_m2"`
+	AreaNS          *float64 `json:"area_ns_m2"`
+	SpecificWN      *float64 `json:"specific_area_wn_per_m"`
+	SpecificWS      *float64 `json:"specific_area_ws_per_m"`
+	SpecificNS      *float64 `json:"specific_area_ns_per_m"`
+	CurvMean        *float64 `json:"curvature_wn_mean_per_m"`
+	CurvMedian      *float64 `json:"curvature_wn_median_per_m"`
+	IFT             *float64 `json:"ift_n_per_m"`
+	Pc              *float64 `json:"capillary_pressure_pa"`
+	PcMedian        *float64 `json:"capillary_pressure_median_pa"`
+	AngleMean       *float64 `json:"contact_angle_mean_deg"`
+	AngleMedian     *float64 `json:"contact_angle_median_deg"`
+	AngleStd        *float64 `json:"contact_angle_std_deg"`
+	AngleSamples    *int64   `json:"contact_angle_samples"`
+	EulerNonwetting *int64   `json:"euler_nonwetting"`
+	EulerWetting    *int64   `json:"euler_wetting"`
+	EulerSolid      *int64   `json:"euler_solid"`
+	GangliaCount    *int64   `json:"ganglia_count"`
+	LargestFraction *float64 `json:"ganglion_largest_fraction"`
+	Percolates      *bool    `json:"nonwetting_percolates"`
+	TrappedFraction *float64 `json:"nonwetting_trapped_fraction"`
+	Connectivity    *int64   `json:"connectivity"`
+	FlowAxis        *string  `json:"flow_axis"`
+	// AngleHist counts contact-angle samples in 1° bins through the wetting
+	// phase: AngleHist[i] holds angles in [i, i+1) degrees (180 bins). It
+	// appears in series.json only, never in the CSV.
+	AngleHist []int64 `json:"contact_angle_histogram"`
+
+	// Extra holds the keys of the row this package does not decode, verbatim.
+	Extra map[string]json.RawMessage `json:"-"`
+}
+
+// rowFields is Row without its methods, so encoding/json can do the work.
+type rowFields Row
+
+// known is the set of JSON keys decoded into Row's fields.
+var known = func() map[string]bool {
+	m := map[string]bool{}
+	for _, c := range Columns {
+		m[c.Key] = true
+	}
+	m["contact_angle_histogram"] = true
+	return m
+}()
+
+// UnmarshalJSON decodes the known keys into fields and keeps the rest in
+// Extra.
+func (r *Row) UnmarshalJSON(b []byte) error {
+	var f rowFields
+	if err := json.Unmarshal(b, &f); err != nil {
+		return err
+	}
+	var all map[string]json.RawMessage
+	if err := json.Unmarshal(b, &all); err != nil {
+		return err
+	}
+	for k := range all {
+		if known[k] {
+			delete(all, k)
+		}
+	}
+	if len(all) == 0 {
+		all = nil
+	}
+	f.Extra = all
+	*r = Row(f)
+	return nil
+}
+
+// MarshalJSON writes the known keys in field order, then the Extra keys in
+// sorted order, so equal rows always give equal bytes.
+func (r Row) MarshalJSON() ([]byte, error) {
+	if err := r.checkFinite(); err != nil {
+		return nil, err
+	}
+	b, err := json.Marshal(rowFields(r))
+	if err != nil {
+		return nil, err
+	}
+	if len(r.Extra) == 0 {
+		return b, nil
+	}
+	keys := make([]string, 0, len(r.Extra))
+	for k := range r.Extra {
+		if !known[k] {
+			keys = append(keys, k)
+		}
+	}
+	sort.Strings(keys)
+	var buf bytes.Buffer
+	buf.Write(b[:len(b)-1]) // drop the closing brace
+	for _, k := range keys {
+		kb, _ := json.Marshal(k)
+		var v bytes.Buffer
+		if err := json.Compact(&v, r.Extra[k]); err != nil {
+			return nil, fmt.Errorf("series: step %q: key %q holds invalid JSON: %v", r.Step, k, err)
+		}
+		buf.WriteByte(',')
+		buf.Write(kb)
+		buf.WriteByte(':')
+		buf.Write(v.Bytes())
+	}
+	buf.WriteByte('}')
+	return buf.Bytes(), nil
+}
+
+func (r *Row) checkFinite() error {
+	if math.IsNaN(r.Time) || math.IsInf(r.Time, 0) {
+		return fmt.Errorf("series: step %q: time_s is not finite", r.Step)
+	}
+	for _, c := range Columns {
+		if c.kind != kindFloat {
+			continue
+		}
+		if p := c.float(r); p != nil && (math.IsNaN(*p) || math.IsInf(*p, 0)) {
+			return fmt.Errorf("series: step %q: %s is not finite (use null)", r.Step, c.Key)
+		}
+	}
+	return nil
+}
+
+// FromResult builds the row of one step from the bytes of its result.json
+// (the output of `sluice measure --json`).
+func FromResult(step string, timeS float64, result []byte) (Row, error) {
+	var r Row
+	if err := json.Unmarshal(result, &r); err != nil {
+		return Row{}, fmt.Errorf("series: step %q: result is not a JSON object: %v", step, err)
+	}
+	r.Step, r.Time = step, timeS
+	if err := r.Validate(); err != nil {
+		return Row{}, err
+	}
+	return r, nil
+}
+
+// Validate checks the step name and that every number is finite.
+func (r *Row) Validate() error {
+	if !ValidName(r.Step) {
+		return fmt.Errorf("series: invalid step name %q (want [a-z0-9][a-z0-9._-]{0,63})", r.Step)
+	}
+	return r.checkFinite()
+}
+
+// ValidName reports whether s is a valid campaign or step name:
+// [a-z0-9][a-z0-9._-]{0,63} (architecture.md).
+func ValidName(s string) bool {
+	if len(s) == 0 || len(s) > 64 {
+		return false
+	}
+	for i := 0; i < len(s); i++ {
+		c := s[i]
+		switch {
+		case c >= 'a' && c <= 'z', c >= '0' && c <= '9':
+		case i > 0 && (c == '.' || c == '_' || c == '-'):
+		default:
+			return false
+		}
+	}
+	return true
+}
+
+// F returns *p, or NaN when p is nil: handy for arithmetic on nullable
+// values.
+func F(p *float64) float64 {
+	if p == nil {
+		return math.NaN()
+	}
+	return *p
+}
