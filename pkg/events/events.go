@@ -1,0 +1,191 @@
+// Package events finds the moments of a displacement experiment worth
+// interrupting a scientist for, from the campaign's series alone.
+//
+// Definitions (the series sorted by time, then step; i indexes its rows):
+//
+// Breakthrough. The nonwetting phase breaks through when one of its
+// clusters first touches both the inlet and the outlet face along the flow
+// axis (nonwetting_percolates, computed by the cluster merge). The
+// breakthrough step is the first row i with nonwetting_percolates = true
+// such that some earlier row had nonwetting_percolates = false. Rows where
+// it is null are skipped (unknown, neither true nor false). A series whose
+// first known value is already true yields no breakthrough: it happened
+// before observation began, at an unknown time. At most one breakthrough is
+// ever reported: if the phase disconnects later and reconnects, that is not
+// a new breakthrough.
+//
+// Steady state. Row i is steady when the K consecutive differences between
+// rows i−K…i (K+1 rows) all satisfy
+//
+//	|S_w[j] − S_w[j−1]|                 ≤ MaxDeltaSw            (absolute)
+//	|P[j] − P[j−1]| ≤ MaxRelDeltaPc · max(|P[j]|, |P[j−1]|)      (relative)
+//
+// for j = i−K+1 … i, where P is capillary_pressure_pa when all K+1 rows have
+// it, otherwise curvature_wn_mean_per_m when all K+1 rows have that (Pc = σκ
+// with constant σ, so the relative change is the same), otherwise the
+// window is not eligible. A window with a null saturation is not eligible.
+// A steady-state event is reported at every onset: each row i that is
+// steady while row i−1 was not (or was not eligible), so a change of
+// injection rate followed by a new plateau gives a new event.
+//
+// Detection is a pure function of the series and the options: running it
+// again on the same series gives the same events, and each event has an ID
+// (kind/step) that downstream publishers use to deduplicate. Defaults
+// (|ΔS_w| ≤ 0.005, |ΔPc|/Pc ≤ 2 %, K = 3) are common practice for
+// "no further change within measurement noise", not a published standard;
+// tune them per campaign.
+package events
+
+import (
+	"fmt"
+	"math"
+
+	"sluice/pkg/series"
+)
+
+// Kind names an event.
+type Kind string
+
+// The event kinds.
+const (
+	Breakthrough Kind = "breakthrough"
+	SteadyState  Kind = "steady_state"
+)
+
+// Event is one detected event, anchored to a step of the series.
+type Event struct {
+	Kind   Kind    `json:"kind"`
+	Step   string  `json:"step"`
+	Time   float64 `json:"time_s"`
+	Detail string  `json:"detail"`
+}
+
+// ID is "kind/step": stable across re-runs, usable as a message id.
+func (e Event) ID() string { return string(e.Kind) + "/" + e.Step }
+
+// Options are the steady-state tolerances.
+type Options struct {
+	// K is the number of consecutive step-to-step differences that must
+	// all be within tolerance (K+1 rows).
+	K int
+	// MaxDeltaSw bounds |ΔS_w| between consecutive steps (fraction, not %).
+	MaxDeltaSw float64
+	// MaxRelDeltaPc bounds |ΔPc| / max(|Pc|) between consecutive steps
+	// (0.02 = 2 %); applied to the mean curvature when Pc is null.
+	MaxRelDeltaPc float64
+}
+
+// Defaults returns K = 3, |ΔS_w| ≤ 0.005, |ΔPc|/Pc ≤ 0.02.
+func Defaults() Options { return Options{K: 3, MaxDeltaSw: 0.005, MaxRelDeltaPc: 0.02} }
+
+// Validate reports options that cannot define a steady state.
+func (o Options) Validate() error {
+	if o.K < 1 {
+		return fmt.Errorf("events: K = %d, want ≥ 1", o.K)
+	}
+	if !(o.MaxDeltaSw >= 0) || !(o.MaxRelDeltaPc >= 0) || math.IsInf(o.MaxDeltaSw, 0) || math.IsInf(o.MaxRelDeltaPc, 0) {
+		return fmt.Errorf("events: tolerances must be finite and ≥ 0 (ΔS_w %v, ΔPc/Pc %v)", o.MaxDeltaSw, o.MaxRelDeltaPc)
+	}
+	return nil
+}
+
+// Window is the steady-state verdict of the K differences ending at a row.
+type Window struct {
+	// Eligible is false when the window is too short or lacks values.
+	Eligible bool
+	// Steady is true when every difference is within tolerance.
+	Steady bool
+	// Quantity is "capillary_pressure_pa" or "curvature_wn_mean_per_m".
+	Quantity string
+	// MaxDeltaSw and MaxRelDelta are the largest |ΔS_w| and relative
+	// |ΔP| over the window.
+	MaxDeltaSw, MaxRelDelta float64
+}
+
+// Steady evaluates the window of K differences ending at rows[i]; rows
+// must be sorted (series.Sort).
+func Steady(rows []series.Row, i int, o Options) Window {
+	var w Window
+	if o.K < 1 || i < o.K || i >= len(rows) {
+		return w
+	}
+	win := rows[i-o.K : i+1]
+	pick := func(get func(*series.Row) *float64) bool {
+		for j := range win {
+			if get(&win[j]) == nil {
+				return false
+			}
+		}
+		return true
+	}
+	var get func(*series.Row) *float64
+	switch {
+	case pick(func(r *series.Row) *float64 { return r.Pc }):
+		get, w.Quantity = func(r *series.Row) *float64 { return r.Pc }, "capillary_pressure_pa"
+	case pick(func(r *series.Row) *float64 { return r.CurvMean }):
+		get, w.Quantity = func(r *series.Row) *float64 { return r.CurvMean }, "curvature_wn_mean_per_m"
+	default:
+		return w
+	}
+	if !pick(func(r *series.Row) *float64 { return r.SatWetting }) {
+		return Window{}
+	}
+	w.Eligible, w.Steady = true, true
+	for j := 1; j < len(win); j++ {
+		ds := math.Abs(*win[j].SatWetting - *win[j-1].SatWetting)
+		a, b := *get(&win[j]), *get(&win[j-1])
+		scale := math.Max(math.Abs(a), math.Abs(b))
+		var rel float64
+		switch {
+		case a == b:
+			rel = 0
+		case scale == 0:
+			rel = math.Inf(1)
+		default:
+			rel = math.Abs(a-b) / scale
+		}
+		w.MaxDeltaSw = math.Max(w.MaxDeltaSw, ds)
+		w.MaxRelDelta = math.Max(w.MaxRelDelta, rel)
+		if ds > o.MaxDeltaSw || rel > o.MaxRelDeltaPc {
+			w.Steady = false
+		}
+	}
+	return w
+}
+
+// Detect returns the events of a series in time order. The input is not
+// modified; it is sorted by time then step before detection.
+func Detect(rows []series.Row, o Options) ([]Event, error) {
+	if err := o.Validate(); err != nil {
+		return nil, err
+	}
+	rs := append([]series.Row(nil), rows...)
+	series.Sort(rs)
+	var out []Event
+	seenFalse, broke := false, false
+	prevSteady := false
+	for i := range rs {
+		r := &rs[i]
+		if p := r.Percolates; p != nil && !broke {
+			if !*p {
+				seenFalse = true
+			} else if seenFalse {
+				broke = true
+				out = append(out, Event{Kind: Breakthrough, Step: r.Step, Time: r.Time,
+					Detail: "nonwetting phase first connects inlet and outlet"})
+			} else {
+				// Percolating from the first known step on: breakthrough
+				// happened before observation; never report it.
+				broke = true
+			}
+		}
+		w := Steady(rs, i, o)
+		if w.Steady && !prevSteady {
+			out = append(out, Event{Kind: SteadyState, Step: r.Step, Time: r.Time,
+				Detail: fmt.Sprintf("over the last %d steps max |ΔS_w| = %.4g, max relative Δ(%s) = %.3g %%",
+					o.K, w.MaxDeltaSw, w.Quantity, 100*w.MaxRelDelta)})
+		}
+		prevSteady = w.Steady
+	}
+	return out, nil
+}
