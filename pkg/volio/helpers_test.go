@@ -117,6 +117,8 @@ var allDTypes = []volume.DType{volume.Uint8, volume.Uint16, volume.Float32}
 // text ("2.5um" → 2.5 × 1e-6 is not bitwise 2.5e-6).
 const lengthTol = 1e-12
 
-func sameLength(a, b float64) bool { return math.Abs(a-b) <= lengthTol*math.Max(math.Abs(a), math.Abs(b)) }
+func sameLength(a, b float64) bool {
+	return math.Abs(a-b) <= lengthTol*math.Max(math.Abs(a), math.Abs(b))
+}
 
 var leOrder = binary.LittleEndian

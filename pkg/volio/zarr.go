@@ -439,14 +439,20 @@ func CreateZarr(ctx context.Context, b Bucket, prefix string, m ZarrMeta) (*Zarr
 
 func (z *Zarr) decoder() (*zstd.Decoder, error) {
 	z.decOnce.Do(func() {
-		z.dec, z.decErr = zstd.NewReader(nil, zstd.WithDecoderMaxMemory(uint64(z.chunkN*z.size)))
+		// The limit also caps the window a frame may ask for; zstd windows
+		// are at least 1 KiB and encoders may pick a few MiB even for small
+		// inputs, so the cap is the chunk size but never below 8 MiB.
+		// decodeChunk checks the exact size afterwards.
+		z.dec, z.decErr = zstd.NewReader(nil, zstd.WithDecoderMaxMemory(uint64(max(z.chunkN*z.size, 8<<20))))
 	})
 	return z.dec, z.decErr
 }
 
 func (z *Zarr) encoder() (*zstd.Encoder, error) {
 	z.encOnce.Do(func() {
-		z.enc, z.encErr = zstd.NewWriter(nil, zstd.WithEncoderLevel(zstd.EncoderLevelFromZstd(z.meta.Level)))
+		// Single-segment frames always carry the content size, which
+		// numcodecs' Zstd.decode needs to size its output buffer.
+		z.enc, z.encErr = zstd.NewWriter(nil, zstd.WithEncoderLevel(zstd.EncoderLevelFromZstd(z.meta.Level)), zstd.WithSingleSegment(true))
 	})
 	return z.enc, z.encErr
 }
