@@ -1,0 +1,494 @@
+// Package plots draws the figures of a campaign's series with gonum/plot,
+// as PNG and SVG, for the live page, papers and logbooks:
+//
+//	saturation          S_w and S_n against time
+//	capillary_pressure  Pc (kPa; area-weighted mean and median, Pc = σκ) against time,
+//	                    or the total curvature κ (1/mm) when σ is not set
+//	curvature           total curvature κ of the w–n interface (1/mm), mean and median, against time
+//	specific_area       specific interfacial areas a_wn, a_ws, a_ns (1/mm) against time
+//	pc_saturation       Pc–S_w trajectory (κ–S_w without σ)
+//	area_saturation     a_wn–S_w trajectory
+//	contact_angle       contact-angle distribution of the latest step (bars) with the
+//	                    running distribution of all steps (line), 5° bins, per degree
+//	ganglia             nonwetting ganglia count and largest-ganglion volume fraction against time
+//
+// Time plots mark breakthrough and steady-state events with vertical lines.
+// Null values leave gaps in lines. Colours come from Palette (see its
+// documentation for why they stay distinguishable with colour-vision
+// deficiencies); series also differ by dash and glyph.
+package plots
+
+import (
+	"fmt"
+	"image/color"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/plotter"
+	"gonum.org/v1/plot/vg"
+	"gonum.org/v1/plot/vg/draw"
+	"gonum.org/v1/plot/vg/vgimg"
+	"gonum.org/v1/plot/vg/vgsvg"
+
+	"sluice/pkg/events"
+	"sluice/pkg/series"
+)
+
+// Figure size: 6 × 4 inches; PNG at DPI dots per inch is PixelWidth ×
+// PixelHeight pixels.
+const (
+	Width       = 6 * vg.Inch
+	Height      = 4 * vg.Inch
+	DPI         = 100
+	PixelWidth  = 600
+	PixelHeight = 400
+)
+
+// AngleBin is the bin width, in degrees, of the contact-angle figure (the
+// series stores 1° bins; 5 are summed for a readable figure).
+const AngleBin = 5
+
+// Names lists the figures in the order Build returns them.
+var Names = []string{"saturation", "capillary_pressure", "curvature", "specific_area",
+	"pc_saturation", "area_saturation", "contact_angle", "ganglia"}
+
+// Figure is one drawn figure: one panel, or several stacked with aligned
+// axes.
+type Figure struct {
+	Name   string
+	Title  string
+	panels []*plot.Plot
+}
+
+// Build draws every figure of the series (rows sorted by time; see
+// series.Sort) with the given events marked. Figures without data are
+// still drawn, with "(no data)" in the title.
+func Build(rows []series.Row, evs []events.Event) []Figure {
+	b := builder{rows: rows, evs: evs}
+	figs := []Figure{
+		b.saturation(), b.pressure(), b.curvature(), b.area(),
+		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(),
+	}
+	for _, f := range figs {
+		for _, p := range f.panels {
+			headroom(p)
+		}
+	}
+	return figs
+}
+
+// WriteSVG renders f as SVG.
+func (f *Figure) WriteSVG(w io.Writer) error {
+	c := vgsvg.New(Width, Height)
+	f.draw(draw.New(c))
+	if _, err := c.WriteTo(w); err != nil {
+		return fmt.Errorf("plots: %s: write SVG: %v", f.Name, err)
+	}
+	return nil
+}
+
+// WritePNG renders f as a PixelWidth × PixelHeight PNG.
+func (f *Figure) WritePNG(w io.Writer) error {
+	c := vgimg.NewWith(vgimg.UseWH(Width, Height), vgimg.UseDPI(DPI))
+	f.draw(draw.New(c))
+	if _, err := (vgimg.PngCanvas{Canvas: c}).WriteTo(w); err != nil {
+		return fmt.Errorf("plots: %s: write PNG: %v", f.Name, err)
+	}
+	return nil
+}
+
+// WriteFiles writes every figure as dir/<name>.png and dir/<name>.svg and
+// returns the paths written.
+func WriteFiles(dir string, rows []series.Row, evs []events.Event) ([]string, error) {
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return nil, fmt.Errorf("plots: %v", err)
+	}
+	var paths []string
+	for _, f := range Build(rows, evs) {
+		for _, ext := range []string{".png", ".svg"} {
+			p := filepath.Join(dir, f.Name+ext)
+			if err := writeFile(p, &f, ext); err != nil {
+				return paths, err
+			}
+			paths = append(paths, p)
+		}
+	}
+	return paths, nil
+}
+
+func writeFile(p string, f *Figure, ext string) error {
+	out, err := os.Create(p)
+	if err != nil {
+		return fmt.Errorf("plots: %v", err)
+	}
+	if ext == ".png" {
+		err = f.WritePNG(out)
+	} else {
+		err = f.WriteSVG(out)
+	}
+	if cerr := out.Close(); err == nil && cerr != nil {
+		err = fmt.Errorf("plots: %s: %v", p, cerr)
+	}
+	return err
+}
+
+func (f *Figure) draw(c draw.Canvas) {
+	c.SetColor(color.White)
+	c.Fill(c.Rectangle.Path())
+	if len(f.panels) == 1 {
+		f.panels[0].Draw(c)
+		return
+	}
+	grid := make([][]*plot.Plot, len(f.panels))
+	for i, p := range f.panels {
+		grid[i] = []*plot.Plot{p}
+	}
+	tiles := draw.Tiles{Rows: len(f.panels), Cols: 1, PadY: vg.Points(6), PadTop: vg.Points(2), PadBottom: vg.Points(2)}
+	cs := plot.Align(grid, tiles, c)
+	for i, p := range f.panels {
+		p.Draw(cs[i][0])
+	}
+}
+
+type builder struct {
+	rows []series.Row
+	evs  []events.Event
+}
+
+// style is the look of one data series.
+type style struct {
+	label  string
+	colour color.NRGBA
+	dashes []vg.Length
+	glyph  draw.GlyphDrawer
+}
+
+var styles = []style{
+	{colour: Palette.Ink, glyph: draw.CircleGlyph{}},
+	{colour: Palette.Amber, dashes: []vg.Length{vg.Points(5), vg.Points(3)}, glyph: draw.SquareGlyph{}},
+	{colour: Palette.Sky, dashes: []vg.Length{vg.Points(1.5), vg.Points(2)}, glyph: draw.TriangleGlyph{}},
+	{colour: Palette.Umber, dashes: []vg.Length{vg.Points(6), vg.Points(2), vg.Points(1.5), vg.Points(2)}, glyph: draw.PyramidGlyph{}},
+}
+
+func newPlot(title, x, y string) *plot.Plot {
+	p := plot.New()
+	p.Title.Text = title
+	p.X.Label.Text = x
+	p.Y.Label.Text = y
+	p.Legend.Top = true
+	p.Add(plotter.NewGrid())
+	return p
+}
+
+// addSeries adds the points (x[i], y[i]) with finite coordinates as glyphs
+// joined by lines, breaking the line at NaN. It returns the number of
+// points drawn.
+func addSeries(p *plot.Plot, s style, label string, x, y []float64) int {
+	var pts plotter.XYs
+	var seg plotter.XYs
+	var lines []plot.Plotter
+	flush := func() {
+		if len(seg) > 1 {
+			l, _ := plotter.NewLine(seg)
+			l.Color, l.Width, l.Dashes = s.colour, vg.Points(1.5), s.dashes
+			lines = append(lines, l)
+		}
+		seg = nil
+	}
+	for i := range x {
+		if finite(x[i]) && finite(y[i]) {
+			pts = append(pts, plotter.XY{X: x[i], Y: y[i]})
+			seg = append(seg, plotter.XY{X: x[i], Y: y[i]})
+		} else {
+			flush()
+		}
+	}
+	flush()
+	if len(pts) == 0 {
+		return 0
+	}
+	sc, _ := plotter.NewScatter(pts)
+	sc.GlyphStyle = draw.GlyphStyle{Color: s.colour, Radius: vg.Points(2.5), Shape: s.glyph}
+	p.Add(lines...)
+	p.Add(sc)
+	l, _ := plotter.NewLine(plotter.XYs{{}, {}})
+	l.Color, l.Width, l.Dashes = s.colour, vg.Points(1.5), s.dashes
+	p.Legend.Add(label, l, sc)
+	return len(pts)
+}
+
+// headroom raises the top of the y axis by a quarter of its range so the
+// legend (drawn top right, inside the axes) does not cover data.
+func headroom(p *plot.Plot) {
+	if p.Y.Max > p.Y.Min {
+		p.Y.Max += 0.25 * (p.Y.Max - p.Y.Min)
+	}
+}
+
+func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+
+func (b *builder) col(get func(*series.Row) *float64, scale float64) []float64 {
+	out := make([]float64, len(b.rows))
+	for i := range b.rows {
+		out[i] = series.F(get(&b.rows[i])) * scale
+	}
+	return out
+}
+
+func (b *builder) times() []float64 {
+	out := make([]float64, len(b.rows))
+	for i := range b.rows {
+		out[i] = b.rows[i].Time
+	}
+	return out
+}
+
+func (b *builder) timePlot(name, title, ylabel string, curves []curve) Figure {
+	p := newPlot(title, "time t (s)", ylabel)
+	n := 0
+	for i, c := range curves {
+		n += addSeries(p, styles[i], c.label, b.times(), c.y)
+	}
+	if n == 0 {
+		p.Title.Text += " (no data)"
+	} else {
+		b.markEvents(p)
+	}
+	return Figure{Name: name, Title: title, panels: []*plot.Plot{p}}
+}
+
+type curve struct {
+	label string
+	y     []float64
+}
+
+func (b *builder) saturation() Figure {
+	f := b.timePlot("saturation", "Saturation", "saturation (1)", []curve{
+		{"S_w (wetting)", b.col(func(r *series.Row) *float64 { return r.SatWetting }, 1)},
+		{"S_n (nonwetting)", b.col(func(r *series.Row) *float64 { return r.SatNonwetting }, 1)},
+	})
+	f.panels[0].Y.Min, f.panels[0].Y.Max = 0, 1
+	return f
+}
+
+// hasPc reports whether any row has a capillary pressure.
+func (b *builder) hasPc() bool {
+	for i := range b.rows {
+		if b.rows[i].Pc != nil {
+			return true
+		}
+	}
+	return false
+}
+
+var (
+	pcMean    = func(r *series.Row) *float64 { return r.Pc }
+	pcMedian  = func(r *series.Row) *float64 { return r.PcMedian }
+	kMean     = func(r *series.Row) *float64 { return r.CurvMean }
+	kMedian   = func(r *series.Row) *float64 { return r.CurvMedian }
+	satWet    = func(r *series.Row) *float64 { return r.SatWetting }
+	areaWN    = func(r *series.Row) *float64 { return r.SpecificWN }
+	perMetreT = 1e-3 // 1/m → 1/mm
+	pascalToK = 1e-3 // Pa → kPa
+)
+
+func (b *builder) pressure() Figure {
+	if b.hasPc() {
+		return b.timePlot("capillary_pressure", "Capillary pressure", "capillary pressure Pc (kPa)", []curve{
+			{"Pc mean", b.col(pcMean, pascalToK)},
+			{"Pc median", b.col(pcMedian, pascalToK)},
+		})
+	}
+	return b.timePlot("capillary_pressure", "Interface curvature (no σ: Pc not computed)", "total curvature κ (1/mm)", []curve{
+		{"κ mean", b.col(kMean, perMetreT)},
+		{"κ median", b.col(kMedian, perMetreT)},
+	})
+}
+
+func (b *builder) curvature() Figure {
+	return b.timePlot("curvature", "Curvature of the w–n interface", "total curvature κ (1/mm)", []curve{
+		{"κ mean (area-weighted)", b.col(kMean, perMetreT)},
+		{"κ median", b.col(kMedian, perMetreT)},
+	})
+}
+
+func (b *builder) area() Figure {
+	return b.timePlot("specific_area", "Specific interfacial area", "specific area a (1/mm)", []curve{
+		{"a_wn", b.col(areaWN, perMetreT)},
+		{"a_ws", b.col(func(r *series.Row) *float64 { return r.SpecificWS }, perMetreT)},
+		{"a_ns", b.col(func(r *series.Row) *float64 { return r.SpecificNS }, perMetreT)},
+	})
+}
+
+func (b *builder) trajectory(name, title, ylabel, label string, y []float64) Figure {
+	p := newPlot(title, "wetting saturation S_w (1)", ylabel)
+	if addSeries(p, styles[0], label, b.col(satWet, 1), y) == 0 {
+		p.Title.Text += " (no data)"
+	} else {
+		// Ring the latest point so the direction of travel is visible.
+		x := b.col(satWet, 1)
+		for i := len(y) - 1; i >= 0; i-- {
+			if finite(x[i]) && finite(y[i]) {
+				sc, _ := plotter.NewScatter(plotter.XYs{{X: x[i], Y: y[i]}})
+				sc.GlyphStyle = draw.GlyphStyle{Color: Palette.Amber, Radius: vg.Points(5), Shape: draw.RingGlyph{}}
+				p.Add(sc)
+				p.Legend.Add("latest step "+b.rows[i].Step, sc)
+				break
+			}
+		}
+	}
+	p.X.Min, p.X.Max = 0, 1
+	return Figure{Name: name, Title: title, panels: []*plot.Plot{p}}
+}
+
+func (b *builder) pcTrajectory() Figure {
+	if b.hasPc() {
+		return b.trajectory("pc_saturation", "Capillary pressure – saturation", "capillary pressure Pc (kPa)", "Pc mean", b.col(pcMean, pascalToK))
+	}
+	return b.trajectory("pc_saturation", "Curvature – saturation (no σ)", "total curvature κ (1/mm)", "κ mean", b.col(kMean, perMetreT))
+}
+
+func (b *builder) areaTrajectory() Figure {
+	return b.trajectory("area_saturation", "Interfacial area – saturation", "specific area a_wn (1/mm)", "a_wn", b.col(areaWN, perMetreT))
+}
+
+// AngleDistributions returns the contact-angle distribution of the latest
+// step with samples and the running distribution over all steps, each
+// rebinned to AngleBin degrees and normalised to a density per degree
+// (sums × AngleBin = 1). latest is the index of that step in rows, −1 when
+// no step has samples.
+func AngleDistributions(rows []series.Row) (last, running []float64, latest int) {
+	nb := 180 / AngleBin
+	last, running = make([]float64, nb), make([]float64, nb)
+	latest = -1
+	var totLast, totRun float64
+	for i := range rows {
+		var n float64
+		for _, c := range rows[i].AngleHist {
+			n += float64(c)
+		}
+		if n > 0 {
+			latest = i
+		}
+	}
+	for i := range rows {
+		for deg, c := range rows[i].AngleHist {
+			if deg >= 180 || c <= 0 {
+				continue
+			}
+			running[deg/AngleBin] += float64(c)
+			totRun += float64(c)
+			if i == latest {
+				last[deg/AngleBin] += float64(c)
+				totLast += float64(c)
+			}
+		}
+	}
+	for k := range last {
+		if totLast > 0 {
+			last[k] /= totLast * AngleBin
+		}
+		if totRun > 0 {
+			running[k] /= totRun * AngleBin
+		}
+	}
+	return last, running, latest
+}
+
+func (b *builder) angles() Figure {
+	title := "Contact angle through the wetting phase"
+	p := newPlot(title, "contact angle θ (°)", "fraction of samples per degree (1/°)")
+	last, running, latest := AngleDistributions(b.rows)
+	p.X.Min, p.X.Max = 0, 180
+	var ticks []plot.Tick
+	for d := 0; d <= 180; d += 30 {
+		ticks = append(ticks, plot.Tick{Value: float64(d), Label: fmt.Sprint(d)})
+	}
+	p.X.Tick.Marker = plot.ConstantTicks(ticks)
+	if latest < 0 {
+		p.Title.Text += " (no data)"
+		return Figure{Name: "contact_angle", Title: title, panels: []*plot.Plot{p}}
+	}
+	h := &plotter.Histogram{Width: AngleBin, FillColor: Palette.Sky}
+	h.LineStyle = draw.LineStyle{Color: Palette.Ink, Width: vg.Points(0.5)}
+	var line plotter.XYs
+	for k := range last {
+		lo := float64(k * AngleBin)
+		h.Bins = append(h.Bins, plotter.HistogramBin{Min: lo, Max: lo + AngleBin, Weight: last[k]})
+		line = append(line, plotter.XY{X: lo + AngleBin/2.0, Y: running[k]})
+	}
+	p.Add(h)
+	p.Legend.Add("latest step "+b.rows[latest].Step, h)
+	l, sc, _ := plotter.NewLinePoints(line)
+	l.Color, l.Width, l.Dashes = Palette.Umber, vg.Points(1.5), styles[1].dashes
+	sc.GlyphStyle = draw.GlyphStyle{Color: Palette.Umber, Radius: vg.Points(2), Shape: draw.SquareGlyph{}}
+	p.Add(l, sc)
+	p.Legend.Add(fmt.Sprintf("all steps (%d)", len(b.rows)), l, sc)
+	p.Add(&vline{x: 90, style: draw.LineStyle{Color: Palette.Slate, Width: vg.Points(0.8), Dashes: []vg.Length{vg.Points(2), vg.Points(2)}}})
+	return Figure{Name: "contact_angle", Title: title, panels: []*plot.Plot{p}}
+}
+
+func (b *builder) ganglia() Figure {
+	count := make([]float64, len(b.rows))
+	for i := range b.rows {
+		count[i] = math.NaN()
+		if c := b.rows[i].GangliaCount; c != nil {
+			count[i] = float64(*c)
+		}
+	}
+	top := newPlot("Nonwetting ganglia", "", "ganglia count (1)")
+	n := addSeries(top, styles[0], "ganglia", b.times(), count)
+	bottom := newPlot("", "time t (s)", "largest ganglion fraction (1)")
+	n += addSeries(bottom, styles[1], "largest / all nonwetting volume",
+		b.times(), b.col(func(r *series.Row) *float64 { return r.LargestFraction }, 1))
+	bottom.Y.Min, bottom.Y.Max = 0, 1
+	if n == 0 {
+		top.Title.Text += " (no data)"
+	} else {
+		b.markEvents(top)
+		b.markEvents(bottom)
+	}
+	top.HideX()
+	return Figure{Name: "ganglia", Title: "Nonwetting ganglia", panels: []*plot.Plot{top, bottom}}
+}
+
+var eventStyles = map[events.Kind]draw.LineStyle{
+	events.Breakthrough: {Color: color.Black, Width: vg.Points(1), Dashes: []vg.Length{vg.Points(4), vg.Points(2)}},
+	events.SteadyState:  {Color: Palette.Slate, Width: vg.Points(1.2), Dashes: []vg.Length{vg.Points(1), vg.Points(2)}},
+}
+
+func (b *builder) markEvents(p *plot.Plot) {
+	seen := map[events.Kind]bool{}
+	for _, e := range b.evs {
+		v := &vline{x: e.Time, style: eventStyles[e.Kind]}
+		p.Add(v)
+		if !seen[e.Kind] {
+			seen[e.Kind] = true
+			p.Legend.Add(string(e.Kind), v)
+		}
+	}
+}
+
+// vline is a vertical line across the data area at x; it does not change
+// the axis ranges.
+type vline struct {
+	x     float64
+	style draw.LineStyle
+}
+
+func (v *vline) Plot(c draw.Canvas, p *plot.Plot) {
+	if v.x < p.X.Min || v.x > p.X.Max {
+		return
+	}
+	tx, _ := p.Transforms(&c)
+	x := tx(v.x)
+	c.StrokeLine2(v.style, x, c.Min.Y, x, c.Max.Y)
+}
+
+func (v *vline) Thumbnail(c *draw.Canvas) {
+	x := (c.Min.X + c.Max.X) / 2
+	c.StrokeLine2(v.style, x, c.Min.Y, x, c.Max.Y)
+}

@@ -1,0 +1,287 @@
+package plots
+
+import (
+	"bytes"
+	"encoding/xml"
+	"fmt"
+	"image/color"
+	"image/png"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"testing"
+
+	"sluice/pkg/events"
+	"sluice/pkg/series"
+)
+
+func fp(v float64) *float64 { return &v }
+
+// drainage makes an n-step drainage series: S_w falls, Pc rises, contact
+// angles centred near 60°; Pc is null at nullPc (−1: none).
+func drainage(n, nullPc int) []series.Row {
+	rows := make([]series.Row, n)
+	for i := range rows {
+		f := float64(i) / float64(n-1)
+		sw := 1 - 0.7*f
+		rows[i] = series.Row{Step: fmt.Sprintf("s%03d", i), Time: 40 * float64(i)}
+		rows[i].SatWetting, rows[i].SatNonwetting = fp(sw), fp(1-sw)
+		rows[i].Porosity = fp(0.21)
+		k := 2/100e-6 + 3e4*f // 1/m
+		rows[i].CurvMean, rows[i].CurvMedian = fp(k), fp(0.95*k)
+		if i != nullPc {
+			rows[i].Pc, rows[i].PcMedian = fp(0.03*k), fp(0.03*0.95*k)
+		}
+		rows[i].SpecificWN = fp(2000 * f * (1 - f) * 4)
+		rows[i].SpecificWS = fp(12000 - 3000*f)
+		rows[i].SpecificNS = fp(500 * f)
+		g := int64(1 + i%5)
+		rows[i].GangliaCount = &g
+		rows[i].LargestFraction = fp(0.3 + 0.6*f)
+		perc := i >= n/2
+		rows[i].Percolates = &perc
+		h := make([]int64, 180)
+		for d := range h {
+			h[d] = int64(100 * math.Exp(-math.Pow(float64(d)-60-float64(i), 2)/200))
+		}
+		rows[i].AngleHist = h
+	}
+	return rows
+}
+
+func hexOf(c color.NRGBA) string { return fmt.Sprintf("#%02X%02X%02X", c.R, c.G, c.B) }
+
+var (
+	pathRe   = regexp.MustCompile(`<path d="([^"]*)" style="([^"]*)"`)
+	vertexRe = regexp.MustCompile(`[ML]`)
+)
+
+// strokeVertices returns the vertex counts of the unfilled paths stroked
+// in colour c, and the number of paths filled with c.
+func svgPaths(svg string, c color.NRGBA) (lines []int, filled int) {
+	h := hexOf(c)
+	for _, m := range pathRe.FindAllStringSubmatch(svg, -1) {
+		st := m[2]
+		if strings.Contains(st, "fill:none") && strings.Contains(st, "stroke:"+h) {
+			lines = append(lines, len(vertexRe.FindAllString(m[1], -1)))
+		}
+		if strings.Contains(st, "fill:"+h) {
+			filled++
+		}
+	}
+	return lines, filled
+}
+
+func render(t *testing.T, f Figure) (svg []byte, pngb []byte) {
+	t.Helper()
+	var s, p bytes.Buffer
+	if err := f.WriteSVG(&s); err != nil {
+		t.Fatal(err)
+	}
+	if err := f.WritePNG(&p); err != nil {
+		t.Fatal(err)
+	}
+	return s.Bytes(), p.Bytes()
+}
+
+func wellFormed(t *testing.T, name string, b []byte) {
+	t.Helper()
+	d := xml.NewDecoder(bytes.NewReader(b))
+	n := 0
+	for {
+		_, err := d.Token()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			t.Fatalf("%s: SVG is not well-formed XML: %v", name, err)
+		}
+		n++
+	}
+	if n < 10 {
+		t.Fatalf("%s: SVG has only %d tokens", name, n)
+	}
+}
+
+func byName(fs []Figure, name string) Figure {
+	for _, f := range fs {
+		if f.Name == name {
+			return f
+		}
+	}
+	panic(name)
+}
+
+func TestWriteFilesProducesDecodablePNGAndSVG(t *testing.T) {
+	rows := drainage(17, -1)
+	evs, err := events.Detect(rows, events.Defaults())
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	paths, err := WriteFiles(dir, rows, evs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(paths) != 2*len(Names) {
+		t.Fatalf("%d files, want %d", len(paths), 2*len(Names))
+	}
+	for _, name := range Names {
+		pb, err := os.ReadFile(filepath.Join(dir, name+".png"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		img, err := png.Decode(bytes.NewReader(pb))
+		if err != nil {
+			t.Fatalf("%s.png: %v", name, err)
+		}
+		if b := img.Bounds(); b.Dx() != PixelWidth || b.Dy() != PixelHeight {
+			t.Fatalf("%s.png is %v, want %d×%d", name, b, PixelWidth, PixelHeight)
+		}
+		// The first series colour must appear in the raster (data drawn).
+		found := false
+		for y := 0; y < PixelHeight && !found; y++ {
+			for x := 0; x < PixelWidth; x++ {
+				r, g, b, _ := img.At(x, y).RGBA()
+				c := Palette.Ink
+				if name == "contact_angle" {
+					c = Palette.Sky
+				}
+				if uint8(r>>8) == c.R && uint8(g>>8) == c.G && uint8(b>>8) == c.B {
+					found = true
+					break
+				}
+			}
+		}
+		if !found {
+			t.Errorf("%s.png: no pixel in the data colour", name)
+		}
+		sb, err := os.ReadFile(filepath.Join(dir, name+".svg"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		wellFormed(t, name, sb)
+	}
+}
+
+// TestSVGHoldsEveryPoint counts the vertices of the data lines and the
+// glyphs in the SVG: one per step, plus one glyph for the legend.
+func TestSVGHoldsEveryPoint(t *testing.T) {
+	const n = 17
+	rows := drainage(n, 5) // Pc null at step 5: the Pc line breaks there
+	figs := Build(rows, nil)
+	for _, c := range []struct {
+		fig       string
+		lines     []int // vertex counts of Ink-coloured data lines, legend thumbnails (2) included
+		inkGlyphs int
+	}{
+		{"saturation", []int{n, 2}, n + 1},
+		{"curvature", []int{n, 2}, n + 1},
+		{"specific_area", []int{n, 2}, n + 1},
+		{"area_saturation", []int{n, 2}, n + 1},
+		{"capillary_pressure", []int{5, n - 6, 2}, n - 1 + 1},
+		{"pc_saturation", []int{5, n - 6, 2}, n - 1 + 1},
+		{"ganglia", []int{n, 2}, n + 1},
+	} {
+		svg, _ := render(t, byName(figs, c.fig))
+		lines, filled := svgPaths(string(svg), Palette.Ink)
+		if fmt.Sprint(lines) != fmt.Sprint(c.lines) || filled != c.inkGlyphs {
+			t.Errorf("%s: ink lines with vertices %v (want %v), ink glyphs %d (want %d)", c.fig, lines, c.lines, filled, c.inkGlyphs)
+		}
+	}
+	// Dropping one step must change what is drawn (the check can fail).
+	svg, _ := render(t, byName(Build(rows[:n-1], nil), "saturation"))
+	if lines, _ := svgPaths(string(svg), Palette.Ink); lines[0] != n-1 {
+		t.Fatalf("n−1 rows drew %v vertices", lines)
+	}
+}
+
+func TestContactAngleFigure(t *testing.T) {
+	rows := drainage(6, -1)
+	rows[5].AngleHist = nil // latest step without samples: step 4 is the latest with data
+	last, running, latest := AngleDistributions(rows)
+	if latest != 4 {
+		t.Fatalf("latest = %d", latest)
+	}
+	var sl, sr float64
+	for k := range last {
+		sl += last[k] * AngleBin
+		sr += running[k] * AngleBin
+	}
+	if math.Abs(sl-1) > 1e-12 || math.Abs(sr-1) > 1e-12 {
+		t.Fatalf("densities integrate to %v and %v", sl, sr)
+	}
+	// Bin 12 ([60°, 65°)) of step 4: direct sum of its 1° counts.
+	var want, tot float64
+	for d, c := range rows[4].AngleHist {
+		tot += float64(c)
+		if d >= 60 && d < 65 {
+			want += float64(c)
+		}
+	}
+	if got := last[12]; math.Abs(got-want/tot/AngleBin) > 1e-15 {
+		t.Fatalf("bin [60,65): %v, want %v", got, want/tot/AngleBin)
+	}
+	svg, _ := render(t, byName(Build(rows, nil), "contact_angle"))
+	_, bars := svgPaths(string(svg), Palette.Sky)
+	// One filled polygon per 5° bin plus the legend swatch.
+	if bars != 180/AngleBin+1 {
+		t.Fatalf("%d sky-filled paths, want %d", bars, 180/AngleBin+1)
+	}
+	lines, _ := svgPaths(string(svg), Palette.Umber)
+	if len(lines) == 0 || lines[0] != 180/AngleBin {
+		t.Fatalf("running line vertices %v, want %d", lines, 180/AngleBin)
+	}
+}
+
+func TestEmptySeriesStillDraws(t *testing.T) {
+	for _, f := range Build(nil, nil) {
+		svg, pngb := render(t, f)
+		wellFormed(t, f.Name, svg)
+		if _, err := png.Decode(bytes.NewReader(pngb)); err != nil {
+			t.Fatalf("%s: %v", f.Name, err)
+		}
+		if !bytes.Contains(svg, []byte("(no data)")) {
+			t.Errorf("%s: empty figure not marked", f.Name)
+		}
+	}
+}
+
+func TestEventMarkers(t *testing.T) {
+	rows := drainage(12, -1)
+	evs := []events.Event{{Kind: events.Breakthrough, Step: rows[6].Step, Time: rows[6].Time}}
+	svg, _ := render(t, byName(Build(rows, evs), "saturation"))
+	without, _ := render(t, byName(Build(rows, nil), "saturation"))
+	black := func(b []byte) int {
+		n := 0
+		for _, m := range pathRe.FindAllStringSubmatch(string(b), -1) {
+			if strings.Contains(m[2], "stroke:#000000") && strings.Contains(m[2], "stroke-dasharray") {
+				n++
+			}
+		}
+		return n
+	}
+	// Marker line plus its legend thumbnail.
+	if got := black(svg) - black(without); got != 2 {
+		t.Fatalf("breakthrough added %d dashed black paths, want 2", got)
+	}
+	if !bytes.Contains(svg, []byte("breakthrough")) {
+		t.Fatal("no legend entry")
+	}
+}
+
+func BenchmarkBuildAndRender(b *testing.B) {
+	rows := drainage(200, -1)
+	b.ReportAllocs()
+	for i := 0; i < b.N; i++ {
+		for _, f := range Build(rows, nil) {
+			if err := f.WriteSVG(io.Discard); err != nil {
+				b.Fatal(err)
+			}
+		}
+	}
+	b.ReportMetric(float64(len(Names)*b.N)/b.Elapsed().Seconds(), "figures/s")
+}
