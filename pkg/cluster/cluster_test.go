@@ -14,6 +14,7 @@ import (
 	"testing"
 
 	"sluice/pkg/phase"
+	"sluice/pkg/synth"
 	"sluice/pkg/volume"
 )
 
@@ -244,27 +245,15 @@ func checkInvariant(t *testing.T, lab *volume.Labels, opt Options, seed uint64) 
 	return refSum
 }
 
-// helix draws a tube of radius r around a helix winding along z.
+// helix draws a tube of radius r around a helix of radius R winding along
+// z with the given pitch, as a chain of balls a fifth of a voxel apart.
 func helix(lab *volume.Labels, R, r, pitch float64) {
 	n := lab.Box.Size()
 	cy, cx := float64(n[1]-1)/2, float64(n[2]-1)/2
-	for z := 0; z < n[0]; z++ {
-		for y := 0; y < n[1]; y++ {
-			for x := 0; x < n[2]; x++ {
-				best := math.Inf(1)
-				// Distance to the helix sampled finely in angle near this z.
-				t0 := 2 * math.Pi * float64(z) / pitch
-				for dt := -1.5; dt <= 1.5; dt += 0.02 {
-					th := t0 + dt
-					hz := th * pitch / (2 * math.Pi)
-					d := math.Pow(float64(z)-hz, 2) + math.Pow(float64(y)-cy-R*math.Sin(th), 2) + math.Pow(float64(x)-cx-R*math.Cos(th), 2)
-					best = math.Min(best, d)
-				}
-				if best <= r*r {
-					lab.Set(z, y, x, nw)
-				}
-			}
-		}
+	step := 0.2 / math.Hypot(R, pitch/(2*math.Pi)) // angle per 0.2 voxel of arc
+	for th := -1.0; th*pitch/(2*math.Pi) <= float64(n[0])+1; th += step {
+		c := [3]float64{th * pitch / (2 * math.Pi), cy + R*math.Sin(th), cx + R*math.Cos(th)}
+		synth.Ball(lab, c, r, nw)
 	}
 }
 
