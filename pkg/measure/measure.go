@@ -65,8 +65,8 @@ func Defaults() Options {
 	return Options{
 		Codes:        phase.Default(),
 		Connectivity: 26,
-		Curvature:    curvature.DefaultOptions(),
-		Contact:      contact.DefaultOptions(),
+		Curvature:    curvature.Options{Sigma: curvature.DefaultSigma, Exclude: curvature.DefaultExclude},
+		Contact:      contact.Options{Radius: contact.DefaultRadius, SolidSigma: contact.DefaultSolidSigma, MinFaces: contact.DefaultMinFaces},
 	}
 }
 

@@ -1,0 +1,191 @@
+// Package campaign holds the configuration of a campaign: everything that
+// decides how a step's grey volume becomes numbers — voxel size, interfacial
+// tension, segmentation, measurement options, tiling — with documented
+// defaults, strict YAML/JSON loading (unknown keys are errors) and a
+// parameter hash that covers every value that changes results.
+package campaign
+
+import (
+	"bytes"
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
+	"fmt"
+	"os"
+
+	"gopkg.in/yaml.v3"
+
+	"sluice/pkg/contact"
+	"sluice/pkg/curvature"
+	"sluice/pkg/measure"
+	"sluice/pkg/segment"
+	"sluice/pkg/volume"
+)
+
+// Config is a campaign's configuration. Field comments give the defaults.
+type Config struct {
+	// VoxelSize is the voxel edge with unit, e.g. "2.5um"; empty means take
+	// it from each input file (1 µm when the file has none).
+	VoxelSize string `json:"voxel_size,omitempty" yaml:"voxel_size,omitempty"`
+	// IFT is the fluid–fluid interfacial tension σ in N/m (0 = unknown:
+	// capillary pressure is left out). E.g. 0.07275 water–air at 20 °C
+	// (CRC Handbook); about 0.052 n-decane–water.
+	IFT float64 `json:"ift_n_per_m" yaml:"ift_n_per_m"`
+	// Tile is the tile core edge in voxels (default 128). It is also the
+	// Zarr chunk edge. Results do not depend on it beyond rounding, so it is
+	// not part of the parameter hash.
+	Tile int `json:"tile" yaml:"tile"`
+	// Segment configures grey → labels.
+	Segment segment.Params `json:"segment" yaml:"segment"`
+	// DetectSample finds the cylindrical sample from the image when
+	// Segment.Sample is not given (default true); SampleMargin shrinks the
+	// detected radius (voxels, default 2).
+	DetectSample bool    `json:"detect_sample" yaml:"detect_sample"`
+	SampleMargin float64 `json:"sample_margin" yaml:"sample_margin"`
+	// Measure configures the measurements.
+	Measure Measure `json:"measure" yaml:"measure"`
+}
+
+// Measure holds the measurement options of a campaign.
+type Measure struct {
+	// Connectivity of nonwetting clusters and Euler characteristics: 26
+	// (default) or 6.
+	Connectivity int `json:"connectivity" yaml:"connectivity"`
+	// FlowAxis is z (default), y or x: inlet at the low end.
+	FlowAxis string `json:"flow_axis" yaml:"flow_axis"`
+	// CurvatureSigma and CurvatureExclude: Gaussian σ of the level-set
+	// curvature and the distance from the solid (voxels) within which
+	// interface is ignored; defaults 1.5 and 3.
+	CurvatureSigma   float64 `json:"curvature_sigma" yaml:"curvature_sigma"`
+	CurvatureExclude float64 `json:"curvature_exclude" yaml:"curvature_exclude"`
+	// ContactRadius, ContactSolidSigma and ContactMinFaces tune the
+	// contact-angle fit; defaults 6, 2 and 12.
+	ContactRadius     float64 `json:"contact_radius" yaml:"contact_radius"`
+	ContactSolidSigma float64 `json:"contact_solid_sigma" yaml:"contact_solid_sigma"`
+	ContactMinFaces   int     `json:"contact_min_faces" yaml:"contact_min_faces"`
+	// SkipCurvature and SkipContact turn the expensive measurements off.
+	SkipCurvature bool `json:"skip_curvature" yaml:"skip_curvature"`
+	SkipContact   bool `json:"skip_contact" yaml:"skip_contact"`
+}
+
+// Default returns the documented defaults.
+func Default() Config {
+	return Config{
+		Tile:         128,
+		Segment:      segment.Defaults(),
+		DetectSample: true,
+		SampleMargin: 2,
+		Measure: Measure{
+			Connectivity:      26,
+			FlowAxis:          "z",
+			CurvatureSigma:    curvature.DefaultSigma,
+			CurvatureExclude:  curvature.DefaultExclude,
+			ContactRadius:     contact.DefaultRadius,
+			ContactSolidSigma: contact.DefaultSolidSigma,
+			ContactMinFaces:   contact.DefaultMinFaces,
+		},
+	}
+}
+
+// Validate reports unusable values.
+func (c Config) Validate() error {
+	if c.VoxelSize != "" {
+		if _, err := volume.ParseLength(c.VoxelSize); err != nil {
+			return fmt.Errorf("campaign: voxel_size: %w", err)
+		}
+	}
+	if c.Tile < 16 || c.Tile > 1024 {
+		return fmt.Errorf("campaign: tile %d out of range 16..1024", c.Tile)
+	}
+	if err := c.Segment.Validate(); err != nil {
+		return fmt.Errorf("campaign: %w", err)
+	}
+	if c.SampleMargin < 0 {
+		return fmt.Errorf("campaign: sample_margin %g must be >= 0", c.SampleMargin)
+	}
+	mo, err := c.MeasureOptions()
+	if err != nil {
+		return err
+	}
+	halo := c.Segment.Halo() + mo.Halo()
+	if halo >= c.Tile {
+		return fmt.Errorf("campaign: halo of %d voxels is not smaller than the tile (%d); raise tile", halo, c.Tile)
+	}
+	return nil
+}
+
+// VoxelSizeM returns the configured voxel size in metres, or 0.
+func (c Config) VoxelSizeM() float64 {
+	v, _ := volume.ParseLength(c.VoxelSize)
+	if c.VoxelSize == "" {
+		return 0
+	}
+	return v
+}
+
+// MeasureOptions returns the measurement options.
+func (c Config) MeasureOptions() (measure.Options, error) {
+	o := measure.Defaults()
+	o.Codes = c.Segment.Codes
+	o.IFT = c.IFT
+	o.Connectivity = c.Measure.Connectivity
+	switch c.Measure.FlowAxis {
+	case "z", "":
+		o.FlowAxis = 0
+	case "y":
+		o.FlowAxis = 1
+	case "x":
+		o.FlowAxis = 2
+	default:
+		return o, fmt.Errorf("campaign: flow_axis %q (want z, y or x)", c.Measure.FlowAxis)
+	}
+	o.Curvature = curvature.Options{Sigma: c.Measure.CurvatureSigma, Exclude: c.Measure.CurvatureExclude}
+	o.Contact = contact.Options{Radius: c.Measure.ContactRadius, SolidSigma: c.Measure.ContactSolidSigma, MinFaces: c.Measure.ContactMinFaces}
+	o.SkipCurvature, o.SkipContact = c.Measure.SkipCurvature, c.Measure.SkipContact
+	if err := o.Validate(); err != nil {
+		return o, fmt.Errorf("campaign: %w", err)
+	}
+	return o, nil
+}
+
+// Hash returns the parameter hash: the first 16 hex digits of the SHA-256
+// of the canonical JSON of every result-changing value (all of Config but
+// Tile). Two runs with equal hashes and software versions give the same
+// series.
+func (c Config) Hash() string {
+	c.Tile = 0
+	b, err := json.Marshal(c)
+	if err != nil {
+		panic(err) // plain data; cannot fail
+	}
+	s := sha256.Sum256(b)
+	return hex.EncodeToString(s[:8])
+}
+
+// Parse reads a YAML (or JSON, a subset of YAML) configuration over the
+// defaults; unknown keys are errors.
+func Parse(name string, data []byte) (Config, error) {
+	c := Default()
+	dec := yaml.NewDecoder(bytes.NewReader(data))
+	dec.KnownFields(true)
+	if err := dec.Decode(&c); err != nil && err.Error() != "EOF" {
+		return c, fmt.Errorf("campaign: %s: %v", name, oneLine(err))
+	}
+	if err := c.Validate(); err != nil {
+		return c, fmt.Errorf("%s: %w", name, err)
+	}
+	return c, nil
+}
+
+// Load reads a configuration file.
+func Load(path string) (Config, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return Config{}, fmt.Errorf("campaign: %w", err)
+	}
+	return Parse(path, b)
+}
+
+func oneLine(err error) string {
+	return string(bytes.ReplaceAll([]byte(err.Error()), []byte("\n"), []byte("; ")))
+}
