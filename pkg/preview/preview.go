@@ -1,0 +1,306 @@
+// Package preview renders a quick look at one step: three orthogonal slices
+// (z, y, x) through a chosen voxel of the grey volume, with the segmented
+// phases overlaid semi-transparently and a legend, as one PNG.
+//
+// Grey values are mapped linearly to 0…255 between the 1st and 99th
+// percentiles of the voxels shown (linear interpolation between order
+// statistics, Hyndman & Fan 1996 type 7, the default of numpy.percentile),
+// so a few very bright or dark voxels do not wash the picture out. For a
+// live series pass a fixed Window so successive steps share one scale.
+//
+// Overlay: each pixel is (1−α)·grey + α·colour, per channel, rounded, with
+// colour from Overlay by phase. Solid is left untinted (the grey already
+// shows the grains); voxels outside the sample are dimmed to 40 %.
+//
+// Layout (pixels; s = Options.Scale; NZ, NY, NX the grey volume's shape):
+//
+//	Margin | z-slice NX·s × NY·s | Margin | y-slice NX·s × NZ·s | Margin | x-slice NY·s × NZ·s | Margin
+//
+// Width  = max(4·Margin + (2·NX + NY)·s, MinWidth)
+// Height = Margin + TitleHeight + max(NY, NZ)·s + Margin + LegendHeight + Margin
+//
+// Each slice has a title above it ("z = 12", the global index); the z-slice
+// is drawn with y downwards, the y- and x-slices with z downwards. The
+// legend strip runs along the bottom.
+package preview
+
+import (
+	"fmt"
+	"image"
+	"image/color"
+	"image/draw"
+	"image/png"
+	"io"
+	"math"
+	"sort"
+
+	"golang.org/x/image/font"
+	"golang.org/x/image/font/basicfont"
+	"golang.org/x/image/math/fixed"
+
+	"sluice/pkg/phase"
+	"sluice/pkg/volume"
+)
+
+// Layout constants in pixels.
+const (
+	Margin       = 8
+	TitleHeight  = 16
+	LegendHeight = 20
+	MinWidth     = 460
+	// Swatch is the edge of a legend colour square.
+	Swatch = 12
+)
+
+// Overlay is sluice's phase overlay palette, chosen for this project.
+// Wetting is a mid blue and nonwetting an amber: they differ along the
+// blue–yellow axis that protanopes and deuteranopes keep, and in lightness,
+// so they stay apart for them (checked with plots.Simulate in the tests);
+// solid carries no tint, so three classes never depend on a red–green
+// difference.
+var Overlay = struct {
+	Wetting, Nonwetting color.NRGBA
+}{
+	Wetting:    color.NRGBA{0x1F, 0x66, 0xD1, 0xFF},
+	Nonwetting: color.NRGBA{0xF5, 0xA6, 0x14, 0xFF},
+}
+
+// OutsideDim is the factor applied to grey outside the sample.
+const OutsideDim = 0.4
+
+// Options choose the slices and the look.
+type Options struct {
+	// Point is the global (z, y, x) voxel the slices pass through; nil
+	// means the centre of the grey volume.
+	Point *[3]int
+	// Codes are the label values of the phases.
+	Codes phase.Codes
+	// Alpha is the overlay opacity in [0, 1].
+	Alpha float64
+	// Window fixes the grey values mapped to 0 and 255; nil uses the 1st
+	// and 99th percentiles of the three slices.
+	Window *[2]float64
+	// Scale is an integer magnification ≥ 1.
+	Scale int
+}
+
+// Defaults returns the default codes, α = 0.45, scale 1, centre point.
+func Defaults() Options { return Options{Codes: phase.Default(), Alpha: 0.45, Scale: 1} }
+
+// Size returns the PNG size in pixels for a grey volume of the given
+// shape (NZ, NY, NX).
+func Size(shape [3]int, scale int) (w, h int) {
+	nz, ny, nx := shape[0]*scale, shape[1]*scale, shape[2]*scale
+	w = 4*Margin + 2*nx + ny
+	if w < MinWidth {
+		w = MinWidth
+	}
+	h = Margin + TitleHeight + max(ny, nz) + Margin + LegendHeight + Margin
+	return w, h
+}
+
+// sampler reads a grey voxel as float64.
+func sampler(a volume.Any) (func(z, y, x int) float64, error) {
+	switch v := a.(type) {
+	case *volume.Volume[uint8]:
+		return func(z, y, x int) float64 { return float64(v.At(z, y, x)) }, nil
+	case *volume.Volume[uint16]:
+		return func(z, y, x int) float64 { return float64(v.At(z, y, x)) }, nil
+	case *volume.Volume[float32]:
+		return func(z, y, x int) float64 { return float64(v.At(z, y, x)) }, nil
+	}
+	return nil, fmt.Errorf("preview: unsupported grey volume %T", a)
+}
+
+// Percentile returns the p-quantile (0 ≤ p ≤ 1) of sorted values by
+// linear interpolation between order statistics (Hyndman & Fan type 7).
+func Percentile(sorted []float64, p float64) float64 {
+	if len(sorted) == 0 {
+		return math.NaN()
+	}
+	h := p * float64(len(sorted)-1)
+	lo := int(math.Floor(h))
+	if lo >= len(sorted)-1 {
+		return sorted[len(sorted)-1]
+	}
+	return sorted[lo] + (h-float64(lo))*(sorted[lo+1]-sorted[lo])
+}
+
+// slice describes one panel: which global axes run across and down, and
+// the fixed coordinate.
+type slice struct {
+	title        string
+	fixedAxis    int
+	fixed        int
+	across, down int // axes of the columns and rows
+}
+
+// Render draws the preview. labels may be nil (grey only); where labels
+// do not cover a voxel, no overlay is drawn.
+func Render(grey volume.Any, labels *volume.Labels, o Options) (*image.NRGBA, error) {
+	if grey == nil {
+		return nil, fmt.Errorf("preview: no grey volume")
+	}
+	box := grey.Bounds()
+	if box.Empty() {
+		return nil, volume.ErrEmpty
+	}
+	if o.Scale < 1 {
+		return nil, fmt.Errorf("preview: scale %d, want ≥ 1", o.Scale)
+	}
+	if !(o.Alpha >= 0 && o.Alpha <= 1) {
+		return nil, fmt.Errorf("preview: alpha %v, want 0…1", o.Alpha)
+	}
+	if err := o.Codes.Validate(); err != nil {
+		return nil, fmt.Errorf("preview: %v", err)
+	}
+	at, err := sampler(grey)
+	if err != nil {
+		return nil, err
+	}
+	var pt [3]int
+	if o.Point != nil {
+		pt = *o.Point
+		if !box.Contains(pt[0], pt[1], pt[2]) {
+			return nil, fmt.Errorf("preview: point %v outside volume %v", pt, box)
+		}
+	} else {
+		for i := range pt {
+			pt[i] = (box.Min[i] + box.Max[i]) / 2
+		}
+	}
+	slices := []slice{
+		{fmt.Sprintf("z = %d", pt[0]), 0, pt[0], 2, 1},
+		{fmt.Sprintf("y = %d", pt[1]), 1, pt[1], 2, 0},
+		{fmt.Sprintf("x = %d", pt[2]), 2, pt[2], 1, 0},
+	}
+	coord := func(s slice, col, row int) (z, y, x int) {
+		var c [3]int
+		c[s.fixedAxis] = s.fixed
+		c[s.across] = box.Min[s.across] + col
+		c[s.down] = box.Min[s.down] + row
+		return c[0], c[1], c[2]
+	}
+	size := box.Size()
+	lo, hi := 0.0, 0.0
+	if o.Window != nil {
+		lo, hi = o.Window[0], o.Window[1]
+	} else {
+		var vals []float64
+		for _, s := range slices {
+			for row := 0; row < size[s.down]; row++ {
+				for col := 0; col < size[s.across]; col++ {
+					vals = append(vals, at(coord(s, col, row)))
+				}
+			}
+		}
+		sort.Float64s(vals)
+		lo, hi = Percentile(vals, 0.01), Percentile(vals, 0.99)
+	}
+	w, h := Size(size, o.Scale)
+	img := image.NewNRGBA(image.Rect(0, 0, w, h))
+	draw.Draw(img, img.Bounds(), image.White, image.Point{}, draw.Src)
+
+	x0 := Margin
+	top := Margin + TitleHeight
+	for _, s := range slices {
+		text(img, x0, Margin+TitleHeight-4, s.title)
+		for row := 0; row < size[s.down]; row++ {
+			for col := 0; col < size[s.across]; col++ {
+				z, y, x := coord(s, col, row)
+				c := o.pixel(grey8(at(z, y, x), lo, hi), labels, z, y, x)
+				for dy := 0; dy < o.Scale; dy++ {
+					for dx := 0; dx < o.Scale; dx++ {
+						img.SetNRGBA(x0+col*o.Scale+dx, top+row*o.Scale+dy, c)
+					}
+				}
+			}
+		}
+		x0 += size[s.across]*o.Scale + Margin
+	}
+	o.legend(img)
+	return img, nil
+}
+
+// grey8 maps v to 0…255 between lo and hi, clamped.
+func grey8(v, lo, hi float64) uint8 {
+	if !(hi > lo) {
+		if v > lo {
+			return 255
+		}
+		return 0
+	}
+	t := (v - lo) / (hi - lo)
+	return uint8(math.Round(255 * math.Max(0, math.Min(1, t))))
+}
+
+// Blend returns (1−α)·g + α·c per channel, rounded, opaque.
+func Blend(g uint8, c color.NRGBA, alpha float64) color.NRGBA {
+	mix := func(a uint8) uint8 { return uint8(math.Round((1-alpha)*float64(g) + alpha*float64(a))) }
+	return color.NRGBA{mix(c.R), mix(c.G), mix(c.B), 0xFF}
+}
+
+func (o *Options) pixel(g uint8, labels *volume.Labels, z, y, x int) color.NRGBA {
+	grey := color.NRGBA{g, g, g, 0xFF}
+	if labels == nil || !labels.Box.Contains(z, y, x) {
+		return grey
+	}
+	switch labels.At(z, y, x) {
+	case o.Codes.Wetting:
+		return Blend(g, Overlay.Wetting, o.Alpha)
+	case o.Codes.Nonwetting:
+		return Blend(g, Overlay.Nonwetting, o.Alpha)
+	case phase.Outside:
+		d := uint8(math.Round(OutsideDim * float64(g)))
+		return color.NRGBA{d, d, d, 0xFF}
+	}
+	return grey
+}
+
+// LegendSwatches returns the rectangles and colours of the legend squares
+// (wetting, nonwetting, solid, outside) in an image of height h.
+// Swatches show the overlay over mid grey (128), as it appears on the data.
+func (o *Options) LegendSwatches(h int) ([]image.Rectangle, []color.NRGBA, []string) {
+	y := h - Margin - LegendHeight + (LegendHeight-Swatch)/2
+	names := []string{"wetting", "nonwetting", "solid (no tint)", "outside sample"}
+	d := uint8(math.Round(OutsideDim * 128))
+	cols := []color.NRGBA{
+		Blend(128, Overlay.Wetting, o.Alpha),
+		Blend(128, Overlay.Nonwetting, o.Alpha),
+		{128, 128, 128, 0xFF},
+		{d, d, d, 0xFF},
+	}
+	var rects []image.Rectangle
+	x := Margin
+	for _, n := range names {
+		rects = append(rects, image.Rect(x, y, x+Swatch, y+Swatch))
+		x += Swatch + 4 + 7*len([]rune(n)) + 14
+	}
+	return rects, cols, names
+}
+
+func (o *Options) legend(img *image.NRGBA) {
+	rects, cols, names := o.LegendSwatches(img.Bounds().Dy())
+	for i, r := range rects {
+		draw.Draw(img, r, image.NewUniform(cols[i]), image.Point{}, draw.Src)
+		text(img, r.Max.X+4, r.Max.Y, names[i])
+	}
+}
+
+// text draws s with its baseline at y, starting at x, in black.
+func text(img *image.NRGBA, x, y int, s string) {
+	d := font.Drawer{Dst: img, Src: image.Black, Face: basicfont.Face7x13, Dot: fixed.P(x, y)}
+	d.DrawString(s)
+}
+
+// WritePNG renders the preview and encodes it as PNG.
+func WritePNG(w io.Writer, grey volume.Any, labels *volume.Labels, o Options) error {
+	img, err := Render(grey, labels, o)
+	if err != nil {
+		return err
+	}
+	if err := png.Encode(w, img); err != nil {
+		return fmt.Errorf("preview: encode PNG: %v", err)
+	}
+	return nil
+}
