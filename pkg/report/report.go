@@ -1,0 +1,322 @@
+// Package report writes a campaign's report: one self-contained HTML file
+// (html/template; figures inline as SVG, styles inline, no scripts, no
+// external resources) with the scenario and processing parameters, the
+// series table, the figures of pkg/plots, the contact-angle and curvature
+// distributions, the validation status, the detected events and the
+// cautions users must read.
+//
+// Resolution travels with the numbers: the voxel size heads the table and
+// every figure caption, and each step shows the mean radius of curvature
+// of the w–n interface in voxels, R/h = 2/(κ·h). Rows where it is below
+// ResolvedRadius voxels are flagged: published accuracy of image-derived
+// average Pc is about 11 % only when radii exceed 10 voxels (Akai et al.
+// 2019, Materials 12:2138).
+package report
+
+import (
+	"bytes"
+	"fmt"
+	"html/template"
+	"io"
+	"math"
+	"regexp"
+	"strconv"
+	"time"
+
+	"sluice/pkg/events"
+	"sluice/pkg/plots"
+	"sluice/pkg/series"
+)
+
+// ResolvedRadius is the radius of curvature, in voxels, below which a
+// step's curvature and Pc are flagged (Akai et al. 2019: average Pc within
+// 11 % for radii > 10 voxels).
+const ResolvedRadius = 10
+
+// Cautions are shown in every report (science.md, "Cautions to show
+// users").
+var Cautions = []string{
+	"Flow experiments at a beamline involve pressurised cells, CO2 and ionising radiation: follow the facility's safety rules and local regulations.",
+	"Image-derived capillary pressure and contact angles are estimates whose error grows when radii of curvature approach a few voxels.",
+	"Report the resolution (voxel size) with every number, and do not use these values alone for engineering or safety decisions.",
+}
+
+// Params describe how the campaign was imaged and processed.
+type Params struct {
+	Campaign string
+	// Scenario is a free description ("CO2 drainage of Bentheimer, 0.1 ml/min").
+	Scenario string
+	// VoxelSize is the voxel edge in metres.
+	VoxelSize float64
+	// IFT is the interfacial tension σ in N/m (nil: not set, no Pc).
+	IFT *float64
+	// SmoothingSigma is the Gaussian σ of the curvature level set, voxels.
+	SmoothingSigma float64
+	// Thresholds are the segmentation thresholds in grey values.
+	Thresholds      []float64
+	ParameterHash   string
+	SoftwareVersion string
+	FlowAxis        string
+	Connectivity    int
+	// Other holds further parameters, shown in order.
+	Other []Param
+}
+
+// Param is one named parameter value, shown as given.
+type Param struct{ Name, Value string }
+
+// Check is one validation result to show.
+type Check struct {
+	Name   string
+	Passed bool
+	Detail string
+}
+
+// Input is everything a report shows. Rows need not be sorted.
+type Input struct {
+	Params
+	Rows []series.Row
+	// Events as found by events.Detect on Rows.
+	Events    []events.Event
+	Checks    []Check
+	Generated time.Time
+}
+
+type figure struct {
+	ID, Title, Caption string
+	SVG                template.HTML
+}
+
+type tableRow struct {
+	Step, Time, Sw, Phi, Pc, KMean, KMedian, RVox, AWN string
+	AMean, AMedian, AStd, ASamples, Ganglia, Largest, Perc   string
+	Unresolved                                               bool
+}
+
+type page struct {
+	Input
+	VoxelSize      string
+	IFT            string
+	Thresholds     string
+	Table          []tableRow
+	Figures        []figure
+	Distributions  []figure
+	ChecksPassed   int
+	Cautions       []string
+	ResolvedRadius int
+	Generated      string
+	Breakthrough   string
+	Steady         string
+}
+
+var (
+	xmlProlog  = regexp.MustCompile(`^\s*<\?xml[^>]*\?>\s*`)
+	xmlComment = regexp.MustCompile(`<!--.*?-->\s*`)
+)
+
+// Write renders the report to w.
+func Write(w io.Writer, in Input) error {
+	if in.Campaign != "" && !series.ValidName(in.Campaign) {
+		return fmt.Errorf("report: invalid campaign name %q", in.Campaign)
+	}
+	rows := append([]series.Row(nil), in.Rows...)
+	series.Sort(rows)
+	in.Rows = rows
+	pg := page{
+		Input:          in,
+		VoxelSize:      lengthText(in.VoxelSize),
+		IFT:            "not set (capillary pressure not computed)",
+		Thresholds:     "—",
+		Cautions:       Cautions,
+		ResolvedRadius: ResolvedRadius,
+		Generated:      in.Generated.UTC().Format(time.RFC3339),
+	}
+	if in.IFT != nil {
+		pg.IFT = fmt.Sprintf("%.4g mN/m", *in.IFT*1e3)
+	}
+	if len(in.Thresholds) > 0 {
+		pg.Thresholds = ""
+		for i, t := range in.Thresholds {
+			if i > 0 {
+				pg.Thresholds += ", "
+			}
+			pg.Thresholds += strconv.FormatFloat(t, 'g', 6, 64)
+		}
+	}
+	for _, c := range in.Checks {
+		if c.Passed {
+			pg.ChecksPassed++
+		}
+	}
+	for _, e := range in.Events {
+		switch e.Kind {
+		case events.Breakthrough:
+			pg.Breakthrough = fmt.Sprintf("step %s at t = %g s", e.Step, e.Time)
+		case events.SteadyState:
+			pg.Steady = fmt.Sprintf("step %s at t = %g s", e.Step, e.Time)
+		}
+	}
+	for i := range rows {
+		pg.Table = append(pg.Table, tabulate(&rows[i], in.VoxelSize))
+	}
+	for _, f := range plots.Build(rows, in.Events) {
+		var buf bytes.Buffer
+		if err := f.WriteSVG(&buf); err != nil {
+			return fmt.Errorf("report: %v", err)
+		}
+		svg := xmlComment.ReplaceAll(xmlProlog.ReplaceAll(buf.Bytes(), nil), nil)
+		fg := figure{ID: "fig-" + f.Name, Title: f.Title,
+			Caption: fmt.Sprintf("%s. Voxel size %s.", f.Title, pg.VoxelSize),
+			// Trusted: SVG drawn by gonum/plot from our own numbers and
+			// labels; step names are restricted to [a-z0-9._-].
+			SVG: template.HTML(svg)}
+		if f.Name == "contact_angle" || f.Name == "curvature" {
+			pg.Distributions = append(pg.Distributions, fg)
+		} else {
+			pg.Figures = append(pg.Figures, fg)
+		}
+	}
+	if err := tmpl.Execute(w, pg); err != nil {
+		return fmt.Errorf("report: %v", err)
+	}
+	return nil
+}
+
+func tabulate(r *series.Row, h float64) tableRow {
+	f := func(p *float64, scale float64, prec int) string {
+		if p == nil {
+			return "—"
+		}
+		return strconv.FormatFloat(*p*scale, 'f', prec, 64)
+	}
+	t := tableRow{
+		Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64),
+		Sw: f(r.SatWetting, 1, 4), Phi: f(r.Porosity, 1, 4),
+		Pc: f(r.Pc, 1e-3, 3), KMean: f(r.CurvMean, 1e-3, 2), KMedian: f(r.CurvMedian, 1e-3, 2),
+		AWN: f(r.SpecificWN, 1e-3, 3), AMean: f(r.AngleMean, 1, 1), AMedian: f(r.AngleMedian, 1, 1),
+		AStd: f(r.AngleStd, 1, 1), Largest: f(r.LargestFraction, 1, 3),
+		RVox: "—", ASamples: "—", Ganglia: "—", Perc: "—",
+	}
+	if r.CurvMean != nil && *r.CurvMean != 0 && h > 0 {
+		rv := math.Abs(2 / (*r.CurvMean * h))
+		t.RVox = strconv.FormatFloat(rv, 'f', 1, 64)
+		t.Unresolved = rv < ResolvedRadius
+	}
+	if r.AngleSamples != nil {
+		t.ASamples = strconv.FormatInt(*r.AngleSamples, 10)
+	}
+	if r.GangliaCount != nil {
+		t.Ganglia = strconv.FormatInt(*r.GangliaCount, 10)
+	}
+	if r.Percolates != nil {
+		t.Perc = map[bool]string{true: "yes", false: "no"}[*r.Percolates]
+	}
+	return t
+}
+
+// lengthText prints a voxel size in µm with the metre value.
+func lengthText(m float64) string {
+	if !(m > 0) {
+		return "unknown"
+	}
+	return fmt.Sprintf("%.4g µm (%.4g m)", m*1e6, m)
+}
+
+var tmpl = template.Must(template.New("report").Parse(`<!DOCTYPE html>
+<html lang="en">
+<head>
+<meta charset="utf-8"/>
+<title>sluice report{{with .Campaign}} — {{.}}{{end}}</title>
+<style>
+body { font-family: sans-serif; margin: 2em auto; max-width: 70em; color: #1a1a1a; }
+table { border-collapse: collapse; font-size: 0.85em; }
+th, td { border: 1px solid #bbb; padding: 0.2em 0.5em; text-align: right; }
+th { background: #eee; }
+td.step { text-align: left; }
+tr.unresolved td.rvox { background: #f5d9a3; font-weight: bold; }
+figure { display: inline-block; margin: 0.5em; }
+figure svg { max-width: 100%; height: auto; }
+.pass { color: #1c4a8c; } .fail { color: #6a3d0c; font-weight: bold; }
+.cautions { border: 2px solid #6a3d0c; padding: 0.5em 1em; background: #fff6e6; }
+dl { display: grid; grid-template-columns: max-content auto; gap: 0.2em 1em; }
+dt { font-weight: bold; }
+</style>
+</head>
+<body>
+<h1>sluice report{{with .Campaign}}: {{.}}{{end}}</h1>
+<section class="cautions" id="cautions">
+<h2>Cautions</h2>
+<ul>{{range .Cautions}}
+<li>{{.}}</li>{{end}}
+</ul>
+</section>
+
+<section id="scenario">
+<h2>Scenario and parameters</h2>
+<dl>
+<dt>Scenario</dt><dd>{{if .Scenario}}{{.Scenario}}{{else}}—{{end}}</dd>
+<dt>Voxel size</dt><dd>{{.VoxelSize}}</dd>
+<dt>Interfacial tension σ</dt><dd>{{.IFT}}</dd>
+<dt>Curvature smoothing σ</dt><dd>{{if .SmoothingSigma}}{{.SmoothingSigma}} voxels{{else}}—{{end}}</dd>
+<dt>Segmentation thresholds</dt><dd>{{.Thresholds}}</dd>
+<dt>Flow axis</dt><dd>{{if .FlowAxis}}{{.FlowAxis}}{{else}}—{{end}}</dd>
+<dt>Connectivity</dt><dd>{{if .Connectivity}}{{.Connectivity}}{{else}}—{{end}}</dd>
+<dt>Parameter hash</dt><dd><code>{{if .ParameterHash}}{{.ParameterHash}}{{else}}—{{end}}</code></dd>
+<dt>Software version</dt><dd>{{if .SoftwareVersion}}{{.SoftwareVersion}}{{else}}—{{end}}</dd>{{range .Other}}
+<dt>{{.Name}}</dt><dd>{{.Value}}</dd>{{end}}
+<dt>Generated</dt><dd>{{.Generated}}</dd>
+</dl>
+</section>
+
+<section id="events">
+<h2>Events</h2>
+<p>Breakthrough: {{if .Breakthrough}}{{.Breakthrough}}{{else}}not detected{{end}}.
+Latest steady-state onset: {{if .Steady}}{{.Steady}}{{else}}not detected{{end}}.</p>
+{{if .Events}}<table>
+<tr><th>event</th><th>step</th><th>t (s)</th><th>detail</th></tr>{{range .Events}}
+<tr data-event="{{.ID}}"><td class="step">{{.Kind}}</td><td class="step">{{.Step}}</td><td>{{.Time}}</td><td class="step">{{.Detail}}</td></tr>{{end}}
+</table>{{end}}
+</section>
+
+<section id="validation">
+<h2>Validation status</h2>
+<p>{{.ChecksPassed}} of {{len .Checks}} checks passed.</p>
+{{if .Checks}}<ul>{{range .Checks}}
+<li class="{{if .Passed}}pass{{else}}fail{{end}}" data-check="{{.Name}}">{{if .Passed}}passed{{else}}FAILED{{end}}: {{.Name}}{{with .Detail}} — {{.}}{{end}}</li>{{end}}
+</ul>{{end}}
+</section>
+
+<section id="series">
+<h2>Series</h2>
+<p>{{len .Table}} steps. All values measured at voxel size {{.VoxelSize}}. R/h is the mean radius of
+curvature of the w–n interface in voxels, 2/(κ·h); highlighted where below {{.ResolvedRadius}} voxels, where
+image-derived curvature and Pc lose accuracy.</p>
+<table id="series-table">
+<tr><th>step</th><th>t (s)</th><th>S_w</th><th>φ</th><th>Pc (kPa)</th><th>κ mean (1/mm)</th><th>κ median (1/mm)</th>
+<th>R/h (vox)</th><th>a_wn (1/mm)</th><th>θ mean (°)</th><th>θ median (°)</th><th>θ std (°)</th><th>θ samples</th>
+<th>ganglia</th><th>largest fraction</th><th>percolates</th></tr>{{range .Table}}
+<tr data-step="{{.Step}}"{{if .Unresolved}} class="unresolved"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.Sw}}</td><td>{{.Phi}}</td><td>{{.Pc}}</td><td>{{.KMean}}</td><td>{{.KMedian}}</td><td class="rvox">{{.RVox}}</td><td>{{.AWN}}</td><td>{{.AMean}}</td><td>{{.AMedian}}</td><td>{{.AStd}}</td><td>{{.ASamples}}</td><td>{{.Ganglia}}</td><td>{{.Largest}}</td><td>{{.Perc}}</td></tr>{{end}}
+</table>
+</section>
+
+<section id="plots">
+<h2>Figures</h2>
+{{range .Figures}}<figure id="{{.ID}}">
+{{.SVG}}
+<figcaption>{{.Caption}}</figcaption>
+</figure>
+{{end}}</section>
+
+<section id="distributions">
+<h2>Contact-angle and curvature distributions</h2>
+<p>Contact angles are measured through the wetting phase; the bars are the latest step with samples, the line
+all steps together. Curvature is the area-weighted mean and the median of the total curvature κ = k1 + k2
+over the w–n interface away from the solid, per step.</p>
+{{range .Distributions}}<figure id="{{.ID}}">
+{{.SVG}}
+<figcaption>{{.Caption}}</figcaption>
+</figure>
+{{end}}</section>
+</body>
+</html>
+`))

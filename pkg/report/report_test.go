@@ -1,0 +1,216 @@
+package report
+
+import (
+	"bytes"
+	"encoding/xml"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"strings"
+	"testing"
+	"time"
+
+	"sluice/pkg/events"
+	"sluice/pkg/plots"
+	"sluice/pkg/series"
+)
+
+func fp(v float64) *float64 { return &v }
+
+func campaign(n int) []series.Row {
+	rows := make([]series.Row, n)
+	for i := range rows {
+		f := float64(i) / float64(n-1)
+		rows[i] = series.Row{Step: fmt.Sprintf("s%03d", i), Time: 45 * float64(i)}
+		rows[i].SatWetting, rows[i].SatNonwetting = fp(1-0.6*f), fp(0.6*f)
+		rows[i].Porosity = fp(0.22)
+		// κ from 1/(6 vox) to 1/(20 vox) radius at h = 2.5 µm: R/h = 2/(κh).
+		r := 6 + 14*f
+		k := 2 / (r * 2.5e-6)
+		rows[i].CurvMean, rows[i].CurvMedian = fp(k), fp(k)
+		rows[i].Pc = fp(0.0728 * k)
+		rows[i].SpecificWN = fp(3000 * f)
+		rows[i].AngleMean = fp(55 + f)
+		g := int64(i + 1)
+		rows[i].GangliaCount = &g
+		perc := i >= 3
+		rows[i].Percolates = &perc
+		h := make([]int64, 180)
+		h[50+i], h[60] = 10, 5
+		rows[i].AngleHist = h
+	}
+	return rows
+}
+
+func render(t *testing.T, in Input) []byte {
+	t.Helper()
+	var buf bytes.Buffer
+	if err := Write(&buf, in); err != nil {
+		t.Fatal(err)
+	}
+	return buf.Bytes()
+}
+
+// elements parses the page as HTML with encoding/xml's HTML mode and
+// returns the start elements in document order.
+func elements(t *testing.T, b []byte) []xml.StartElement {
+	t.Helper()
+	d := xml.NewDecoder(bytes.NewReader(b))
+	d.Strict = false
+	d.AutoClose = xml.HTMLAutoClose
+	d.Entity = xml.HTMLEntity
+	var out []xml.StartElement
+	depth := 0
+	for {
+		tok, err := d.Token()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			t.Fatalf("report does not parse: %v", err)
+		}
+		switch e := tok.(type) {
+		case xml.StartElement:
+			out = append(out, e.Copy())
+			depth++
+		case xml.EndElement:
+			depth--
+		}
+	}
+	if depth != 0 {
+		t.Fatalf("unbalanced elements: depth %d at end", depth)
+	}
+	return out
+}
+
+func attr(e xml.StartElement, name string) (string, bool) {
+	for _, a := range e.Attr {
+		if a.Name.Local == name {
+			return a.Value, true
+		}
+	}
+	return "", false
+}
+
+func TestReportIsCompleteAndSelfContained(t *testing.T) {
+	const n = 9
+	rows := campaign(n)
+	evs, err := events.Detect(rows, events.Defaults())
+	if err != nil {
+		t.Fatal(err)
+	}
+	in := Input{
+		Params: Params{Campaign: "bentheimer-co2", Scenario: "CO2 drainage <synthetic>", VoxelSize: 2.5e-6,
+			IFT: fp(0.0728), SmoothingSigma: 1.5, Thresholds: []float64{812, 2250},
+			ParameterHash: "9f1c2e", SoftwareVersion: "sluice 0.1.0-test", FlowAxis: "z", Connectivity: 26},
+		Rows: rows, Events: evs,
+		Checks: []Check{{Name: "ball area within 2 %", Passed: true, Detail: "−0.8 %"},
+			{Name: "tile invariance", Passed: false, Detail: "off by 1 voxel"}},
+		Generated: time.Date(2025, 3, 1, 12, 0, 0, 0, time.UTC),
+	}
+	page := render(t, in)
+	els := elements(t, page)
+	text := string(page)
+
+	steps := map[string]bool{}
+	figs := map[string]int{}
+	var curFig string
+	for _, e := range els {
+		if s, ok := attr(e, "data-step"); ok && e.Name.Local == "tr" {
+			steps[s] = true
+		}
+		if e.Name.Local == "figure" {
+			curFig, _ = attr(e, "id")
+		}
+		if e.Name.Local == "svg" && curFig != "" {
+			figs[curFig]++
+			curFig = ""
+		}
+		for _, a := range e.Attr {
+			if a.Name.Space == "xmlns" || a.Name.Local == "xmlns" {
+				continue // namespace names, never fetched
+			}
+			v := strings.ToLower(a.Value)
+			if strings.Contains(v, "http://") || strings.Contains(v, "https://") || strings.HasPrefix(v, "//") {
+				t.Errorf("external reference in <%s %s=%q>", e.Name.Local, a.Name.Local, a.Value)
+			}
+		}
+		switch e.Name.Local {
+		case "script", "link", "img", "iframe", "object", "embed":
+			t.Errorf("element <%s> in a self-contained report", e.Name.Local)
+		}
+	}
+	for _, r := range rows {
+		if !steps[r.Step] {
+			t.Errorf("no table row for step %s", r.Step)
+		}
+	}
+	if len(steps) != n {
+		t.Errorf("%d step rows, want %d", len(steps), n)
+	}
+	for _, name := range plots.Names {
+		if figs["fig-"+name] != 1 {
+			t.Errorf("figure %s embedded %d times", name, figs["fig-"+name])
+		}
+	}
+	// The saturation figure holds a line through all n steps (Ink colour).
+	start := strings.Index(text, `id="fig-saturation"`)
+	end := start + strings.Index(text[start:], "</figure>")
+	if c := strings.Count(text[start:end], "stroke:#1C4A8C"); c < 2 {
+		t.Errorf("saturation figure has %d ink strokes", c)
+	}
+	for _, c := range Cautions {
+		if !strings.Contains(text, template_escape(c)) {
+			t.Errorf("caution missing: %q", c)
+		}
+	}
+	for _, want := range []string{"pressurised cells", "ionising radiation", "few voxels", "2.5 µm", "72.8 mN/m",
+		"9f1c2e", "sluice 0.1.0-test", "812, 2250", "1 of 2 checks passed", "FAILED", "breakthrough/s003",
+		"CO2 drainage &lt;synthetic&gt;"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("report lacks %q", want)
+		}
+	}
+	// Steps with radius of curvature below 10 voxels are flagged: R/h runs
+	// 6 + 14·i/8, so i = 0, 1, 2 (6, 7.75, 9.5 voxels) and no others.
+	if c := strings.Count(text, `class="unresolved"`); c != 3 {
+		t.Errorf("%d unresolved rows, want 3", c)
+	}
+	if os.Getenv("SLUICE_REPORT_OUT") != "" {
+		os.WriteFile(os.Getenv("SLUICE_REPORT_OUT"), page, 0o644)
+	}
+}
+
+func template_escape(s string) string {
+	r := strings.NewReplacer("'", "&#39;", "&", "&amp;", "<", "&lt;", ">", "&gt;", `"`, "&#34;")
+	return r.Replace(s)
+}
+
+func TestRadiusColumn(t *testing.T) {
+	// κ = 2/R with R = 12 voxels of 2 µm: R/h = 12.0.
+	r := series.Row{Step: "a", CurvMean: fp(2 / (12 * 2e-6))}
+	tr := tabulate(&r, 2e-6)
+	if tr.RVox != "12.0" || tr.Unresolved {
+		t.Fatalf("R/h %q unresolved %v", tr.RVox, tr.Unresolved)
+	}
+	r.CurvMean = fp(-2 / (4 * 2e-6)) // negative curvature: the radius is still 4
+	if tr := tabulate(&r, 2e-6); tr.RVox != "4.0" || !tr.Unresolved {
+		t.Fatalf("R/h %q unresolved %v", tr.RVox, tr.Unresolved)
+	}
+	if tr := tabulate(&series.Row{Step: "b"}, 2e-6); tr.RVox != "—" || tr.Pc != "—" {
+		t.Fatalf("null row %+v", tr)
+	}
+	_ = math.Pi
+}
+
+func TestEmptyAndInvalid(t *testing.T) {
+	page := render(t, Input{})
+	elements(t, page)
+	if !bytes.Contains(page, []byte("0 steps")) || !bytes.Contains(page, []byte("not detected")) {
+		t.Fatal("empty report lacks its empty-state text")
+	}
+	if err := Write(io.Discard, Input{Params: Params{Campaign: "../x"}}); err == nil {
+		t.Fatal("invalid campaign accepted")
+	}
+}
