@@ -242,7 +242,7 @@ func joinFaces(tiles []*Tile, whole volume.Box, opt Options, base []int64, uf *f
 			if len(starts) == 0 {
 				return fmt.Errorf("cluster: no tile starts at %d along axis %d where tiles end", c, a)
 			}
-			paint := func(plane []int32, list []int, side int, clear bool) error {
+			paint := func(plane []int32, list []int, side int, erase bool) error {
 				for _, t := range list {
 					tl := tiles[t]
 					p := tl.Faces[2*a+side]
@@ -251,7 +251,7 @@ func joinFaces(tiles []*Tile, whole volume.Box, opt Options, base []int64, uf *f
 						faceBuf = make([]int32, n)
 					}
 					fb := faceBuf[:n]
-					if !clear {
+					if !erase {
 						if err := p.Decode(fb); err != nil {
 							return fmt.Errorf("cluster: tile %d: %w", t, err)
 						}
@@ -260,8 +260,8 @@ func joinFaces(tiles []*Tile, whole volume.Box, opt Options, base []int64, uf *f
 					off := int32(base[t])
 					for i := 0; i < p.Rows; i++ {
 						dst := plane[(r0+i)*cols+c0:][:p.Cols]
-						if clear {
-							clear32(dst)
+						if erase {
+							clear(dst)
 							continue
 						}
 						for j, id := range fb[i*p.Cols : (i+1)*p.Cols] {
@@ -312,12 +312,6 @@ func joinFaces(tiles []*Tile, whole volume.Box, opt Options, base []int64, uf *f
 		}
 	}
 	return nil
-}
-
-func clear32(s []int32) {
-	for i := range s {
-		s[i] = 0
-	}
 }
 
 // Summary holds the whole-volume cluster statistics of one step.
