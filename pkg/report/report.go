@@ -88,9 +88,9 @@ type figure struct {
 }
 
 type tableRow struct {
-	Step, Time, Sw, Phi, Pc, KMean, KMedian, RVox, AWN string
-	AMean, AMedian, AStd, ASamples, Ganglia, Largest, Perc   string
-	Unresolved                                               bool
+	Step, Time, Sw, Phi, Pc, KMean, KMedian, RVox, AWN     string
+	AMean, AMedian, AStd, ASamples, Ganglia, Largest, Perc string
+	Unresolved                                             bool
 }
 
 type page struct {
