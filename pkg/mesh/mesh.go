@@ -31,6 +31,15 @@
 // components, points out of the inside region (toward lower values), the
 // same direction as Normals.
 //
+// # Binary indicators
+//
+// Meshing a 0/1 indicator at level 0.5 puts every vertex at an edge
+// midpoint; the resulting surface is a terraced approximation whose area
+// exceeds the true area by about 7 % averaged over orientations (measured
+// on digitised planes: +7.1 %; +6.7…+7.0 % on balls). Report surface areas
+// from package morph; use the binary mesh for normals, topology checks and
+// as a calibrated cross-check only.
+//
 // # Additivity
 //
 // Area(f, level, cubes) sums over the cubes whose lowest corner lies in

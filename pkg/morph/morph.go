@@ -47,6 +47,17 @@
 //     antisymmetric, wM[255−c] = −wM[c]: M of a phase is minus M of its
 //     complement, as for smooth interfaces.
 //
+// # Accuracy (measured in the tests)
+//
+// Balls R = 8…40: volume < 0.2 %, surface < 0.1 %, M < 0.25 %; torus
+// (R = 20, r = 7): surface −0.4 %, M −2.1 %. Planes: the surface response is
+// 2Σc_i|n·d_i|, between −7.3 % (axis normals) and about +2.2 %. M is biased
+// low at sharp concave creases (where grains meet): lattice sections of the
+// crease show spurious one-pixel holes, an error proportional to the crease
+// length that does not vanish with resolution (−1.7 % and −4.9 % on unions
+// of two balls with centre distances 1.5r and 1.9r). In a Boolean model of
+// balls this makes M_V too negative (+25 % at η = 2, +4 % at η = 3.5).
+//
 // Element weights follow one rule: an element (pair, face, triangle) is
 // shared by 2^k cells, k = the number of axes on which all its voxels agree.
 //

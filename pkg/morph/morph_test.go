@@ -407,3 +407,47 @@ func TestWeightSymmetries(t *testing.T) {
 		t.Errorf("uniform cells carry weight: S %g %g, M %g %g", S[0], S[255], M[0], M[255])
 	}
 }
+
+// Unions of two balls (radius r, centre distance d): S and M by additivity,
+// M(A∪B) = M(A) + M(B) − M(A∩B), with the lens A∩B of half-angle α,
+// cos α = d/2r: two caps 2πr(1−cos α) each plus the edge term
+// ½(π−2α)·2πr sin α. Source: analytic geometry (Steiner/edge formula for
+// M = ∫H dS, common practice).
+//
+// This documents a limitation of the planar-section M estimator: lattice
+// sections of the sharp concave crease where the balls meet show spurious
+// one-pixel holes, so M is too low by an amount proportional to the crease
+// length that does not vanish with resolution (measured −1.2…−1.5 % at
+// d/r = 1.5 and −4.3…−5.2 % at d/r = 1.9 for r = 20…40; the continuous
+// 13-direction quadrature itself is within 0.1 %). Checks: S within 1 %,
+// M within −7 %…+1 %, averaged over random orientations (fixed seed).
+func TestTwoBallCreases(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 2))
+	s := phase.Of(1)
+	const r = 20.0
+	for _, q := range []float64{1.0, 1.5, 1.9} {
+		d := q * r
+		var es, em float64
+		const k = 4
+		for i := 0; i < k; i++ {
+			u := unit([3]float64{rng.NormFloat64(), rng.NormFloat64(), rng.NormFloat64()})
+			n := int(2*r+d) + 8
+			lab := volume.NewShape[uint8](n, n, n, 1)
+			c := float64(n-1)/2 + rng.Float64()
+			c1 := [3]float64{c - u[0]*d/2, c - u[1]*d/2, c - u[2]*d/2}
+			synth.Ball(lab, c1, r, 1)
+			synth.Ball(lab, [3]float64{c1[0] + d*u[0], c1[1] + d*u[1], c1[2] + d*u[2]}, r, 1)
+			_, in, _, _, _ := functionals(lab, s)
+			ca := d / 2 / r
+			al := math.Acos(ca)
+			M := 8*math.Pi*r - (4*math.Pi*r*(1-ca) + 0.5*(math.Pi-2*al)*2*math.Pi*r*math.Sin(al))
+			S := 8*math.Pi*r*r - 4*math.Pi*r*r*(1-ca)
+			es += (in.Surface/S - 1) / k
+			em += (in.MeanCurvature/M - 1) / k
+		}
+		t.Logf("two balls d/r=%.1f: S err %+.2f%%, M err %+.2f%%", q, 100*es, 100*em)
+		if math.Abs(es) > 0.01 || em < -0.07 || em > 0.01 {
+			t.Errorf("two balls d/r=%.1f: S err %.2f%%, M err %.2f%%", q, 100*es, 100*em)
+		}
+	}
+}
