@@ -1,0 +1,337 @@
+package segment
+
+import (
+	"fmt"
+	"strings"
+
+	"sluice/pkg/filter"
+	"sluice/pkg/phase"
+	"sluice/pkg/volume"
+)
+
+// Segment labels the core of a tile. grey covers the core plus a halo of at
+// least p.Halo() voxels wherever the core is not at the edge of the scan (the
+// grey box is the tile box grown by the halo and clipped to the scan); th
+// are the step thresholds; solid is the reference mask (reference mode only,
+// covering the same box as grey or at least core + Halo() − FilterHalo()).
+// The result covers core and holds p.Codes and phase.Outside.
+//
+// Steps (each over a box that shrinks towards the core by the reach of the
+// next step, see the package doc): filter; classify by thresholds, sample
+// cylinder and reference mask; bounded hysteresis of the nonwetting phase;
+// removal of small nonwetting islands.
+func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *volume.Labels) (*volume.Labels, error) {
+	if err := p.Validate(); err != nil {
+		return nil, err
+	}
+	want := 2
+	if p.Reference {
+		want = 1
+	}
+	if len(th.T) != want {
+		return nil, fmt.Errorf("segment: %d thresholds given, want %d", len(th.T), want)
+	}
+	if want == 2 && !(th.T[0] < th.T[1]) {
+		return nil, fmt.Errorf("segment: thresholds %v not ascending", th.T)
+	}
+	if grey == nil {
+		return nil, fmt.Errorf("segment: nil grey volume")
+	}
+	gb := grey.Bounds()
+	if core.Empty() || !gb.ContainsBox(core) {
+		return nil, fmt.Errorf("segment: core %v is empty or not inside the grey volume %v", core, gb)
+	}
+	if p.PartialVolume.Blur > 0 && th.SolidGrey == 0 {
+		return nil, fmt.Errorf("segment: partial-volume correction needs the solid grey in the thresholds")
+	}
+	isl := max(p.MinIsland-1, 0)
+	steps := 0
+	if p.Hysteresis.Band > 0 {
+		steps = p.Hysteresis.Steps
+	}
+	l2 := core.Grow(isl).Intersect(gb)
+	l1 := l2.Grow(steps).Intersect(gb)
+	l0 := l1.Grow(p.PVHalo()).Intersect(gb)
+	if p.Reference {
+		if err := checkMask(solid, l0); err != nil {
+			return nil, err
+		}
+	}
+	f, err := filtered(grey, l0, p)
+	if err != nil {
+		return nil, err
+	}
+	c := classifier(p, th)
+	// g is the fluid grey over l1: the filtered grey, corrected for the
+	// blurred solid when the partial-volume correction is on.
+	g := f.Crop(l1, 0)
+	if p.PartialVolume.Blur > 0 {
+		ind := volume.New[float32](l0, 0)
+		i := 0
+		for z := l0.Min[0]; z < l0.Max[0]; z++ {
+			for y := l0.Min[1]; y < l0.Max[1]; y++ {
+				for x := l0.Min[2]; x < l0.Max[2]; x++ {
+					var isSolid bool
+					if p.Reference {
+						isSolid = solid.At(z, y, x) == p.Codes.Solid
+					} else {
+						isSolid = p.Sample.Inside(y, x) && c.codes[c.class(float64(f.Pix[i]))] == p.Codes.Solid
+					}
+					if isSolid {
+						ind.Pix[i] = 1
+					}
+					i++
+				}
+			}
+		}
+		b, err := filter.Gaussian(ind, l1, p.PartialVolume.Blur, filter.DefaultTruncate)
+		if err != nil {
+			return nil, err
+		}
+		ms, bmax := float32(th.SolidGrey), float32(p.PartialVolume.MaxFraction)
+		for i, v := range g.Pix {
+			bf := min(b.Pix[i], bmax)
+			g.Pix[i] = (v - ms*bf) / (1 - bf)
+		}
+	}
+	lab := volume.New[uint8](l1, grey.EdgeLength())
+	i := 0
+	for z := l1.Min[0]; z < l1.Max[0]; z++ {
+		for y := l1.Min[1]; y < l1.Max[1]; y++ {
+			for x := l1.Min[2]; x < l1.Max[2]; x++ {
+				switch {
+				case !p.Sample.Inside(y, x):
+					lab.Pix[i] = phase.Outside
+				case p.Reference && !poreMask(solid, p, z, y, x):
+					if solid.At(z, y, x) == phase.Outside {
+						lab.Pix[i] = phase.Outside
+					} else {
+						lab.Pix[i] = p.Codes.Solid
+					}
+				default:
+					lab.Pix[i] = c.code(float64(f.At(z, y, x)), float64(g.Pix[i]))
+				}
+				i++
+			}
+		}
+	}
+	if steps > 0 {
+		c.hysteresis(lab, g, steps)
+	}
+	if isl > 0 {
+		removeIslands(lab, l2, p.MinIsland, p.Codes)
+	}
+	return lab.Crop(core, 0), nil
+}
+
+// classes maps grey values to phase codes.
+type classes struct {
+	t     []float64
+	codes []uint8 // codes of the classes, darkest first
+	// Fluid split on the (corrected) fluid grey: fluid voxels above ft are
+	// fluidHi, the others fluidLo. pv reports whether it differs from the
+	// plain class split.
+	pv               bool
+	ft               float64
+	fluidLo, fluidHi uint8
+	solid            uint8
+	// Hysteresis: the nonwetting class bounds threshold tn; the nonwetting
+	// side is v <= tn (darkSide) or v > tn; the class next to it is next.
+	tn, band float64
+	darkSide bool
+	n, next  uint8
+}
+
+func classifier(p Params, th Thresholds) *classes {
+	code := func(r byte) uint8 {
+		switch r {
+		case 'n':
+			return p.Codes.Nonwetting
+		case 'w':
+			return p.Codes.Wetting
+		}
+		return p.Codes.Solid
+	}
+	order := p.Order
+	if p.Reference {
+		order = strings.ReplaceAll(order, "s", "")
+	}
+	c := &classes{t: th.T, n: p.Codes.Nonwetting, band: p.Hysteresis.Band, solid: p.Codes.Solid, pv: p.PartialVolume.Blur > 0}
+	for i := 0; i < len(order); i++ {
+		c.codes = append(c.codes, code(order[i]))
+	}
+	switch {
+	case p.Reference:
+		c.ft, c.fluidLo, c.fluidHi = th.T[0], c.codes[0], c.codes[1]
+	case order[2] == 's':
+		c.ft, c.fluidLo, c.fluidHi = th.T[0], c.codes[0], c.codes[1]
+	case order[0] == 's':
+		c.ft, c.fluidLo, c.fluidHi = th.T[1], c.codes[1], c.codes[2]
+	}
+	if order[0] == 'n' {
+		c.tn, c.darkSide, c.next = th.T[0], true, c.codes[1]
+	} else if order[len(order)-1] == 'n' {
+		c.tn, c.darkSide, c.next = th.T[len(th.T)-1], false, c.codes[len(order)-2]
+	}
+	return c
+}
+
+// class returns the index of the class of grey v.
+func (c *classes) class(v float64) int {
+	k := 0
+	for _, t := range c.t {
+		if v > t {
+			k++
+		}
+	}
+	return k
+}
+
+// code returns the phase of a voxel of filtered grey v and fluid grey g.
+func (c *classes) code(v, g float64) uint8 {
+	l := c.codes[c.class(v)]
+	if !c.pv || l == c.solid {
+		return l
+	}
+	if g > c.ft {
+		return c.fluidHi
+	}
+	return c.fluidLo
+}
+
+// hysteresis: seeds are nonwetting voxels beyond tn by more than band;
+// candidates are voxels of the nonwetting or the next class within band of
+// tn. Candidates at most steps face moves from a seed through candidates
+// become nonwetting; the others become the next class.
+func (c *classes) hysteresis(lab *volume.Labels, f *volume.Volume[float32], steps int) {
+	s := lab.Box.Size()
+	nyx := s[1] * s[2]
+	const (
+		other = iota
+		seed
+		cand
+	)
+	kind := make([]uint8, len(lab.Pix))
+	dist := make([]int8, len(lab.Pix))
+	var queue []int32
+	for i, l := range lab.Pix {
+		dist[i] = -1
+		if l != c.n && l != c.next {
+			continue
+		}
+		v := float64(f.Pix[i])
+		var strict, relaxed bool
+		if c.darkSide {
+			strict, relaxed = v <= c.tn-c.band, v <= c.tn+c.band
+		} else {
+			strict, relaxed = v > c.tn+c.band, v > c.tn-c.band
+		}
+		switch {
+		case strict && l == c.n:
+			kind[i] = seed
+			dist[i] = 0
+			queue = append(queue, int32(i))
+		case relaxed && !strict:
+			kind[i] = cand
+		}
+	}
+	for head := 0; head < len(queue); head++ {
+		i := int(queue[head])
+		if int(dist[i]) >= steps {
+			continue
+		}
+		z, r := i/nyx, i%nyx
+		y, x := r/s[2], r%s[2]
+		try := func(j int) {
+			if kind[j] == cand && dist[j] < 0 {
+				dist[j] = dist[i] + 1
+				queue = append(queue, int32(j))
+			}
+		}
+		if x > 0 {
+			try(i - 1)
+		}
+		if x+1 < s[2] {
+			try(i + 1)
+		}
+		if y > 0 {
+			try(i - s[2])
+		}
+		if y+1 < s[1] {
+			try(i + s[2])
+		}
+		if z > 0 {
+			try(i - nyx)
+		}
+		if z+1 < s[0] {
+			try(i + nyx)
+		}
+	}
+	for i, k := range kind {
+		if k != cand {
+			continue
+		}
+		if dist[i] >= 0 {
+			lab.Pix[i] = c.n
+		} else if lab.Pix[i] == c.n {
+			lab.Pix[i] = c.next
+		}
+	}
+}
+
+// removeIslands relabels as wetting every 26-connected nonwetting component
+// of lab restricted to box that has fewer than minSize voxels.
+func removeIslands(lab *volume.Labels, box volume.Box, minSize int, codes phase.Codes) {
+	s := box.Size()
+	nyx := s[1] * s[2]
+	seen := make([]bool, box.Voxels())
+	at := func(z, y, x int) int { return lab.Index(z+box.Min[0], y+box.Min[1], x+box.Min[2]) }
+	var comp []int32
+	for z := 0; z < s[0]; z++ {
+		for y := 0; y < s[1]; y++ {
+			for x := 0; x < s[2]; x++ {
+				li := (z*s[1]+y)*s[2] + x
+				if seen[li] || lab.Pix[at(z, y, x)] != codes.Nonwetting {
+					continue
+				}
+				seen[li] = true
+				comp = append(comp[:0], int32(li))
+				for head := 0; head < len(comp); head++ {
+					j := int(comp[head])
+					cz, r := j/nyx, j%nyx
+					cy, cx := r/s[2], r%s[2]
+					for dz := -1; dz <= 1; dz++ {
+						zz := cz + dz
+						if zz < 0 || zz >= s[0] {
+							continue
+						}
+						for dy := -1; dy <= 1; dy++ {
+							yy := cy + dy
+							if yy < 0 || yy >= s[1] {
+								continue
+							}
+							for dx := -1; dx <= 1; dx++ {
+								xx := cx + dx
+								if xx < 0 || xx >= s[2] {
+									continue
+								}
+								k := (zz*s[1]+yy)*s[2] + xx
+								if !seen[k] && lab.Pix[at(zz, yy, xx)] == codes.Nonwetting {
+									seen[k] = true
+									comp = append(comp, int32(k))
+								}
+							}
+						}
+					}
+				}
+				if len(comp) < minSize {
+					for _, j := range comp {
+						j := int(j)
+						cz, r := j/nyx, j%nyx
+						lab.Pix[at(cz, r/s[2], r%s[2])] = codes.Wetting
+					}
+				}
+			}
+		}
+	}
+}
