@@ -47,6 +47,9 @@
 //     antisymmetric, wM[255−c] = −wM[c]: M of a phase is minus M of its
 //     complement, as for smooth interfaces.
 //
+// Element weights follow one rule: an element (pair, face, triangle) is
+// shared by 2^k cells, k = the number of axes on which all its voxels agree.
+//
 // # Accuracy (measured in the tests)
 //
 // Balls R = 8…40: volume < 0.2 %, surface < 0.1 %, M < 0.25 %; torus
@@ -57,9 +60,6 @@
 // length that does not vanish with resolution (−1.7 % and −4.9 % on unions
 // of two balls with centre distances 1.5r and 1.9r). In a Boolean model of
 // balls this makes M_V too negative (+25 % at η = 2, +4 % at η = 3.5).
-//
-// Element weights follow one rule: an element (pair, face, triangle) is
-// shared by 2^k cells, k = the number of axes on which all its voxels agree.
 //
 // # Which cells to count (additivity over tiles)
 //
