@@ -22,13 +22,28 @@
 //     0.1 %) per step, so the fluid state is nearly constant: ground truth
 //     for a steady-state detector. Scan i is taken at t = i × Interval.
 //
-// Ground truth per step (Truth): r_c in voxels and metres, the capillary
-// pressure Pc = 2σ/r_c that the connected (bulk) menisci carry (Young–
-// Laplace for spheres of radius r_c; science.md), whether the step is one
-// of the steady ones, and, for the campaign, the first step at which the
-// nonwetting phase percolates inlet → outlet (Breakthrough, found from the
-// step labels by a flood fill). Interfaces within a few voxels of the solid
-// and disconnected ganglia carry no such guarantee.
+// Ground truth per step (Truth): r_c in voxels and metres, the imposed
+// capillary pressure Pc = 2σ/r_c (Young–Laplace for the spherical terminal
+// menisci of radius r_c; science.md), whether the step is one of the steady
+// ones, and, for the campaign, the first step at which the nonwetting phase
+// percolates inlet → outlet (Breakthrough, found from the step labels by a
+// flood fill).
+//
+// Curvature caveat, measured: only the terminal menisci in pore throats are
+// spheres of radius r_c (κ = 2/r_c; measured median −4 … −8 % at r_c 10–12
+// voxels in a funnel). Most of the w–n interface of a full-morphology state
+// wraps wetting phase at grain contacts and in corners; there it is the
+// envelope of r_c-balls sliding along a line (κ ≈ 1/r_c, less at saddles),
+// where a real meniscus at the same pressure would have radius r_c/2. The
+// area-weighted median κ over all interfaces of a pack is therefore about
+// 0.4–0.56 × 2/r_c (96³ pack, r_c 8–12), and image-based Pc from all
+// interfaces reads low against Truth.Pc by that factor. Compare the
+// imposed Pc with the curvature of terminal menisci, or with the upper
+// tail (90th percentile ≈ 2/r_c).
+//
+// Boundaries: the inlet reservoir is not modelled beyond the face, so ball
+// centres lie inside the box; a thin sliver of wetting phase can stay where
+// a pore meets the inlet face next to its wall.
 //
 // Cost: the rock, its exact distance map and the widest-path map of the ball
 // centres are computed once (Prepare); each step then costs one exact
@@ -113,9 +128,11 @@ type StepTruth struct {
 	TimeS float64
 	// Rc is the capillary radius in voxels, RcMetres in metres.
 	Rc, RcMetres float64
-	// Pc = 2σ/r_c in Pa: the capillary pressure of the connected menisci.
+	// Pc = 2σ/r_c in Pa: the imposed capillary pressure, carried by the
+	// terminal menisci (see the package doc for the other interfaces).
 	Pc float64
-	// Curvature = 2/r_c in 1/m: the total curvature κ of those menisci.
+	// Curvature = 2/r_c in 1/m: the total curvature κ of the terminal
+	// menisci.
 	Curvature float64
 	// Steady marks the last K steps, whose r_c is nearly constant.
 	Steady bool
