@@ -52,9 +52,16 @@ func Otsu(counts []int64) (int, error) {
 // MultiOtsu3 returns the bin indices t₀ < t₁ splitting the histogram into
 // three classes {<= t₀}, (t₀, t₁], {> t₁} with the largest between-class
 // variance, i.e. the largest Σ_k S_k²/P_k (P_k, S_k the zeroth and first
-// moments of class k), evaluated from prefix sums in O(1) per candidate as in
-// Liao, Chen & Chung 2001 (J. Inf. Sci. Eng. 17:713). All O(n²) candidate
-// pairs are tried; ties go to the lexicographically lowest pair.
+// moments of class k), each class term taken in O(1) from prefix sums as in
+// Liao, Chen & Chung 2001 (J. Inf. Sci. Eng. 17:713). All candidate pairs are
+// tried; ties go to the lexicographically lowest pair.
+//
+// Empty end bins are ignored. The arithmetic follows scikit-image 0.19's
+// threshold_multiotsu so that both pick the same bins: float32 prefix sums
+// of the counts and of index·count (its first-moment sum starts at the count
+// of the first bin, and a first class made of the first bin alone scores 0),
+// float32 class terms and sums. The maximum is often flat to float32
+// precision, so a float64 evaluation can differ by a few bins there.
 func MultiOtsu3(counts []int64) (int, int, error) {
 	a, b := trim(counts)
 	occ := 0
@@ -67,27 +74,35 @@ func MultiOtsu3(counts []int64) (int, int, error) {
 		return 0, 0, fmt.Errorf("segment: 3-class Otsu needs at least three occupied bins, got %d", occ)
 	}
 	n := b - a
-	P := make([]float64, n+1)
-	S := make([]float64, n+1)
-	for i := 0; i < n; i++ {
-		c := float64(counts[a+i])
-		P[i+1] = P[i] + c
-		S[i+1] = S[i] + c*float64(i)
+	P := make([]float32, n)
+	S := make([]float32, n)
+	P[0], S[0] = float32(counts[a]), float32(counts[a])
+	for i := 1; i < n; i++ {
+		p := float32(counts[a+i])
+		P[i] = P[i-1] + p
+		S[i] = S[i-1] + float32(i)*p
 	}
 	// H(u, v) for the class of bins u..v (inclusive, trimmed indices).
-	H := func(u, v int) float64 {
-		p := P[v+1] - P[u]
-		if p <= 0 {
+	H := func(u, v int) float32 {
+		if u == 0 {
+			if v == 0 || !(P[v] > 0) {
+				return 0
+			}
+			return S[v] * S[v] / P[v]
+		}
+		p := P[v] - P[u-1]
+		if !(p > 0) {
 			return 0
 		}
-		s := S[v+1] - S[u]
+		s := S[v] - S[u-1]
 		return s * s / p
 	}
-	best, b0, b1 := math.Inf(-1), 0, 1
+	var best float32
+	b0, b1 := 0, 1
 	for t0 := 0; t0 < n-2; t0++ {
-		h0 := H(0, t0)
 		for t1 := t0 + 1; t1 < n-1; t1++ {
-			v := h0 + H(t0+1, t1) + H(t1+1, n-1)
+			v := H(0, t0) + H(t1+1, n-1)
+			v += H(t0+1, t1)
 			if v > best {
 				best, b0, b1 = v, t0, t1
 			}
@@ -170,7 +185,7 @@ func ComputeThresholds(h Hist, p Params) (Thresholds, error) {
 // large inside the rock (solid and pores alternate) and small in air and in
 // the cell wall (noise only). Blocks are split by 2-class Otsu on their
 // standard deviations; the sample is the disc with the centroid and the
-// area of the high-variance blocks. The radius is then reduced by margin
+// area of the high-variance blocks, less half a block. The radius is then reduced by margin
 // voxels. Accuracy is about half a block.
 func DetectSample(h Hist, p Params, margin float64) (Sample, error) {
 	if len(h.Columns) < 4 {
@@ -218,7 +233,10 @@ func DetectSample(h Hist, p Params, margin float64) (Sample, error) {
 	if cnt == 0 {
 		return Sample{}, fmt.Errorf("segment: no sample found in the column statistics")
 	}
-	r := math.Sqrt(cnt*B*B/math.Pi) - margin
+	// Blocks cut by the rim mix two populations, so their deviation is high
+	// and nearly all count as inside: the counted area is the disc grown by
+	// about half a block.
+	r := math.Sqrt(cnt*B*B/math.Pi) - B/2 - margin
 	if r <= 0 {
 		return Sample{}, fmt.Errorf("segment: detected sample radius %g <= margin %g", r+margin, margin)
 	}
