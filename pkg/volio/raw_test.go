@@ -187,3 +187,46 @@ func TestRawShrinksAfterOpen(t *testing.T) {
 		t.Errorf("got %v", err)
 	}
 }
+
+// Every format streams slab by slab to the same voxels, and Open accepts the
+// header file's name for a raw volume.
+func TestStreamAllFormats(t *testing.T) {
+	root := t.TempDir()
+	v := pattern(volume.Uint16, volume.BoxOf(10, 6, 7), 77)
+	rawPath := filepath.Join(root, "v.raw")
+	if err := WriteRaw(rawPath, v, WriteOptions{ByteOrder: "big"}); err != nil {
+		t.Fatal(err)
+	}
+	if err := WriteTIFFStack(filepath.Join(root, "tiff"), v, WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	z, err := CreateZarr(ctx, Dir(filepath.Join(root, "zarr")), "", ZarrMeta{Shape: [3]int{10, 6, 7}, Chunks: [3]int{4, 4, 4}, DType: volume.Uint16, Compressor: "zstd", VoxelSize: 2.5e-6})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := z.WriteBox(ctx, v); err != nil {
+		t.Fatal(err)
+	}
+	for _, p := range []string{rawPath + ".sluice.json", filepath.Join(root, "tiff"), filepath.Join(root, "zarr")} {
+		s, err := OpenStream(p, Options{MaxVoxels: 3 * 6 * 7})
+		if err == nil || !errors.Is(err, ErrTooLarge) {
+			t.Errorf("%s: whole-volume limit not applied: %v", p, err)
+		}
+		s, err = OpenStream(p, Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if h := s.Header(); h.Shape != [3]int{10, 6, 7} || h.DType != volume.Uint16 || !sameLength(h.VoxelSize, 2.5e-6) {
+			t.Errorf("%s: header %+v", p, h)
+		}
+		for z0 := 0; z0 < 10; z0 += 3 {
+			z1 := min(z0+3, 10)
+			slab, err := s.ReadSlab(z0, z1)
+			if err != nil {
+				t.Fatal(err)
+			}
+			sameVolume(t, fmt.Sprintf("%s %d:%d", p, z0, z1), slab, cropAny(v, volume.Box{Min: [3]int{z0, 0, 0}, Max: [3]int{z1, 6, 7}}))
+		}
+		s.Close()
+	}
+}

@@ -257,6 +257,15 @@ func decodeTIFF(r io.ReaderAt, size int64, t tiffInfo, v volume.Any, z int) erro
 	if t.bits == 32 {
 		return fmt.Errorf("%w: float TIFF with compression %d, predictor %d or tiles is not supported", ErrFormat, t.compression, t.predictor)
 	}
+	// x/image/tiff parses the IFD again; check its idea of the size before
+	// it allocates.
+	cfg, err := xtiff.DecodeConfig(io.NewSectionReader(r, 0, size))
+	if err != nil {
+		return fmt.Errorf("%w: %v", ErrFormat, err)
+	}
+	if cfg.Width != t.width || cfg.Height != t.height {
+		return fmt.Errorf("%w: image is %d×%d or %d×%d", ErrFormat, t.width, t.height, cfg.Width, cfg.Height)
+	}
 	img, err := xtiff.Decode(io.NewSectionReader(r, 0, size))
 	if err != nil {
 		return fmt.Errorf("%w: %v", ErrFormat, err)

@@ -560,6 +560,9 @@ func (z *Zarr) ReadBox(ctx context.Context, box volume.Box) (volume.Any, error) 
 	if _, ok := mulLimit(in.Size(), z.limit); !ok {
 		return nil, fileErr(z.bucketName(), ErrTooLarge, "box %v exceeds the limit of %d voxels", in, z.limit)
 	}
+	if int64(z.chunkN) > z.limit {
+		return nil, fileErr(z.bucketName(), ErrTooLarge, "chunks %v exceed the limit of %d voxels", z.meta.Chunks, z.limit)
+	}
 	out := newVolume(z.meta.DType, in, z.meta.VoxelSize)
 	if z.meta.FillValue != 0 {
 		fillVolume(out, z.meta.FillValue)
