@@ -5,8 +5,12 @@ package main
 
 import (
 	"fmt"
+	"io"
 	"os"
 )
+
+// stdout receives command output (tests replace it).
+var stdout io.Writer = os.Stdout
 
 func main() {
 	os.Exit(run(os.Args[1:]))
@@ -21,6 +25,7 @@ type command struct {
 func commands() []command {
 	return []command{
 		{"measure", "measure a label or grey volume (raw, TIFF stack, Zarr)", runMeasure},
+		{"segment", "segment a grey volume into solid / wetting / nonwetting labels", runSegment},
 		{"version", "print the version", func([]string) int { fmt.Println("sluice", Version); return 0 }},
 	}
 }

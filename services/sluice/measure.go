@@ -6,12 +6,13 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"os"
 	"runtime"
 	"text/tabwriter"
 
+	"sluice/pkg/campaign"
 	"sluice/pkg/measure"
 	"sluice/pkg/phase"
+	"sluice/pkg/scan"
 	"sluice/pkg/volio"
 	"sluice/pkg/volume"
 )
@@ -81,6 +82,19 @@ func (m *measureFlags) register(fs *flag.FlagSet) {
 	fs.IntVar(&m.workers, "workers", runtime.GOMAXPROCS(0), "parallel tiles")
 }
 
+// apply copies the measurement flags into a campaign config.
+func (m *measureFlags) apply(c *campaign.Config) {
+	c.IFT = m.ift
+	c.Measure.Connectivity = m.connectivity
+	c.Measure.FlowAxis = m.flowAxis
+	c.Measure.CurvatureExclude = m.exclude
+	c.Measure.CurvatureSigma = m.sigma
+	if m.tile > 0 {
+		c.Tile = m.tile
+	}
+	c.Segment.Codes = phase.Codes{Solid: uint8(m.solid), Wetting: uint8(m.wetting), Nonwetting: uint8(m.nonwetting)}
+}
+
 func (m *measureFlags) options() (measure.Options, error) {
 	o := measure.Defaults()
 	if m.solid > 254 || m.wetting > 254 || m.nonwetting > 254 {
@@ -114,7 +128,9 @@ func runMeasure(args []string) int {
 	var mf measureFlags
 	in.register(fs)
 	mf.register(fs)
-	labels := fs.Bool("labels", false, "FILE holds phase codes (a segmented volume)")
+	var sf segFlags
+	sf.register(fs)
+	labels := fs.Bool("labels", false, "FILE holds phase codes (a segmented volume); without it FILE is grey and is segmented first")
 	asJSON := fs.Bool("json", false, "print one JSON object instead of a table")
 	pos, err := parseInterspersed(fs, args)
 	if err != nil {
@@ -135,33 +151,60 @@ func runMeasure(args []string) int {
 	if err != nil {
 		return fail(exitBadInput, "measure: %v", err)
 	}
-	if !*labels {
-		return fail(exitBadInput, "measure: %s: grey-scale input needs segmentation, which this build does not have yet; pass --labels for a segmented volume", path)
-	}
-	v, err := volio.Open(path, ropt)
-	if err != nil {
-		return fail(exitBadInput, "%v", err)
-	}
-	lab, ok := v.(*volume.Labels)
-	if !ok {
-		return fail(exitBadInput, "measure: %s: --labels wants uint8 phase codes, file holds %s", path, v.DType())
-	}
-	if lab.VoxelSize == 0 {
-		lab.VoxelSize = 1e-6
-	}
-	res, err := measure.Volume(lab, mopt, mf.tile, mf.workers)
-	if err != nil {
-		return fail(exitFailure, "measure: %s: %v", path, err)
+	var res *measure.Result
+	if *labels {
+		v, err := volio.Open(path, ropt)
+		if err != nil {
+			return fail(exitBadInput, "%v", err)
+		}
+		lab, ok := v.(*volume.Labels)
+		if !ok {
+			return fail(exitBadInput, "measure: %s: --labels wants uint8 phase codes, file holds %s", path, v.DType())
+		}
+		if lab.VoxelSize == 0 {
+			lab.VoxelSize = 1e-6
+		}
+		if res, err = measure.Volume(lab, mopt, mf.tile, mf.workers); err != nil {
+			return fail(exitFailure, "measure: %s: %v", path, err)
+		}
+	} else {
+		cfg, err := sf.campaignConfig()
+		if err != nil {
+			return fail(exitBadInput, "measure: %v", err)
+		}
+		mf.apply(&cfg)
+		if err := cfg.Validate(); err != nil {
+			return fail(exitBadInput, "measure: %v", err)
+		}
+		v, err := volio.Open(path, ropt)
+		if err != nil {
+			return fail(exitBadInput, "%v", err)
+		}
+		if v.EdgeLength() == 0 {
+			setEdge(v, 1e-6)
+		}
+		solid, err := sf.loadReference(ropt, v.Bounds())
+		if err != nil {
+			return fail(exitBadInput, "%v", err)
+		}
+		var prep scan.Prepared
+		_, res, prep, err = scan.Whole(v, cfg, solid, mf.workers)
+		if err != nil {
+			return fail(exitBadInput, "measure: %s: %v", path, err)
+		}
+		if !*asJSON {
+			fmt.Fprintf(stdout, "segmented first: thresholds (%s) %s\n", prep.Thresholds.Method, fmtFloats(prep.Thresholds.T))
+		}
 	}
 	if *asJSON {
-		enc := json.NewEncoder(os.Stdout)
+		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
 		if err := enc.Encode(res); err != nil {
 			return fail(exitFailure, "measure: %v", err)
 		}
 		return exitOK
 	}
-	printTable(os.Stdout, path, res)
+	printTable(stdout, path, res)
 	return exitOK
 }
 

@@ -1,0 +1,226 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"path/filepath"
+	"strconv"
+	"strings"
+
+	"sluice/pkg/campaign"
+	"sluice/pkg/scan"
+	"sluice/pkg/volio"
+	"sluice/pkg/volume"
+)
+
+// segFlags configure segmentation from flags, over an optional campaign
+// config file.
+type segFlags struct {
+	config, filter, threshold, fixed, order, sample, reference string
+	minIsland                                                  int
+	band                                                       float64
+	noDetect                                                   bool
+}
+
+func (s *segFlags) register(fs *flag.FlagSet) {
+	fs.StringVar(&s.config, "config", "", "campaign config file (YAML); flags below override it")
+	fs.StringVar(&s.filter, "filter", "", "denoiser before thresholds: none, median (default), gaussian or nlm")
+	fs.StringVar(&s.threshold, "threshold", "", "otsu (3-class multi-level Otsu on the filtered histogram, default) or fixed")
+	fs.StringVar(&s.fixed, "fixed", "", "fixed grey thresholds `T1,T2` (darkest|middle, middle|brightest); implies --threshold fixed")
+	fs.StringVar(&s.order, "order", "", "phases from darkest to brightest: nws (gas/oil darkest, default) or nsw (doped brine)")
+	fs.IntVar(&s.minIsland, "min-island", -1, "nonwetting clusters smaller than this many voxels become wetting (0 = off)")
+	fs.Float64Var(&s.band, "hysteresis-band", -1, "half-width (grey units) of the uncertain band grown from nonwetting seeds (0 = off)")
+	fs.StringVar(&s.sample, "sample", "", "sample cylinder `Y,X,R` in voxels (default: detected from the image)")
+	fs.BoolVar(&s.noDetect, "no-sample", false, "do not detect a sample cylinder: every voxel is sample")
+	fs.StringVar(&s.reference, "reference", "", "reference-scan solid mask (labels: solid code = solid, 255 = outside); fluids only are separated")
+}
+
+func (s *segFlags) campaignConfig() (campaign.Config, error) {
+	c := campaign.Default()
+	if s.config != "" {
+		var err error
+		if c, err = campaign.Load(s.config); err != nil {
+			return c, err
+		}
+	}
+	p := &c.Segment
+	if s.filter != "" {
+		p.Filter.Method = s.filter
+	}
+	if s.threshold != "" {
+		p.Threshold = s.threshold
+	}
+	if s.fixed != "" {
+		p.Threshold = "fixed"
+		p.Fixed = nil
+		for _, f := range strings.Split(s.fixed, ",") {
+			v, err := strconv.ParseFloat(strings.TrimSpace(f), 64)
+			if err != nil {
+				return c, fmt.Errorf("bad --fixed %q", s.fixed)
+			}
+			p.Fixed = append(p.Fixed, v)
+		}
+	}
+	if s.order != "" {
+		p.Order = s.order
+	}
+	if s.minIsland >= 0 {
+		p.MinIsland = s.minIsland
+	}
+	if s.band >= 0 {
+		p.Hysteresis.Band = s.band
+	}
+	if s.sample != "" {
+		parts := strings.Split(s.sample, ",")
+		if len(parts) != 3 {
+			return c, fmt.Errorf("bad --sample %q (want Y,X,R)", s.sample)
+		}
+		var v [3]float64
+		for i, q := range parts {
+			f, err := strconv.ParseFloat(strings.TrimSpace(q), 64)
+			if err != nil || (i == 2 && f <= 0) {
+				return c, fmt.Errorf("bad --sample %q (want Y,X,R with R > 0)", s.sample)
+			}
+			v[i] = f
+		}
+		p.Sample.Y, p.Sample.X, p.Sample.Radius = v[0], v[1], v[2]
+	}
+	if s.noDetect {
+		c.DetectSample = false
+	}
+	if s.reference != "" {
+		p.Reference = true
+	}
+	return c, c.Validate()
+}
+
+// loadReference reads the reference-scan mask, if any.
+func (s *segFlags) loadReference(opt volio.Options, shape volume.Box) (*volume.Labels, error) {
+	if s.reference == "" {
+		return nil, nil
+	}
+	v, err := volio.Open(s.reference, opt)
+	if err != nil {
+		return nil, err
+	}
+	l, ok := v.(*volume.Labels)
+	if !ok {
+		return nil, fmt.Errorf("segment: %s: reference mask must be uint8 labels, not %s", s.reference, v.DType())
+	}
+	if l.Box != shape {
+		return nil, fmt.Errorf("segment: %s: reference mask covers %v, scan %v", s.reference, l.Box, shape)
+	}
+	return l, nil
+}
+
+func runSegment(args []string) int {
+	fs := flag.NewFlagSet("segment", flag.ContinueOnError)
+	fs.Usage = func() {
+		fmt.Fprintln(fs.Output(), "usage: sluice segment [flags] FILE OUT\n\nFILE is a grey volume (raw, TIFF-slice directory or Zarr); OUT is a label volume,\nwritten as Zarr when it ends in .zarr, else as raw uint8 with a .sluice.json header.")
+		fs.PrintDefaults()
+	}
+	var in inputFlags
+	var sf segFlags
+	in.register(fs)
+	sf.register(fs)
+	tile := fs.Int("tile", 0, "tile edge (default from config, 128); results do not depend on it")
+	pos, err := parseInterspersed(fs, args)
+	if err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return exitOK
+		}
+		return exitBadInput
+	}
+	if len(pos) != 2 {
+		return fail(exitBadInput, "segment: want FILE and OUT, got %d arguments", len(pos))
+	}
+	path, out := pos[0], pos[1]
+	cfg, err := sf.campaignConfig()
+	if err != nil {
+		return fail(exitBadInput, "segment: %v", err)
+	}
+	if *tile > 0 {
+		cfg.Tile = *tile
+	}
+	lab, prep, code := segmentFile(path, in, sf, cfg, true)
+	if code != exitOK {
+		return code
+	}
+	fmt.Fprintf(stdout, "thresholds (%s): %s\n", prep.Thresholds.Method, fmtFloats(prep.Thresholds.T))
+	if s := prep.Thresholds.Sample; s.Radius > 0 {
+		fmt.Fprintf(stdout, "sample cylinder: centre (y, x) = (%.1f, %.1f), radius %.1f voxels\n", s.Y, s.X, s.Radius)
+	}
+	if err := writeLabels(out, lab); err != nil {
+		return fail(exitFailure, "segment: %s: %v", out, err)
+	}
+	fmt.Fprintf(stdout, "labels written to %s (0 solid, 1 wetting, 2 nonwetting, 255 outside the sample)\n", out)
+	return exitOK
+}
+
+// segmentFile reads a grey volume and segments it; with measureToo=false
+// the measurement is skipped.
+func segmentFile(path string, in inputFlags, sf segFlags, cfg campaign.Config, labelsOnly bool) (*volume.Labels, scan.Prepared, int) {
+	ropt, err := in.options()
+	if err != nil {
+		return nil, scan.Prepared{}, fail(exitBadInput, "segment: %s: %v", path, err)
+	}
+	v, err := volio.Open(path, ropt)
+	if err != nil {
+		return nil, scan.Prepared{}, fail(exitBadInput, "%v", err)
+	}
+	if v.EdgeLength() == 0 {
+		setEdge(v, 1e-6)
+	}
+	solid, err := sf.loadReference(ropt, v.Bounds())
+	if err != nil {
+		return nil, scan.Prepared{}, fail(exitBadInput, "%v", err)
+	}
+	if labelsOnly {
+		cfg.Measure.SkipContact, cfg.Measure.SkipCurvature = true, true
+	}
+	lab, _, prep, err := scan.Whole(v, cfg, solid, 0)
+	if err != nil {
+		return nil, prep, fail(exitBadInput, "segment: %s: %v", path, err)
+	}
+	return lab, prep, exitOK
+}
+
+func setEdge(v volume.Any, e float64) {
+	switch t := v.(type) {
+	case *volume.Volume[uint8]:
+		t.VoxelSize = e
+	case *volume.Volume[uint16]:
+		t.VoxelSize = e
+	case *volume.Volume[float32]:
+		t.VoxelSize = e
+	}
+}
+
+func writeLabels(out string, lab *volume.Labels) error {
+	if strings.HasSuffix(strings.TrimSuffix(out, "/"), ".zarr") {
+		dir, name := filepath.Split(strings.TrimSuffix(out, "/"))
+		if dir == "" {
+			dir = "."
+		}
+		ctx := context.Background()
+		s := lab.Shape()
+		ch := [3]int{min(s[0], 128), min(s[1], 128), min(s[2], 128)}
+		z, err := volio.CreateZarr(ctx, volio.Dir(dir), name, volio.ZarrMeta{Shape: s, Chunks: ch, DType: volume.Uint8, Compressor: "zstd", VoxelSize: lab.VoxelSize,
+			Attrs: map[string]any{"phases": map[string]int{"solid": 0, "wetting": 1, "nonwetting": 2, "outside": 255}}})
+		if err != nil {
+			return err
+		}
+		return z.WriteBox(ctx, lab)
+	}
+	return volio.WriteRaw(out, lab, volio.WriteOptions{})
+}
+
+func fmtFloats(v []float64) string {
+	s := make([]string, len(v))
+	for i, f := range v {
+		s[i] = strconv.FormatFloat(f, 'g', 6, 64)
+	}
+	return strings.Join(s, ", ")
+}
