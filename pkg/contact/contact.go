@@ -162,6 +162,7 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 	var p Partial
 	core = core.Intersect(lab.Box)
 	f := fitter{lab: lab, solid: solid, wet: wetting, non: nonwetting, pore: levelset.Union(wetting, nonwetting), opt: opt}
+	f.classify(core.Grow(int(math.Ceil(opt.Radius))))
 	for z := core.Min[0]; z < core.Max[0]; z++ {
 		for y := core.Min[1]; y < core.Max[1]; y++ {
 			for x := core.Min[2]; x < core.Max[2]; x++ {
@@ -187,6 +188,7 @@ func Angle(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, p [3]int, 
 	if !lab.Box.Contains(p[0], p[1], p[2]) || !nonwetting[lab.At(p[0], p[1], p[2])] || !f.onLine(p[0], p[1], p[2]) {
 		return 0, false
 	}
+	f.classify(volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}.Grow(int(math.Ceil(f.opt.Radius))))
 	return f.angle(p)
 }
 
@@ -207,6 +209,58 @@ type fitter struct {
 	solid, wet, non, pore *phase.Set
 	opt                   Options
 	faces                 []face // scratch, reused between samples
+	// faceCodes holds, per voxel a, 3 bits per axis (x: bits 0–2, y: 3–5,
+	// z: 6–8; the axis index ax of [z, y, x] uses bits 3·ax…3·ax+2) for
+	// the face between a and its +axis neighbour: facePresent, faceWall
+	// (solid–pore rather than wetting–nonwetting) and faceNeg (the normal,
+	// wetting → nonwetting or solid → pore, points along −axis).
+	faceCodes *volume.Volume[uint16]
+}
+
+// Face code bits, per axis.
+const (
+	facePresent = 1
+	faceWall    = 2
+	faceNeg     = 4
+)
+
+// classify fills f.faceCodes on box ∩ lab.Box.
+func (f *fitter) classify(box volume.Box) {
+	lab := f.lab
+	box = box.Intersect(lab.Box)
+	fc := &volume.Volume[uint16]{Pix: make([]uint16, box.Voxels()), Box: box}
+	s := lab.Box.Size()
+	strides := [3]int{s[1] * s[2], s[2], 1}
+	i := 0
+	for z := box.Min[0]; z < box.Max[0]; z++ {
+		for y := box.Min[1]; y < box.Max[1]; y++ {
+			j := lab.Index(z, y, box.Min[2])
+			for x := box.Min[2]; x < box.Max[2]; x, i, j = x+1, i+1, j+1 {
+				a := lab.Pix[j]
+				var code uint16
+				for ax, c := range [3]int{z, y, x} {
+					if c+1 >= lab.Box.Max[ax] {
+						continue
+					}
+					b := lab.Pix[j+strides[ax]]
+					var v uint16
+					switch {
+					case f.wet[a] && f.non[b]:
+						v = facePresent
+					case f.non[a] && f.wet[b]:
+						v = facePresent | faceNeg
+					case f.solid[a] && f.pore[b]:
+						v = facePresent | faceWall
+					case f.pore[a] && f.solid[b]:
+						v = facePresent | faceWall | faceNeg
+					}
+					code |= v << (3 * ax)
+				}
+				fc.Pix[i] = code
+			}
+		}
+	}
+	f.faceCodes = fc
 }
 
 // onLine reports whether voxel (z, y, x) lies on the contact line: it
@@ -261,42 +315,35 @@ func (f *fitter) angle(p [3]int) (float64, bool) {
 	f.faces = f.faces[:0]
 	var wallW, wallD float64
 	rc := int(math.Ceil(R))
-	nb := volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}.Grow(rc).Intersect(lab.Box)
-	sz, sy := lab.Box.Size()[1]*lab.Box.Size()[2], lab.Box.Size()[2]
+	fc := f.faceCodes
+	nb := volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}.Grow(rc).Intersect(fc.Box)
 	for z := nb.Min[0]; z < nb.Max[0]; z++ {
 		for y := nb.Min[1]; y < nb.Max[1]; y++ {
-			i := lab.Index(z, y, nb.Min[2])
-			for x := nb.Min[2]; x < nb.Max[2]; x, i = x+1, i+1 {
-				a := lab.Pix[i]
+			row := fc.Pix[fc.Index(z, y, nb.Min[2]):][:nb.Max[2]-nb.Min[2]]
+			for k, code := range row {
+				if code == 0 {
+					continue
+				}
+				x := nb.Min[2] + k
 				for ax := 0; ax < 3; ax++ {
+					c := code >> (3 * ax) & 7
+					if c == 0 {
+						continue
+					}
 					var d [3]int
 					d[ax] = 1
-					if !lab.Box.Contains(z+d[0], y+d[1], x+d[2]) {
-						continue
-					}
-					lb := lab.Pix[i+d[0]*sz+d[1]*sy+d[2]]
-					var sign float64
-					var isWall bool
-					switch {
-					case f.wet[a] && f.non[lb]:
-						sign = 1
-					case f.non[a] && f.wet[lb]:
-						sign = -1
-					case f.solid[a] && f.pore[lb]:
-						sign, isWall = 1, true
-					case f.pore[a] && f.solid[lb]:
-						sign, isWall = -1, true
-					default:
-						continue
-					}
 					q := [3]float64{float64(z-p[0]) + 0.5*float64(d[0]), float64(y-p[1]) + 0.5*float64(d[1]), float64(x-p[2]) + 0.5*float64(d[2])}
 					r2 := dot(q, q)
 					if r2 >= R*R {
 						continue
 					}
+					sign := 1.0
+					if c&faceNeg != 0 {
+						sign = -1
+					}
 					t := (1 - r2/(R*R)) * (1 - r2/(R*R))
 					e := [3]float64{sign * float64(d[0]), sign * float64(d[1]), sign * float64(d[2])}
-					if isWall {
+					if c&faceWall != 0 {
 						w := t * math.Abs(dot(e, ns))
 						wallW += w
 						wallD += w * dot(ns, q)
