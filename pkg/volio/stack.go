@@ -9,6 +9,7 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 
 	"sluice/pkg/volume"
@@ -70,14 +71,17 @@ func naturalLess(a, b string) bool {
 
 func isDigit(c byte) bool { return '0' <= c && c <= '9' }
 
-// sortNatural sorts names in natural order (insertion into a sorted slice;
-// stacks have thousands of slices at most).
+// sortNatural sorts names in natural order.
 func sortNatural(names []string) {
-	for i := 1; i < len(names); i++ {
-		for k := i; k > 0 && naturalLess(names[k], names[k-1]); k-- {
-			names[k], names[k-1] = names[k-1], names[k]
+	slices.SortFunc(names, func(a, b string) int {
+		switch {
+		case naturalLess(a, b):
+			return -1
+		case naturalLess(b, a):
+			return 1
 		}
-	}
+		return 0
+	})
 }
 
 type stackStream struct {

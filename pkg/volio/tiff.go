@@ -119,7 +119,9 @@ func readTIFFInfo(r io.ReaderAt, size int64, limit int64) (tiffInfo, error) {
 	if _, err := r.ReadAt(entries, ifd+2); err != nil {
 		return t, err
 	}
-	t.spp, t.sampleFormat, t.compression, t.photometric, t.predictor = 1, sampleUint, compNone, -1, 1
+	// Defaults of TIFF 6.0; a missing PhotometricInterpretation is read as
+	// black-is-zero, the usual meaning for grey scientific images.
+	t.spp, t.sampleFormat, t.compression, t.photometric, t.predictor = 1, sampleUint, compNone, photoBlackIsZero, 1
 	bitsSeen := false
 	for i := int64(0); i < n; i++ {
 		e := entries[12*i : 12*i+12]
