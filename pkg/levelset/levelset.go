@@ -115,28 +115,54 @@ func Smooth(lab *volume.Labels, set *phase.Set, box volume.Box, sigma float64) *
 }
 
 // pass convolves src along axis with k, producing dst on box (box ⊂ src.Box
-// on the other two axes); taps outside src.Box along axis are skipped.
+// on the other two axes); taps outside src.Box along axis are skipped. Each
+// output voxel sums its taps in increasing offset order starting from 0, so
+// the result does not depend on how far src extends beyond the taps.
 func pass(src *volume.Volume[float32], box volume.Box, axis int, k []float64, r int) *volume.Volume[float32] {
 	dst := volume.New[float32](box, src.VoxelSize)
 	ss := src.Box.Size()
-	stride := [3]int{ss[1] * ss[2], ss[2], 1}[axis]
+	nx := box.Max[2] - box.Min[2]
 	lo, hi := src.Box.Min[axis], src.Box.Max[axis]
+	acc := make([]float64, nx)
 	i := 0
 	for z := box.Min[0]; z < box.Max[0]; z++ {
 		for y := box.Min[1]; y < box.Max[1]; y++ {
-			row := src.Index(z, y, box.Min[2])
-			for x := box.Min[2]; x < box.Max[2]; x++ {
-				c := [3]int{z, y, x}[axis]
-				a, b := max(c-r, lo), min(c+r, hi-1)
-				j := row + (x - box.Min[2]) + (a-c)*stride
-				taps := k[a-c+r : b-c+r+1]
-				s := 0.0
-				for _, w := range taps {
-					s += w * float64(src.Pix[j])
-					j += stride
+			out := dst.Pix[i : i+nx]
+			i += nx
+			if axis == 2 {
+				row := src.Pix[src.Index(z, y, src.Box.Min[2]):][:ss[2]]
+				for x := box.Min[2]; x < box.Max[2]; x++ {
+					a, b := max(x-r, lo), min(x+r, hi-1)
+					taps := k[a-x+r : b-x+r+1]
+					v := row[a-lo:]
+					s := 0.0
+					for t, w := range taps {
+						s += w * float64(v[t])
+					}
+					out[x-box.Min[2]] = float32(s)
 				}
-				dst.Pix[i] = float32(s)
-				i++
+				continue
+			}
+			// y or z: whole rows at once, tap range fixed by the row.
+			c := [2]int{z, y}[axis]
+			a, b := max(c-r, lo), min(c+r, hi-1)
+			for x := range acc {
+				acc[x] = 0
+			}
+			for t := a; t <= b; t++ {
+				w := k[t-c+r]
+				var row []float32
+				if axis == 0 {
+					row = src.Pix[src.Index(t, y, box.Min[2]):][:nx]
+				} else {
+					row = src.Pix[src.Index(z, t, box.Min[2]):][:nx]
+				}
+				for x, v := range row {
+					acc[x] += w * float64(v)
+				}
+			}
+			for x, v := range acc {
+				out[x] = float32(v)
 			}
 		}
 	}
@@ -304,24 +330,46 @@ func Near(lab *volume.Labels, set *phase.Set, box volume.Box, e float64) *volume
 		nb := b
 		nb.Min[axis], nb.Max[axis] = box.Min[axis], box.Max[axis]
 		s := b.Size()
-		stride := [3]int{s[1] * s[2], s[2], 1}[axis]
 		nd := make([]int32, nb.Voxels())
+		nx := nb.Max[2] - nb.Min[2]
 		j := 0
 		for z := nb.Min[0]; z < nb.Max[0]; z++ {
 			for y := nb.Min[1]; y < nb.Max[1]; y++ {
-				for x := nb.Min[2]; x < nb.Max[2]; x++ {
-					c := [3]int{z, y, x}[axis]
-					src := ((z-b.Min[0])*s[1]+(y-b.Min[1]))*s[2] + (x - b.Min[2])
-					best := int32(far)
-					for t := max(c-r, b.Min[axis]); t <= min(c+r, b.Max[axis]-1); t++ {
-						if v := d[src+(t-c)*stride]; v != far {
-							if q := v + int32((t-c)*(t-c)); q < best {
-								best = q
+				out := nd[j : j+nx]
+				j += nx
+				for x := range out {
+					out[x] = far
+				}
+				c := [3]int{z, y, nb.Min[2]}[axis]
+				if axis == 2 {
+					row := d[((z-b.Min[0])*s[1]+(y-b.Min[1]))*s[2]:][:s[2]]
+					for x := nb.Min[2]; x < nb.Max[2]; x++ {
+						best := int32(far)
+						for t := max(x-r, b.Min[2]); t <= min(x+r, b.Max[2]-1); t++ {
+							if v := row[t-b.Min[2]]; v != far {
+								if q := v + int32((t-x)*(t-x)); q < best {
+									best = q
+								}
 							}
 						}
+						out[x-nb.Min[2]] = best
 					}
-					nd[j] = best
-					j++
+					continue
+				}
+				for t := max(c-r, b.Min[axis]); t <= min(c+r, b.Max[axis]-1); t++ {
+					zz, yy := z, y
+					if axis == 0 {
+						zz = t
+					} else {
+						yy = t
+					}
+					row := d[((zz-b.Min[0])*s[1]+(yy-b.Min[1]))*s[2]+(nb.Min[2]-b.Min[2]):][:nx]
+					dd := int32((t - c) * (t - c))
+					for x, v := range row {
+						if v != far && v+dd < out[x] {
+							out[x] = v + dd
+						}
+					}
 				}
 			}
 		}
