@@ -141,7 +141,63 @@ func Render(grey volume.Any, labels *volume.Labels, o Options) (*image.NRGBA, er
 	if grey == nil {
 		return nil, fmt.Errorf("preview: no grey volume")
 	}
-	box := grey.Bounds()
+	at, err := sampler(grey)
+	if err != nil {
+		return nil, err
+	}
+	label := func(z, y, x int) (uint8, bool) {
+		if labels == nil || !labels.Box.Contains(z, y, x) {
+			return 0, false
+		}
+		return labels.At(z, y, x), true
+	}
+	return render(grey.Bounds(), at, label, o)
+}
+
+// RenderPlanes draws the same preview from the three planes alone: planes[a]
+// is the one-voxel-thick slab of whole at the point's coordinate along axis a
+// (z, y, x), labels likewise (entries may be nil). Large scans need only
+// these three planes in memory. o.Point is required.
+func RenderPlanes(whole volume.Box, planes [3]volume.Any, labels [3]*volume.Labels, o Options) (*image.NRGBA, error) {
+	if o.Point == nil {
+		return nil, fmt.Errorf("preview: RenderPlanes needs a point")
+	}
+	var at [3]func(z, y, x int) float64
+	for a := range planes {
+		if planes[a] == nil {
+			return nil, fmt.Errorf("preview: plane %d missing", a)
+		}
+		f, err := sampler(planes[a])
+		if err != nil {
+			return nil, err
+		}
+		at[a] = f
+	}
+	pt := *o.Point
+	which := func(z, y, x int) int {
+		switch {
+		case z == pt[0] && planes[0].Bounds().Contains(z, y, x):
+			return 0
+		case y == pt[1] && planes[1].Bounds().Contains(z, y, x):
+			return 1
+		}
+		return 2
+	}
+	value := func(z, y, x int) float64 { return at[which(z, y, x)](z, y, x) }
+	label := func(z, y, x int) (uint8, bool) {
+		l := labels[which(z, y, x)]
+		if l == nil || !l.Box.Contains(z, y, x) {
+			return 0, false
+		}
+		return l.At(z, y, x), true
+	}
+	return render(whole, value, label, o)
+}
+
+// EncodePNG writes an image as PNG.
+func EncodePNG(w io.Writer, img image.Image) error { return png.Encode(w, img) }
+
+func render(box volume.Box, at func(z, y, x int) float64, label func(z, y, x int) (uint8, bool), o Options) (*image.NRGBA, error) {
 	if box.Empty() {
 		return nil, volume.ErrEmpty
 	}
@@ -153,10 +209,6 @@ func Render(grey volume.Any, labels *volume.Labels, o Options) (*image.NRGBA, er
 	}
 	if err := o.Codes.Validate(); err != nil {
 		return nil, fmt.Errorf("preview: %v", err)
-	}
-	at, err := sampler(grey)
-	if err != nil {
-		return nil, err
 	}
 	var pt [3]int
 	if o.Point != nil {
@@ -208,7 +260,7 @@ func Render(grey volume.Any, labels *volume.Labels, o Options) (*image.NRGBA, er
 		for row := 0; row < size[s.down]; row++ {
 			for col := 0; col < size[s.across]; col++ {
 				z, y, x := coord(s, col, row)
-				c := o.pixel(grey8(at(z, y, x), lo, hi), labels, z, y, x)
+				c := o.pixel(grey8(at(z, y, x), lo, hi), label, z, y, x)
 				for dy := 0; dy < o.Scale; dy++ {
 					for dx := 0; dx < o.Scale; dx++ {
 						img.SetNRGBA(x0+col*o.Scale+dx, top+row*o.Scale+dy, c)
@@ -240,12 +292,13 @@ func Blend(g uint8, c color.NRGBA, alpha float64) color.NRGBA {
 	return color.NRGBA{mix(c.R), mix(c.G), mix(c.B), 0xFF}
 }
 
-func (o *Options) pixel(g uint8, labels *volume.Labels, z, y, x int) color.NRGBA {
+func (o *Options) pixel(g uint8, label func(z, y, x int) (uint8, bool), z, y, x int) color.NRGBA {
 	grey := color.NRGBA{g, g, g, 0xFF}
-	if labels == nil || !labels.Box.Contains(z, y, x) {
+	l, ok := label(z, y, x)
+	if !ok {
 		return grey
 	}
-	switch labels.At(z, y, x) {
+	switch l {
 	case o.Codes.Wetting:
 		return Blend(g, Overlay.Wetting, o.Alpha)
 	case o.Codes.Nonwetting:

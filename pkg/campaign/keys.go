@@ -1,0 +1,47 @@
+package campaign
+
+import (
+	"sluice/pkg/layout"
+)
+
+// Keys of run-scoped objects, next to the contract layout of package
+// layout. A run is one parameter hash applied to a campaign; the campaign's
+// current run also writes the contract paths (steps/<s>/labels.zarr,
+// steps/<s>/result.json, series.csv/json), every run writes its own copies
+// below runs/<hash>/ so earlier runs are never overwritten.
+
+// PlanKey returns the key of a step's plan under a parameter hash.
+func PlanKey(s layout.Step, hash string) string { return s.Dir() + "plans/" + hash + ".json" }
+
+// RunResultKey returns the key of a step's result under a parameter hash.
+func RunResultKey(s layout.Step, hash string) string { return s.Dir() + "runs/" + hash + "/result.json" }
+
+// RunLabelsKey returns the label array prefix of a step under a parameter
+// hash.
+func RunLabelsKey(s layout.Step, hash string) string { return s.Dir() + "runs/" + hash + "/labels.zarr/" }
+
+// RunDir returns the key prefix of a campaign run.
+func RunDir(c layout.Campaign, hash string) string { return c.Dir() + "runs/" + hash + "/" }
+
+// RunSeriesKeys returns the series keys of a run: JSON and CSV.
+func RunSeriesKeys(c layout.Campaign, hash string) (string, string) {
+	d := RunDir(c, hash)
+	return d + "series.json", d + "series.csv"
+}
+
+// RunConfigKey returns the key of a run's configuration snapshot.
+func RunConfigKey(c layout.Campaign, hash string) string { return RunDir(c, hash) + "config.json" }
+
+// EventsKey returns the key of the campaign's detected events.
+func EventsKey(c layout.Campaign) string { return c.Dir() + "events.json" }
+
+// Record is campaign.json: the campaign's current configuration and run.
+type Record struct {
+	Name      string   `json:"name"`
+	Current   string   `json:"current_param_hash"`
+	Config    Config   `json:"config"`
+	Runs      []string `json:"runs"`
+	Version   string   `json:"software_version"`
+	Scenario  string   `json:"scenario,omitempty"`
+	CreatedAt string   `json:"created_at"`
+}

@@ -1,0 +1,501 @@
+// Package aggregator completes steps: it collects the tile results of each
+// step, and when all tiles of a step under one parameter hash are stored it
+// merges them (measure.Combine: sums of additive partials, union-find over
+// cluster faces), writes the step result, upserts the step's row into the
+// campaign series (one row per step, ever: a repeated completion rewrites
+// the same row), detects experiment events, updates the metrics and tells
+// the live page.
+//
+// Its state is the object store itself — which tile results exist, which
+// step results exist — so a restarted aggregator loses nothing: redelivered
+// or repeated tile results simply re-check completion. One aggregator runs
+// per deployment (it is the only writer of the series files).
+package aggregator
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io/fs"
+	"log/slog"
+	"sort"
+	"strings"
+	"sync"
+	"time"
+
+	"sluice/pkg/campaign"
+	"sluice/pkg/events"
+	"sluice/pkg/layout"
+	"sluice/pkg/measure"
+	"sluice/pkg/series"
+	"sluice/pkg/telemetry"
+	"sluice/pkg/web"
+	"sluice/proto/sluicepb"
+)
+
+// Store is the object storage the aggregator reads and writes.
+type Store interface {
+	Get(ctx context.Context, key string) ([]byte, error)
+	Put(ctx context.Context, key string, data []byte) error
+	List(ctx context.Context, prefix string) ([]string, error)
+}
+
+// EventPublisher publishes step events (completion, failure, breakthrough,
+// steady state) on the queue's event subject.
+type EventPublisher interface {
+	PublishEvent(ctx context.Context, e *sluicepb.StepEvent) error
+}
+
+// Aggregator completes steps and serves their state.
+type Aggregator struct {
+	Store     Store
+	Publisher EventPublisher // may be nil
+	Metrics   *telemetry.Aggregator
+	Hub       *web.Hub // may be nil
+	Log       *slog.Logger
+	Version   string
+	// EventOptions are the steady-state tolerances.
+	EventOptions events.Options
+	// Lag, when set, reports the queue backlog for the health panel.
+	Lag func(ctx context.Context) (live, batch int64, err error)
+
+	mu        sync.Mutex
+	campaigns map[string]*campaignState
+	started   time.Time
+	tileTimes []time.Time // recent tile arrivals, for tiles/s
+	lastLat   float64
+}
+
+type campaignState struct {
+	record campaign.Record
+	steps  map[string]*stepState
+}
+
+type stepState struct {
+	web.StepStatus
+	hash  string
+	tiles map[int32]bool
+}
+
+// Start initialises the aggregator from the store (campaigns, steps and
+// results written before a restart).
+func (a *Aggregator) Start(ctx context.Context) error {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if a.Log == nil {
+		a.Log = slog.Default()
+	}
+	if a.EventOptions.K == 0 {
+		a.EventOptions = events.Defaults()
+	}
+	a.started = time.Now()
+	a.campaigns = map[string]*campaignState{}
+	keys, err := a.Store.List(ctx, layout.Root+"/")
+	if err != nil {
+		return fmt.Errorf("aggregator: listing campaigns: %w", err)
+	}
+	for _, k := range keys {
+		c, s, ok := layout.ParseKey(k)
+		if !ok {
+			continue
+		}
+		cs := a.campaign(ctx, c)
+		if cs == nil || s == "" {
+			continue
+		}
+		st := cs.step(s)
+		switch {
+		case strings.HasSuffix(k, "/manifest.json") && st.Status == "":
+			st.Status = "ingested"
+		case strings.Contains(k, "/tiles/") && strings.HasSuffix(k, ".json"):
+			if st.Status != "done" {
+				st.Status = "processing"
+			}
+			st.TilesDone++
+		case strings.HasSuffix(k, "/plans/"+cs.record.Current+".json"):
+			var p campaign.Plan
+			if b, err := a.Store.Get(ctx, k); err == nil && json.Unmarshal(b, &p) == nil {
+				st.TilesTotal = p.Tiles
+				_ = p
+			}
+		case k == campaign.RunResultKey(mustStep(c, s), cs.record.Current):
+			st.Status = "done"
+		}
+	}
+	for _, cs := range a.campaigns {
+		for _, st := range cs.steps {
+			if st.Status == "done" {
+				st.TilesDone = st.TilesTotal
+			}
+		}
+		if rows, err := series.Load(ctx, a.Store, cs.record.Name); err == nil {
+			for _, r := range rows {
+				cs.step(r.Step).TimeS = r.Time
+			}
+			a.updateGauges(cs.record.Name, rows)
+		}
+	}
+	return nil
+}
+
+func mustStep(c, s string) layout.Step {
+	st, _ := layout.NewStep(c, s)
+	return st
+}
+
+// campaign returns (loading if needed) a campaign's state; nil if it has no
+// readable campaign.json. Callers hold a.mu.
+func (a *Aggregator) campaign(ctx context.Context, name string) *campaignState {
+	if cs, ok := a.campaigns[name]; ok {
+		return cs
+	}
+	c, err := layout.NewCampaign(name)
+	if err != nil {
+		return nil
+	}
+	b, err := a.Store.Get(ctx, c.Config())
+	if err != nil {
+		return nil
+	}
+	var r campaign.Record
+	if json.Unmarshal(b, &r) != nil {
+		return nil
+	}
+	cs := &campaignState{record: r, steps: map[string]*stepState{}}
+	a.campaigns[name] = cs
+	return cs
+}
+
+func (cs *campaignState) step(name string) *stepState {
+	st, ok := cs.steps[name]
+	if !ok {
+		st = &stepState{StepStatus: web.StepStatus{Step: name}, tiles: map[int32]bool{}}
+		cs.steps[name] = st
+	}
+	return st
+}
+
+// StepReady records a newly ingested step.
+func (a *Aggregator) StepReady(ctx context.Context, r *sluicepb.StepReady) error {
+	a.mu.Lock()
+	cs := a.campaign(ctx, r.Campaign)
+	if cs == nil {
+		a.mu.Unlock()
+		return fmt.Errorf("aggregator: step %s/%s of unknown campaign", r.Campaign, r.Step)
+	}
+	st := cs.step(r.Step)
+	if st.Status == "" || st.Status == "ingested" {
+		st.Status = "processing"
+	}
+	st.TilesTotal, st.TimeS, st.hash = int(r.TileCount), r.TimeS, r.ParamHash
+	a.mu.Unlock()
+	a.publish("progress", map[string]any{"campaign": r.Campaign, "step": r.Step})
+	return nil
+}
+
+// TileDone handles one tile result; when it completes its step, the step is
+// merged and recorded. It is idempotent.
+func (a *Aggregator) TileDone(ctx context.Context, d *sluicepb.TileDone) error {
+	if a.Metrics != nil {
+		a.Metrics.TilesReceived.Inc()
+	}
+	step, err := layout.NewStep(d.Campaign, d.Step)
+	if err != nil {
+		return err
+	}
+	prefix, err := step.Tiles(d.ParamHash)
+	if err != nil {
+		return err
+	}
+	keys, err := a.Store.List(ctx, prefix)
+	if err != nil {
+		return err
+	}
+	a.mu.Lock()
+	cs := a.campaign(ctx, d.Campaign)
+	if cs == nil {
+		a.mu.Unlock()
+		return fmt.Errorf("aggregator: result for unknown campaign %s", d.Campaign)
+	}
+	current := cs.record.Current == d.ParamHash
+	if current {
+		st := cs.step(d.Step)
+		st.tiles[d.Tile] = true
+		st.TilesDone, st.TilesTotal, st.TimeS = len(keys), int(d.TileCount), d.TimeS
+		if st.Status != "done" {
+			st.Status = "processing"
+		}
+	}
+	now := time.Now()
+	a.tileTimes = append(a.tileTimes, now)
+	if len(a.tileTimes) > 512 {
+		a.tileTimes = a.tileTimes[256:]
+	}
+	a.mu.Unlock()
+	if len(keys) < int(d.TileCount) {
+		a.publish("progress", map[string]any{"campaign": d.Campaign, "step": d.Step, "tiles_done": len(keys), "tiles_total": d.TileCount})
+		return nil
+	}
+	return a.complete(ctx, step, d.ParamHash, keys, d)
+}
+
+// complete merges the tiles of a finished step.
+func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string, keys []string, d *sluicepb.TileDone) error {
+	if b, err := a.Store.Get(ctx, campaign.RunResultKey(step, hash)); err == nil && len(b) > 0 {
+		// Already completed (a redelivered or repeated tile): nothing to do,
+		// the series row exists.
+		return nil
+	}
+	var man campaign.Manifest
+	if err := getJSON(ctx, a.Store, step.Manifest(), &man); err != nil {
+		return err
+	}
+	var plan campaign.Plan
+	if err := getJSON(ctx, a.Store, campaign.PlanKey(step, hash), &plan); err != nil {
+		return err
+	}
+	if len(keys) != plan.Tiles {
+		return fmt.Errorf("aggregator: %s: %d tile results for %d tiles", step.Dir(), len(keys), plan.Tiles)
+	}
+	parts := make([]*measure.Partial, 0, len(keys))
+	for _, k := range keys {
+		var p measure.Partial
+		if err := getJSON(ctx, a.Store, k, &p); err != nil {
+			return err
+		}
+		parts = append(parts, &p)
+	}
+	mo, err := plan.Config.MeasureOptions()
+	if err != nil {
+		return err
+	}
+	res, err := measure.Combine(parts, man.Whole(), man.VoxelSize, mo)
+	if err != nil {
+		return fmt.Errorf("aggregator: %s: %w", step.Dir(), err)
+	}
+	b, err := json.MarshalIndent(res, "", "  ")
+	if err != nil {
+		return err
+	}
+	row, err := series.FromResult(step.Name(), man.TimeS, b)
+	if err != nil {
+		return err
+	}
+	a.mu.Lock()
+	cs := a.campaign(ctx, step.Campaign().Name())
+	a.mu.Unlock()
+	current := cs != nil && cs.record.Current == hash
+	// Run-scoped copies first, the contract paths of the current run last.
+	if err := a.Store.Put(ctx, campaign.RunResultKey(step, hash), b); err != nil {
+		return err
+	}
+	runRows, err := a.upsertRun(ctx, step.Campaign(), hash, row)
+	if err != nil {
+		return err
+	}
+	rows := runRows
+	if current {
+		if err := a.Store.Put(ctx, step.Result(), b); err != nil {
+			return err
+		}
+		if rows, err = series.Upsert(ctx, a.Store, step.Campaign().Name(), row); err != nil {
+			return err
+		}
+	}
+	latency := 0.0
+	if !man.IngestedAt.IsZero() {
+		start := man.IngestedAt
+		if !man.ReceivedAt.IsZero() {
+			start = man.ReceivedAt
+		}
+		latency = time.Since(start).Seconds()
+	}
+	a.mu.Lock()
+	if current && cs != nil {
+		st := cs.step(step.Name())
+		st.Status, st.TilesDone, st.TilesTotal, st.TimeS, st.LatencyS = "done", plan.Tiles, plan.Tiles, man.TimeS, latency
+		a.lastLat = latency
+	}
+	a.mu.Unlock()
+	if a.Metrics != nil && current {
+		a.Metrics.StepsCompleted.WithLabelValues(step.Campaign().Name()).Inc()
+		if latency > 0 {
+			a.Metrics.StepLatency.Observe(latency)
+		}
+		a.updateGauges(step.Campaign().Name(), rows)
+	}
+	a.Log.Info("step complete", "campaign", step.Campaign().Name(), "step", step.Name(), "param_hash", hash,
+		"tiles", plan.Tiles, "saturation_nonwetting", series.F(row.SatNonwetting), "latency_s", fmt.Sprintf("%.2f", latency))
+	if a.Publisher != nil {
+		a.Publisher.PublishEvent(ctx, &sluicepb.StepEvent{Campaign: step.Campaign().Name(), Step: step.Name(),
+			Kind: sluicepb.StepEvent_KIND_COMPLETED, TimeS: man.TimeS, ResultKey: step.Result(),
+			Detail: fmt.Sprintf("step %s measured", step.Name())})
+	}
+	if current {
+		if err := a.detectEvents(ctx, step.Campaign(), rows); err != nil {
+			a.Log.Warn("event detection failed", "campaign", step.Campaign().Name(), "err", err)
+		}
+	}
+	a.publish("step", map[string]any{"campaign": step.Campaign().Name(), "step": step.Name(), "param_hash": hash})
+	return nil
+}
+
+// upsertRun writes the row into the run-scoped series.
+func (a *Aggregator) upsertRun(ctx context.Context, c layout.Campaign, hash string, row series.Row) ([]series.Row, error) {
+	jk, ck := campaign.RunSeriesKeys(c, hash)
+	var rows []series.Row
+	if b, err := a.Store.Get(ctx, jk); err == nil {
+		if rows, err = series.Decode(b); err != nil {
+			return nil, err
+		}
+	} else if !errors.Is(err, fs.ErrNotExist) {
+		return nil, err
+	}
+	rows = series.Merge(rows, row)
+	jb, err := series.EncodeJSON(rows)
+	if err != nil {
+		return nil, err
+	}
+	cb, err := series.EncodeCSV(rows)
+	if err != nil {
+		return nil, err
+	}
+	if err := a.Store.Put(ctx, jk, jb); err != nil {
+		return nil, err
+	}
+	return rows, a.Store.Put(ctx, ck, cb)
+}
+
+// detectEvents runs event detection over the whole series (a pure function
+// of it) and announces events not announced before.
+func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows []series.Row) error {
+	evs, err := events.Detect(rows, a.EventOptions)
+	if err != nil {
+		return err
+	}
+	var known []events.Event
+	if b, err := a.Store.Get(ctx, campaign.EventsKey(c)); err == nil {
+		json.Unmarshal(b, &known)
+	}
+	seen := map[string]bool{}
+	for _, e := range known {
+		seen[e.ID()] = true
+	}
+	b, err := json.MarshalIndent(evs, "", "  ")
+	if err != nil {
+		return err
+	}
+	if err := a.Store.Put(ctx, campaign.EventsKey(c), b); err != nil {
+		return err
+	}
+	bt, steady := 0.0, 0.0
+	for _, e := range evs {
+		if e.Kind == events.Breakthrough {
+			bt = 1
+		}
+	}
+	if len(rows) > 0 {
+		if w := events.Steady(rows, len(rows)-1, a.EventOptions); w.Steady {
+			steady = 1
+		}
+	}
+	if a.Metrics != nil {
+		a.Metrics.Breakthrough.WithLabelValues(c.Name()).Set(bt)
+		a.Metrics.SteadyState.WithLabelValues(c.Name()).Set(steady)
+	}
+	for _, e := range evs {
+		if seen[e.ID()] {
+			continue
+		}
+		a.Log.Info("experiment event", "campaign", c.Name(), "kind", e.Kind, "step", e.Step, "detail", e.Detail)
+		if a.Metrics != nil {
+			a.Metrics.Events.WithLabelValues(c.Name(), string(e.Kind)).Inc()
+		}
+		kind := sluicepb.StepEvent_KIND_STEADY_STATE
+		if e.Kind == events.Breakthrough {
+			kind = sluicepb.StepEvent_KIND_BREAKTHROUGH
+		}
+		if a.Publisher != nil {
+			a.Publisher.PublishEvent(ctx, &sluicepb.StepEvent{Campaign: c.Name(), Step: e.Step, Kind: kind, TimeS: e.Time, Detail: e.Detail})
+		}
+		a.publish("event", map[string]any{"campaign": c.Name(), "kind": e.Kind, "step": e.Step, "time_s": e.Time, "detail": e.Detail})
+	}
+	return nil
+}
+
+// StepFailed marks a step failed (a tile exhausted its retries).
+func (a *Aggregator) StepFailed(ctx context.Context, dl *sluicepb.DeadLetter) {
+	if dl.Task == nil {
+		return
+	}
+	a.mu.Lock()
+	cs := a.campaign(ctx, dl.Task.Campaign)
+	if cs != nil && cs.record.Current == dl.Task.ParamHash {
+		st := cs.step(dl.Task.Step)
+		if st.Status != "failed" && st.Status != "done" {
+			st.Status = "failed"
+			st.Reason = fmt.Sprintf("tile %d: %s", dl.Task.Tile, dl.Reason)
+			if a.Metrics != nil {
+				a.Metrics.StepsFailed.WithLabelValues(dl.Task.Campaign).Inc()
+			}
+		}
+	}
+	a.mu.Unlock()
+	a.publish("progress", map[string]any{"campaign": dl.Task.Campaign, "step": dl.Task.Step, "failed": true})
+}
+
+func (a *Aggregator) updateGauges(c string, rows []series.Row) {
+	if a.Metrics == nil || len(rows) == 0 {
+		return
+	}
+	r := rows[len(rows)-1]
+	m := a.Metrics
+	set := func(g interface{ Set(float64) }, p *float64) {
+		if p != nil {
+			g.Set(*p)
+		}
+	}
+	set(m.SaturationNonwetting.WithLabelValues(c), r.SatNonwetting)
+	set(m.SaturationWetting.WithLabelValues(c), r.SatWetting)
+	set(m.CapillaryPressure.WithLabelValues(c), r.Pc)
+	set(m.Curvature.WithLabelValues(c), r.CurvMean)
+	set(m.ContactAngleMean.WithLabelValues(c), r.AngleMean)
+	set(m.SpecificAreaWN.WithLabelValues(c), r.SpecificWN)
+	if r.GangliaCount != nil {
+		m.GangliaCount.WithLabelValues(c).Set(float64(*r.GangliaCount))
+	}
+	set(m.LargestFraction.WithLabelValues(c), r.LargestFraction)
+	m.LatestStepTime.WithLabelValues(c).Set(r.Time)
+}
+
+func (a *Aggregator) publish(kind string, v any) {
+	if a.Hub != nil {
+		a.Hub.Publish(kind, v)
+	}
+}
+
+func getJSON(ctx context.Context, st Store, key string, v any) error {
+	b, err := st.Get(ctx, key)
+	if err != nil {
+		return err
+	}
+	if err := json.Unmarshal(b, v); err != nil {
+		return fmt.Errorf("aggregator: %s: %v", key, err)
+	}
+	return nil
+}
+
+func sortedSteps(cs *campaignState) []web.StepStatus {
+	out := make([]web.StepStatus, 0, len(cs.steps))
+	for _, st := range cs.steps {
+		out = append(out, st.StepStatus)
+	}
+	sort.Slice(out, func(i, j int) bool {
+		if out[i].TimeS != out[j].TimeS {
+			return out[i].TimeS < out[j].TimeS
+		}
+		return out[i].Step < out[j].Step
+	})
+	return out
+}

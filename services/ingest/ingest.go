@@ -1,0 +1,315 @@
+// Package ingest stores arriving scans as steps of a campaign and queues
+// their tiles: it streams a volume slab by slab into a Zarr v2 array (chunk
+// = tile core, zstd) in the object store, writes the step manifest, runs
+// pass 1 (histogram → thresholds) from the stored chunks, writes the plan
+// and publishes one task per tile. Memory is bounded by one slab (tile
+// height × one cross-section) plus a few tiles, never the whole volume.
+package ingest
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io/fs"
+	"log/slog"
+	"strings"
+	"time"
+
+	"google.golang.org/protobuf/types/known/timestamppb"
+
+	"sluice/pkg/campaign"
+	"sluice/pkg/layout"
+	"sluice/pkg/scan"
+	"sluice/pkg/telemetry"
+	"sluice/pkg/volio"
+	"sluice/pkg/volume"
+	"sluice/proto/sluicepb"
+)
+
+// Store is the object storage ingest writes to.
+type Store interface {
+	Get(ctx context.Context, key string) ([]byte, error)
+	Put(ctx context.Context, key string, data []byte) error
+}
+
+// Publisher queues tile tasks.
+type Publisher interface {
+	PublishTask(ctx context.Context, t *sluicepb.TileTask) error
+}
+
+// Ingester ingests steps.
+type Ingester struct {
+	Store    Store
+	Queue    Publisher
+	Metrics  *telemetry.Ingest
+	Log      *slog.Logger
+	Version  string
+	Workers  int           // goroutines for pass 1 (0 = all CPUs)
+	ReadOpt  volio.Options // how to read inputs (raw without header etc.)
+	Progress func(done, total int64)
+	Stepped  func(*sluicepb.StepReady) // called after the tasks are published
+}
+
+// Request is one scan to ingest.
+type Request struct {
+	Campaign string
+	Step     string
+	Path     string
+	// TimeS is the experiment time; HasTime false takes it from the file.
+	TimeS    float64
+	HasTime  bool
+	Priority sluicepb.Priority
+}
+
+// EnsureCampaign writes campaign.json (and the run's config snapshot) if
+// the campaign is new, and returns its record. An existing campaign keeps
+// its configuration: a different cfg is an error, so one campaign never
+// mixes parameter sets silently (reprocess for that).
+func EnsureCampaign(ctx context.Context, st Store, name string, cfg campaign.Config, version, scenario string) (campaign.Record, error) {
+	c, err := layout.NewCampaign(name)
+	if err != nil {
+		return campaign.Record{}, err
+	}
+	b, err := st.Get(ctx, c.Config())
+	if err == nil {
+		var r campaign.Record
+		if err := json.Unmarshal(b, &r); err != nil {
+			return r, fmt.Errorf("ingest: %s: %v", c.Config(), err)
+		}
+		if r.Current != cfg.Hash() {
+			return r, fmt.Errorf("ingest: campaign %s exists with parameter hash %s, not %s (use the same config, or reprocess)", name, r.Current, cfg.Hash())
+		}
+		return r, nil
+	}
+	if !errors.Is(err, fs.ErrNotExist) {
+		return campaign.Record{}, err
+	}
+	r := campaign.Record{Name: name, Current: cfg.Hash(), Config: cfg, Runs: []string{cfg.Hash()}, Version: version,
+		Scenario: scenario, CreatedAt: time.Now().UTC().Format(time.RFC3339)}
+	if err := putJSON(ctx, st, campaign.RunConfigKey(c, r.Current), cfg); err != nil {
+		return r, err
+	}
+	return r, putJSON(ctx, st, c.Config(), r)
+}
+
+// Ingest stores one scan as a step and queues its tiles under the
+// campaign's current configuration.
+func (in *Ingester) Ingest(ctx context.Context, req Request) (*sluicepb.StepReady, error) {
+	start := time.Now()
+	ready, err := in.ingest(ctx, req)
+	if in.Metrics != nil {
+		if err != nil {
+			in.Metrics.Rejected.Inc()
+		} else {
+			in.Metrics.Steps.Inc()
+			in.Metrics.Seconds.Observe(time.Since(start).Seconds())
+		}
+	}
+	return ready, err
+}
+
+func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepReady, error) {
+	step, err := layout.NewStep(req.Campaign, req.Step)
+	if err != nil {
+		return nil, err
+	}
+	rec, err := loadRecord(ctx, in.Store, step.Campaign())
+	if err != nil {
+		return nil, err
+	}
+	cfg := rec.Config
+	man, err := in.store(ctx, step, req, cfg)
+	if err != nil {
+		return nil, err
+	}
+	plan, err := PlanStep(ctx, in.Store, man, cfg, in.Workers, in.Version)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %s: pass 1: %w", req.Path, err)
+	}
+	plan.Priority = priorityName(req.Priority)
+	if err := putJSON(ctx, in.Store, campaign.PlanKey(step, plan.ParamHash), plan); err != nil {
+		return nil, err
+	}
+	labels := step.Labels()
+	if plan.ParamHash != rec.Current {
+		labels = campaign.RunLabelsKey(step, plan.ParamHash)
+	}
+	if err := PublishTiles(ctx, in.Queue, man, plan, labels, req.Priority, in.Metrics); err != nil {
+		return nil, err
+	}
+	ready := &sluicepb.StepReady{Campaign: step.Campaign().Name(), Step: step.Name(), ManifestKey: step.Manifest(),
+		TileCount: int32(plan.Tiles), TimeS: man.TimeS, ParamHash: plan.ParamHash, Priority: req.Priority,
+		IngestedAt: timestamppb.New(man.IngestedAt)}
+	if in.Stepped != nil {
+		in.Stepped(ready)
+	}
+	return ready, nil
+}
+
+// store streams the volume into volume.zarr and writes the manifest.
+func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cfg campaign.Config) (campaign.Manifest, error) {
+	received := time.Now().UTC()
+	st, err := volio.OpenStream(req.Path, in.ReadOpt)
+	if err != nil {
+		return campaign.Manifest{}, err
+	}
+	defer st.Close()
+	h := st.Header()
+	vs := h.VoxelSize
+	if v := cfg.VoxelSizeM(); v > 0 {
+		vs = v
+	}
+	if vs == 0 {
+		vs = 1e-6
+	}
+	t := req.TimeS
+	if !req.HasTime && h.HasTime {
+		t = h.TimeS
+	}
+	tile := cfg.Tile
+	chunks := [3]int{min(tile, h.Shape[0]), min(tile, h.Shape[1]), min(tile, h.Shape[2])}
+	z, err := volio.CreateZarr(ctx, in.Store, strings.TrimSuffix(step.Volume(), "/"), volio.ZarrMeta{
+		Shape: h.Shape, Chunks: chunks, DType: h.DType, Compressor: "zstd", VoxelSize: vs, TimeS: t, HasTime: true,
+		Attrs: map[string]any{"campaign": step.Campaign().Name(), "step": step.Name()}})
+	if err != nil {
+		return campaign.Manifest{}, err
+	}
+	var stored int64
+	total := int64(h.Shape[0])
+	for z0 := 0; z0 < h.Shape[0]; z0 += chunks[0] {
+		if err := ctx.Err(); err != nil {
+			return campaign.Manifest{}, err
+		}
+		z1 := min(z0+chunks[0], h.Shape[0])
+		slab, err := st.ReadSlab(z0, z1)
+		if err != nil {
+			return campaign.Manifest{}, err
+		}
+		if err := z.WriteBox(ctx, slab); err != nil {
+			return campaign.Manifest{}, fmt.Errorf("ingest: %s: storing slices %d–%d: %w", req.Path, z0, z1, err)
+		}
+		stored += int64(slab.Bounds().Voxels() * h.DType.Size())
+		if in.Progress != nil {
+			in.Progress(int64(z1), total)
+		}
+	}
+	if in.Metrics != nil {
+		in.Metrics.BytesWritten.Add(float64(stored))
+	}
+	man := campaign.Manifest{Campaign: step.Campaign().Name(), Step: step.Name(), Shape: h.Shape, DType: h.DType.String(),
+		VoxelSize: vs, TimeS: t, Chunk: tile, Source: req.Path, Bytes: stored, ReceivedAt: received, IngestedAt: time.Now().UTC(), Version: in.Version}
+	return man, putJSON(ctx, in.Store, step.Manifest(), man)
+}
+
+// ZarrSource reads boxes of a stored array for pass 1 and workers.
+func ZarrSource(ctx context.Context, b volio.Bucket, prefix string) (scan.Source, error) {
+	z, err := volio.OpenZarr(ctx, b, strings.TrimSuffix(prefix, "/"))
+	if err != nil {
+		return nil, err
+	}
+	return func(box volume.Box) (volume.Any, error) { return z.ReadBox(ctx, box) }, nil
+}
+
+// PlanStep runs pass 1 of a stored step under cfg and returns its plan.
+func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign.Config, workers int, version string) (campaign.Plan, error) {
+	step, err := layout.NewStep(man.Campaign, man.Step)
+	if err != nil {
+		return campaign.Plan{}, err
+	}
+	src, err := ZarrSource(ctx, st, step.Volume())
+	if err != nil {
+		return campaign.Plan{}, err
+	}
+	var solid scan.Source
+	if cfg.Segment.Reference {
+		if solid, err = ZarrSource(ctx, st, step.Campaign().SolidMask()); err != nil {
+			return campaign.Plan{}, fmt.Errorf("reference mode needs the solid mask at %s: %w", step.Campaign().SolidMask(), err)
+		}
+	}
+	dt, err := volume.ParseDType(man.DType)
+	if err != nil {
+		return campaign.Plan{}, err
+	}
+	hash := cfg.Hash()
+	prep, eff, err := scan.Prepare(src, man.Whole(), dt, cfg, solid, workers)
+	if err != nil {
+		return campaign.Plan{}, err
+	}
+	halo, err := scan.Halo(eff)
+	if err != nil {
+		return campaign.Plan{}, err
+	}
+	p := campaign.Plan{Campaign: man.Campaign, Step: man.Step, ParamHash: hash, Config: eff, Thresholds: prep.Thresholds,
+		Tile: cfg.Tile, Halo: halo, PlannedAt: time.Now().UTC(), Version: version}
+	p.Tiles = p.Tiling(man).Len()
+	return p, nil
+}
+
+// PublishTiles queues one task per tile of a planned step.
+func PublishTiles(ctx context.Context, q Publisher, man campaign.Manifest, plan campaign.Plan, labelKey string, prio sluicepb.Priority, m *telemetry.Ingest) error {
+	step, err := layout.NewStep(man.Campaign, man.Step)
+	if err != nil {
+		return err
+	}
+	t := plan.Tiling(man)
+	now := timestamppb.Now()
+	for i := 0; i < t.Len(); i++ {
+		core := t.Core(i)
+		rk, err := step.TileResult(i, plan.ParamHash)
+		if err != nil {
+			return err
+		}
+		task := &sluicepb.TileTask{Campaign: man.Campaign, Step: man.Step, Tile: int32(i), TileCount: int32(t.Len()),
+			Core: BoxToProto(core), Halo: int32(plan.Halo), ParamHash: plan.ParamHash, ManifestKey: step.Manifest(),
+			InputKey: step.Volume(), LabelKey: labelKey, ResultKey: rk, Priority: prio, TimeS: man.TimeS, PublishedAt: now}
+		if err := q.PublishTask(ctx, task); err != nil {
+			return fmt.Errorf("ingest: publishing tile %d of %s/%s: %w", i, man.Campaign, man.Step, err)
+		}
+		if m != nil {
+			m.Tasks.WithLabelValues(priorityName(prio)).Inc()
+		}
+	}
+	return nil
+}
+
+// BoxToProto converts a box to its message form.
+func BoxToProto(b volume.Box) *sluicepb.Box {
+	return &sluicepb.Box{MinZ: int64(b.Min[0]), MinY: int64(b.Min[1]), MinX: int64(b.Min[2]),
+		MaxZ: int64(b.Max[0]), MaxY: int64(b.Max[1]), MaxX: int64(b.Max[2])}
+}
+
+// BoxFromProto converts a message box back.
+func BoxFromProto(b *sluicepb.Box) volume.Box {
+	if b == nil {
+		return volume.Box{}
+	}
+	return volume.Box{Min: [3]int{int(b.MinZ), int(b.MinY), int(b.MinX)}, Max: [3]int{int(b.MaxZ), int(b.MaxY), int(b.MaxX)}}
+}
+
+func priorityName(p sluicepb.Priority) string {
+	if p == sluicepb.Priority_PRIORITY_BATCH {
+		return "batch"
+	}
+	return "live"
+}
+
+func loadRecord(ctx context.Context, st Store, c layout.Campaign) (campaign.Record, error) {
+	var r campaign.Record
+	b, err := st.Get(ctx, c.Config())
+	if err != nil {
+		return r, fmt.Errorf("ingest: campaign %s: %w", c.Name(), err)
+	}
+	if err := json.Unmarshal(b, &r); err != nil {
+		return r, fmt.Errorf("ingest: %s: %v", c.Config(), err)
+	}
+	return r, nil
+}
+
+func putJSON(ctx context.Context, st Store, key string, v any) error {
+	b, err := json.MarshalIndent(v, "", "  ")
+	if err != nil {
+		return err
+	}
+	return st.Put(ctx, key, b)
+}

@@ -1,0 +1,227 @@
+// Package worker is the stateless tile worker: it takes a tile task, reads
+// the tile core plus halo from the step's grey Zarr array (neighbouring
+// chunks included), segments and measures it (package scan) under the step's
+// plan, writes the tile's label chunk and its partial result to the object
+// store, and only then reports the tile done. Any worker may die at any
+// moment: the task is redelivered and the rewrite of the same keys is
+// harmless.
+package worker
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"log/slog"
+	"strings"
+	"sync"
+	"time"
+
+	"google.golang.org/protobuf/types/known/durationpb"
+	"google.golang.org/protobuf/types/known/timestamppb"
+
+	"sluice/pkg/campaign"
+	"sluice/pkg/layout"
+	"sluice/pkg/scan"
+	"sluice/pkg/telemetry"
+	"sluice/pkg/volio"
+	"sluice/pkg/volume"
+	"sluice/proto/sluicepb"
+	"sluice/services/ingest"
+)
+
+// Store is the object storage a worker reads and writes.
+type Store interface {
+	Get(ctx context.Context, key string) ([]byte, error)
+	Put(ctx context.Context, key string, data []byte) error
+}
+
+// Worker processes tile tasks.
+type Worker struct {
+	Store   Store
+	ID      string
+	Metrics *telemetry.Worker
+	Log     *slog.Logger
+
+	mu    sync.Mutex
+	plans map[string]planned // by plan key
+}
+
+type planned struct {
+	man  campaign.Manifest
+	plan campaign.Plan
+}
+
+// countingStore counts bytes through a Store.
+type countingStore struct {
+	Store
+	read, written int64
+	mu            sync.Mutex
+}
+
+func (c *countingStore) Get(ctx context.Context, key string) ([]byte, error) {
+	b, err := c.Store.Get(ctx, key)
+	c.mu.Lock()
+	c.read += int64(len(b))
+	c.mu.Unlock()
+	return b, err
+}
+
+func (c *countingStore) Put(ctx context.Context, key string, data []byte) error {
+	c.mu.Lock()
+	c.written += int64(len(data))
+	c.mu.Unlock()
+	return c.Store.Put(ctx, key, data)
+}
+
+func (w *Worker) load(ctx context.Context, st Store, step layout.Step, hash string) (planned, error) {
+	key := campaign.PlanKey(step, hash)
+	w.mu.Lock()
+	p, ok := w.plans[key]
+	w.mu.Unlock()
+	if ok {
+		return p, nil
+	}
+	var man campaign.Manifest
+	if err := getJSON(ctx, st, step.Manifest(), &man); err != nil {
+		return p, err
+	}
+	var plan campaign.Plan
+	if err := getJSON(ctx, st, key, &plan); err != nil {
+		return p, err
+	}
+	p = planned{man: man, plan: plan}
+	w.mu.Lock()
+	if w.plans == nil || len(w.plans) > 256 {
+		w.plans = map[string]planned{}
+	}
+	w.plans[key] = p
+	w.mu.Unlock()
+	return p, nil
+}
+
+// Process runs one task. The returned TileDone is to be published; the
+// caller acknowledges the task after publishing it.
+func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.TileDone, error) {
+	if w.Metrics != nil {
+		w.Metrics.Busy.Inc()
+		defer w.Metrics.Busy.Dec()
+	}
+	cs := &countingStore{Store: w.Store}
+	var stages []*sluicepb.StageTiming
+	stage := func(name string, t0 time.Time) {
+		d := time.Since(t0)
+		stages = append(stages, &sluicepb.StageTiming{Stage: name, Duration: durationpb.New(d)})
+		if w.Metrics != nil {
+			w.Metrics.StageSeconds.WithLabelValues(name).Observe(d.Seconds())
+		}
+	}
+	step, err := layout.NewStep(t.Campaign, t.Step)
+	if err != nil {
+		return nil, err
+	}
+	t0 := time.Now()
+	p, err := w.load(ctx, cs, step, t.ParamHash)
+	if err != nil {
+		return nil, fmt.Errorf("worker: %s tile %d: %w", step.Dir(), t.Tile, err)
+	}
+	whole := p.man.Whole()
+	core := ingest.BoxFromProto(t.Core)
+	if core.Empty() || !whole.ContainsBox(core) {
+		return nil, fmt.Errorf("worker: %s tile %d: core %v outside scan %v", step.Dir(), t.Tile, core, whole)
+	}
+	box := core.Grow(p.plan.Halo).Intersect(whole)
+	grey, err := readBox(ctx, cs, t.InputKey, box)
+	if err != nil {
+		return nil, err
+	}
+	var solid *volume.Labels
+	if p.plan.Config.Segment.Reference {
+		m, err := readBox(ctx, cs, step.Campaign().SolidMask(), box)
+		if err != nil {
+			return nil, err
+		}
+		var ok bool
+		if solid, ok = m.(*volume.Labels); !ok {
+			return nil, fmt.Errorf("worker: solid mask of %s is %s, want uint8", step.Campaign().Name(), m.DType())
+		}
+	}
+	setEdge(grey, p.man.VoxelSize)
+	stage("read", t0)
+
+	t0 = time.Now()
+	lab, part, err := scan.Tile(grey, core, whole, p.plan.Thresholds, p.plan.Config, solid)
+	if err != nil {
+		return nil, fmt.Errorf("worker: %s tile %d: %w", step.Dir(), t.Tile, err)
+	}
+	stage("segment_measure", t0)
+
+	t0 = time.Now()
+	if err := writeLabels(ctx, cs, t.LabelKey, p, lab); err != nil {
+		return nil, err
+	}
+	b, err := json.Marshal(part)
+	if err != nil {
+		return nil, err
+	}
+	if err := cs.Put(ctx, t.ResultKey, b); err != nil {
+		return nil, err
+	}
+	stage("write", t0)
+	if w.Metrics != nil {
+		w.Metrics.BytesRead.Add(float64(cs.read))
+		w.Metrics.BytesWritten.Add(float64(cs.written))
+	}
+	return &sluicepb.TileDone{Campaign: t.Campaign, Step: t.Step, Tile: t.Tile, TileCount: t.TileCount, ParamHash: t.ParamHash,
+		ResultKey: t.ResultKey, LabelKey: t.LabelKey, WorkerId: w.ID, Attempt: t.Attempt, Stages: stages,
+		BytesRead: cs.read, BytesWritten: cs.written, TimeS: t.TimeS, FinishedAt: timestamppb.Now(), PublishedAt: t.PublishedAt}, nil
+}
+
+// writeLabels writes the tile's label chunk, creating the label array on
+// first use (every worker writes the same metadata, so the race is benign).
+func writeLabels(ctx context.Context, st Store, key string, p planned, lab *volume.Labels) error {
+	prefix := strings.TrimSuffix(key, "/")
+	z, err := volio.OpenZarr(ctx, st, prefix)
+	if err != nil {
+		s := p.man.Shape
+		z, err = volio.CreateZarr(ctx, st, prefix, volio.ZarrMeta{Shape: s,
+			Chunks: [3]int{min(p.plan.Tile, s[0]), min(p.plan.Tile, s[1]), min(p.plan.Tile, s[2])}, DType: volume.Uint8,
+			Compressor: "zstd", VoxelSize: p.man.VoxelSize, TimeS: p.man.TimeS, HasTime: true,
+			Attrs: map[string]any{"phases": map[string]int{"solid": int(p.plan.Config.Segment.Codes.Solid),
+				"wetting": int(p.plan.Config.Segment.Codes.Wetting), "nonwetting": int(p.plan.Config.Segment.Codes.Nonwetting), "outside": 255},
+				"param_hash": p.plan.ParamHash}})
+		if err != nil {
+			return err
+		}
+	}
+	return z.WriteBox(ctx, lab)
+}
+
+func readBox(ctx context.Context, st Store, prefix string, box volume.Box) (volume.Any, error) {
+	z, err := volio.OpenZarr(ctx, st, strings.TrimSuffix(prefix, "/"))
+	if err != nil {
+		return nil, err
+	}
+	return z.ReadBox(ctx, box)
+}
+
+func setEdge(v volume.Any, e float64) {
+	switch t := v.(type) {
+	case *volume.Volume[uint8]:
+		t.VoxelSize = e
+	case *volume.Volume[uint16]:
+		t.VoxelSize = e
+	case *volume.Volume[float32]:
+		t.VoxelSize = e
+	}
+}
+
+func getJSON(ctx context.Context, st Store, key string, v any) error {
+	b, err := st.Get(ctx, key)
+	if err != nil {
+		return err
+	}
+	if err := json.Unmarshal(b, v); err != nil {
+		return fmt.Errorf("%s: %v", key, err)
+	}
+	return nil
+}
