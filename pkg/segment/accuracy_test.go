@@ -237,6 +237,7 @@ func TestAccuracyForwardModel(t *testing.T) {
 	rows := ""
 	for _, cnr := range []float64{3, 5, 10} {
 		grey, truth, fp := scene(n, cnr, 42)
+		rows += fmt.Sprintf("scene seed 42: true S_w %.3f\n", scoreOf(truth, truth, phase.Default()).sTrue)
 		mask, ideal := referenceMask(t, truth, fp), idealMask(truth)
 		for _, v := range variants {
 			p := v.params(fp)
@@ -260,4 +261,21 @@ func TestAccuracyForwardModel(t *testing.T) {
 		}
 	}
 	t.Logf("accuracy on %d³ forward-model scans:\n%s", n, rows)
+}
+
+// TestAccuracyOtherScenes repeats the asserted CNR 5 case on other rocks
+// and drainage states and reports (seed 43 has S_w = 0.17: its bulk brine is
+// too scarce for a good fluid threshold, see the package doc).
+func TestAccuracyOtherScenes(t *testing.T) {
+	for _, seed := range []uint64{43, 44} {
+		grey, truth, fp := scene(48, 5, seed)
+		p := variants[3].params(fp)
+		lab, th := pipeline(t, grey, p, idealMask(truth))
+		sc := scoreOf(lab, truth, p.Codes)
+		t.Logf("seed %d: true S_w %.3f, pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, threshold %v", seed, sc.sTrue, 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
+		if seed == 44 && (sc.poreAcc < 0.98 || math.Abs(sc.dS) > 0.01 || math.Abs(sc.dA) > 0.10) {
+			// Source: issue 3 targets.
+			t.Errorf("seed %d misses the CNR 5 targets", seed)
+		}
+	}
 }

@@ -49,6 +49,36 @@ func Otsu(counts []int64) (int, error) {
 	return bt, nil
 }
 
+// Isodata returns the lowest bin t that is a fixed point of Ridler &
+// Calvard's iteration (1978, IEEE Trans. SMC 8:630): the mean m of the mean
+// of the bins <= t and the mean of the bins > t satisfies
+// centre(t) <= m < centre(t) + width, in bin units 0 <= m − t < 1 — the
+// criterion of scikit-image's threshold_isodata. Unlike Otsu's threshold,
+// the fixed point sits midway between the class means whatever the class
+// sizes, the minimum-error split for two classes of equal noise. Empty end
+// bins are ignored.
+func Isodata(counts []int64) (int, error) {
+	a, b := trim(counts)
+	if b-a < 2 {
+		return 0, fmt.Errorf("segment: isodata needs at least two occupied bins, got %d", b-a)
+	}
+	var n, m float64
+	for i := a; i < b; i++ {
+		n += float64(counts[i])
+		m += float64(counts[i]) * float64(i)
+	}
+	var w0, m0 float64
+	for t := a; t < b-1; t++ {
+		w0 += float64(counts[t])
+		m0 += float64(counts[t]) * float64(t)
+		mid := (m0/w0 + (m-m0)/(n-w0)) / 2
+		if d := mid - float64(t); d >= 0 && d < 1 {
+			return t, nil
+		}
+	}
+	return 0, fmt.Errorf("segment: isodata found no fixed point")
+}
+
 // MultiOtsu3 returns the bin indices t₀ < t₁ splitting the histogram into
 // three classes {<= t₀}, (t₀, t₁], {> t₁} with the largest between-class
 // variance, i.e. the largest Σ_k S_k²/P_k (P_k, S_k the zeroth and first
@@ -138,6 +168,12 @@ func ComputeThresholds(h Hist, p Params) (Thresholds, error) {
 	switch {
 	case p.Threshold == "fixed":
 		th.T = append([]float64(nil), p.Fixed...)
+	case p.Threshold == "isodata":
+		t, err := Isodata(h.Counts)
+		if err != nil {
+			return Thresholds{}, err
+		}
+		th.T = []float64{h.Centre(t)}
 	case p.Reference:
 		t, err := Otsu(h.Counts)
 		if err != nil {

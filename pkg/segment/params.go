@@ -87,7 +87,9 @@ type Params struct {
 	// Filter is the denoiser run before everything else.
 	Filter Filter `json:"filter" yaml:"filter"`
 	// Threshold is "otsu" (3-class multi-level Otsu, or 2-class Otsu in
-	// reference mode, on the merged histogram) or "fixed" (Fixed).
+	// reference mode, on the merged histogram), "isodata" (reference mode
+	// only: Ridler–Calvard midpoint of the two fluid means, not pulled
+	// towards the smaller fluid as Otsu is) or "fixed" (Fixed).
 	Threshold string `json:"threshold" yaml:"threshold"`
 	// Fixed are the grey thresholds for Threshold "fixed": two ascending
 	// values, or one in reference mode. A voxel above a threshold belongs to
@@ -159,6 +161,10 @@ func (p Params) Validate() error {
 	}
 	switch p.Threshold {
 	case "otsu":
+	case "isodata":
+		if !p.Reference {
+			return fmt.Errorf("segment: isodata thresholds need reference mode (two classes)")
+		}
 	case "fixed":
 		want := 2
 		if p.Reference {
@@ -173,7 +179,7 @@ func (p Params) Validate() error {
 			}
 		}
 	default:
-		return fmt.Errorf("segment: unknown threshold method %q (want otsu or fixed)", p.Threshold)
+		return fmt.Errorf("segment: unknown threshold method %q (want otsu, isodata or fixed)", p.Threshold)
 	}
 	if p.Bins < 2 || p.Bins > 65536 {
 		return fmt.Errorf("segment: bins %d out of range 2..65536", p.Bins)

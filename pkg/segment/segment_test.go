@@ -54,7 +54,7 @@ func TestOtsuMatchesSkimage(t *testing.T) {
 		Centres []float64 `json:"centres"`
 	}
 	var cases []caseIn
-	var want2 []float64
+	var want2, wantIso []float64
 	var want3 [][2]float64
 	for k := 0; k < 12; k++ {
 		n := []int{256, 1024}[k%2]
@@ -76,17 +76,22 @@ func TestOtsuMatchesSkimage(t *testing.T) {
 			t.Fatal(err)
 		}
 		want2 = append(want2, h.Centre(t2))
+		ti, err := Isodata(h.Counts)
+		if err != nil {
+			t.Fatal(err)
+		}
+		wantIso = append(wantIso, h.Centre(ti))
 		want3 = append(want3, [2]float64{h.Centre(a), h.Centre(b)})
 	}
 	in, _ := json.Marshal(cases)
-	// Source: scikit-image 0.19 skimage.filters.threshold_otsu / threshold_multiotsu(classes=3)
+	// Source: scikit-image 0.19 skimage.filters.threshold_otsu / threshold_multiotsu(classes=3) / threshold_isodata
 	// with hist=(counts, bin_centres), run live.
 	script := `import sys, json, numpy as np
-from skimage.filters import threshold_otsu, threshold_multiotsu
+from skimage.filters import threshold_otsu, threshold_multiotsu, threshold_isodata
 out = []
 for c in json.load(sys.stdin):
     h = (np.array(c["counts"], dtype=np.int64), np.array(c["centres"]))
-    out.append([float(threshold_otsu(hist=h))] + [float(v) for v in threshold_multiotsu(hist=h, classes=3)])
+    out.append([float(threshold_otsu(hist=h))] + [float(v) for v in threshold_multiotsu(hist=h, classes=3)] + [float(threshold_isodata(hist=h))])
 json.dump(out, sys.stdout)`
 	cmd := exec.Command(refPython, "-c", script)
 	cmd.Stdin = strings.NewReader(string(in))
@@ -94,7 +99,7 @@ json.dump(out, sys.stdout)`
 	if err != nil {
 		t.Fatalf("skimage: %v", err)
 	}
-	var got [][3]float64
+	var got [][4]float64
 	if err := json.Unmarshal(b, &got); err != nil {
 		t.Fatal(err)
 	}
@@ -104,7 +109,10 @@ json.dump(out, sys.stdout)`
 			t.Errorf("case %d: Otsu %g, skimage %g", k, want2[k], got[k][0])
 		}
 		if math.Abs(got[k][1]-want3[k][0]) > 1e-9*math.Max(1, math.Abs(want3[k][0])) || math.Abs(got[k][2]-want3[k][1]) > 1e-9*math.Max(1, math.Abs(want3[k][1])) {
-			t.Errorf("case %d: multi-Otsu %v, skimage %v", k, want3[k], got[k][1:])
+			t.Errorf("case %d: multi-Otsu %v, skimage %v", k, want3[k], got[k][1:3])
+		}
+		if math.Abs(got[k][3]-wantIso[k]) > 1e-9*math.Max(1, math.Abs(wantIso[k])) {
+			t.Errorf("case %d: isodata %g, skimage %g", k, wantIso[k], got[k][3])
 		}
 	}
 }
