@@ -92,6 +92,7 @@ func (p NLM) Apply(in *volume.Volume[float32], core volume.Box) (*volume.Volume[
 		d := make([]float32, ps[0]*ps[1]*ps[2])
 		bx := make([]float32, ps[0]*ps[1]*cs[2])
 		by := make([]float32, ps[0]*cs[1]*cs[2])
+		bz := make([]float32, cs[2])
 		nc := cs[0] * cs[1] * cs[2]
 		sumW := make([]float64, nc)
 		sumWU := make([]float64, nc)
@@ -103,45 +104,56 @@ func (p NLM) Apply(in *volume.Volume[float32], core volume.Box) (*volume.Volume[
 						continue
 					}
 					// Squared differences over P.
+					fastX := pb.Min[2]-sr >= ib.Min[2] && pb.Max[2]+sr <= ib.Max[2]
 					i := 0
 					for z := pb.Min[0]; z < pb.Max[0]; z++ {
 						tz, tzo := tab[0][z-lo[0]], tab[0][z+oz-lo[0]]
 						for y := pb.Min[1]; y < pb.Max[1]; y++ {
 							ty, tyo := tab[1][y-lo[1]], tab[1][y+oy-lo[1]]
 							a, b := tz+ty, tzo+tyo
-							xt := tab[2][pb.Min[2]-lo[2]:]
-							xo := tab[2][pb.Min[2]+ox-lo[2]:]
 							row := d[i : i+ps[2]]
-							for x := range row {
-								v := in.Pix[a+xt[x]] - in.Pix[b+xo[x]]
-								row[x] = v * v
+							if fastX {
+								// No clamping along x: contiguous rows.
+								pa := in.Pix[a+tab[2][pb.Min[2]-lo[2]]:][:len(row)]
+								po := in.Pix[b+tab[2][pb.Min[2]+ox-lo[2]]:][:len(row)]
+								for x := range row {
+									v := pa[x] - po[x]
+									row[x] = v * v
+								}
+							} else {
+								xt := tab[2][pb.Min[2]-lo[2]:]
+								xo := tab[2][pb.Min[2]+ox-lo[2]:]
+								for x := range row {
+									v := in.Pix[a+xt[x]] - in.Pix[b+xo[x]]
+									row[x] = v * v
+								}
 							}
 							i += ps[2]
 						}
 					}
-					// Patch sums: x, then y, then z, each a fixed-order sum.
-					i = 0
+					// Patch sums: x, then y, then z, each a fixed-order sum
+					// (t = 0, 1, …, 2f), done row by row.
+					nx := cs[2]
 					for zy := 0; zy < ps[0]*ps[1]; zy++ {
-						src := d[zy*ps[2]:]
-						for x := 0; x < cs[2]; x++ {
-							var acc float32
-							for t := 0; t <= 2*f; t++ {
-								acc += src[x+t]
+						src := d[zy*ps[2]:][:nx+2*f]
+						dst := bx[zy*nx:][:nx]
+						copy(dst, src[:nx])
+						for t := 1; t <= 2*f; t++ {
+							st := src[t:][:nx]
+							for x := range dst {
+								dst[x] += st[x]
 							}
-							bx[i] = acc
-							i++
 						}
 					}
-					i = 0
 					for z := 0; z < ps[0]; z++ {
 						for y := 0; y < cs[1]; y++ {
-							for x := 0; x < cs[2]; x++ {
-								var acc float32
-								for t := 0; t <= 2*f; t++ {
-									acc += bx[(z*ps[1]+y+t)*cs[2]+x]
+							dst := by[(z*cs[1]+y)*nx:][:nx]
+							copy(dst, bx[(z*ps[1]+y)*nx:][:nx])
+							for t := 1; t <= 2*f; t++ {
+								st := bx[(z*ps[1]+y+t)*nx:][:nx]
+								for x := range dst {
+									dst[x] += st[x]
 								}
-								by[i] = acc
-								i++
 							}
 						}
 					}
@@ -150,28 +162,28 @@ func (p NLM) Apply(in *volume.Volume[float32], core volume.Box) (*volume.Volume[
 						tzo := tab[0][z0+z+oz-lo[0]]
 						for y := 0; y < cs[1]; y++ {
 							tyo := tab[1][core.Min[1]+y+oy-lo[1]]
-							xo := tab[2][core.Min[2]+ox-lo[2]:]
-							for x := 0; x < cs[2]; x++ {
-								var acc float32
-								for t := 0; t <= 2*f; t++ {
-									acc += by[((z+t)*cs[1]+y)*cs[2]+x]
+							xo := tab[2][core.Min[2]+ox-lo[2]:][:nx]
+							acc := bz[:nx]
+							copy(acc, by[(z*cs[1]+y)*nx:][:nx])
+							for t := 1; t <= 2*f; t++ {
+								st := by[((z+t)*cs[1]+y)*nx:][:nx]
+								for x := range acc {
+									acc[x] += st[x]
 								}
-								e := (float64(acc)/np - bias) * inv
-								if e < 30 {
-									var w float64
-									if e <= 0 {
-										w = 1
-									} else {
-										w = math.Exp(-e)
-									}
-									sumW[i] += w
-									sumWU[i] += w * float64(in.Pix[tzo+tyo+xo[x]])
-									if w > wmax[i] {
-										wmax[i] = w
-									}
-								}
-								i++
 							}
+							sw, swu, wm := sumW[i:][:nx], sumWU[i:][:nx], wmax[i:][:nx]
+							for x := range acc {
+								e := (float64(acc[x])/np - bias) * inv
+								if e < expMax {
+									w := expNeg(e)
+									sw[x] += w
+									swu[x] += w * float64(in.Pix[tzo+tyo+xo[x]])
+									if w > wm[x] {
+										wm[x] = w
+									}
+								}
+							}
+							i += nx
 						}
 					}
 				}
@@ -195,4 +207,31 @@ func (p NLM) Apply(in *volume.Volume[float32], core volume.Box) (*volume.Volume[
 		}
 	})
 	return out, nil
+}
+
+// expMax bounds the weight argument: exp(−30) ≈ 1e-13 counts as zero.
+const expMax = 30
+
+// expTable holds exp(−k/expStep) for k = 0..expMax·expStep+1.
+const expStep = 256
+
+var expTable = func() []float64 {
+	t := make([]float64, expMax*expStep+2)
+	for k := range t {
+		t[k] = math.Exp(-float64(k) / expStep)
+	}
+	return t
+}()
+
+// expNeg returns exp(−e) for e < expMax (1 for e <= 0) by linear
+// interpolation in expTable (relative error < 2e-6): the same value
+// for the same e on every machine and tiling.
+func expNeg(e float64) float64 {
+	if e <= 0 {
+		return 1
+	}
+	f := e * expStep
+	k := int(f)
+	r := f - float64(k)
+	return expTable[k] + (expTable[k+1]-expTable[k])*r
 }
