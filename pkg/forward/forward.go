@@ -23,8 +23,10 @@
 // Contrast-to-noise ratio. CNR = |μ_w − μ_n| / σ_noise, where μ_w and μ_n are
 // the mean grey levels of the wetting and the nonwetting phase (the pair the
 // segmentation must separate, and the lowest contrast in a scan) and σ_noise
-// the standard deviation of the additive noise. It is measured on the noisy
-// image before blur is applied to the noise, i.e. blur does not reduce it.
+// the standard deviation of the additive noise. The noise is added after
+// the blur (it is reconstruction noise, not blurred by the PSF), so in the
+// bulk of each phase the measured CNR equals the set one
+// (TestCNRAsDefined).
 //
 // Everything is deterministic for a given Seed: noise comes from one
 // PCG stream per z-slice (seeded with Seed and z), so the result does not
