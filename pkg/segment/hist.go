@@ -208,6 +208,9 @@ func Histogram(grey volume.Any, core volume.Box, p Params, solid *volume.Labels)
 	// enter the fluid histogram, so the threshold comes from bulk fluid.
 	var near *volume.Volume[float32]
 	if p.Reference && p.PartialVolume.Blur > 0 {
+		if err := checkMask(solid, core.Grow(p.PVHalo()).Intersect(grey.Bounds())); err != nil {
+			return Hist{}, err
+		}
 		if near, err = solidFraction(solid, core, p); err != nil {
 			return Hist{}, err
 		}
