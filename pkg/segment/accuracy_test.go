@@ -279,3 +279,25 @@ func TestAccuracyOtherScenes(t *testing.T) {
 		}
 	}
 }
+
+// TestAccuracyWithArtefacts reports the asserted configuration on the
+// seed-42 scene with ring streaks (σ 300 grey, 0.3 of the noise) and a 5 %
+// intensity drift along z added by the forward model.
+func TestAccuracyWithArtefacts(t *testing.T) {
+	_, truth, fp := scene(48, 5, 42)
+	fp.Rings, fp.Drift = 300, 0.05
+	lab := truth.Clone()
+	img, err := forward.Render(lab, fp)
+	if err != nil {
+		t.Fatal(err)
+	}
+	grey := forward.Uint16(img)
+	p := variants[3].params(fp)
+	seg, th := pipeline(t, grey, p, idealMask(truth))
+	sc := scoreOf(seg, truth, p.Codes)
+	t.Logf("rings 300 + drift 5 %%, CNR 5: pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, threshold %v", 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
+	// Source: issue 3 targets, relaxed (artefacts are not part of the target); common practice.
+	if sc.poreAcc < 0.95 {
+		t.Errorf("pore accuracy %.4f with artefacts", sc.poreAcc)
+	}
+}
