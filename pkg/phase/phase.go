@@ -15,7 +15,9 @@ const Outside uint8 = 255
 
 // Codes maps the phases to label values.
 type Codes struct {
-	Solid, Wetting, Nonwetting uint8
+	Solid      uint8 `json:"solid" yaml:"solid"`
+	Wetting    uint8 `json:"wetting" yaml:"wetting"`
+	Nonwetting uint8 `json:"nonwetting" yaml:"nonwetting"`
 }
 
 // Default returns the codes 0 = solid, 1 = wetting, 2 = nonwetting.

@@ -26,6 +26,13 @@ func commands() []command {
 	return []command{
 		{"measure", "measure a label or grey volume (raw, TIFF stack, Zarr)", runMeasure},
 		{"segment", "segment a grey volume into solid / wetting / nonwetting labels", runSegment},
+		{"run", "all-in-one: embedded NATS, local store, watched directory, workers, aggregator, live page", runAll},
+		{"ingest", "store a scan (or watch a directory) as steps of a campaign and queue their tiles", runIngest},
+		{"worker", "process tile tasks from NATS (stateless; run as many as you like)", runWorker},
+		{"aggregate", "merge tile results into step results, series, events, metrics and the live page", runAggregate},
+		{"demo", "run a synthetic displacement campaign through the whole pipeline", runDemo},
+		{"plot", "write a campaign's plots as PNG and SVG", runPlot},
+		{"report", "write a campaign's self-contained HTML report", runReport},
 		{"version", "print the version", func([]string) int { fmt.Println("sluice", Version); return 0 }},
 	}
 }

@@ -1,0 +1,239 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"flag"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+	"sort"
+	"time"
+
+	"sluice/pkg/campaign"
+	"sluice/pkg/events"
+	"sluice/pkg/layout"
+	"sluice/pkg/plots"
+	"sluice/pkg/report"
+	"sluice/pkg/series"
+	"sluice/pkg/store"
+)
+
+func storeAt(loc string) (store.Store, error) {
+	return store.Open(context.Background(), loc, store.Credentials{})
+}
+
+// campaignFlags locate a campaign's store for the offline commands.
+type campaignFlags struct{ data, store string }
+
+func (c *campaignFlags) register(fs *flag.FlagSet) {
+	fs.StringVar(&c.data, "data", "sluice-demo", "data directory whose store/ holds the campaign (as written by sluice run or demo)")
+	fs.StringVar(&c.store, "store", "", "object store location instead of DATA/store (directory, file:// or s3://)")
+}
+
+func (c *campaignFlags) open(ctx context.Context) (store.Store, error) {
+	loc := c.store
+	if loc == "" {
+		loc = filepath.Join(c.data, "store")
+		if _, err := os.Stat(loc); err != nil {
+			return nil, fmt.Errorf("no store at %s (use --data or --store)", loc)
+		}
+	}
+	return store.Open(ctx, loc, store.Credentials{})
+}
+
+func loadSeries(ctx context.Context, st store.Store, name string) ([]series.Row, []events.Event, error) {
+	if err := layout.CheckName("campaign", name); err != nil {
+		return nil, nil, err
+	}
+	rows, err := series.Load(ctx, st, name)
+	if err != nil {
+		return nil, nil, err
+	}
+	if len(rows) == 0 {
+		return nil, nil, fmt.Errorf("campaign %s has no measured steps", name)
+	}
+	evs, err := events.Detect(rows, events.Defaults())
+	return rows, evs, err
+}
+
+func writePlots(dir string, rows []series.Row, evs []events.Event) ([]string, error) {
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return nil, err
+	}
+	return plots.WriteFiles(dir, rows, evs)
+}
+
+// runPlot is `sluice plot`.
+func runPlot(args []string) int {
+	fs := flag.NewFlagSet("plot", flag.ContinueOnError)
+	var cf campaignFlags
+	cf.register(fs)
+	out := fs.String("out", "", "output directory (default DATA/plots/<campaign>)")
+	pos, code, ok := parseOrUsage(fs, args)
+	if !ok {
+		return code
+	}
+	if len(pos) != 1 {
+		return fail(exitBadInput, "plot: want one CAMPAIGN")
+	}
+	ctx := context.Background()
+	st, err := cf.open(ctx)
+	if err != nil {
+		return fail(exitBadInput, "plot: %v", err)
+	}
+	rows, evs, err := loadSeries(ctx, st, pos[0])
+	if err != nil {
+		return fail(exitBadInput, "plot: %v", err)
+	}
+	dir := *out
+	if dir == "" {
+		dir = filepath.Join(cf.data, "plots", pos[0])
+	}
+	files, err := writePlots(dir, rows, evs)
+	if err != nil {
+		return fail(exitFailure, "plot: %v", err)
+	}
+	for _, f := range files {
+		fmt.Fprintln(stdout, f)
+	}
+	return exitOK
+}
+
+// runReport is `sluice report`.
+func runReport(args []string) int {
+	fs := flag.NewFlagSet("report", flag.ContinueOnError)
+	var cf campaignFlags
+	cf.register(fs)
+	out := fs.String("out", "", "output HTML file (default DATA/<campaign>-report.html)")
+	pos, code, ok := parseOrUsage(fs, args)
+	if !ok {
+		return code
+	}
+	if len(pos) != 1 {
+		return fail(exitBadInput, "report: want one CAMPAIGN")
+	}
+	ctx := context.Background()
+	st, err := cf.open(ctx)
+	if err != nil {
+		return fail(exitBadInput, "report: %v", err)
+	}
+	path := *out
+	if path == "" {
+		path = filepath.Join(cf.data, pos[0]+"-report.html")
+	}
+	if err := writeReport(ctx, st, path, pos[0], ""); err != nil {
+		return fail(exitBadInput, "report: %v", err)
+	}
+	fmt.Fprintln(stdout, path)
+	return exitOK
+}
+
+// writeReport writes the HTML report of a campaign's current run.
+func writeReport(ctx context.Context, st store.Store, path, name, scenario string) error {
+	rows, evs, err := loadSeries(ctx, st, name)
+	if err != nil {
+		return err
+	}
+	c, _ := layout.NewCampaign(name)
+	var rec campaign.Record
+	if b, err := st.Get(ctx, c.Config()); err == nil {
+		json.Unmarshal(b, &rec)
+	}
+	if scenario == "" {
+		scenario = rec.Scenario
+	}
+	p := report.Params{Campaign: name, Scenario: scenario, ParameterHash: rec.Current, SoftwareVersion: Version,
+		SmoothingSigma: rec.Config.Measure.CurvatureSigma, FlowAxis: rec.Config.Measure.FlowAxis, Connectivity: rec.Config.Measure.Connectivity}
+	if rec.Config.IFT > 0 {
+		v := rec.Config.IFT
+		p.IFT = &v
+	}
+	if r := rows[len(rows)-1]; r.VoxelSize != nil {
+		p.VoxelSize = *r.VoxelSize
+	}
+	// Thresholds of the latest step's plan.
+	if s, err := c.Step(rows[len(rows)-1].Step); err == nil {
+		var plan campaign.Plan
+		if b, err := st.Get(ctx, campaign.PlanKey(s, rec.Current)); err == nil && json.Unmarshal(b, &plan) == nil {
+			p.Thresholds = plan.Thresholds.T
+			p.Other = append(p.Other,
+				report.Param{Name: "segmentation", Value: fmt.Sprintf("%s filter, %s thresholds, order %s, min island %d, hysteresis band %g",
+					plan.Config.Segment.Filter.Method, plan.Thresholds.Method, plan.Config.Segment.Order, plan.Config.Segment.MinIsland, plan.Config.Segment.Hysteresis.Band)},
+				report.Param{Name: "sample cylinder (y, x, r) voxels", Value: fmt.Sprintf("%.1f, %.1f, %.1f", plan.Thresholds.Sample.Y, plan.Thresholds.Sample.X, plan.Thresholds.Sample.Radius)},
+				report.Param{Name: "curvature exclusion near solid", Value: fmt.Sprintf("%g voxels", plan.Config.Measure.CurvatureExclude)},
+				report.Param{Name: "tile / halo", Value: fmt.Sprintf("%d / %d voxels", plan.Tile, plan.Halo)})
+		}
+	}
+	f, err := os.Create(path + ".tmp")
+	if err != nil {
+		return err
+	}
+	err = report.Write(f, report.Input{Params: p, Rows: rows, Events: evs, Checks: validationChecks(rows), Generated: time.Now()})
+	if cerr := f.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil {
+		return err
+	}
+	return os.Rename(path+".tmp", path)
+}
+
+// validationChecks are the physical consistency checks of a series: what
+// must hold whatever the fluids do.
+func validationChecks(rows []series.Row) []report.Check {
+	var checks []report.Check
+	// The rock does not change during a displacement: porosity must be the
+	// same in every step (common practice: a drifting porosity flags
+	// registration or segmentation problems).
+	var phis []float64
+	for _, r := range rows {
+		if r.Porosity != nil {
+			phis = append(phis, *r.Porosity)
+		}
+	}
+	if len(phis) > 1 {
+		s := append([]float64(nil), phis...)
+		sort.Float64s(s)
+		med := s[len(s)/2]
+		worst := 0.0
+		for _, v := range phis {
+			worst = math.Max(worst, math.Abs(v-med)/med)
+		}
+		checks = append(checks, report.Check{Name: "porosity constant across steps (rock unchanged)", Passed: worst <= 0.01,
+			Detail: fmt.Sprintf("largest relative deviation from the median %.4f: %.2f %% (limit 1 %%)", med, 100*worst)})
+	}
+	// Saturations are fractions of the pore space.
+	bad := 0
+	for _, r := range rows {
+		if r.SatWetting != nil && r.SatNonwetting != nil && (math.Abs(*r.SatWetting+*r.SatNonwetting-1) > 1e-9 || *r.SatWetting < 0 || *r.SatWetting > 1) {
+			bad++
+		}
+	}
+	checks = append(checks, report.Check{Name: "S_w + S_n = 1, both in [0, 1]", Passed: bad == 0, Detail: fmt.Sprintf("%d of %d steps violate it", bad, len(rows))})
+	// Curvature resolved: mean radius of curvature at least ten voxels
+	// (Akai et al. 2019: average Pc within 11 % above 10 voxels).
+	resolved, withK := 0, 0
+	for _, r := range rows {
+		if r.CurvMean != nil && r.VoxelSize != nil && *r.CurvMean > 0 {
+			withK++
+			if 2 / (*r.CurvMean * *r.VoxelSize) >= report.ResolvedRadius {
+				resolved++
+			}
+		}
+	}
+	checks = append(checks, report.Check{Name: "interface radius of curvature ≥ 10 voxels", Passed: withK > 0 && resolved == withK,
+		Detail: fmt.Sprintf("%d of %d steps with a w–n interface", resolved, withK)})
+	// Contact angles measured.
+	withA := 0
+	for _, r := range rows {
+		if r.AngleMean != nil {
+			withA++
+		}
+	}
+	checks = append(checks, report.Check{Name: "contact angles sampled in every step with a contact line", Passed: withA > 0,
+		Detail: fmt.Sprintf("%d of %d steps", withA, len(rows))})
+	return checks
+}
+

@@ -1,0 +1,364 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"log/slog"
+	"os"
+	"os/signal"
+	"runtime"
+	"sync"
+	"syscall"
+	"time"
+
+	"sluice/pkg/campaign"
+	"sluice/pkg/layout"
+	"sluice/pkg/telemetry"
+	"sluice/pkg/web"
+	"sluice/proto/sluicepb"
+	"sluice/services/ingest"
+)
+
+func logger() *slog.Logger {
+	return slog.New(slog.NewTextHandler(os.Stderr, &slog.HandlerOptions{Level: slog.LevelInfo}))
+}
+
+func signalContext() (context.Context, context.CancelFunc) {
+	return signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+}
+
+func parseOrUsage(fs *flag.FlagSet, args []string) ([]string, int, bool) {
+	pos, err := parseInterspersed(fs, args)
+	if err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return nil, exitOK, false
+		}
+		return nil, exitBadInput, false
+	}
+	return pos, 0, true
+}
+
+// loadConfig reads --config or returns the defaults.
+func loadConfig(path string) (campaign.Config, error) {
+	if path == "" {
+		return campaign.Default(), nil
+	}
+	return campaign.Load(path)
+}
+
+// runWorker is `sluice worker`.
+func runWorker(args []string) int {
+	fs := flag.NewFlagSet("worker", flag.ContinueOnError)
+	var nf nodeFlags
+	nf.register(fs, "127.0.0.1:8471", false)
+	conc := fs.Int("concurrency", runtime.GOMAXPROCS(0), "tiles processed at once")
+	id := fs.String("id", "", "worker name in results and dead letters (default host:pid)")
+	if _, code, ok := parseOrUsage(fs, args); !ok {
+		return code
+	}
+	ctx, stop := signalContext()
+	defer stop()
+	log := logger()
+	st, err := nf.openStore(ctx)
+	if err != nil {
+		return fail(exitBadInput, "worker: %v", err)
+	}
+	q, _, err := nf.openQueue(ctx, false, log)
+	if err != nil {
+		return fail(exitBadInput, "worker: %v", err)
+	}
+	defer q.Close()
+	reg := registry()
+	m := telemetry.NewWorker(reg)
+	addr, err := serveHTTP(ctx, nf.http, nil, reg, nil, log)
+	if err != nil {
+		return fail(exitFailure, "worker: %v", err)
+	}
+	wid := *id
+	if wid == "" {
+		host, _ := os.Hostname()
+		wid = fmt.Sprintf("%s:%d", host, os.Getpid())
+	}
+	log.Info("worker started", "id", wid, "concurrency", *conc, "store", fmt.Sprint(st), "http", addr)
+	if err := runWorkers(ctx, q, st, m, wid, *conc, log); err != nil {
+		return fail(exitFailure, "worker: %v", err)
+	}
+	log.Info("worker drained and stopped", "id", wid)
+	return exitOK
+}
+
+// runAggregate is `sluice aggregate`.
+func runAggregate(args []string) int {
+	fs := flag.NewFlagSet("aggregate", flag.ContinueOnError)
+	var nf nodeFlags
+	nf.register(fs, "127.0.0.1:8470", false)
+	if _, code, ok := parseOrUsage(fs, args); !ok {
+		return code
+	}
+	ctx, stop := signalContext()
+	defer stop()
+	log := logger()
+	st, err := nf.openStore(ctx)
+	if err != nil {
+		return fail(exitBadInput, "aggregate: %v", err)
+	}
+	q, _, err := nf.openQueue(ctx, false, log)
+	if err != nil {
+		return fail(exitBadInput, "aggregate: %v", err)
+	}
+	defer q.Close()
+	reg := registry()
+	a, m, hub, err := newAggregator(ctx, st, q, reg, log)
+	if err != nil {
+		return fail(exitFailure, "aggregate: %v", err)
+	}
+	addr, err := serveHTTP(ctx, nf.http, web.Handler(a, hub, log), reg, nil, log)
+	if err != nil {
+		return fail(exitFailure, "aggregate: %v", err)
+	}
+	log.Info("aggregator started", "http", addr)
+	if err := runAggregator(ctx, q, a, m, log); err != nil {
+		return fail(exitFailure, "aggregate: %v", err)
+	}
+	return exitOK
+}
+
+// ingestFlags are shared by `sluice ingest` and `sluice run`.
+type ingestFlags struct {
+	campaign, config, watch, step string
+	settle                        time.Duration
+	timeS                         float64
+	batch                         bool
+}
+
+func (f *ingestFlags) register(fs *flag.FlagSet, single bool) {
+	fs.StringVar(&f.campaign, "campaign", "", "campaign name ([a-z0-9][a-z0-9._-]{0,63})")
+	fs.StringVar(&f.config, "config", "", "campaign config file (YAML); used when the campaign is created")
+	fs.StringVar(&f.watch, "watch", "", "watch `DIR` and ingest each scan once its marker file <scan>.done exists")
+	fs.DurationVar(&f.settle, "settle", 0, "also accept scans without a marker once unchanged for this long (e.g. 30s)")
+	if single {
+		fs.StringVar(&f.step, "step", "", "step name for a single FILE (default: from the file name)")
+		fs.Float64Var(&f.timeS, "time", -1, "experiment time of the step in seconds (default: from the file, else 0)")
+		fs.BoolVar(&f.batch, "batch", false, "queue the tiles as batch work (archives) instead of live")
+	}
+}
+
+// startIngest ensures the campaign exists and returns an ingester.
+func startIngest(ctx context.Context, f ingestFlags, in inputFlags, st ingest.Store, pub ingest.Publisher, ready func(*sluicepb.StepReady), m *telemetry.Ingest, log *slog.Logger) (*ingest.Ingester, error) {
+	if f.campaign == "" {
+		return nil, errors.New("--campaign is required")
+	}
+	if err := layout.CheckName("campaign", f.campaign); err != nil {
+		return nil, err
+	}
+	cfg, err := loadConfig(f.config)
+	if err != nil {
+		return nil, err
+	}
+	if _, err := ingest.EnsureCampaign(ctx, st, f.campaign, cfg, Version, ""); err != nil {
+		return nil, err
+	}
+	ropt, err := in.options()
+	if err != nil {
+		return nil, err
+	}
+	return &ingest.Ingester{Store: st, Queue: pub, Metrics: m, Log: log, Version: Version, ReadOpt: ropt, Stepped: ready}, nil
+}
+
+// watchAndIngest runs the directory watcher until ctx ends.
+func watchAndIngest(ctx context.Context, ing *ingest.Ingester, f ingestFlags, log *slog.Logger) error {
+	w := &ingest.Watcher{Dir: f.watch, Settle: f.settle, Log: log}
+	return w.Run(ctx, func(a ingest.Arrival) error {
+		t0 := time.Now()
+		r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path, TimeS: a.TimeS, HasTime: true,
+			Priority: sluicepb.Priority_PRIORITY_LIVE})
+		if err != nil {
+			return err
+		}
+		log.Info("step ingested", "campaign", f.campaign, "step", a.Step, "tiles", r.TileCount, "seconds", fmt.Sprintf("%.2f", time.Since(t0).Seconds()))
+		return nil
+	})
+}
+
+// runIngest is `sluice ingest`.
+func runIngest(args []string) int {
+	fs := flag.NewFlagSet("ingest", flag.ContinueOnError)
+	fs.Usage = func() {
+		fmt.Fprintln(fs.Output(), "usage: sluice ingest --campaign C --nats URL --store LOC (FILE | --watch DIR)")
+		fs.PrintDefaults()
+	}
+	var nf nodeFlags
+	var in inputFlags
+	var f ingestFlags
+	nf.register(fs, "127.0.0.1:8472", false)
+	in.register(fs)
+	f.register(fs, true)
+	pos, code, ok := parseOrUsage(fs, args)
+	if !ok {
+		return code
+	}
+	if (len(pos) == 1) == (f.watch != "") {
+		return fail(exitBadInput, "ingest: give either one FILE or --watch DIR")
+	}
+	ctx, stop := signalContext()
+	defer stop()
+	log := logger()
+	st, err := nf.openStore(ctx)
+	if err != nil {
+		return fail(exitBadInput, "ingest: %v", err)
+	}
+	q, _, err := nf.openQueue(ctx, false, log)
+	if err != nil {
+		return fail(exitBadInput, "ingest: %v", err)
+	}
+	defer q.Close()
+	reg := registry()
+	m := telemetry.NewIngest(reg)
+	ready := func(r *sluicepb.StepReady) { q.PublishStepReady(ctx, r) }
+	ing, err := startIngest(ctx, f, in, st, taskPublisher{q}, ready, m, log)
+	if err != nil {
+		return fail(exitBadInput, "ingest: %v", err)
+	}
+	if f.watch != "" {
+		serveHTTP(ctx, nf.http, nil, reg, nil, log)
+		if err := watchAndIngest(ctx, ing, f, log); err != nil {
+			return fail(exitFailure, "ingest: %v", err)
+		}
+		return exitOK
+	}
+	path := pos[0]
+	step := f.step
+	if step == "" {
+		if step, err = ingest.StepName(path); err != nil {
+			return fail(exitBadInput, "%v", err)
+		}
+	}
+	bar := newProgressBar(os.Stderr, "ingest "+step)
+	ing.Progress = bar.update
+	prio := sluicepb.Priority_PRIORITY_LIVE
+	if f.batch {
+		prio = sluicepb.Priority_PRIORITY_BATCH
+	}
+	r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: step, Path: path, TimeS: max(f.timeS, 0), HasTime: f.timeS >= 0, Priority: prio})
+	bar.done()
+	if err != nil {
+		return fail(exitBadInput, "%v", err)
+	}
+	fmt.Fprintf(stdout, "step %s of campaign %s stored; %d tile tasks queued (parameter hash %s)\n", r.Step, r.Campaign, r.TileCount, r.ParamHash)
+	return exitOK
+}
+
+// allInOne is the embedded deployment: NATS, store, watcher, workers and
+// aggregator in one process.
+type allInOne struct {
+	url  string
+	stop func()
+	wg   sync.WaitGroup
+	errs []error
+	mu   sync.Mutex
+}
+
+func (a *allInOne) fail(err error) {
+	if err == nil {
+		return
+	}
+	a.mu.Lock()
+	a.errs = append(a.errs, err)
+	a.mu.Unlock()
+}
+
+// runAll is `sluice run`.
+func runAll(args []string) int {
+	fs := flag.NewFlagSet("run", flag.ContinueOnError)
+	var nf nodeFlags
+	var in inputFlags
+	var f ingestFlags
+	nf.register(fs, "127.0.0.1:8470", true)
+	in.register(fs)
+	f.register(fs, false)
+	workers := fs.Int("workers", runtime.GOMAXPROCS(0), "tile workers in this process")
+	if _, code, ok := parseOrUsage(fs, args); !ok {
+		return code
+	}
+	ctx, stop := signalContext()
+	defer stop()
+	log := logger()
+	node, err := startAll(ctx, nf, in, f, *workers, log)
+	if err != nil {
+		return fail(exitBadInput, "run: %v", err)
+	}
+	fmt.Fprintf(stdout, "sluice running: live page http://%s/  metrics http://%s/metrics\n", node.url, node.url)
+	<-ctx.Done()
+	log.Info("shutting down: draining workers")
+	node.wg.Wait()
+	if len(node.errs) > 0 {
+		return fail(exitFailure, "run: %v", errors.Join(node.errs...))
+	}
+	return exitOK
+}
+
+// startAll starts the all-in-one node; it stops when ctx ends (wait on
+// node.wg).
+func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, workers int, log *slog.Logger) (*allInOne, error) {
+	if err := os.MkdirAll(nf.data, 0o755); err != nil {
+		return nil, err
+	}
+	st, err := nf.openStore(ctx)
+	if err != nil {
+		return nil, err
+	}
+	q, srv, err := nf.openQueue(ctx, true, log)
+	if err != nil {
+		return nil, err
+	}
+	reg := registry()
+	wm := telemetry.NewWorker(reg)
+	im := telemetry.NewIngest(reg)
+	agg, am, hub, err := newAggregator(ctx, st, q, reg, log)
+	if err != nil {
+		return nil, err
+	}
+	addr, err := serveHTTP(ctx, nf.http, web.Handler(agg, hub, log), reg, nil, log)
+	if err != nil {
+		return nil, err
+	}
+	node := &allInOne{url: addr}
+	if srv != nil && srv.ClientURL() != "" {
+		log.Info("NATS exposed for extra workers", "url", srv.ClientURL())
+	}
+	node.wg.Add(2)
+	go func() {
+		defer node.wg.Done()
+		node.fail(runAggregator(ctx, q, agg, am, log))
+	}()
+	go func() {
+		defer node.wg.Done()
+		host, _ := os.Hostname()
+		node.fail(runWorkers(ctx, q, st, wm, fmt.Sprintf("%s:%d/run", host, os.Getpid()), workers, log))
+	}()
+	if f.watch != "" {
+		if err := os.MkdirAll(f.watch, 0o755); err != nil {
+			return nil, err
+		}
+		ready := func(r *sluicepb.StepReady) { q.PublishStepReady(ctx, r) }
+		ing, err := startIngest(ctx, f, in, st, taskPublisher{q}, ready, im, log)
+		if err != nil {
+			return nil, err
+		}
+		node.wg.Add(1)
+		go func() {
+			defer node.wg.Done()
+			node.fail(watchAndIngest(ctx, ing, f, log))
+		}()
+	}
+	go func() {
+		node.wg.Wait()
+		q.Close()
+		if srv != nil {
+			srv.Shutdown()
+		}
+	}()
+	return node, nil
+}
