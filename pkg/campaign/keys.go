@@ -14,11 +14,15 @@ import (
 func PlanKey(s layout.Step, hash string) string { return s.Dir() + "plans/" + hash + ".json" }
 
 // RunResultKey returns the key of a step's result under a parameter hash.
-func RunResultKey(s layout.Step, hash string) string { return s.Dir() + "runs/" + hash + "/result.json" }
+func RunResultKey(s layout.Step, hash string) string {
+	return s.Dir() + "runs/" + hash + "/result.json"
+}
 
 // RunLabelsKey returns the label array prefix of a step under a parameter
 // hash.
-func RunLabelsKey(s layout.Step, hash string) string { return s.Dir() + "runs/" + hash + "/labels.zarr/" }
+func RunLabelsKey(s layout.Step, hash string) string {
+	return s.Dir() + "runs/" + hash + "/labels.zarr/"
+}
 
 // RunDir returns the key prefix of a campaign run.
 func RunDir(c layout.Campaign, hash string) string { return c.Dir() + "runs/" + hash + "/" }

@@ -11,15 +11,15 @@ import (
 // it came from. It is written once by ingest, after the volume's chunks are
 // durable (steps/<step>/manifest.json).
 type Manifest struct {
-	Campaign   string    `json:"campaign"`
-	Step       string    `json:"step"`
-	Shape      [3]int    `json:"shape_zyx"`
-	DType      string    `json:"dtype"`
-	VoxelSize  float64   `json:"voxel_size_m"`
-	TimeS      float64   `json:"time_s"`
-	Chunk      int       `json:"chunk"`
-	Source     string    `json:"source"`
-	Bytes      int64     `json:"stored_bytes"`
+	Campaign  string  `json:"campaign"`
+	Step      string  `json:"step"`
+	Shape     [3]int  `json:"shape_zyx"`
+	DType     string  `json:"dtype"`
+	VoxelSize float64 `json:"voxel_size_m"`
+	TimeS     float64 `json:"time_s"`
+	Chunk     int     `json:"chunk"`
+	Source    string  `json:"source"`
+	Bytes     int64   `json:"stored_bytes"`
 	// ReceivedAt is when ingest started on the scan; IngestedAt when its
 	// chunks and this manifest were durable. Step latency runs from
 	// ReceivedAt to the series row.

@@ -218,7 +218,7 @@ func validationChecks(rows []series.Row) []report.Check {
 	for _, r := range rows {
 		if r.CurvMean != nil && r.VoxelSize != nil && *r.CurvMean > 0 {
 			withK++
-			if 2 / (*r.CurvMean * *r.VoxelSize) >= report.ResolvedRadius {
+			if 2/(*r.CurvMean**r.VoxelSize) >= report.ResolvedRadius {
 				resolved++
 			}
 		}
@@ -236,4 +236,3 @@ func validationChecks(rows []series.Row) []report.Check {
 		Detail: fmt.Sprintf("%d of %d steps", withA, len(rows))})
 	return checks
 }
-
