@@ -1,0 +1,164 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"log/slog"
+	"math"
+	"os"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"sluice/pkg/campaign"
+	"sluice/pkg/forward"
+	"sluice/pkg/measure"
+	"sluice/pkg/phase"
+	"sluice/pkg/scan"
+	"sluice/pkg/series"
+	"sluice/pkg/store"
+	"sluice/pkg/volio"
+	"sluice/pkg/volume"
+)
+
+// pipelineScene is a small rock with ganglia rendered as a noisy scan.
+func pipelineScene(t *testing.T, shape [3]int, seed uint64) *volume.Volume[uint16] {
+	t.Helper()
+	lab := volume.NewShape[uint8](shape[0], shape[1], shape[2], 3e-6)
+	forward.Rock{GrainRadius: 7, Porosity: 0.45, BlobRadius: 6, BlobFrac: 0.35, Seed: seed}.Draw(lab, phase.Default())
+	p := forward.Default()
+	p.Seed = seed
+	g, err := forward.Render(lab, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	u := forward.Uint16(g)
+	u.VoxelSize = 3e-6
+	return u
+}
+
+// writeScanFile hands a scan to a watched directory as a beamline does.
+func writeScanFile(t *testing.T, dir, name string, v *volume.Volume[uint16], timeS float64) {
+	t.Helper()
+	p := filepath.Join(dir, name+".raw")
+	if err := volio.WriteRaw(p, v, volio.WriteOptions{TimeS: timeS, HasTime: true}); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(p+".done", []byte(fmt.Sprintf(`{"time_s": %g}`, timeS)), 0o644); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// waitRows polls a campaign's series until it has n rows.
+func waitRows(t *testing.T, st store.Store, c string, n int, limit time.Duration) []series.Row {
+	t.Helper()
+	deadline := time.Now().Add(limit)
+	for time.Now().Before(deadline) {
+		rows, err := series.Load(context.Background(), st, c)
+		if err == nil && len(rows) >= n {
+			return rows
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+	t.Fatalf("campaign %s: fewer than %d series rows after %v", c, n, limit)
+	return nil
+}
+
+func quietLog() *slog.Logger { return slog.New(slog.NewTextHandler(io.Discard, nil)) }
+
+// compareResults applies the design's promise: exact for counts, Euler
+// characteristics and cluster numbers; 1e-9 relative for sums (angles to
+// float32 rounding, 1e-6).
+func compareResults(t *testing.T, label string, got, want *measure.Result) {
+	t.Helper()
+	ints := map[string][2]int64{
+		"voxels_solid": {got.VoxelsSolid, want.VoxelsSolid}, "voxels_wetting": {got.VoxelsWetting, want.VoxelsWetting},
+		"voxels_nonwetting": {got.VoxelsNonwetting, want.VoxelsNonwetting}, "voxels_outside": {got.VoxelsOutside, want.VoxelsOutside},
+		"euler_nonwetting": {got.EulerNonwetting, want.EulerNonwetting}, "euler_wetting": {got.EulerWetting, want.EulerWetting},
+		"euler_solid": {got.EulerSolid, want.EulerSolid}, "ganglia_count": {int64(got.GangliaCount), int64(want.GangliaCount)},
+		"contact_angle_samples": {got.AngleSamples, want.AngleSamples},
+	}
+	for k, v := range ints {
+		if v[0] != v[1] {
+			t.Errorf("%s: %s = %d, whole volume %d", label, k, v[0], v[1])
+		}
+	}
+	if got.Percolates != want.Percolates {
+		t.Errorf("%s: percolation differs", label)
+	}
+	f := func(p *float64) float64 {
+		if p == nil {
+			return math.NaN()
+		}
+		return *p
+	}
+	for k, v := range map[string][3]float64{
+		"area_wn": {got.AreaWN, want.AreaWN, 1e-9}, "area_ws": {got.AreaWS, want.AreaWS, 1e-9}, "area_ns": {got.AreaNS, want.AreaNS, 1e-9},
+		"curvature_mean": {f(got.CurvMean), f(want.CurvMean), 1e-9}, "pc": {f(got.Pc), f(want.Pc), 1e-9},
+		"largest_fraction": {f(got.LargestFraction), f(want.LargestFraction), 1e-12},
+		"angle_mean":       {f(got.AngleMean), f(want.AngleMean), 1e-6},
+	} {
+		if !(v[0] == v[1] || math.Abs(v[0]-v[1]) <= v[2]*math.Max(math.Abs(v[0]), math.Abs(v[1]))) {
+			t.Errorf("%s: %s = %.12g, whole volume %.12g", label, k, v[0], v[1])
+		}
+	}
+}
+
+// TestPipelineTilingInvariance runs scans through the real pipeline
+// (embedded NATS JetStream, local store, watcher, workers, aggregator) with
+// 1, 8 and 27 tiles and uneven edge tiles, and checks each step result
+// against `sluice measure` of the whole volume (architecture.md).
+func TestPipelineTilingInvariance(t *testing.T) {
+	if testing.Short() {
+		t.Skip("pipeline test")
+	}
+	grey := pipelineScene(t, [3]int{60, 60, 60}, 5)
+	base := campaign.Default()
+	base.IFT = 0.035
+	base.DetectSample = false
+	base.Tile = 64
+	_, want, _, err := scan.Whole(grey, base, nil, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want.GangliaCount < 2 || want.AngleSamples == 0 {
+		t.Fatalf("scene too simple: %d ganglia, %d angle samples", want.GangliaCount, want.AngleSamples)
+	}
+	for _, tile := range []int{64, 30, 20, 23} {
+		t.Run(fmt.Sprintf("tile%d", tile), func(t *testing.T) {
+			data := t.TempDir()
+			cfg := base
+			cfg.Tile = tile
+			cfgPath := filepath.Join(data, "c.json")
+			if err := writeDemoConfig(cfgPath, cfg); err != nil {
+				t.Fatal(err)
+			}
+			ctx, cancel := context.WithCancel(context.Background())
+			nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
+			f := ingestFlags{campaign: "tiling", config: cfgPath, watch: filepath.Join(data, "incoming")}
+			node, err := startAll(ctx, nf, inputFlags{}, f, 2, quietLog())
+			if err != nil {
+				cancel()
+				t.Fatal(err)
+			}
+			defer func() { cancel(); node.wg.Wait() }()
+			writeScanFile(t, f.watch, "scan-0001", grey, 45)
+			st, _ := nf.openStore(ctx)
+			rows := waitRows(t, st, "tiling", 1, 3*time.Minute)
+			if rows[0].Step != "scan-0001" || rows[0].Time != 45 {
+				t.Errorf("row %s at %g s", rows[0].Step, rows[0].Time)
+			}
+			b, err := st.Get(ctx, "campaigns/tiling/steps/scan-0001/result.json")
+			if err != nil {
+				t.Fatal(err)
+			}
+			var got measure.Result
+			if err := json.Unmarshal(b, &got); err != nil {
+				t.Fatal(err)
+			}
+			compareResults(t, fmt.Sprintf("tile %d", tile), &got, want)
+		})
+	}
+}
