@@ -26,7 +26,8 @@
 // the whole-volume filter gives: the clamping happens only at the scan edges,
 // and each output voxel is computed by the same sequence of float operations.
 //
-// Work is split into z-slabs of the core, one goroutine per slab, up to
+// Work is split into z-slabs of the core (median, Gaussian: one per
+// goroutine; NLM: slabs of 8 slices handed out in turn), with
 // runtime.GOMAXPROCS(0) goroutines. All arithmetic is float32 storage with
 // float64 accumulation (as scipy.ndimage does for float32 arrays).
 package filter
@@ -84,4 +85,27 @@ func clamp(v, lo, hi int) int {
 		return hi - 1
 	}
 	return v
+}
+
+// chunks runs fn over consecutive z ranges of at most size slices, handed
+// to runtime.GOMAXPROCS(0) goroutines: small ranges keep a filter's
+// per-range buffers in cache. Results do not depend on the split.
+func chunks(lo, hi, size int, fn func(z0, z1 int)) {
+	next := make(chan int, (hi-lo)/size+1)
+	for z := lo; z < hi; z += size {
+		next <- z
+	}
+	close(next)
+	w := min(runtime.GOMAXPROCS(0), (hi-lo+size-1)/size)
+	var wg sync.WaitGroup
+	for i := 0; i < w; i++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for z0 := range next {
+				fn(z0, min(z0+size, hi))
+			}
+		}()
+	}
+	wg.Wait()
 }

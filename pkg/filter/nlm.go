@@ -35,6 +35,11 @@ type NLM struct {
 // for 3×3 patches in the IPOL paper).
 const DefaultNLMHFactor = 0.8
 
+// nlmChunk is the z thickness of the slabs NLM works on: its per-slab
+// buffers (three float32 blocks of chunk+2f slices, three float64 blocks of
+// chunk slices) stay small whatever the tile size.
+const nlmChunk = 8
+
 // DefaultNLM returns patch radius 1, search radius 2 and the given noise σ.
 func DefaultNLM(sigma float64) NLM { return NLM{PatchRadius: 1, SearchRadius: 2, Sigma: sigma} }
 
@@ -72,7 +77,7 @@ func (p NLM) Apply(in *volume.Volume[float32], core volume.Box) (*volume.Volume[
 	ib := in.Box
 	s := ib.Size()
 	nyx := s[1] * s[2]
-	slabs(core.Min[0], core.Max[0], func(z0, z1 int) {
+	chunks(core.Min[0], core.Max[0], nlmChunk, func(z0, z1 int) {
 		g := f + sr
 		// Clamped index tables over the slab grown by patch + search.
 		lo := [3]int{z0 - g, core.Min[1] - g, core.Min[2] - g}
