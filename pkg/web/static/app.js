@@ -34,7 +34,7 @@ function niceRange(lo, hi) {
 // (data-points) so tests and people can tell an empty plot from a full one.
 function plot(canvas, series, xlabel, ylabel, opts = {}) {
   const ctx = canvas.getContext("2d"), W = canvas.width, H = canvas.height;
-  const L = 62, R = 12, T = 12, B = 40;
+  const L = 70, R = 12, T = 26, B = 40;
   ctx.clearRect(0, 0, W, H);
   const all = series.flatMap(s => s.pts.filter(p => num(p[0]) !== null && num(p[1]) !== null));
   canvas.dataset.points = String(all.length);
@@ -51,13 +51,15 @@ function plot(canvas, series, xlabel, ylabel, opts = {}) {
     ctx.beginPath(); ctx.moveTo(X(x), T); ctx.lineTo(X(x), H - B); ctx.stroke();
     ctx.fillText(+x.toPrecision(6) + "", X(x) - 10, H - B + 14);
   }
+  ctx.textAlign = "right";
   for (let y = ys.lo; y <= ys.hi + ys.step / 2; y += ys.step) {
     ctx.beginPath(); ctx.moveTo(L, Y(y)); ctx.lineTo(W - R, Y(y)); ctx.stroke();
-    ctx.fillText(+y.toPrecision(6) + "", 4, Y(y) + 4);
+    ctx.fillText(+y.toPrecision(6) + "", L - 5, Y(y) + 4);
   }
+  ctx.textAlign = "left";
   ctx.strokeStyle = C.axis; ctx.strokeRect(L, T, W - L - R, H - T - B);
   ctx.fillText(xlabel, L + (W - L - R) / 2 - xlabel.length * 3, H - 6);
-  ctx.save(); ctx.translate(12, T + (H - T - B) / 2 + ylabel.length * 3); ctx.rotate(-Math.PI / 2);
+  ctx.save(); ctx.translate(13, T + (H - T - B) / 2 + ylabel.length * 3); ctx.rotate(-Math.PI / 2);
   ctx.fillText(ylabel, 0, 0); ctx.restore();
   let lx = L + 8;
   for (const s of series) {
@@ -74,7 +76,7 @@ function plot(canvas, series, xlabel, ylabel, opts = {}) {
       }
       for (const p of pts) marker(ctx, s.marker, X(p[0]), Y(p[1]));
     }
-    ctx.fillRect(lx, T + 6, 14, 4); ctx.fillStyle = C.axis; ctx.fillText(s.name, lx + 18, T + 12);
+    ctx.fillStyle = s.color; ctx.fillRect(lx, 8, 14, 4); ctx.fillStyle = C.axis; ctx.fillText(s.name, lx + 18, 14);
     lx += 30 + ctx.measureText(s.name).width;
   }
 }
@@ -113,9 +115,8 @@ function draw() {
     { name: "all steps", color: C.d, bars: true, alpha: 0.6, pts: run.map((c, i) => [i, nrun ? c / nrun : 0]) },
     { name: "latest step", color: C.c, marker: "circle", line: true, pts: nl ? lh.map((c, i) => [i + 0.5, c / nl]) : [] }],
     "contact angle θ through wetting phase (°)", "fraction per 1°", { xmin: 0, xmax: 180, ymin: 0 });
-  plot(qs("plot-ganglia"), [
-    { name: "ganglia count / 100", color: C.b, marker: "square", pts: col("ganglia_count", 0.01) },
-    { name: "largest-cluster fraction", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], "time (s)", "count/100, fraction", { ymin: 0 });
+  plot(qs("plot-ganglia"), [{ name: "ganglia", color: C.b, marker: "square", pts: col("ganglia_count") }], "time (s)", "ganglia count", { ymin: 0 });
+  plot(qs("plot-largest"), [{ name: "largest cluster / all nonwetting", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], "time (s)", "fraction (–)", { ymin: 0, ymax: 1 });
   const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s, s.latency_s]);
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], "time (s)", "ingest → series (s)", { ymin: 0 });
   summary(last);

@@ -1,0 +1,48 @@
+// Live-page check in Debian's chromium, driven by playwright-core (no
+// browser download). Usage: node live.mjs URL SCREENSHOT.png
+//
+// Protocol with the Go test that runs it (stdout lines):
+//   loaded <points>   the page drew the series; the test may now add a step
+//   ok <before> <after>  a new point appeared without reloading the page
+import { chromium } from "playwright-core";
+
+const [url, shot] = process.argv.slice(2);
+const browser = await chromium.launch({
+  executablePath: process.env.CHROMIUM || "/usr/bin/chromium",
+  args: ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+    "--disable-background-networking", "--disable-component-update", "--disable-sync"],
+});
+const fail = async (msg) => { console.log("fail " + msg); await browser.close(); process.exit(1); };
+try {
+  const page = await browser.newPage({ viewport: { width: 1400, height: 1000 } });
+  const errors = [];
+  page.on("pageerror", (e) => errors.push(String(e)));
+  await page.goto(url, { waitUntil: "load" });
+  const points = () => page.evaluate(() => Number(document.getElementById("plot-sat").dataset.points || 0));
+  await page.waitForFunction(() => Number(document.getElementById("plot-sat").dataset.points || 0) >= 2, null, { timeout: 60000 });
+  // Every series panel drew something.
+  for (const id of ["plot-sat", "plot-awn", "plot-as", "plot-angle", "plot-ganglia", "plot-largest"]) {
+    const n = await page.evaluate((id) => Number(document.getElementById(id).dataset.points || 0), id);
+    if (!(n > 0)) await fail(`${id} has no points`);
+  }
+  // The canvas really has ink on it (not just a data attribute).
+  const inked = await page.evaluate(() => {
+    const c = document.getElementById("plot-sat"), d = c.getContext("2d").getImageData(0, 0, c.width, c.height).data;
+    let n = 0; for (let i = 0; i < d.length; i += 4) if (d[i + 3] > 0 && (d[i] < 200 || d[i + 2] < 200)) n++;
+    return n;
+  });
+  if (inked < 500) await fail(`saturation plot nearly empty (${inked} dark pixels)`);
+  const before = await points();
+  console.log(`loaded ${before}`);
+  await page.waitForFunction((b) => Number(document.getElementById("plot-sat").dataset.points || 0) > b, before, { timeout: 180000 });
+  const after = await points();
+  await page.waitForTimeout(1500); // let the preview image load
+  const preview = await page.evaluate(() => { const i = document.getElementById("preview"); return i.complete && i.naturalWidth; });
+  if (!(preview > 0)) await fail("preview image did not load");
+  await page.screenshot({ path: shot, fullPage: true });
+  if (errors.length) await fail("page errors: " + errors.join("; "));
+  console.log(`ok ${before} ${after}`);
+  await browser.close();
+} catch (e) {
+  await fail(String(e).split("\n")[0]);
+}
