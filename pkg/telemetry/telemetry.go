@@ -26,7 +26,7 @@ type Worker struct {
 // NewWorker registers the worker metrics on reg.
 func NewWorker(reg prometheus.Registerer) *Worker {
 	f := promauto.With(reg)
-	return &Worker{
+	w := &Worker{
 		TilesProcessed: f.NewCounterVec(prometheus.CounterOpts{Name: "sluice_tiles_processed_total",
 			Help: "Tiles segmented and measured, by queue priority."}, []string{"priority"}),
 		TilesFailed: f.NewCounterVec(prometheus.CounterOpts{Name: "sluice_tiles_failed_total",
@@ -45,7 +45,26 @@ func NewWorker(reg prometheus.Registerer) *Worker {
 		Busy: f.NewGauge(prometheus.GaugeOpts{Name: "sluice_worker_tiles_in_flight",
 			Help: "Tiles being processed right now."}),
 	}
+	// Export every series from the start, so dashboards and alerts see
+	// zeros rather than nothing.
+	for _, p := range []string{"live", "batch"} {
+		w.TilesProcessed.WithLabelValues(p)
+	}
+	for _, r := range FailureReasons {
+		w.TilesFailed.WithLabelValues(r)
+	}
+	for _, s := range Stages {
+		w.StageSeconds.WithLabelValues(s)
+	}
+	return w
 }
+
+// FailureReasons label sluice_tiles_failed_total: the tile could not be
+// processed, or its result could not be published.
+var FailureReasons = []string{"process", "publish"}
+
+// Stages label sluice_tile_stage_duration_seconds.
+var Stages = []string{"read", "segment_measure", "write"}
 
 // Ingest metrics.
 type Ingest struct {
@@ -59,7 +78,7 @@ type Ingest struct {
 // NewIngest registers the ingest metrics on reg.
 func NewIngest(reg prometheus.Registerer) *Ingest {
 	f := promauto.With(reg)
-	return &Ingest{
+	in := &Ingest{
 		Steps: f.NewCounter(prometheus.CounterOpts{Name: "sluice_steps_ingested_total",
 			Help: "Steps stored and queued."}),
 		Rejected: f.NewCounter(prometheus.CounterOpts{Name: "sluice_steps_rejected_total",
@@ -71,6 +90,9 @@ func NewIngest(reg prometheus.Registerer) *Ingest {
 		Tasks: f.NewCounterVec(prometheus.CounterOpts{Name: "sluice_tasks_published_total",
 			Help: "Tile tasks published, by priority."}, []string{"priority"}),
 	}
+	in.Tasks.WithLabelValues("live")
+	in.Tasks.WithLabelValues("batch")
+	return in
 }
 
 // Aggregator metrics, including the science gauges of the latest step per
@@ -102,7 +124,7 @@ func NewAggregator(reg prometheus.Registerer) *Aggregator {
 	g := func(name, help string) *prometheus.GaugeVec {
 		return f.NewGaugeVec(prometheus.GaugeOpts{Name: name, Help: help}, []string{"campaign"})
 	}
-	return &Aggregator{
+	a := &Aggregator{
 		StepsCompleted: f.NewCounterVec(prometheus.CounterOpts{Name: "sluice_steps_completed_total",
 			Help: "Steps stitched and appended to their series."}, []string{"campaign"}),
 		StepsFailed: f.NewCounterVec(prometheus.CounterOpts{Name: "sluice_steps_failed_total",
@@ -128,4 +150,18 @@ func NewAggregator(reg prometheus.Registerer) *Aggregator {
 		SteadyState:          g("sluice_steady_state", "1 while saturation and Pc are steady within tolerance."),
 		LatestStepTime:       g("sluice_latest_step_time_seconds", "Experiment time of the latest completed step."),
 	}
+	a.QueueLag.WithLabelValues("live")
+	a.QueueLag.WithLabelValues("batch")
+	return a
+}
+
+// Campaign exports a campaign's counters at zero, so that rates and alerts
+// work before the first failure or event.
+func (a *Aggregator) Campaign(name string) {
+	a.StepsCompleted.WithLabelValues(name)
+	a.StepsFailed.WithLabelValues(name)
+	a.Events.WithLabelValues(name, "breakthrough")
+	a.Events.WithLabelValues(name, "steady_state")
+	a.Breakthrough.WithLabelValues(name)
+	a.SteadyState.WithLabelValues(name)
 }

@@ -164,6 +164,9 @@ func (a *Aggregator) campaign(ctx context.Context, name string) *campaignState {
 	}
 	cs := &campaignState{record: r, steps: map[string]*stepState{}}
 	a.campaigns[name] = cs
+	if a.Metrics != nil {
+		a.Metrics.Campaign(name)
+	}
 	return cs
 }
 

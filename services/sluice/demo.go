@@ -59,19 +59,7 @@ func runDemo(args []string) int {
 	if err := sc.Prepare(); err != nil {
 		return fail(exitFailure, "demo: %v", err)
 	}
-	cfg := campaign.Default()
-	cfg.Tile = *tile
-	cfg.VoxelSize = volume.FormatLength(sc.VoxelSize)
-	cfg.IFT = sc.IFT
-	// One segmentation for the whole time series, as practitioners do:
-	// thresholds fixed midway between the calibrated grey levels of the
-	// phases (gas, brine, rock) instead of Otsu per step, which splits the
-	// brine peak in two while little gas has entered.
-	lv := forward.Default()
-	cfg.Segment.Threshold = "fixed"
-	cfg.Segment.Fixed = []float64{(lv.Nonwetting + lv.Wetting) / 2, (lv.Wetting + lv.Solid) / 2}
-	cfg.DetectSample = false
-	cfg.Segment.Sample.Y, cfg.Segment.Sample.X, cfg.Segment.Sample.Radius = float64(*size-1)/2, float64(*size-1)/2, sc.Rock.CoreRadius
+	cfg := demoConfig(sc, *tile)
 	cfgPath := filepath.Join(*data, "campaign.yaml")
 	if err := writeDemoConfig(cfgPath, cfg); err != nil {
 		return fail(exitFailure, "demo: %v", err)
@@ -98,7 +86,7 @@ func runDemo(args []string) int {
 	// The beamline: write each scan into the watched directory, then its
 	// marker. Back-pressure keeps at most two scans ahead of the pipeline,
 	// as a beamline's scan interval matched to the processing rate would.
-	cyl := &forward.Cylinder{Y: float64(*size-1) / 2, X: float64(*size-1) / 2, Radius: sc.Rock.CoreRadius, Wall: 2}
+	cyl := demoCylinder(sc)
 	written := 0
 	printed := 0
 	var genErr error
@@ -155,6 +143,29 @@ func fmtInt(p *int64) string {
 		return "—"
 	}
 	return fmt.Sprint(*p)
+}
+
+// demoConfig is the campaign configuration of the demo scenario.
+func demoConfig(sc *scenario.Campaign, tile int) campaign.Config {
+	cfg := campaign.Default()
+	cfg.Tile = tile
+	cfg.VoxelSize = volume.FormatLength(sc.VoxelSize)
+	cfg.IFT = sc.IFT
+	// One segmentation for the whole time series, as practitioners do:
+	// thresholds fixed midway between the calibrated grey levels of the
+	// phases (gas, brine, rock) instead of Otsu per step, which splits the
+	// brine peak in two while little gas has entered.
+	lv := forward.Default()
+	cfg.Segment.Threshold = "fixed"
+	cfg.Segment.Fixed = []float64{(lv.Nonwetting + lv.Wetting) / 2, (lv.Wetting + lv.Solid) / 2}
+	cfg.DetectSample = false
+	cfg.Segment.Sample.Y, cfg.Segment.Sample.X, cfg.Segment.Sample.Radius = float64(sc.Shape[1]-1)/2, float64(sc.Shape[2]-1)/2, sc.Rock.CoreRadius
+	return cfg
+}
+
+// demoCylinder is the sample cell of the demo's forward model.
+func demoCylinder(sc *scenario.Campaign) *forward.Cylinder {
+	return &forward.Cylinder{Y: float64(sc.Shape[1]-1) / 2, X: float64(sc.Shape[2]-1) / 2, Radius: sc.Rock.CoreRadius, Wall: 2}
 }
 
 // resetDemoDir empties a previous demo's data directory; it refuses to

@@ -1,0 +1,270 @@
+package main
+
+import (
+	"bufio"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"math"
+	"net"
+	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"testing"
+	"time"
+
+	"sluice/pkg/events"
+	"sluice/pkg/scenario"
+	"sluice/pkg/series"
+)
+
+// need returns the path of an external program a test needs: missing is a
+// failure in CI (which installs it) and a skip elsewhere.
+func need(t *testing.T, prog string) string {
+	t.Helper()
+	p, err := exec.LookPath(prog)
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatalf("%s not found; scripts/setup-test-env installs it", prog)
+		}
+		t.Skipf("%s not found (run make setup)", prog)
+	}
+	return p
+}
+
+func freePort(t *testing.T) string {
+	t.Helper()
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer ln.Close()
+	return ln.Addr().String()
+}
+
+func httpGet(t *testing.T, url string) []byte {
+	t.Helper()
+	resp, err := http.Get(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	b, _ := io.ReadAll(resp.Body)
+	if resp.StatusCode != 200 {
+		t.Fatalf("GET %s: %s: %s", url, resp.Status, b)
+	}
+	return b
+}
+
+// TestLiveCampaign runs a synthetic drainage campaign whose ground truth is
+// known through the all-in-one pipeline and checks what a scientist and an
+// operator see: experiment events against the truth, the live page in a
+// real browser (a new point appears without reload), a real Prometheus
+// server scraping the step latency and saturation, and every metric the
+// Grafana dashboard queries.
+func TestLiveCampaign(t *testing.T) {
+	if testing.Short() {
+		t.Skip("live campaign")
+	}
+	sc := &scenario.Campaign{Shape: [3]int{96, 96, 96}, Steps: 8, Seed: 1}
+	if err := sc.Prepare(); err != nil {
+		t.Fatal(err)
+	}
+	data := t.TempDir()
+	cfgPath := filepath.Join(data, "c.json")
+	if err := writeDemoConfig(cfgPath, demoConfig(sc, 48)); err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
+	f := ingestFlags{campaign: "live", config: cfgPath, watch: filepath.Join(data, "incoming")}
+	node, err := startAll(ctx, nf, inputFlags{}, f, 2, quietLog())
+	if err != nil {
+		cancel()
+		t.Fatal(err)
+	}
+	defer func() { cancel(); node.wg.Wait() }()
+	st, _ := nf.openStore(ctx)
+	base := "http://" + node.url
+	cyl := demoCylinder(sc)
+	for i := 0; i < sc.Steps-1; i++ {
+		if err := writeScan(f.watch, sc, i, cyl); err != nil {
+			t.Fatal(err)
+		}
+	}
+	waitRows(t, st, "live", sc.Steps-1, 4*time.Minute)
+
+	t.Run("browser", func(t *testing.T) {
+		nodeBin := need(t, "node")
+		need(t, "chromium")
+		dir, _ := filepath.Abs("../../tests/browser")
+		if _, err := os.Stat(filepath.Join(dir, "node_modules", "playwright-core")); err != nil {
+			if os.Getenv("CI") != "" {
+				t.Fatalf("playwright-core not installed in %s (make setup)", dir)
+			}
+			t.Skip("playwright-core not installed (make setup)")
+		}
+		out := os.Getenv("SLUICE_TEST_OUT")
+		if out == "" {
+			out = t.TempDir()
+		}
+		os.MkdirAll(out, 0o755)
+		shot := filepath.Join(out, "live-page.png")
+		cmd := exec.Command(nodeBin, filepath.Join(dir, "live.mjs"), base+"/", shot)
+		cmd.Dir = dir
+		cmd.Stderr = os.Stderr
+		stdout, _ := cmd.StdoutPipe()
+		if err := cmd.Start(); err != nil {
+			t.Fatal(err)
+		}
+		defer cmd.Process.Kill()
+		lines := bufio.NewScanner(stdout)
+		var before, after int
+		for lines.Scan() {
+			l := lines.Text()
+			t.Log("browser:", l)
+			switch {
+			case strings.HasPrefix(l, "loaded"):
+				fmt.Sscanf(l, "loaded %d", &before)
+				// The next scan arrives while the page is open.
+				if err := writeScan(f.watch, sc, sc.Steps-1, cyl); err != nil {
+					t.Fatal(err)
+				}
+			case strings.HasPrefix(l, "ok"):
+				fmt.Sscanf(l, "ok %d %d", &before, &after)
+			case strings.HasPrefix(l, "fail"):
+				t.Errorf("live page: %s", l)
+			}
+		}
+		cmd.Wait()
+		if after <= before {
+			t.Errorf("no new point appeared: %d → %d", before, after)
+		}
+		if fi, err := os.Stat(shot); err != nil || fi.Size() < 10000 {
+			t.Errorf("screenshot %s missing or tiny", shot)
+		} else {
+			t.Logf("screenshot: %s", shot)
+		}
+	})
+	// Make sure the last step is in (the browser subtest may have been
+	// skipped outside CI).
+	if rows, _ := series.Load(ctx, st, "live"); len(rows) < sc.Steps {
+		writeScan(f.watch, sc, sc.Steps-1, cyl)
+	}
+	rows := waitRows(t, st, "live", sc.Steps, 4*time.Minute)
+
+	t.Run("events", func(t *testing.T) {
+		// Ground truth from the scenario: breakthrough is the first step whose
+		// labels percolate inlet → outlet; the last SteadySteps hold r_c
+		// nearly constant.
+		evs, err := events.Detect(rows, events.Defaults())
+		if err != nil {
+			t.Fatal(err)
+		}
+		var gotBT, gotSteady = -1, -1
+		for _, e := range evs {
+			for i, r := range rows {
+				if r.Step == e.Step {
+					switch e.Kind {
+					case events.Breakthrough:
+						gotBT = i
+					case events.SteadyState:
+						if gotSteady < 0 {
+							gotSteady = i
+						}
+					}
+				}
+			}
+		}
+		if want := sc.Breakthrough(); gotBT != want {
+			t.Errorf("breakthrough detected at step %d, truth %d", gotBT, want)
+		}
+		if first := sc.Steps - sc.SteadySteps; gotSteady < first {
+			t.Errorf("steady state detected at step %d, before the steady phase starts (%d)", gotSteady, first)
+		}
+		if gotSteady < 0 {
+			t.Errorf("steady state not detected (truth: steps %d–%d)", sc.Steps-sc.SteadySteps, sc.Steps-1)
+		}
+		var served []events.Event
+		json.Unmarshal(httpGet(t, base+"/api/campaigns/live/events"), &served)
+		if len(served) != len(evs) {
+			t.Errorf("the API serves %d events, detection gives %d", len(served), len(evs))
+		}
+		metrics := string(httpGet(t, base+"/metrics"))
+		if !strings.Contains(metrics, `sluice_breakthrough{campaign="live"} 1`) {
+			t.Errorf("breakthrough gauge not set")
+		}
+	})
+
+	t.Run("dashboard", func(t *testing.T) {
+		// Every metric the Grafana dashboard queries exists in a live /metrics.
+		dash, err := os.ReadFile("../../deploy/grafana/sluice-dashboard.json")
+		if err != nil {
+			t.Fatal(err)
+		}
+		metrics := string(httpGet(t, base+"/metrics"))
+		names := regexp.MustCompile(`sluice_[a-z_]+`).FindAllString(string(dash), -1)
+		if len(names) < 10 {
+			t.Fatalf("only %d metric names in the dashboard", len(names))
+		}
+		for _, n := range names {
+			if !regexp.MustCompile(`(?m)^` + n + `[{ ]`).MatchString(metrics) {
+				t.Errorf("dashboard queries %s, absent from /metrics", n)
+			}
+		}
+	})
+
+	t.Run("prometheus", func(t *testing.T) {
+		prom := need(t, "prometheus")
+		dir := t.TempDir()
+		cfg := fmt.Sprintf("global: {scrape_interval: 1s}\nscrape_configs:\n  - job_name: sluice\n    static_configs: [{targets: [%q]}]\n", node.url)
+		os.WriteFile(filepath.Join(dir, "prometheus.yml"), []byte(cfg), 0o644)
+		addr := freePort(t)
+		cmd := exec.Command(prom, "--config.file="+filepath.Join(dir, "prometheus.yml"), "--storage.tsdb.path="+filepath.Join(dir, "tsdb"),
+			"--web.listen-address="+addr)
+		var logb strings.Builder
+		cmd.Stderr = &logb
+		if err := cmd.Start(); err != nil {
+			t.Fatal(err)
+		}
+		defer func() { cmd.Process.Kill(); cmd.Wait() }()
+		query := func(q string) []any {
+			resp, err := http.Get("http://" + addr + "/api/v1/query?query=" + q)
+			if err != nil {
+				return nil
+			}
+			defer resp.Body.Close()
+			var r struct {
+				Data struct {
+					Result []any `json:"result"`
+				} `json:"data"`
+			}
+			json.NewDecoder(resp.Body).Decode(&r)
+			return r.Data.Result
+		}
+		deadline := time.Now().Add(90 * time.Second)
+		var lat, sat []any
+		for time.Now().Before(deadline) {
+			lat = query("sluice_step_latency_seconds_count")
+			sat = query(`sluice_saturation_nonwetting{campaign="live"}`)
+			if len(lat) > 0 && len(sat) > 0 {
+				break
+			}
+			time.Sleep(time.Second)
+		}
+		if len(lat) == 0 || len(sat) == 0 {
+			t.Fatalf("Prometheus returned no step-latency (%d) or saturation (%d) series; log:\n%s", len(lat), len(sat), logb.String())
+		}
+		// The scraped saturation is the latest step's.
+		v := sat[0].(map[string]any)["value"].([]any)[1].(string)
+		var got float64
+		fmt.Sscan(v, &got)
+		if want := *rows[len(rows)-1].SatNonwetting; math.Abs(got-want) > 1e-12 {
+			t.Errorf("Prometheus saturation %s, series %g", v, want)
+		}
+	})
+}
