@@ -1,0 +1,243 @@
+package queue
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/nats-io/nats.go/jetstream"
+	"google.golang.org/protobuf/proto"
+
+	pb "sluice/proto/sluicepb"
+)
+
+// consume runs a durable pull consumer on stream, decoding each message into
+// a fresh T and calling handler one message at a time, until ctx is
+// cancelled. A nil error acks; an error naks with a growing delay (results
+// must never be lost, so there is no delivery limit); an undecodable
+// message is dead-lettered and terminated.
+func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, filter string, fresh func() T, handler func(context.Context, T) error) error {
+	cons, err := q.js.CreateOrUpdateConsumer(ctx, stream, jetstream.ConsumerConfig{
+		Durable:       durable,
+		FilterSubject: filter,
+		AckPolicy:     jetstream.AckExplicitPolicy,
+		AckWait:       q.policy.AckWait,
+		MaxDeliver:    -1,
+	})
+	if err != nil {
+		return fmt.Errorf("queue: consumer %s: %v", durable, err)
+	}
+	for ctx.Err() == nil {
+		b, err := cons.Fetch(64, jetstream.FetchMaxWait(time.Second))
+		if err != nil {
+			if q.nc.IsClosed() {
+				return fmt.Errorf("queue: consumer %s: connection closed", durable)
+			}
+			select {
+			case <-ctx.Done():
+			case <-time.After(time.Second):
+			}
+			continue
+		}
+		for m := range b.Messages() {
+			meta, _ := m.Metadata()
+			var seq, n uint64
+			if meta != nil {
+				seq, n = meta.Sequence.Stream, meta.NumDelivered
+			}
+			v := fresh()
+			if err := proto.Unmarshal(m.Data(), v); err != nil {
+				q.deadLetter(ctx, &pb.DeadLetter{Subject: m.Subject(), StreamSeq: seq, Deliveries: n, Reason: "poison: " + err.Error(), Raw: m.Data()})
+				_ = m.TermWithReason("poison")
+				continue
+			}
+			if err := handler(ctx, v); err != nil {
+				q.log.Warn("queue: handler failed, will retry", "consumer", durable, "seq", seq, "attempt", n, "err", err)
+				_ = m.NakWithDelay(min(time.Duration(n)*time.Second, time.Minute))
+				continue
+			}
+			if err := m.DoubleAck(ctx); err != nil {
+				q.log.Warn("queue: ack not confirmed", "consumer", durable, "seq", seq, "err", err)
+			}
+		}
+	}
+	return nil
+}
+
+// Results runs handler on every tile result, in arrival order, until ctx is
+// cancelled. The consumer is durable: results published while no aggregator
+// runs wait for it. handler must be idempotent: a result can arrive twice
+// (redelivery after a crash before the ack).
+func (q *Queue) Results(ctx context.Context, handler func(context.Context, *pb.TileDone) error) error {
+	return consume(ctx, q, StreamResults, ConsumerResults, subjectResult+">", func() *pb.TileDone { return new(pb.TileDone) }, handler)
+}
+
+// StepsReady runs handler on every step announcement, as Results does.
+func (q *Queue) StepsReady(ctx context.Context, handler func(context.Context, *pb.StepReady) error) error {
+	return consume(ctx, q, StreamSteps, ConsumerSteps, subjectReady+">", func() *pb.StepReady { return new(pb.StepReady) }, handler)
+}
+
+// Events calls handler on the events of one campaign ("" for all), starting
+// with those already stored when replay is set, until ctx is cancelled.
+// Nothing is acknowledged: every caller sees every event.
+func (q *Queue) Events(ctx context.Context, campaign string, replay bool, handler func(*pb.StepEvent)) error {
+	filter := subjectEvent + ">"
+	if campaign != "" {
+		filter = subjectEvent + Token(campaign)
+	}
+	cfg := jetstream.OrderedConsumerConfig{FilterSubjects: []string{filter}, DeliverPolicy: jetstream.DeliverNewPolicy}
+	if replay {
+		cfg.DeliverPolicy = jetstream.DeliverAllPolicy
+	}
+	cons, err := q.js.OrderedConsumer(ctx, StreamEvents, cfg)
+	if err != nil {
+		return fmt.Errorf("queue: events consumer: %v", err)
+	}
+	cc, err := cons.Consume(func(m jetstream.Msg) {
+		e := new(pb.StepEvent)
+		if proto.Unmarshal(m.Data(), e) == nil {
+			handler(e)
+		}
+	})
+	if err != nil {
+		return fmt.Errorf("queue: events consumer: %v", err)
+	}
+	<-ctx.Done()
+	cc.Drain()
+	<-cc.Closed()
+	return nil
+}
+
+// DeadLetters returns the dead-letter records of one campaign ("" for all)
+// stored so far, oldest first.
+func (q *Queue) DeadLetters(ctx context.Context, campaign string) ([]*pb.DeadLetter, error) {
+	filter := subjectDead + ">"
+	if campaign != "" {
+		filter = subjectDead + Token(campaign)
+	}
+	return readAll(ctx, q, StreamDead, filter, func() *pb.DeadLetter { return new(pb.DeadLetter) })
+}
+
+// readAll reads the messages of a stream that match filter, as stored now.
+func readAll[T proto.Message](ctx context.Context, q *Queue, stream, filter string, fresh func() T) ([]T, error) {
+	cons, err := q.js.OrderedConsumer(ctx, stream, jetstream.OrderedConsumerConfig{FilterSubjects: []string{filter}})
+	if err != nil {
+		return nil, fmt.Errorf("queue: read %s: %v", stream, err)
+	}
+	info, err := cons.Info(ctx)
+	if err != nil {
+		return nil, fmt.Errorf("queue: read %s: %v", stream, err)
+	}
+	pending := info.NumPending
+	var out []T
+	for uint64(len(out)) < pending {
+		b, err := cons.Fetch(int(min(pending-uint64(len(out)), 256)), jetstream.FetchMaxWait(5*time.Second))
+		if err != nil {
+			return nil, fmt.Errorf("queue: read %s: %v", stream, err)
+		}
+		n := 0
+		for m := range b.Messages() {
+			n++
+			v := fresh()
+			if err := proto.Unmarshal(m.Data(), v); err != nil {
+				return nil, fmt.Errorf("queue: read %s seq: undecodable message on %s: %v", stream, m.Subject(), err)
+			}
+			out = append(out, v)
+		}
+		if err := b.Error(); err != nil && n == 0 {
+			return nil, fmt.Errorf("queue: read %s: %v", stream, err)
+		}
+		if n == 0 {
+			break
+		}
+	}
+	return out, nil
+}
+
+// Lag is the work waiting in the task queue.
+type Lag struct {
+	// Waiting tasks not yet delivered, per priority.
+	Live, Batch uint64
+	// Delivered tasks not yet acknowledged (in progress or awaiting redelivery).
+	LiveInFlight, BatchInFlight uint64
+}
+
+// Lag reports the backlog of the task consumers (for metrics and autoscaling).
+func (q *Queue) Lag(ctx context.Context) (Lag, error) {
+	li, err := q.live.Info(ctx)
+	if err != nil {
+		return Lag{}, fmt.Errorf("queue: consumer %s: %v", ConsumerLive, err)
+	}
+	bi, err := q.batch.Info(ctx)
+	if err != nil {
+		return Lag{}, fmt.Errorf("queue: consumer %s: %v", ConsumerBatch, err)
+	}
+	return Lag{Live: li.NumPending, Batch: bi.NumPending, LiveInFlight: uint64(li.NumAckPending), BatchInFlight: uint64(bi.NumAckPending)}, nil
+}
+
+// ErrNoProgress is returned for a progress key that holds nothing.
+var ErrNoProgress = errors.New("queue: no progress recorded")
+
+// ErrConflict is returned by UpdateProgress when the key changed since the
+// revision the caller read.
+var ErrConflict = errors.New("queue: progress changed concurrently")
+
+// ProgressKey returns the key of a step's progress in the KV bucket.
+func ProgressKey(campaign, step string) string {
+	return "step." + Token(campaign) + "." + Token(step)
+}
+
+// GetProgress returns the value and revision stored under key.
+func (q *Queue) GetProgress(ctx context.Context, key string) ([]byte, uint64, error) {
+	e, err := q.kv.Get(ctx, key)
+	if errors.Is(err, jetstream.ErrKeyNotFound) {
+		return nil, 0, fmt.Errorf("queue: progress %s: %w", key, ErrNoProgress)
+	}
+	if err != nil {
+		return nil, 0, fmt.Errorf("queue: progress %s: %v", key, err)
+	}
+	return e.Value(), e.Revision(), nil
+}
+
+// PutProgress stores value under key unconditionally.
+func (q *Queue) PutProgress(ctx context.Context, key string, value []byte) (uint64, error) {
+	rev, err := q.kv.Put(ctx, key, value)
+	if err != nil {
+		return 0, fmt.Errorf("queue: progress %s: %v", key, err)
+	}
+	return rev, nil
+}
+
+// UpdateProgress stores value under key only if the key is still at
+// revision rev (0: only if the key does not exist yet), and returns the new
+// revision; otherwise ErrConflict, and the caller reads and retries.
+func (q *Queue) UpdateProgress(ctx context.Context, key string, value []byte, rev uint64) (uint64, error) {
+	var n uint64
+	var err error
+	if rev == 0 {
+		n, err = q.kv.Create(ctx, key, value)
+	} else {
+		n, err = q.kv.Update(ctx, key, value, rev)
+	}
+	if errors.Is(err, jetstream.ErrKeyExists) || isWrongSequence(err) {
+		return 0, fmt.Errorf("queue: progress %s at revision %d: %w", key, rev, ErrConflict)
+	}
+	if err != nil {
+		return 0, fmt.Errorf("queue: progress %s: %v", key, err)
+	}
+	return n, nil
+}
+
+func isWrongSequence(err error) bool {
+	var apiErr *jetstream.APIError
+	return errors.As(err, &apiErr) && apiErr.ErrorCode == jetstream.JSErrCodeStreamWrongLastSequence
+}
+
+// DeleteProgress removes key.
+func (q *Queue) DeleteProgress(ctx context.Context, key string) error {
+	if err := q.kv.Delete(ctx, key); err != nil {
+		return fmt.Errorf("queue: progress %s: %v", key, err)
+	}
+	return nil
+}

@@ -1,0 +1,432 @@
+// Package queue carries sluice's tile tasks, tile results, step
+// announcements, events and dead letters over NATS JetStream, and keeps the
+// aggregator's progress in a JetStream key-value bucket.
+//
+// Streams and subjects (<c> is the campaign name with "." written as "=",
+// which keeps every valid name one subject token):
+//
+//	SLUICE_TASKS    sluice.task.live.<c>, sluice.task.batch.<c>   work queue
+//	SLUICE_RESULTS  sluice.result.<c>                             work queue
+//	SLUICE_STEPS    sluice.ready.<c>                              work queue
+//	SLUICE_EVENTS   sluice.event.<c>                              kept 7 days
+//	SLUICE_DEAD     sluice.dead.<c>                               kept 30 days
+//	KV sluice_progress                                            aggregator state
+//
+// Every task is published with the message id campaign/step/tile/param-hash
+// (layout.Step.TileID), so a task published twice within the stream's
+// duplicate window is stored once. Results carry the same id.
+//
+// Workers pull with two durable consumers, one on live and one on batch
+// subjects, one message per pull, explicit acknowledgement. While a handler
+// runs, the worker sends InProgress every Heartbeat, which restarts the ack
+// timer, so a slow tile is not redelivered while its worker lives; a worker
+// that dies stops the heartbeats and its tile is redelivered after AckWait
+// (or the consumer's BackOff step). A handler error naks the message with the
+// policy's retry delay; after MaxDeliver deliveries, or at once for a
+// Permanent error or an undecodable (poison) message, a DeadLetter record is
+// published to SLUICE_DEAD and the message is terminated. A tile whose last
+// delivery is never acknowledged (its worker died) is recorded from the
+// server's max-deliveries advisory by whichever worker receives it.
+//
+// Live before batch: before every pull a worker asks the live consumer
+// first and the batch consumer only when the live one has nothing at that
+// moment; when both are empty it waits on live only (IdleWait) and looks
+// again. So a worker never starts a batch tile while a live tile is
+// available to it, and a live tile published while all workers are busy
+// waits for at most one in-flight tile per worker. Tiles already in progress
+// are not pre-empted.
+package queue
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"strings"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+	"google.golang.org/protobuf/proto"
+	"google.golang.org/protobuf/types/known/timestamppb"
+
+	"sluice/pkg/layout"
+	pb "sluice/proto/sluicepb"
+)
+
+// MaxMessage is the largest message sluice publishes (tasks carry keys,
+// never voxels).
+const MaxMessage = 1 << 20
+
+// Stream, subject, consumer and bucket names.
+const (
+	StreamTasks   = "SLUICE_TASKS"
+	StreamResults = "SLUICE_RESULTS"
+	StreamSteps   = "SLUICE_STEPS"
+	StreamEvents  = "SLUICE_EVENTS"
+	StreamDead    = "SLUICE_DEAD"
+
+	ConsumerLive    = "workers-live"
+	ConsumerBatch   = "workers-batch"
+	ConsumerResults = "aggregator-results"
+	ConsumerSteps   = "aggregator-steps"
+
+	ProgressBucket = "sluice_progress"
+
+	subjectLive   = "sluice.task.live."
+	subjectBatch  = "sluice.task.batch."
+	subjectResult = "sluice.result."
+	subjectReady  = "sluice.ready."
+	subjectEvent  = "sluice.event."
+	subjectDead   = "sluice.dead."
+
+	advisoryMaxDeliveries = "$JS.EVENT.ADVISORY.CONSUMER.MAX_DELIVERIES." + StreamTasks + ".*"
+	deadLetterGroup       = "sluice-dead-letters"
+)
+
+// Token returns the subject token of a campaign name: the name with every
+// "." written as "=" (not a name character, so the mapping is one to one).
+func Token(campaign string) string { return strings.ReplaceAll(campaign, ".", "=") }
+
+// TaskSubject returns the subject a task of the campaign is published on.
+func TaskSubject(p pb.Priority, campaign string) string {
+	if p == pb.Priority_PRIORITY_BATCH {
+		return subjectBatch + Token(campaign)
+	}
+	return subjectLive + Token(campaign)
+}
+
+// Policy is the delivery policy of the task consumers. It is written into
+// the durable consumers when a Queue opens; all processes sharing the
+// consumers should use the same policy (the last one to open wins).
+type Policy struct {
+	// AckWait is how long the server waits for an ack or a heartbeat
+	// before redelivering (default 30 s). With BackOff set, the server
+	// uses BackOff[0] instead.
+	AckWait time.Duration
+	// MaxDeliver bounds deliveries of one task (default 5).
+	MaxDeliver int
+	// BackOff, when set, is the server's redelivery delay after the n-th
+	// unacknowledged delivery (n = 1, 2, …; the last value repeats) and the
+	// delay before retrying after a handler error. At most MaxDeliver long.
+	// When empty, unacknowledged tasks come back after AckWait and failed
+	// ones after RetryDelay.
+	BackOff []time.Duration
+	// RetryDelay is the delay before retrying after a handler error when
+	// BackOff is empty (default 1 s).
+	RetryDelay time.Duration
+}
+
+// DefaultPolicy is the policy used for zero fields.
+var DefaultPolicy = Policy{AckWait: 30 * time.Second, MaxDeliver: 5, RetryDelay: time.Second}
+
+func (p Policy) withDefaults() Policy {
+	if p.AckWait <= 0 {
+		p.AckWait = DefaultPolicy.AckWait
+	}
+	if p.MaxDeliver <= 0 {
+		p.MaxDeliver = DefaultPolicy.MaxDeliver
+	}
+	if p.RetryDelay <= 0 {
+		p.RetryDelay = DefaultPolicy.RetryDelay
+	}
+	if len(p.BackOff) > 0 {
+		p.AckWait = p.BackOff[0]
+	}
+	return p
+}
+
+func (p Policy) validate() error {
+	if len(p.BackOff) > p.MaxDeliver {
+		return fmt.Errorf("queue: policy has %d backoff steps for %d deliveries", len(p.BackOff), p.MaxDeliver)
+	}
+	for _, d := range p.BackOff {
+		if d <= 0 {
+			return fmt.Errorf("queue: policy backoff step %v is not positive", d)
+		}
+	}
+	return nil
+}
+
+// shortestWait is the shortest time the server waits for an ack.
+func (p Policy) shortestWait() time.Duration {
+	w := p.AckWait
+	for _, d := range p.BackOff {
+		w = min(w, d)
+	}
+	return w
+}
+
+// retryDelay is the nak delay after the given (1-based) failed delivery.
+func (p Policy) retryDelay(attempt uint64) time.Duration {
+	if len(p.BackOff) == 0 {
+		return p.RetryDelay
+	}
+	i := min(int(attempt), len(p.BackOff)-1)
+	return p.BackOff[i]
+}
+
+// Config says how to reach NATS and how the streams are set up.
+type Config struct {
+	// Server is an embedded server to connect to in-process; URL is
+	// ignored when it is set.
+	Server *Server
+	// URL is a NATS client URL list (nats://host:4222,nats://…).
+	URL string
+	// CredsFile is a NATS credentials file (JWT + nkey seed).
+	CredsFile string
+	// Token authenticates with a server token (see ServerConfig.Token).
+	Token string
+	// TLSCA, TLSCert, TLSKey: CA bundle to verify the server, and a client
+	// certificate and key for mutual TLS.
+	TLSCA, TLSCert, TLSKey string
+	// Name names the connection in server monitoring.
+	Name string
+	// Replicas of every stream (default 1; 3 on a cluster).
+	Replicas int
+	// DuplicateWindow is how long message ids are remembered (default 2 min).
+	DuplicateWindow time.Duration
+	// Policy is the task delivery policy.
+	Policy Policy
+	// Logger receives warnings (default slog.Default()).
+	Logger *slog.Logger
+}
+
+// Queue is a connection to JetStream with sluice's streams set up.
+type Queue struct {
+	nc     *nats.Conn
+	js     jetstream.JetStream
+	kv     jetstream.KeyValue
+	live   jetstream.Consumer
+	batch  jetstream.Consumer
+	tasks  jetstream.Stream
+	policy Policy
+	log    *slog.Logger
+}
+
+// Open connects, creates or updates the streams, consumers and KV bucket,
+// and returns the Queue.
+func Open(ctx context.Context, cfg Config) (*Queue, error) {
+	pol := cfg.Policy.withDefaults()
+	if err := pol.validate(); err != nil {
+		return nil, err
+	}
+	if cfg.Logger == nil {
+		cfg.Logger = slog.Default()
+	}
+	if cfg.Replicas <= 0 {
+		cfg.Replicas = 1
+	}
+	if cfg.DuplicateWindow <= 0 {
+		cfg.DuplicateWindow = 2 * time.Minute
+	}
+	if cfg.Name == "" {
+		cfg.Name = "sluice"
+	}
+	opts := []nats.Option{nats.Name(cfg.Name), nats.MaxReconnects(-1)}
+	url := cfg.URL
+	where := url
+	if cfg.Server != nil {
+		opts = append(opts, nats.InProcessServer(cfg.Server.ns))
+		url, where = "", "embedded server"
+		if cfg.Token == "" {
+			cfg.Token = cfg.Server.cfg.Token
+		}
+	} else if url == "" {
+		return nil, errors.New("queue: no NATS URL and no embedded server")
+	}
+	if cfg.CredsFile != "" {
+		opts = append(opts, nats.UserCredentials(cfg.CredsFile))
+	}
+	if cfg.Token != "" {
+		opts = append(opts, nats.Token(cfg.Token))
+	}
+	if cfg.TLSCA != "" {
+		opts = append(opts, nats.RootCAs(cfg.TLSCA))
+	}
+	if cfg.TLSCert != "" || cfg.TLSKey != "" {
+		opts = append(opts, nats.ClientCert(cfg.TLSCert, cfg.TLSKey))
+	}
+	nc, err := nats.Connect(url, opts...)
+	if err != nil {
+		return nil, fmt.Errorf("queue: connect to %s: %v", where, err)
+	}
+	q := &Queue{nc: nc, policy: pol, log: cfg.Logger}
+	if err := q.setup(ctx, cfg); err != nil {
+		nc.Close()
+		return nil, err
+	}
+	return q, nil
+}
+
+func (q *Queue) setup(ctx context.Context, cfg Config) error {
+	js, err := jetstream.New(q.nc)
+	if err != nil {
+		return fmt.Errorf("queue: jetstream: %v", err)
+	}
+	q.js = js
+	streams := []jetstream.StreamConfig{
+		{Name: StreamTasks, Subjects: []string{"sluice.task.>"}, Retention: jetstream.WorkQueuePolicy},
+		{Name: StreamResults, Subjects: []string{subjectResult + ">"}, Retention: jetstream.WorkQueuePolicy},
+		{Name: StreamSteps, Subjects: []string{subjectReady + ">"}, Retention: jetstream.WorkQueuePolicy},
+		{Name: StreamEvents, Subjects: []string{subjectEvent + ">"}, MaxAge: 7 * 24 * time.Hour},
+		{Name: StreamDead, Subjects: []string{subjectDead + ">"}, MaxAge: 30 * 24 * time.Hour},
+	}
+	for _, sc := range streams {
+		sc.Storage = jetstream.FileStorage
+		sc.Replicas = cfg.Replicas
+		sc.Duplicates = cfg.DuplicateWindow
+		sc.MaxMsgSize = MaxMessage
+		s, err := js.CreateOrUpdateStream(ctx, sc)
+		if err != nil {
+			return fmt.Errorf("queue: stream %s: %v", sc.Name, err)
+		}
+		if sc.Name == StreamTasks {
+			q.tasks = s
+		}
+	}
+	pol := q.policy
+	for _, c := range []struct {
+		name, filter string
+		dst          *jetstream.Consumer
+	}{{ConsumerLive, subjectLive + ">", &q.live}, {ConsumerBatch, subjectBatch + ">", &q.batch}} {
+		cons, err := js.CreateOrUpdateConsumer(ctx, StreamTasks, jetstream.ConsumerConfig{
+			Durable:       c.name,
+			FilterSubject: c.filter,
+			AckPolicy:     jetstream.AckExplicitPolicy,
+			AckWait:       pol.AckWait,
+			MaxDeliver:    pol.MaxDeliver,
+			BackOff:       pol.BackOff,
+			MaxAckPending: -1,
+		})
+		if err != nil {
+			return fmt.Errorf("queue: consumer %s: %v", c.name, err)
+		}
+		*c.dst = cons
+	}
+	kv, err := js.CreateOrUpdateKeyValue(ctx, jetstream.KeyValueConfig{
+		Bucket:   ProgressBucket,
+		History:  1,
+		Storage:  jetstream.FileStorage,
+		Replicas: cfg.Replicas,
+	})
+	if err != nil {
+		return fmt.Errorf("queue: key-value bucket %s: %v", ProgressBucket, err)
+	}
+	q.kv = kv
+	return nil
+}
+
+// Close drains the connection: pending publishes are flushed and
+// subscriptions finish their current message, then the connection closes.
+func (q *Queue) Close() error {
+	if q.nc.IsClosed() {
+		return nil
+	}
+	closed := make(chan struct{})
+	q.nc.SetClosedHandler(func(*nats.Conn) { close(closed) })
+	if err := q.nc.Drain(); err != nil {
+		q.nc.Close()
+		return fmt.Errorf("queue: drain: %v", err)
+	}
+	select {
+	case <-closed:
+	case <-time.After(30 * time.Second):
+		q.nc.Close()
+	}
+	return nil
+}
+
+// Conn returns the underlying NATS connection (for health checks).
+func (q *Queue) Conn() *nats.Conn { return q.nc }
+
+// Policy returns the delivery policy in force (defaults filled in).
+func (q *Queue) Policy() Policy { return q.policy }
+
+// CheckTask validates the identity fields of a task.
+func CheckTask(t *pb.TileTask) error {
+	if t == nil {
+		return errors.New("queue: nil task")
+	}
+	if _, err := layout.NewStep(t.Campaign, t.Step); err != nil {
+		return fmt.Errorf("queue: task: %w", err)
+	}
+	if t.Tile < 0 || (t.TileCount > 0 && t.Tile >= t.TileCount) {
+		return fmt.Errorf("queue: task %s/%s: tile %d of %d", t.Campaign, t.Step, t.Tile, t.TileCount)
+	}
+	if !layout.ValidParamHash(t.ParamHash) {
+		return fmt.Errorf("queue: task %s/%s/%d: parameter hash %q is not [a-z0-9]{1,64}", t.Campaign, t.Step, t.Tile, t.ParamHash)
+	}
+	return nil
+}
+
+// TaskID returns the message id of a task, campaign/step/tile/param-hash.
+func TaskID(t *pb.TileTask) string {
+	return fmt.Sprintf("%s/%s/%d/%s", t.Campaign, t.Step, t.Tile, t.ParamHash)
+}
+
+// PublishTask publishes one tile task on its live or batch subject and
+// waits for the server to store it. duplicate reports that a task with the
+// same id was already published within the duplicate window, in which case
+// nothing new was stored.
+func (q *Queue) PublishTask(ctx context.Context, t *pb.TileTask) (duplicate bool, err error) {
+	if err := CheckTask(t); err != nil {
+		return false, err
+	}
+	if t.PublishedAt == nil {
+		t = proto.CloneOf(t)
+		t.PublishedAt = timestamppb.Now()
+	}
+	return q.publish(ctx, TaskSubject(t.Priority, t.Campaign), TaskID(t), t)
+}
+
+func (q *Queue) publish(ctx context.Context, subject, id string, m proto.Message) (bool, error) {
+	data, err := proto.Marshal(m)
+	if err != nil {
+		return false, fmt.Errorf("queue: encode %s: %v", id, err)
+	}
+	if len(data) > MaxMessage {
+		return false, fmt.Errorf("queue: message %s is %d bytes, over the %d byte limit", id, len(data), MaxMessage)
+	}
+	var opts []jetstream.PublishOpt
+	if id != "" {
+		opts = append(opts, jetstream.WithMsgID(id))
+	}
+	ack, err := q.js.Publish(ctx, subject, data, opts...)
+	if err != nil {
+		return false, fmt.Errorf("queue: publish %s on %s: %v", id, subject, err)
+	}
+	return ack.Duplicate, nil
+}
+
+// PublishResult publishes a tile result with the tile's id, so a result
+// published again within the duplicate window is stored once.
+func (q *Queue) PublishResult(ctx context.Context, d *pb.TileDone) (duplicate bool, err error) {
+	id := fmt.Sprintf("%s/%s/%d/%s", d.Campaign, d.Step, d.Tile, d.ParamHash)
+	if err := CheckTask(&pb.TileTask{Campaign: d.Campaign, Step: d.Step, Tile: d.Tile, TileCount: d.TileCount, ParamHash: d.ParamHash}); err != nil {
+		return false, fmt.Errorf("queue: result: %w", err)
+	}
+	return q.publish(ctx, subjectResult+Token(d.Campaign), id, d)
+}
+
+// PublishStepReady announces an ingested step; the id campaign/step/param-hash
+// makes a repeated announcement a duplicate.
+func (q *Queue) PublishStepReady(ctx context.Context, r *pb.StepReady) (duplicate bool, err error) {
+	if _, err := layout.NewStep(r.Campaign, r.Step); err != nil {
+		return false, fmt.Errorf("queue: step ready: %w", err)
+	}
+	return q.publish(ctx, subjectReady+Token(r.Campaign), r.Campaign+"/"+r.Step+"/"+r.ParamHash, r)
+}
+
+// PublishEvent publishes a step event (not deduplicated).
+func (q *Queue) PublishEvent(ctx context.Context, e *pb.StepEvent) error {
+	if err := layout.CheckName("campaign", e.Campaign); err != nil {
+		return fmt.Errorf("queue: event: %w", err)
+	}
+	if e.At == nil {
+		e = proto.CloneOf(e)
+		e.At = timestamppb.Now()
+	}
+	_, err := q.publish(ctx, subjectEvent+Token(e.Campaign), "", e)
+	return err
+}
