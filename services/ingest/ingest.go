@@ -56,7 +56,8 @@ type Request struct {
 	Campaign string
 	Step     string
 	Path     string
-	// TimeS is the experiment time; HasTime false takes it from the file.
+	// TimeS is the experiment time; with HasTime false a time recorded in
+	// the file wins over TimeS.
 	TimeS    float64
 	HasTime  bool
 	Priority sluicepb.Priority

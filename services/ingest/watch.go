@@ -21,10 +21,12 @@ type Arrival struct {
 	Path string
 	// Step is the step name derived from the file name.
 	Step string
-	// TimeS is the experiment time of the scan in seconds, from the marker
-	// file, else from the raw header, else the marker's modification time
-	// relative to the first scan seen.
-	TimeS float64
+	// TimeS is the experiment time of the scan in seconds: from the marker
+	// file when HasTime, else the scan's modification time relative to the
+	// first scan seen (ingest prefers a time recorded in the volume's own
+	// header over the latter).
+	TimeS   float64
+	HasTime bool
 }
 
 // Marker is the suffix of the file a reconstruction pipeline writes last,
@@ -163,7 +165,7 @@ func (w *Watcher) Scan() ([]Arrival, error) {
 				timeS = fi.ModTime().Sub(w.t0).Seconds()
 			}
 		}
-		out = append(out, Arrival{Path: path, Step: step, TimeS: timeS})
+		out = append(out, Arrival{Path: path, Step: step, TimeS: timeS, HasTime: hasTime})
 	}
 	return out, nil
 }

@@ -172,7 +172,7 @@ func watchAndIngest(ctx context.Context, ing *ingest.Ingester, f ingestFlags, lo
 	w := &ingest.Watcher{Dir: f.watch, Settle: f.settle, Log: log}
 	return w.Run(ctx, func(a ingest.Arrival) error {
 		t0 := time.Now()
-		r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path, TimeS: a.TimeS, HasTime: true,
+		r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path, TimeS: a.TimeS, HasTime: a.HasTime,
 			Priority: sluicepb.Priority_PRIORITY_LIVE})
 		if err != nil {
 			return err
