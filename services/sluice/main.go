@@ -33,6 +33,7 @@ func commands() []command {
 		{"demo", "run a synthetic displacement campaign through the whole pipeline", runDemo},
 		{"plot", "write a campaign's plots as PNG and SVG", runPlot},
 		{"report", "write a campaign's self-contained HTML report", runReport},
+		{"bench", "time each processing stage on a synthetic scan", runBench},
 		{"version", "print the version", func([]string) int { fmt.Println("sluice", Version); return 0 }},
 	}
 }

@@ -1,0 +1,104 @@
+package main
+
+import (
+	"flag"
+	"fmt"
+	"runtime"
+	"text/tabwriter"
+	"time"
+
+	"sluice/pkg/filter"
+	"sluice/pkg/forward"
+	"sluice/pkg/measure"
+	"sluice/pkg/scan"
+	"sluice/pkg/scenario"
+	"sluice/pkg/volume"
+)
+
+// runBench is `sluice bench`: throughput of each stage on a synthetic
+// drainage scan on this machine.
+func runBench(args []string) int {
+	fs := flag.NewFlagSet("bench", flag.ContinueOnError)
+	size := fs.Int("size", 256, "edge of the cubic scan in voxels")
+	tile := fs.Int("tile", 128, "tile edge")
+	workers := fs.Int("workers", runtime.GOMAXPROCS(0), "goroutines")
+	nlm := fs.Bool("nlm", false, "also time the non-local-means filter (slow)")
+	if _, code, ok := parseOrUsage(fs, args); !ok {
+		return code
+	}
+	sc := &scenario.Campaign{Shape: [3]int{*size, *size, *size}, Steps: 10, Seed: 1}
+	fmt.Fprintf(stdout, "preparing a %d³ drainage scan …\n", *size)
+	if err := sc.Prepare(); err != nil {
+		return fail(exitFailure, "bench: %v", err)
+	}
+	lab, _, _ := sc.Step(6)
+	p := forward.Default()
+	p.Sample = demoCylinder(sc)
+	g, err := forward.Render(lab, p)
+	if err != nil {
+		return fail(exitFailure, "bench: %v", err)
+	}
+	grey := forward.Uint16(g)
+	grey.VoxelSize = sc.VoxelSize
+	cfg := demoConfig(sc, *tile)
+	cfg.Segment.Threshold = "otsu"
+	mvox := float64(grey.Box.Voxels()) / 1e6
+	tw := tabwriter.NewWriter(stdout, 0, 2, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintf(tw, "stage\tseconds\tMVox/s\tMVox/s per core\t\n")
+	row := func(name string, d time.Duration, cores int) {
+		fmt.Fprintf(tw, "%s\t%.2f\t%.2f\t%.2f\t\n", name, d.Seconds(), mvox/d.Seconds(), mvox/d.Seconds()/float64(cores))
+	}
+	procs := runtime.GOMAXPROCS(0)
+	t0 := time.Now()
+	f32 := volume.Float(grey)
+	if _, err := filter.Median3(f32, grey.Box); err != nil {
+		return fail(exitFailure, "bench: %v", err)
+	}
+	row("median 3×3×3", time.Since(t0), procs)
+	t0 = time.Now()
+	if _, err := filter.Gaussian(f32, grey.Box, 1, filter.DefaultTruncate); err != nil {
+		return fail(exitFailure, "bench: %v", err)
+	}
+	row("Gaussian σ=1", time.Since(t0), procs)
+	if *nlm {
+		t0 = time.Now()
+		if _, err := (filter.NLM{PatchRadius: 1, SearchRadius: 2, Sigma: p.NoiseSigma()}).Apply(f32, grey.Box); err != nil {
+			return fail(exitFailure, "bench: %v", err)
+		}
+		row("non-local means", time.Since(t0), procs)
+	}
+	t0 = time.Now()
+	prep, eff, err := scan.Prepare(scan.MemorySource(grey), grey.Box, volume.Uint16, cfg, nil, *workers)
+	if err != nil {
+		return fail(exitFailure, "bench: %v", err)
+	}
+	row("pass 1: histogram + thresholds", time.Since(t0), *workers)
+	halo, _ := scan.Halo(eff)
+	t := volume.Tiling{Whole: grey.Box, Tile: [3]int{*tile, *tile, *tile}}
+	t0 = time.Now()
+	labels := volume.New[uint8](grey.Box, grey.VoxelSize)
+	for i := 0; i < t.Len(); i++ {
+		core := t.Core(i)
+		l, _, err := scan.Tile(grey.Crop(core.Grow(halo).Intersect(grey.Box), 0), core, grey.Box, prep.Thresholds, eff, nil)
+		if err != nil {
+			return fail(exitFailure, "bench: %v", err)
+		}
+		labels.Paste(l)
+	}
+	row(fmt.Sprintf("pass 2: segment + measure, %d tiles, one after another", t.Len()), time.Since(t0), 1)
+	mo, _ := eff.MeasureOptions()
+	t0 = time.Now()
+	if _, err := measure.Volume(labels, mo, *tile, *workers); err != nil {
+		return fail(exitFailure, "bench: %v", err)
+	}
+	row("measure labels only (all measurements)", time.Since(t0), *workers)
+	mo.SkipContact, mo.SkipCurvature = true, true
+	t0 = time.Now()
+	if _, err := measure.Volume(labels, mo, *tile, *workers); err != nil {
+		return fail(exitFailure, "bench: %v", err)
+	}
+	row("measure labels: counts, Minkowski, clusters", time.Since(t0), *workers)
+	tw.Flush()
+	fmt.Fprintf(stdout, "(%d CPUs; per-core figures divide by the goroutines used)\n", procs)
+	return exitOK
+}
