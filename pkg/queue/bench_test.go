@@ -1,0 +1,80 @@
+package queue
+
+import (
+	"context"
+	"sync/atomic"
+	"testing"
+	"time"
+
+	pb "sluice/proto/sluicepb"
+)
+
+// BenchmarkPublishTask measures stored (server-acknowledged) task publishes
+// per second on the embedded server's file store.
+func BenchmarkPublishTask(b *testing.B) {
+	srv, err := StartServer(ServerConfig{StoreDir: b.TempDir()})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer srv.Shutdown()
+	q, err := Open(context.Background(), Config{Server: srv, Logger: quiet})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer q.Close()
+	ctx := context.Background()
+	tk := task("bench", "0001", 0, pb.Priority_PRIORITY_BATCH)
+	tk.TileCount = 0
+	b.ResetTimer()
+	start := time.Now()
+	for i := 0; i < b.N; i++ {
+		tk.Tile = int32(i)
+		if _, err := q.PublishTask(ctx, tk); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(b.N)/time.Since(start).Seconds(), "tasks/s")
+}
+
+// BenchmarkTaskRoundTrip measures tasks per second through the whole
+// path: publish, pull (one per request, live then batch), handler, confirmed ack.
+func BenchmarkTaskRoundTrip(b *testing.B) {
+	srv, err := StartServer(ServerConfig{StoreDir: b.TempDir()})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer srv.Shutdown()
+	q, err := Open(context.Background(), Config{Server: srv, Logger: quiet})
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer q.Close()
+	ctx, cancel := context.WithCancel(context.Background())
+	var handled atomic.Int64
+	all := make(chan struct{})
+	n := int64(b.N)
+	done := make(chan error, 1)
+	go func() {
+		done <- q.Work(ctx, func(context.Context, *pb.TileTask) error {
+			if handled.Add(1) == n {
+				close(all)
+			}
+			return nil
+		}, WorkOptions{Concurrency: 2, IdleWait: 50 * time.Millisecond})
+	}()
+	tk := task("bench", "0001", 0, pb.Priority_PRIORITY_BATCH)
+	tk.TileCount = 0
+	b.ResetTimer()
+	start := time.Now()
+	for i := 0; i < b.N; i++ {
+		tk.Tile = int32(i)
+		if _, err := q.PublishTask(ctx, tk); err != nil {
+			b.Fatal(err)
+		}
+	}
+	<-all
+	b.ReportMetric(float64(b.N)/time.Since(start).Seconds(), "tasks/s")
+	b.StopTimer()
+	cancel()
+	<-done
+}
