@@ -62,6 +62,9 @@ type Aggregator struct {
 
 	mu        sync.Mutex
 	campaigns map[string]*campaignState
+	// writing serialises step completions, the read-modify-write of the
+	// series files (TileDone and CompleteStep may run concurrently).
+	writing   sync.Mutex
 	started   time.Time
 	tileTimes []time.Time // recent tile arrivals, for tiles/s
 	lastLat   float64
@@ -245,6 +248,8 @@ func (a *Aggregator) TileDone(ctx context.Context, d *sluicepb.TileDone) error {
 
 // complete merges the tiles of a finished step.
 func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string, keys []string, d *sluicepb.TileDone) error {
+	a.writing.Lock()
+	defer a.writing.Unlock()
 	if b, err := a.Store.Get(ctx, campaign.RunResultKey(step, hash)); err == nil && len(b) > 0 {
 		// Already completed (a redelivered or repeated tile): nothing to do,
 		// the series row exists.
@@ -285,14 +290,12 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 	if err != nil {
 		return err
 	}
-	a.mu.Lock()
-	cs := a.campaign(ctx, step.Campaign().Name())
-	a.mu.Unlock()
-	current := cs != nil && cs.record.Current == hash
-	// Run-scoped copies first, the contract paths of the current run last.
-	if err := a.Store.Put(ctx, campaign.RunResultKey(step, hash), b); err != nil {
-		return err
-	}
+	cs, current := a.refreshCurrent(ctx, step.Campaign(), hash)
+	// The run series first, then the contract paths of the current run, and
+	// the run result last: it is the commit marker of the step (reprocess
+	// and the check above skip a step whose run result exists), so a crash
+	// anywhere before it leaves the step to be completed again, and the
+	// upserts it repeats give the same bytes.
 	runRows, err := a.upsertRun(ctx, step.Campaign(), hash, row)
 	if err != nil {
 		return err
@@ -305,6 +308,9 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 		if rows, err = series.Upsert(ctx, a.Store, step.Campaign().Name(), row); err != nil {
 			return err
 		}
+	}
+	if err := a.Store.Put(ctx, campaign.RunResultKey(step, hash), b); err != nil {
+		return err
 	}
 	latency := 0.0
 	if !man.IngestedAt.IsZero() {
@@ -342,6 +348,53 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 	}
 	a.publish("step", map[string]any{"campaign": step.Campaign().Name(), "step": step.Name(), "param_hash": hash})
 	return nil
+}
+
+// refreshCurrent re-reads campaign.json, so a run switched to by another
+// process (`sluice switch`) is honoured, and reports whether hash is the
+// campaign's current run.
+func (a *Aggregator) refreshCurrent(ctx context.Context, c layout.Campaign, hash string) (*campaignState, bool) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	cs := a.campaign(ctx, c.Name())
+	if cs == nil {
+		return nil, false
+	}
+	var r campaign.Record
+	if b, err := a.Store.Get(ctx, c.Config()); err == nil && json.Unmarshal(b, &r) == nil && r.Current != "" {
+		cs.record = r
+	}
+	return cs, cs.record.Current == hash
+}
+
+// CompleteStep completes a step of a run whose tile results are all stored
+// but whose run result is not (its last tile's announcement was lost in a
+// crash). It reports whether the step is complete afterwards; a step with
+// tiles still missing is left alone.
+func (a *Aggregator) CompleteStep(ctx context.Context, campaignName, stepName, hash string) (bool, error) {
+	step, err := layout.NewStep(campaignName, stepName)
+	if err != nil {
+		return false, err
+	}
+	if b, err := a.Store.Get(ctx, campaign.RunResultKey(step, hash)); err == nil && len(b) > 0 {
+		return true, nil
+	}
+	var plan campaign.Plan
+	if err := getJSON(ctx, a.Store, campaign.PlanKey(step, hash), &plan); err != nil {
+		return false, err
+	}
+	prefix, err := step.Tiles(hash)
+	if err != nil {
+		return false, err
+	}
+	keys, err := a.Store.List(ctx, prefix)
+	if err != nil {
+		return false, err
+	}
+	if len(keys) < plan.Tiles {
+		return false, nil
+	}
+	return true, a.complete(ctx, step, hash, keys, nil)
 }
 
 // upsertRun writes the row into the run-scoped series.

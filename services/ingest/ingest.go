@@ -148,6 +148,22 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 	return ready, nil
 }
 
+// StoreStep stores one scan as a step (volume.zarr, then the manifest)
+// without planning or queueing it: reprocessing an archive plans each step
+// under the run's own parameters. The chunking and voxel size follow the
+// campaign's current configuration, as for live steps.
+func (in *Ingester) StoreStep(ctx context.Context, req Request) (campaign.Manifest, error) {
+	step, err := layout.NewStep(req.Campaign, req.Step)
+	if err != nil {
+		return campaign.Manifest{}, err
+	}
+	rec, err := loadRecord(ctx, in.Store, step.Campaign())
+	if err != nil {
+		return campaign.Manifest{}, err
+	}
+	return in.store(ctx, step, req, rec.Config)
+}
+
 // store streams the volume into volume.zarr and writes the manifest.
 func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cfg campaign.Config) (campaign.Manifest, error) {
 	received := time.Now().UTC()
