@@ -200,6 +200,41 @@ func TestLiveCampaign(t *testing.T) {
 		}
 	})
 
+	t.Run("plot and report", func(t *testing.T) {
+		out := t.TempDir()
+		code, text, errs := runCLI(t, "plot", "--data", data, "--out", out, "live")
+		if code != 0 {
+			t.Fatalf("sluice plot: exit %d: %s", code, errs)
+		}
+		pngs, _ := filepath.Glob(filepath.Join(out, "*.png"))
+		svgs, _ := filepath.Glob(filepath.Join(out, "*.svg"))
+		if len(pngs) < 7 || len(pngs) != len(svgs) || strings.Count(text, "\n") != len(pngs)+len(svgs) {
+			t.Errorf("sluice plot wrote %d PNG and %d SVG files:\n%s", len(pngs), len(svgs), text)
+		}
+		html := filepath.Join(out, "report.html")
+		if code, _, errs := runCLI(t, "report", "--data", data, "--out", html, "live"); code != 0 {
+			t.Fatalf("sluice report: exit %d: %s", code, errs)
+		}
+		b, err := os.ReadFile(html)
+		if err != nil {
+			t.Fatal(err)
+		}
+		page := string(b)
+		for _, want := range append([]string{"pressurised", "<svg", "4 µm", "breakthrough", "Parameter hash"}, rows[0].Step, rows[len(rows)-1].Step) {
+			if !strings.Contains(page, want) {
+				t.Errorf("report lacks %q", want)
+			}
+		}
+		// Namespace names (xmlns="http://www.w3.org/2000/svg") are not
+		// fetched; resources are.
+		if m := regexp.MustCompile(`(?:src|href)\s*=\s*["']?(?:https?:)?//[^"' >]*|url\(["']?(?:https?:)?//[^)]*`).FindString(page); m != "" {
+			t.Errorf("report is not self-contained: %q", m)
+		}
+		if code, _, errs := runCLI(t, "report", "--data", data, "no-such-campaign"); code != 2 || strings.Count(strings.TrimSpace(errs), "\n") != 0 {
+			t.Errorf("report of a missing campaign: exit %d, %q", code, errs)
+		}
+	})
+
 	t.Run("dashboard", func(t *testing.T) {
 		// Every metric the Grafana dashboard queries exists in a live /metrics.
 		dash, err := os.ReadFile("../../deploy/grafana/sluice-dashboard.json")
