@@ -158,6 +158,8 @@ func (a *Aggregator) Preview(ctx context.Context, c, s string, point [3]int) ([]
 	}
 	o := preview.Defaults()
 	o.Point = &point
+	// Small scans are enlarged so the slices stay legible on the page.
+	o.Scale = min(4, max(1, 384/max(m.Shape[0], m.Shape[1], m.Shape[2])))
 	img, err := preview.RenderPlanes(whole, planes, lplanes, o)
 	if err != nil {
 		return nil, err
