@@ -265,13 +265,29 @@ func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign
 
 // PublishTiles queues one task per tile of a planned step.
 func PublishTiles(ctx context.Context, q Publisher, man campaign.Manifest, plan campaign.Plan, labelKey string, prio sluicepb.Priority, m *telemetry.Ingest) error {
+	return PublishTileSet(ctx, q, man, plan, labelKey, prio, m, nil)
+}
+
+// PublishTileSet queues the tasks of the given tiles of a planned step (all
+// tiles when tiles is nil); reprocessing queues only the tiles whose results
+// are missing.
+func PublishTileSet(ctx context.Context, q Publisher, man campaign.Manifest, plan campaign.Plan, labelKey string, prio sluicepb.Priority, m *telemetry.Ingest, tiles []int) error {
 	step, err := layout.NewStep(man.Campaign, man.Step)
 	if err != nil {
 		return err
 	}
 	t := plan.Tiling(man)
+	if tiles == nil {
+		tiles = make([]int, t.Len())
+		for i := range tiles {
+			tiles[i] = i
+		}
+	}
 	now := timestamppb.Now()
-	for i := 0; i < t.Len(); i++ {
+	for _, i := range tiles {
+		if i < 0 || i >= t.Len() {
+			return fmt.Errorf("ingest: %s/%s: tile %d of %d", man.Campaign, man.Step, i, t.Len())
+		}
 		core := t.Core(i)
 		rk, err := step.TileResult(i, plan.ParamHash)
 		if err != nil {

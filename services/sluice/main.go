@@ -33,6 +33,10 @@ func commands() []command {
 		{"demo", "run a synthetic displacement campaign through the whole pipeline", runDemo},
 		{"plot", "write a campaign's plots as PNG and SVG", runPlot},
 		{"report", "write a campaign's self-contained HTML report", runReport},
+		{"reprocess", "reprocess a stored campaign (or a directory of volumes) with new parameters as batch work", runReprocess},
+		{"switch", "make a reprocessed run the campaign's current series", runSwitch},
+		{"status", "show a campaign's runs with done, pending and failed steps", runStatus},
+		{"compare", "compare two runs of a campaign step by step, with overlaid plots", runCompare},
 		{"bench", "time each processing stage on a synthetic scan", runBench},
 		{"version", "print the version", func([]string) int { fmt.Println("sluice", Version); return 0 }},
 	}
