@@ -301,5 +301,3 @@ func TestStepSelection(t *testing.T) {
 		t.Error("no --steps must select every step")
 	}
 }
-
-
