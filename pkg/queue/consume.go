@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"strings"
 	"time"
 
 	"github.com/nats-io/nats.go/jetstream"
@@ -14,7 +15,7 @@ import (
 
 // consume runs a durable pull consumer on stream, decoding each message into
 // a fresh T and calling handler one message at a time, until ctx is
-// cancelled. A nil error acks; an error naks with a growing delay (results
+// cancelled, with heartbeats while it runs. A nil error acks; an error naks with a growing delay (results
 // must never be lost, so there is no delivery limit); an undecodable
 // message is dead-lettered and terminated.
 func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, filter string, fresh func() T, handler func(context.Context, T) error) error {
@@ -29,7 +30,9 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 		return fmt.Errorf("queue: consumer %s: %v", durable, err)
 	}
 	for ctx.Err() == nil {
-		b, err := cons.Fetch(64, jetstream.FetchMaxWait(time.Second))
+		// One message per pull: a slow handler (a step completing) must not
+		// hold other messages past their ack wait.
+		b, err := cons.Fetch(1, jetstream.FetchMaxWait(time.Second))
 		if err != nil {
 			if q.nc.IsClosed() {
 				return fmt.Errorf("queue: consumer %s: connection closed", durable)
@@ -52,14 +55,19 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 				_ = m.TermWithReason("poison")
 				continue
 			}
-			if err := handler(ctx, v); err != nil {
+			stop := q.keepAlive(m, q.policy.AckWait/3, fmt.Sprintf("%s#%d", stream, seq))
+			err := handler(ctx, v)
+			stop()
+			if err != nil {
 				q.log.Warn("queue: handler failed, will retry", "consumer", durable, "seq", seq, "attempt", n, "err", err)
 				_ = m.NakWithDelay(min(time.Duration(n)*time.Second, time.Minute))
 				continue
 			}
-			if err := m.DoubleAck(ctx); err != nil {
+			actx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 10*time.Second)
+			if err := m.DoubleAck(actx); err != nil {
 				q.log.Warn("queue: ack not confirmed", "consumer", durable, "seq", seq, "err", err)
 			}
+			cancel()
 		}
 	}
 	return nil
@@ -155,16 +163,29 @@ func readAll[T proto.Message](ctx context.Context, q *Queue, stream, filter stri
 	return out, nil
 }
 
-// Lag is the work waiting in the task queue.
+// Lag is the work in the task queue.
 type Lag struct {
-	// Waiting tasks not yet delivered, per priority.
+	// Tasks stored and not yet acknowledged (waiting or in progress), per
+	// priority, counted from the stream itself.
 	Live, Batch uint64
-	// Delivered tasks not yet acknowledged (in progress or awaiting redelivery).
+	// Tasks delivered and not yet acknowledged, from the consumers.
 	LiveInFlight, BatchInFlight uint64
 }
 
-// Lag reports the backlog of the task consumers (for metrics and autoscaling).
+// Lag reports the backlog of the task queue (for metrics and autoscaling).
 func (q *Queue) Lag(ctx context.Context) (Lag, error) {
+	var l Lag
+	si, err := q.tasks.Info(ctx, jetstream.WithSubjectFilter("sluice.task.>"))
+	if err != nil {
+		return Lag{}, fmt.Errorf("queue: stream %s: %v", StreamTasks, err)
+	}
+	for subj, n := range si.State.Subjects {
+		if strings.HasPrefix(subj, subjectLive) {
+			l.Live += n
+		} else {
+			l.Batch += n
+		}
+	}
 	li, err := q.live.Info(ctx)
 	if err != nil {
 		return Lag{}, fmt.Errorf("queue: consumer %s: %v", ConsumerLive, err)
@@ -173,7 +194,8 @@ func (q *Queue) Lag(ctx context.Context) (Lag, error) {
 	if err != nil {
 		return Lag{}, fmt.Errorf("queue: consumer %s: %v", ConsumerBatch, err)
 	}
-	return Lag{Live: li.NumPending, Batch: bi.NumPending, LiveInFlight: uint64(li.NumAckPending), BatchInFlight: uint64(bi.NumAckPending)}, nil
+	l.LiveInFlight, l.BatchInFlight = uint64(li.NumAckPending), uint64(bi.NumAckPending)
+	return l, nil
 }
 
 // ErrNoProgress is returned for a progress key that holds nothing.

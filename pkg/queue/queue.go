@@ -34,7 +34,10 @@
 // again. So a worker never starts a batch tile while a live tile is
 // available to it, and a live tile published while all workers are busy
 // waits for at most one in-flight tile per worker. Tiles already in progress
-// are not pre-empted.
+// are not pre-empted. "Available" means known to the live consumer: the
+// server tells consumers about a stored message asynchronously, so a live
+// task acknowledged to its publisher less than a few milliseconds before a
+// worker looks can lose to a batch task already visible.
 package queue
 
 import (

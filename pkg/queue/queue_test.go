@@ -11,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats.go/jetstream"
 	"google.golang.org/protobuf/proto"
 
 	"sluice/internal/testenv"
@@ -304,17 +305,29 @@ func TestLiveBeforeBatch(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
+	// The server tells a consumer about new messages asynchronously, a few
+	// milliseconds after the publish is acknowledged; the guarantee is about
+	// tasks the consumers can see, so wait for that.
+	waitVisible := func(c jetstream.Consumer, n uint64) {
+		waitFor(t, "consumer to see published tasks", func() bool {
+			info, err := c.Info(ctx)
+			return err == nil && info.NumPending >= n
+		})
+	}
+	waitVisible(q.live, 4)
+	waitVisible(q.batch, 4)
 	var rec recorder
 	var once sync.Once
-	runWork(t, q, func(ctx context.Context, tk *pb.TileTask) error {
+	runWork(t, q, func(hctx context.Context, tk *pb.TileTask) error {
 		rec.add(tk.Step)
 		if tk.Step == "batch" {
 			// A live scan arrives while a batch tile is in progress: it must
 			// be the very next tile taken.
 			once.Do(func() {
-				if _, err := q.PublishTask(ctx, task("c", "late-live", 0, pb.Priority_PRIORITY_LIVE)); err != nil {
+				if _, err := q.PublishTask(hctx, task("c", "late-live", 0, pb.Priority_PRIORITY_LIVE)); err != nil {
 					t.Error(err)
 				}
+				waitVisible(q.live, 1)
 			})
 		}
 		return nil
@@ -539,4 +552,44 @@ func TestSeparateNATSServerProcess(t *testing.T) {
 	var rec recorder
 	runWork(t, q, func(_ context.Context, tk *pb.TileTask) error { rec.add(TaskID(tk)); return nil }, WorkOptions{})
 	waitFor(t, "task after server restart", func() bool { return len(rec.list()) == 1 })
+}
+
+func TestGracefulDrainFinishesInFlightTile(t *testing.T) {
+	_, q := newQueue(t, Policy{AckWait: time.Second})
+	ctx := context.Background()
+	for i := int32(0); i < 3; i++ {
+		if _, err := q.PublishTask(ctx, task("c", "0001", i, pb.Priority_PRIORITY_LIVE)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	started := make(chan int32, 3)
+	finish := make(chan struct{})
+	var rec recorder
+	wctx, cancel := context.WithCancel(ctx)
+	done := make(chan error, 1)
+	go func() {
+		done <- q.Work(wctx, func(hctx context.Context, tk *pb.TileTask) error {
+			started <- tk.Tile
+			<-finish
+			if hctx.Err() != nil {
+				return hctx.Err()
+			}
+			rec.add(fmt.Sprint(tk.Tile))
+			return nil
+		}, WorkOptions{IdleWait: 100 * time.Millisecond})
+	}()
+	first := <-started
+	cancel() // SIGTERM while a tile is in progress
+	close(finish)
+	if err := <-done; err != nil {
+		t.Fatalf("Work after drain: %v", err)
+	}
+	if got := rec.list(); len(got) != 1 || got[0] != fmt.Sprint(first) {
+		t.Fatalf("drained worker completed %q, want only the in-flight tile %d", got, first)
+	}
+	// The in-flight tile was acknowledged; the other two still wait.
+	lag, err := q.Lag(ctx)
+	if err != nil || lag.Live != 2 || lag.LiveInFlight != 0 {
+		t.Fatalf("Lag after drain = %+v, %v; want 2 unfinished, none in flight", lag, err)
+	}
 }

@@ -216,6 +216,8 @@ func (q *Queue) handle(ctx context.Context, m jetstream.Msg, handler Handler, op
 		if aerr := m.DoubleAck(actx); aerr != nil {
 			q.log.Warn("queue: ack not confirmed; the task may be redelivered", "task", TaskID(task), "err", aerr)
 		}
+	case ctx.Err() != nil && !IsPermanent(err):
+		_ = m.Nak() // drained: let another worker take it at once
 	case IsPermanent(err) || meta.NumDelivered >= uint64(q.policy.MaxDeliver):
 		reason := err.Error()
 		if !IsPermanent(err) {
@@ -224,8 +226,6 @@ func (q *Queue) handle(ctx context.Context, m jetstream.Msg, handler Handler, op
 		q.deadLetter(ctx, &pb.DeadLetter{Task: task, MsgId: TaskID(task), Subject: m.Subject(), StreamSeq: meta.Sequence.Stream,
 			Deliveries: meta.NumDelivered, Reason: reason, WorkerId: opts.WorkerID})
 		_ = m.TermWithReason("dead letter")
-	case ctx.Err() != nil:
-		_ = m.Nak() // drained: let another worker take it at once
 	default:
 		q.log.Warn("queue: tile failed, will retry", "task", TaskID(task), "attempt", meta.NumDelivered, "err", err)
 		_ = m.NakWithDelay(q.policy.retryDelay(meta.NumDelivered))
@@ -235,34 +235,44 @@ func (q *Queue) handle(ctx context.Context, m jetstream.Msg, handler Handler, op
 // runWithHeartbeat calls handler, sending InProgress every hb meanwhile.
 // A panicking handler counts as a failed attempt.
 func (q *Queue) runWithHeartbeat(ctx context.Context, m jetstream.Msg, task *pb.TileTask, handler Handler, hb time.Duration) (err error) {
-	done := make(chan struct{})
-	var wg sync.WaitGroup
-	if hb > 0 {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			t := time.NewTicker(hb)
-			defer t.Stop()
-			for {
-				select {
-				case <-done:
-					return
-				case <-t.C:
-					if err := m.InProgress(); err != nil {
-						q.log.Warn("queue: heartbeat failed", "task", TaskID(task), "err", err)
-					}
-				}
-			}
-		}()
-	}
+	stop := q.keepAlive(m, hb, TaskID(task))
 	defer func() {
-		close(done)
-		wg.Wait()
+		stop()
 		if r := recover(); r != nil {
 			err = fmt.Errorf("queue: handler panicked on %s: %v\n%s", TaskID(task), r, debug.Stack())
 		}
 	}()
 	return handler(ctx, task)
+}
+
+// keepAlive sends InProgress for m every hb (none for hb <= 0) until the
+// returned stop is called.
+func (q *Queue) keepAlive(m jetstream.Msg, hb time.Duration, what string) (stop func()) {
+	if hb <= 0 {
+		return func() {}
+	}
+	done := make(chan struct{})
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		t := time.NewTicker(hb)
+		defer t.Stop()
+		for {
+			select {
+			case <-done:
+				return
+			case <-t.C:
+				if err := m.InProgress(); err != nil {
+					q.log.Warn("queue: heartbeat failed", "message", what, "err", err)
+				}
+			}
+		}
+	}()
+	return func() {
+		close(done)
+		wg.Wait()
+	}
 }
 
 // deadLetter publishes a dead-letter record; the id makes a repeated record
