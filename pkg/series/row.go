@@ -82,6 +82,9 @@ var known = func() map[string]bool {
 		m[c.Key] = true
 	}
 	m["contact_angle_histogram"] = true
+	// step and time_s are fields too; were they missing here, a row read
+	// back from series.json would carry them twice (field and Extra).
+	m["step"], m["time_s"] = true, true
 	return m
 }()
 

@@ -305,7 +305,7 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 		if err := a.Store.Put(ctx, step.Result(), b); err != nil {
 			return err
 		}
-		if rows, err = upsertCampaign(ctx, a.Store, step.Campaign().Name(), row); err != nil {
+		if rows, err = series.Upsert(ctx, a.Store, step.Campaign().Name(), row); err != nil {
 			return err
 		}
 	}
@@ -397,36 +397,6 @@ func (a *Aggregator) CompleteStep(ctx context.Context, campaignName, stepName, h
 	return true, a.complete(ctx, step, hash, keys, nil)
 }
 
-// CleanRows drops "step" and "time_s" from the rows' Extra keys: series.Row
-// decodes them into fields and also keeps them verbatim, so a decoded row
-// is written with both keys twice while a fresh row has them once, and the
-// bytes of a series would depend on which step completed last. Cleaning
-// every decoded row makes them equal whatever the order. (A no-op once
-// package series stops keeping them.)
-func CleanRows(rows []series.Row) []series.Row {
-	for i := range rows {
-		delete(rows[i].Extra, "step")
-		delete(rows[i].Extra, "time_s")
-		if len(rows[i].Extra) == 0 {
-			rows[i].Extra = nil
-		}
-	}
-	return rows
-}
-
-// upsertCampaign is series.Upsert with the decoded rows cleaned.
-func upsertCampaign(ctx context.Context, st Store, name string, row series.Row) ([]series.Row, error) {
-	if err := row.Validate(); err != nil {
-		return nil, err
-	}
-	rows, err := series.Load(ctx, st, name)
-	if err != nil {
-		return nil, err
-	}
-	rows = series.Merge(CleanRows(rows), row)
-	return rows, series.Save(ctx, st, name, rows)
-}
-
 // upsertRun writes the row into the run-scoped series.
 func (a *Aggregator) upsertRun(ctx context.Context, c layout.Campaign, hash string, row series.Row) ([]series.Row, error) {
 	jk, ck := campaign.RunSeriesKeys(c, hash)
@@ -438,7 +408,7 @@ func (a *Aggregator) upsertRun(ctx context.Context, c layout.Campaign, hash stri
 	} else if !errors.Is(err, fs.ErrNotExist) {
 		return nil, err
 	}
-	rows = series.Merge(CleanRows(rows), row)
+	rows = series.Merge(rows, row)
 	jb, err := series.EncodeJSON(rows)
 	if err != nil {
 		return nil, err

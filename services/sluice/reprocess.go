@@ -561,7 +561,6 @@ func switchRun(ctx context.Context, st runStore, name, run string, partial bool)
 			return sum, fmt.Errorf("campaign %s step %s: %w", name, s, err)
 		}
 	}
-	done = aggregator.CleanRows(done)
 	if err := series.Save(ctx, st, name, done); err != nil {
 		return sum, err
 	}
