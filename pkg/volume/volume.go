@@ -227,3 +227,15 @@ func convert[S, D Voxel](v *Volume[S]) *Volume[D] {
 	}
 	return out
 }
+
+// SetVoxelSize sets the voxel edge length (metres) of a volume of any type.
+func SetVoxelSize(a Any, m float64) {
+	switch v := a.(type) {
+	case *Volume[uint8]:
+		v.VoxelSize = m
+	case *Volume[uint16]:
+		v.VoxelSize = m
+	case *Volume[float32]:
+		v.VoxelSize = m
+	}
+}

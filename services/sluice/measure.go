@@ -181,7 +181,7 @@ func runMeasure(args []string) int {
 			return fail(exitBadInput, "%v", err)
 		}
 		if v.EdgeLength() == 0 {
-			setEdge(v, 1e-6)
+			volume.SetVoxelSize(v, 1e-6)
 		}
 		solid, err := sf.loadReference(ropt, v.Bounds())
 		if err != nil {

@@ -171,7 +171,7 @@ func segmentFile(path string, in inputFlags, sf segFlags, cfg campaign.Config, l
 		return nil, scan.Prepared{}, fail(exitBadInput, "%v", err)
 	}
 	if v.EdgeLength() == 0 {
-		setEdge(v, 1e-6)
+		volume.SetVoxelSize(v, 1e-6)
 	}
 	solid, err := sf.loadReference(ropt, v.Bounds())
 	if err != nil {
@@ -187,16 +187,6 @@ func segmentFile(path string, in inputFlags, sf segFlags, cfg campaign.Config, l
 	return lab, prep, exitOK
 }
 
-func setEdge(v volume.Any, e float64) {
-	switch t := v.(type) {
-	case *volume.Volume[uint8]:
-		t.VoxelSize = e
-	case *volume.Volume[uint16]:
-		t.VoxelSize = e
-	case *volume.Volume[float32]:
-		t.VoxelSize = e
-	}
-}
 
 func writeLabels(out string, lab *volume.Labels) error {
 	if strings.HasSuffix(strings.TrimSuffix(out, "/"), ".zarr") {

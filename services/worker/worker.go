@@ -145,7 +145,7 @@ func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.T
 			return nil, fmt.Errorf("worker: solid mask of %s is %s, want uint8", step.Campaign().Name(), m.DType())
 		}
 	}
-	setEdge(grey, p.man.VoxelSize)
+	volume.SetVoxelSize(grey, p.man.VoxelSize)
 	stage("read", t0)
 
 	t0 = time.Now()
@@ -204,16 +204,6 @@ func readBox(ctx context.Context, st Store, prefix string, box volume.Box) (volu
 	return z.ReadBox(ctx, box)
 }
 
-func setEdge(v volume.Any, e float64) {
-	switch t := v.(type) {
-	case *volume.Volume[uint8]:
-		t.VoxelSize = e
-	case *volume.Volume[uint16]:
-		t.VoxelSize = e
-	case *volume.Volume[float32]:
-		t.VoxelSize = e
-	}
-}
 
 func getJSON(ctx context.Context, st Store, key string, v any) error {
 	b, err := st.Get(ctx, key)
