@@ -187,7 +187,6 @@ func segmentFile(path string, in inputFlags, sf segFlags, cfg campaign.Config, l
 	return lab, prep, exitOK
 }
 
-
 func writeLabels(out string, lab *volume.Labels) error {
 	if strings.HasSuffix(strings.TrimSuffix(out, "/"), ".zarr") {
 		dir, name := filepath.Split(strings.TrimSuffix(out, "/"))

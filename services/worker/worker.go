@@ -204,7 +204,6 @@ func readBox(ctx context.Context, st Store, prefix string, box volume.Box) (volu
 	return z.ReadBox(ctx, box)
 }
 
-
 func getJSON(ctx context.Context, st Store, key string, v any) error {
 	b, err := st.Get(ctx, key)
 	if err != nil {
