@@ -235,6 +235,49 @@ func TestLiveCampaign(t *testing.T) {
 		}
 	})
 
+	t.Run("api", func(t *testing.T) {
+		for path, want := range map[string]int{
+			"/api/campaigns":                                           200,
+			"/api/campaigns/live/steps":                                200,
+			"/api/campaigns/live/series.csv":                           200,
+			"/api/campaigns/live/steps/scan-0003/result":               200,
+			"/api/campaigns/live/steps/scan-0003/preview.png":          200,
+			"/api/health":                                              200,
+			"/api/campaigns/nope/steps":                                404,
+			"/api/campaigns/live/steps/scan-9999/result":               404,
+			"/api/campaigns/Bad..Name/steps":                           400,
+			"/api/campaigns/live/steps/scan-0003/preview.png?z=100000": 400,
+			"/healthz": 200, "/readyz": 200,
+		} {
+			resp, err := http.Get(base + path)
+			if err != nil {
+				t.Fatal(err)
+			}
+			b, _ := io.ReadAll(resp.Body)
+			resp.Body.Close()
+			if resp.StatusCode != want {
+				t.Errorf("GET %s: %d, want %d (%s)", path, resp.StatusCode, want, strings.TrimSpace(string(b)))
+			}
+		}
+		var steps []map[string]any
+		json.Unmarshal(httpGet(t, base+"/api/campaigns/live/steps"), &steps)
+		if len(steps) != sc.Steps {
+			t.Errorf("%d steps listed, want %d", len(steps), sc.Steps)
+		}
+		for _, s := range steps {
+			if s["status"] != "done" || s["tiles_done"] != s["tiles_total"] {
+				t.Errorf("step %v: status %v, tiles %v/%v", s["step"], s["status"], s["tiles_done"], s["tiles_total"])
+			}
+		}
+		csv := string(httpGet(t, base+"/api/campaigns/live/series.csv"))
+		if lines := strings.Count(strings.TrimSpace(csv), "\n"); lines != sc.Steps {
+			t.Errorf("series.csv has %d data lines, want %d", lines, sc.Steps)
+		}
+		if !strings.HasPrefix(csv, "step,time_s,") {
+			t.Errorf("series.csv header: %.40q", csv)
+		}
+	})
+
 	t.Run("dashboard", func(t *testing.T) {
 		// Every metric the Grafana dashboard queries exists in a live /metrics.
 		dash, err := os.ReadFile("../../deploy/grafana/sluice-dashboard.json")
