@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"sluice/pkg/forward"
+	"sluice/pkg/measure"
 	"sluice/pkg/phase"
 	"sluice/pkg/scenario"
 	"sluice/pkg/synth"
@@ -46,16 +47,37 @@ func scene(n int, cnr float64, seed uint64) (*volume.Volume[uint16], *volume.Lab
 	return forward.Uint16(img), forward.Truth(lab, fp), fp
 }
 
+// packScene is a scan of the demo's rock: a cemented grain pack
+// (synth.GrainPack through scenario.Campaign defaults: porosity 0.28, mean
+// grain radius 0.14·n, 18 voxels at n = 128, so pore bodies are ~10–14 voxels
+// across) drained by full morphology from the z = 0 face, at the given step
+// of a 10-step campaign (r_c falls from the entry radius to 0.8× the
+// breakthrough radius). No cylinder: every voxel is rock, so all interfaces
+// are between phases. It returns the rendered scan, the truth labels and the
+// forward parameters.
+func packScene(n int, seed uint64, step int, cnr float64) (*volume.Volume[uint16], *volume.Labels, forward.Params) {
+	c := &scenario.Campaign{Shape: [3]int{n, n, n}, Steps: 10, Seed: seed, NoCore: true}
+	lab, _, _ := c.Step(step)
+	fp := forward.Default()
+	fp.CNR, fp.Seed = cnr, seed
+	img, err := forward.Render(lab, fp)
+	if err != nil {
+		panic(err)
+	}
+	return forward.Uint16(img), forward.Truth(lab, fp), fp
+}
+
 // score compares labels with the truth: fraction of truth pore voxels
 // labelled correctly, wetting saturation error, and relative error of the
-// w–n interfacial area measured as the number of w–n voxel face pairs (the
-// same estimator on both sides, so its bias cancels in the ratio).
+// w–n interfacial area as sluice reports it (pkg/measure: 13-direction
+// Crofton surface areas of the three phases, A_wn = (S_w + S_n − S_s)/2).
 type score struct {
 	poreAcc, dS, dA float64
 	sTrue, aTrue    float64
 }
 
-func scoreOf(got, truth *volume.Labels, c phase.Codes) score {
+func scoreOf(t testing.TB, got, truth *volume.Labels, c phase.Codes) score {
+	t.Helper()
 	var pore, ok float64
 	for i, tv := range truth.Pix {
 		if tv == c.Wetting || tv == c.Nonwetting {
@@ -65,46 +87,25 @@ func scoreOf(got, truth *volume.Labels, c phase.Codes) score {
 			}
 		}
 	}
-	sw := func(l *volume.Labels) float64 {
-		var w, n float64
-		for _, v := range l.Pix {
-			switch v {
-			case c.Wetting:
-				w++
-			case c.Nonwetting:
-				n++
-			}
-		}
-		return w / (w + n)
-	}
-	st := sw(truth)
-	at := facePairs(truth, c)
-	return score{poreAcc: ok / pore, dS: sw(got) - st, dA: facePairs(got, c)/at - 1, sTrue: st, aTrue: at}
+	at, st := croftonWN(t, truth)
+	ag, sg := croftonWN(t, got)
+	return score{poreAcc: ok / pore, dS: sg - st, dA: ag/at - 1, sTrue: st, aTrue: at}
 }
 
-func facePairs(l *volume.Labels, c phase.Codes) float64 {
-	s := l.Shape()
-	n := 0
-	pair := func(a, b uint8) bool {
-		return (a == c.Wetting && b == c.Nonwetting) || (a == c.Nonwetting && b == c.Wetting)
+// croftonWN returns the w–n interfacial area in voxel faces and the wetting
+// saturation, measured by pkg/measure (curvature and contact angles off).
+func croftonWN(t testing.TB, l *volume.Labels) (area, sw float64) {
+	t.Helper()
+	o := measure.Defaults()
+	o.SkipCurvature, o.SkipContact = true, true
+	r, err := measure.Volume(l, o, 0, 0)
+	if err != nil {
+		t.Fatal(err)
 	}
-	for z := 0; z < s[0]; z++ {
-		for y := 0; y < s[1]; y++ {
-			for x := 0; x < s[2]; x++ {
-				v := l.Pix[(z*s[1]+y)*s[2]+x]
-				if x+1 < s[2] && pair(v, l.Pix[(z*s[1]+y)*s[2]+x+1]) {
-					n++
-				}
-				if y+1 < s[1] && pair(v, l.Pix[(z*s[1]+y+1)*s[2]+x]) {
-					n++
-				}
-				if z+1 < s[0] && pair(v, l.Pix[((z+1)*s[1]+y)*s[2]+x]) {
-					n++
-				}
-			}
-		}
+	if r.SatWetting == nil {
+		t.Fatal("no pore space")
 	}
-	return float64(n)
+	return r.AreaWN / (l.VoxelSize * l.VoxelSize), *r.SatWetting
 }
 
 // pipeline runs the whole-volume pipeline: histogram, thresholds, segment.
@@ -135,62 +136,65 @@ func withFilter(fp forward.Params, method string) Params {
 }
 
 // referenceMask segments a brine-saturated reference scan of the same rock
-// (CNR 20, median filter, 2-class Otsu) into a solid mask.
+// into a solid mask, as practitioners do with the high-quality scan taken
+// before the flow experiment (long exposure: CNR 20, same point-spread
+// function). At CNR 20 the noise (σ = 500) is 1/16 of the half contrast
+// between brine and rock (8000), so no denoiser is needed, and a 3×3×3
+// median would cost more than it gives: it rounds off grain corners and
+// closes narrow pore corners (measured on the 128³ pack: 2579 pore voxels
+// called solid without a filter, ~3× more with the median). The threshold is
+// the Ridler–Calvard midpoint of the two class means (Isodata), which for
+// equal noise in both classes is the grey of the blurred edge at the true
+// boundary; Otsu would lean towards the larger class (the solid).
 func referenceMask(t testing.TB, truth *volume.Labels, fp forward.Params) *volume.Labels {
 	t.Helper()
 	c := phase.Default()
-	ref := truth.Clone()
-	for i, v := range ref.Pix {
-		if v == c.Nonwetting {
-			ref.Pix[i] = c.Wetting
-		}
-	}
 	rp := fp
 	rp.CNR, rp.Seed = 20, fp.Seed+1000
-	img, err := forward.Render(ref, rp)
+	img, err := forward.Render(idealMask(truth), rp)
 	if err != nil {
 		t.Fatal(err)
 	}
 	grey := forward.Uint16(img)
 	p := Defaults()
+	p.Filter.Method = "none"
 	h, err := Histogram(grey, grey.Box, p, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
-	tb, err := Otsu(h.Counts)
-	if err != nil {
-		t.Fatal(err)
-	}
-	// Refine to the mean of the two class means (Ridler & Calvard 1978,
-	// IEEE Trans. SMC 8:630): unlike Otsu it does not lean towards the
-	// larger class, which would push grain-surface voxels into the solid.
-	for it := 0; it < 50; it++ {
-		var n0, s0, n1, s1 float64
-		for i, c := range h.Counts {
-			if i <= tb {
-				n0, s0 = n0+float64(c), s0+float64(c)*float64(i)
-			} else {
-				n1, s1 = n1+float64(c), s1+float64(c)*float64(i)
-			}
-		}
-		nt := int((s0/n0 + s1/n1) / 2)
-		if nt == tb {
-			break
-		}
-		tb = nt
-	}
-	f, err := filtered(grey, grey.Box, p)
+	tb, err := Isodata(h.Counts)
 	if err != nil {
 		t.Fatal(err)
 	}
 	mask := volume.New[uint8](grey.Box, grey.VoxelSize)
-	for i, v := range f.Pix {
+	for i, v := range grey.Pix {
 		mask.Pix[i] = c.Wetting
 		if float64(v) > h.Centre(tb) {
 			mask.Pix[i] = c.Solid
 		}
 	}
 	return mask
+}
+
+// prefiltered runs the denoiser of p once over the whole scan and returns
+// the result as float32 with parameters that bin it exactly as p bins the
+// uint16 scan (1024 bins of 64 grey values from 0) and filter it no
+// further. The accuracy tests use it so that one NLM pass serves every
+// variant; the stages after the filter are the same code either way.
+func prefiltered(t testing.TB, grey *volume.Volume[uint16], p Params) *volume.Volume[float32] {
+	t.Helper()
+	f, err := filtered(grey, grey.Box, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return f
+}
+
+func unfiltered(p Params) Params {
+	p.Filter.Method = "none"
+	p.Range = [2]float64{0, 65536}
+	p.Bins = 1024
+	return p
 }
 
 type variant struct {
@@ -230,15 +234,18 @@ func idealMask(truth *volume.Labels) *volume.Labels {
 	return m
 }
 
-// TestAccuracyForwardModel scores the pipeline on forward-model scans at
-// CNR 3, 5 and 10 and asserts the targets at CNR 5 with non-local means.
+// TestAccuracyForwardModel scores the pipeline on forward-model scans of
+// the 128³ demo rock at CNR 3, 5 and 10 and asserts the targets at CNR 5 in
+// reference mode (mask from a rendered reference scan, NLM on the fast
+// scan); single-scan 3-class mode is only held to sanity bounds.
 func TestAccuracyForwardModel(t *testing.T) {
-	const n = 48
+	const n = 128
 	rows := ""
 	for _, cnr := range []float64{3, 5, 10} {
-		grey, truth, fp := scene(n, cnr, 42)
-		rows += fmt.Sprintf("scene seed 42: true S_w %.3f\n", scoreOf(truth, truth, phase.Default()).sTrue)
+		grey, truth, fp := packScene(n, 1, 5, cnr)
 		mask, ideal := referenceMask(t, truth, fp), idealMask(truth)
+		nlm := prefiltered(t, grey, withFilter(fp, "nlm"))
+		med := prefiltered(t, grey, withFilter(fp, "median"))
 		for _, v := range variants {
 			p := v.params(fp)
 			var m *volume.Labels
@@ -248,54 +255,62 @@ func TestAccuracyForwardModel(t *testing.T) {
 			if v.ideal {
 				m = ideal
 			}
-			lab, th := pipeline(t, grey, p, m)
-			sc := scoreOf(lab, truth, p.Codes)
-			rows += fmt.Sprintf("CNR %3.0f  %-24s pore %6.2f %%  ΔS_w %+7.4f  ΔA_wn %+6.1f %%  thresholds %v\n",
-				cnr, v.name, 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
-			if cnr == 5 && v.ideal {
+			f := nlm
+			if v.filter == "median" {
+				f = med
+			}
+			lab, th := pipeline(t, f, unfiltered(p), m)
+			sc := scoreOf(t, lab, truth, p.Codes)
+			rows += fmt.Sprintf("CNR %3.0f  %-24s pore %6.2f %%  ΔS_w %+7.4f  ΔA_wn %+6.1f %%  thresholds %v  (true S_w %.3f, A_wn %.0f)\n",
+				cnr, v.name, 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T, sc.sTrue, sc.aTrue)
+			switch {
+			case cnr == 5 && v.reference:
 				// Source: issue 3 targets (common practice for fluid segmentation quality).
 				if sc.poreAcc < 0.98 || math.Abs(sc.dS) > 0.01 || math.Abs(sc.dA) > 0.10 {
 					t.Errorf("CNR 5, %s: pore accuracy %.4f (want >= 0.98), ΔS %.4f (want |.| <= 0.01), ΔA %.3f (want |.| <= 0.10)", v.name, sc.poreAcc, sc.dS, sc.dA)
 				}
+			case !v.reference:
+				// Sanity bounds for single-scan 3-class mode (common practice:
+				// no target, but a broken stage would fall far below).
+				if sc.poreAcc < 0.90 || math.Abs(sc.dS) > 0.08 || sc.dA < -0.2 || sc.dA > 1.5 {
+					t.Errorf("CNR %g, %s: pore %.4f, ΔS %.4f, ΔA %.3f outside sanity bounds", cnr, v.name, sc.poreAcc, sc.dS, sc.dA)
+				}
 			}
 		}
 	}
-	t.Logf("accuracy on %d³ forward-model scans:\n%s", n, rows)
+	t.Logf("accuracy on %d³ forward-model scans (rock seed 1, step 5):\n%s", n, rows)
 }
 
-// TestAccuracyOtherScenes repeats the asserted CNR 5 case on other rocks
-// and drainage states and reports (seed 43 has S_w = 0.17: its bulk brine is
-// too scarce for a good fluid threshold, see the package doc).
+// TestAccuracyOtherScenes asserts the CNR 5 targets in reference mode with
+// a scan mask on another rock and drainage state (seed 2: more nonwetting,
+// S_w 0.29, hence more w–n interface in corners).
 func TestAccuracyOtherScenes(t *testing.T) {
-	for _, seed := range []uint64{43, 44} {
-		grey, truth, fp := scene(48, 5, seed)
-		p := variants[3].params(fp)
-		lab, th := pipeline(t, grey, p, idealMask(truth))
-		sc := scoreOf(lab, truth, p.Codes)
-		t.Logf("seed %d: true S_w %.3f, pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, threshold %v", seed, sc.sTrue, 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
-		if seed == 44 && (sc.poreAcc < 0.98 || math.Abs(sc.dS) > 0.01 || math.Abs(sc.dA) > 0.10) {
-			// Source: issue 3 targets.
-			t.Errorf("seed %d misses the CNR 5 targets", seed)
-		}
+	grey, truth, fp := packScene(128, 2, 5, 5)
+	p := variants[2].params(fp)
+	lab, th := pipeline(t, prefiltered(t, grey, p), unfiltered(p), referenceMask(t, truth, fp))
+	sc := scoreOf(t, lab, truth, p.Codes)
+	t.Logf("seed 2: true S_w %.3f, pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, threshold %v", sc.sTrue, 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
+	// Source: issue 3 targets.
+	if sc.poreAcc < 0.98 || math.Abs(sc.dS) > 0.01 || math.Abs(sc.dA) > 0.10 {
+		t.Errorf("seed 2 misses the CNR 5 targets: pore %.4f, ΔS %.4f, ΔA %.3f", sc.poreAcc, sc.dS, sc.dA)
 	}
 }
 
-// TestAccuracyWithArtefacts reports the asserted configuration on the
-// seed-42 scene with ring streaks (σ 300 grey, 0.3 of the noise) and a 5 %
-// intensity drift along z added by the forward model.
+// TestAccuracyWithArtefacts reports reference mode (scan mask) on the
+// seed-1 scene with ring streaks (σ 300 grey, 0.15 of the noise) and a 5 %
+// intensity drift along z added to the fast scan.
 func TestAccuracyWithArtefacts(t *testing.T) {
-	_, truth, fp := scene(48, 5, 42)
+	_, truth, fp := packScene(96, 1, 5, 5)
 	fp.Rings, fp.Drift = 300, 0.05
-	lab := truth.Clone()
-	img, err := forward.Render(lab, fp)
+	img, err := forward.Render(truth, fp)
 	if err != nil {
 		t.Fatal(err)
 	}
 	grey := forward.Uint16(img)
-	p := variants[3].params(fp)
-	seg, th := pipeline(t, grey, p, idealMask(truth))
-	sc := scoreOf(seg, truth, p.Codes)
-	t.Logf("rings 300 + drift 5 %%, CNR 5: pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, threshold %v", 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
+	p := variants[2].params(fp)
+	seg, th := pipeline(t, grey, p, referenceMask(t, truth, fp))
+	sc := scoreOf(t, seg, truth, p.Codes)
+	t.Logf("96³, rings 300 + drift 5 %%, CNR 5: pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, threshold %v", 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
 	// Source: issue 3 targets, relaxed (artefacts are not part of the target); common practice.
 	if sc.poreAcc < 0.95 {
 		t.Errorf("pore accuracy %.4f with artefacts", sc.poreAcc)
