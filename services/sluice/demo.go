@@ -6,6 +6,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"net"
 	"os"
 	"path/filepath"
 	"runtime"
@@ -67,6 +68,14 @@ func runDemo(args []string) int {
 	nf := nodeFlags{data: *data, http: *httpAddr, ackWait: 30 * time.Second, maxDeliver: 5}
 	f := ingestFlags{campaign: "demo-drainage", config: cfgPath, watch: incoming}
 	nctx, nstop := context.WithCancel(ctx)
+	// The default port may be taken (another sluice on this node): the demo
+	// then serves on any free port rather than failing.
+	if ln, err := net.Listen("tcp", nf.http); err == nil {
+		ln.Close()
+	} else if nf.http != "" {
+		fmt.Fprintf(stdout, "%s is busy; serving the live page on a free port instead\n", nf.http)
+		nf.http = "127.0.0.1:0"
+	}
 	node, err := startAll(nctx, nf, inputFlags{}, f, *workers, log)
 	if err != nil {
 		nstop()
