@@ -6,6 +6,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"log/slog"
 	"net"
 	"os"
 	"path/filepath"
@@ -40,6 +41,7 @@ func runDemo(args []string) int {
 	tile := fs.Int("tile", 128, "tile edge in voxels")
 	seed := fs.Uint64("seed", 1, "rock seed")
 	serve := fs.Bool("serve", false, "keep serving the live page after the campaign ends (Ctrl-C to stop)")
+	verbose := fs.Bool("v", false, "log every ingested and completed step")
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
@@ -48,7 +50,11 @@ func runDemo(args []string) int {
 	}
 	ctx, stop := signalContext()
 	defer stop()
-	log := logger()
+	level := slog.LevelWarn
+	if *verbose {
+		level = slog.LevelInfo
+	}
+	log := slog.New(slog.NewTextHandler(os.Stderr, &slog.HandlerOptions{Level: level}))
 	if err := resetDemoDir(*data); err != nil {
 		return fail(exitBadInput, "demo: %v", err)
 	}
