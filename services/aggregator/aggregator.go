@@ -19,7 +19,9 @@ import (
 	"fmt"
 	"io/fs"
 	"log/slog"
+	"path"
 	"sort"
+	"strconv"
 	"strings"
 	"sync"
 	"time"
@@ -66,7 +68,8 @@ type Aggregator struct {
 	// series files (TileDone and CompleteStep may run concurrently).
 	writing   sync.Mutex
 	started   time.Time
-	tileTimes []time.Time // recent tile arrivals, for tiles/s
+	tileTimes []time.Time               // recent tile arrivals, for tiles/s
+	arrived   map[string]map[int32]bool // tiles seen per (step, hash) tile prefix
 	lastLat   float64
 }
 
@@ -214,7 +217,10 @@ func (a *Aggregator) TileDone(ctx context.Context, d *sluicepb.TileDone) error {
 	if err != nil {
 		return err
 	}
-	keys, err := a.Store.List(ctx, prefix)
+	// Count arrivals in memory and list the store only the first time a
+	// (step, hash) is seen by this process (tiles stored before a restart)
+	// and when the count says the step is complete — not on every tile.
+	n, err := a.arrive(ctx, prefix, d.Tile)
 	if err != nil {
 		return err
 	}
@@ -228,7 +234,7 @@ func (a *Aggregator) TileDone(ctx context.Context, d *sluicepb.TileDone) error {
 	if current {
 		st := cs.step(d.Step)
 		st.tiles[d.Tile] = true
-		st.TilesDone, st.TilesTotal, st.TimeS = len(keys), int(d.TileCount), d.TimeS
+		st.TilesDone, st.TilesTotal, st.TimeS = n, int(d.TileCount), d.TimeS
 		if st.Status != "done" {
 			st.Status = "processing"
 		}
@@ -239,11 +245,60 @@ func (a *Aggregator) TileDone(ctx context.Context, d *sluicepb.TileDone) error {
 		a.tileTimes = a.tileTimes[256:]
 	}
 	a.mu.Unlock()
-	if len(keys) < int(d.TileCount) {
-		a.publish("progress", map[string]any{"campaign": d.Campaign, "step": d.Step, "tiles_done": len(keys), "tiles_total": d.TileCount})
+	if n < int(d.TileCount) {
+		a.publish("progress", map[string]any{"campaign": d.Campaign, "step": d.Step, "tiles_done": n, "tiles_total": d.TileCount})
 		return nil
 	}
-	return a.complete(ctx, step, d.ParamHash, keys, d)
+	keys, err := a.Store.List(ctx, prefix)
+	if err != nil {
+		return err
+	}
+	if len(keys) < int(d.TileCount) {
+		a.forget(prefix) // the count ran ahead of the store: recount next time
+		return nil
+	}
+	err = a.complete(ctx, step, d.ParamHash, keys, d)
+	if err == nil {
+		a.forget(prefix)
+	}
+	return err
+}
+
+// arrive records a tile of the step whose tile results live under prefix
+// and returns how many distinct tiles have arrived.
+func (a *Aggregator) arrive(ctx context.Context, prefix string, tile int32) (int, error) {
+	a.mu.Lock()
+	set, ok := a.arrived[prefix]
+	a.mu.Unlock()
+	if !ok {
+		keys, err := a.Store.List(ctx, prefix)
+		if err != nil {
+			return 0, err
+		}
+		set = map[int32]bool{}
+		for _, k := range keys {
+			if i, err := strconv.Atoi(strings.TrimSuffix(path.Base(k), ".json")); err == nil {
+				set[int32(i)] = true
+			}
+		}
+	}
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if a.arrived == nil {
+		a.arrived = map[string]map[int32]bool{}
+	}
+	if old, ok := a.arrived[prefix]; ok {
+		set = old
+	}
+	set[tile] = true
+	a.arrived[prefix] = set
+	return len(set), nil
+}
+
+func (a *Aggregator) forget(prefix string) {
+	a.mu.Lock()
+	delete(a.arrived, prefix)
+	a.mu.Unlock()
 }
 
 // complete merges the tiles of a finished step.
