@@ -9,6 +9,8 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -161,4 +163,82 @@ func TestPipelineTilingInvariance(t *testing.T) {
 			compareResults(t, fmt.Sprintf("tile %d", tile), &got, want)
 		})
 	}
+}
+
+// TestBadScanDoesNotStopCampaign: a truncated scan in the watched
+// directory gets one clear log line naming the file; nothing stored is
+// lost and the next scan is processed (the campaign continues).
+func TestBadScanDoesNotStopCampaign(t *testing.T) {
+	if testing.Short() {
+		t.Skip("pipeline test")
+	}
+	grey := pipelineScene(t, [3]int{40, 40, 40}, 9)
+	data := t.TempDir()
+	cfg := campaign.Default()
+	cfg.DetectSample = false
+	cfg.Tile = 40
+	cfg.Measure.SkipContact = true
+	cfgPath := filepath.Join(data, "c.json")
+	if err := writeDemoConfig(cfgPath, cfg); err != nil {
+		t.Fatal(err)
+	}
+	var logBuf syncBuffer
+	log := slog.New(slog.NewTextHandler(&logBuf, nil))
+	ctx, cancel := context.WithCancel(context.Background())
+	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
+	f := ingestFlags{campaign: "bad", config: cfgPath, watch: filepath.Join(data, "incoming")}
+	node, err := startAll(ctx, nf, inputFlags{}, f, 2, log)
+	if err != nil {
+		cancel()
+		t.Fatal(err)
+	}
+	defer func() { cancel(); node.wg.Wait() }()
+	st, _ := nf.openStore(ctx)
+	writeScanFile(t, f.watch, "scan-0001", grey, 0)
+	waitRows(t, st, "bad", 1, 2*time.Minute)
+	before, _ := st.Get(ctx, "campaigns/bad/series.json")
+
+	// A scan cut short by a failed transfer, handed over with its marker.
+	staging := t.TempDir()
+	writeScanFile(t, staging, "scan-0002", grey, 45)
+	b, _ := os.ReadFile(filepath.Join(staging, "scan-0002.raw"))
+	hdr, _ := os.ReadFile(filepath.Join(staging, "scan-0002.raw.sluice.json"))
+	os.WriteFile(filepath.Join(f.watch, "scan-0002.raw"), b[:len(b)/3], 0o644)
+	os.WriteFile(filepath.Join(f.watch, "scan-0002.raw.sluice.json"), hdr, 0o644)
+	os.WriteFile(filepath.Join(f.watch, "scan-0002.raw.done"), nil, 0o644)
+	writeScanFile(t, f.watch, "scan-0003", grey, 90)
+	rows := waitRows(t, st, "bad", 2, 2*time.Minute)
+	if rows[0].Step != "scan-0001" || rows[1].Step != "scan-0003" {
+		t.Errorf("rows %s, %s; want scan-0001, scan-0003", rows[0].Step, rows[1].Step)
+	}
+	after, _ := st.Get(ctx, "campaigns/bad/steps/scan-0001/result.json")
+	if len(before) == 0 || len(after) == 0 {
+		t.Errorf("earlier results lost")
+	}
+	var line string
+	for _, l := range strings.Split(logBuf.String(), "\n") {
+		if strings.Contains(l, "scan-0002.raw") && strings.Contains(l, "level=ERROR") {
+			line = l
+		}
+	}
+	if line == "" || !strings.Contains(line, "truncated") {
+		t.Errorf("no error line naming scan-0002.raw and the problem; log:\n%s", logBuf.String())
+	}
+}
+
+type syncBuffer struct {
+	mu sync.Mutex
+	b  strings.Builder
+}
+
+func (s *syncBuffer) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.Write(p)
+}
+
+func (s *syncBuffer) String() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.String()
 }
