@@ -38,6 +38,9 @@ type Publisher interface {
 	PublishTask(ctx context.Context, t *sluicepb.TileTask) error
 }
 
+// ErrDone is returned for a scan whose step is already stored and measured.
+var ErrDone = errors.New("step already ingested and measured")
+
 // Ingester ingests steps.
 type Ingester struct {
 	Store    Store
@@ -99,7 +102,7 @@ func EnsureCampaign(ctx context.Context, st Store, name string, cfg campaign.Con
 func (in *Ingester) Ingest(ctx context.Context, req Request) (*sluicepb.StepReady, error) {
 	start := time.Now()
 	ready, err := in.ingest(ctx, req)
-	if in.Metrics != nil {
+	if in.Metrics != nil && !errors.Is(err, ErrDone) {
 		if err != nil {
 			in.Metrics.Rejected.Inc()
 		} else {
@@ -120,23 +123,57 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 		return nil, err
 	}
 	cfg := rec.Config
-	man, err := in.store(ctx, step, req, cfg)
-	if err != nil {
+	// A step already stored (a watcher restarted over the same directory,
+	// a crash between storing and queueing) is never overwritten: it is
+	// resumed — planned if needed, and only the tiles without a result are
+	// queued — or skipped when its result exists.
+	var man campaign.Manifest
+	var plan campaign.Plan
+	var todo []int
+	resumed := false
+	if b, err := in.Store.Get(ctx, step.Manifest()); err == nil {
+		if err := json.Unmarshal(b, &man); err != nil {
+			return nil, fmt.Errorf("ingest: %s: %v", step.Manifest(), err)
+		}
+		if man.Source != req.Path {
+			return nil, fmt.Errorf("ingest: %s: step %s of campaign %s already holds %s; give this scan another step name", req.Path, step.Name(), step.Campaign().Name(), man.Source)
+		}
+		if b, err := in.Store.Get(ctx, campaign.RunResultKey(step, rec.Current)); err == nil && len(b) > 0 {
+			return nil, fmt.Errorf("ingest: %s: %w", req.Path, ErrDone)
+		}
+		if pb, err := in.Store.Get(ctx, campaign.PlanKey(step, rec.Current)); err == nil && json.Unmarshal(pb, &plan) == nil {
+			resumed = true
+		}
+	} else if !errors.Is(err, fs.ErrNotExist) {
+		return nil, err
+	} else if man, err = in.store(ctx, step, req, cfg); err != nil {
 		return nil, err
 	}
-	plan, err := PlanStep(ctx, in.Store, man, cfg, in.Workers, in.Version)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %s: pass 1: %w", req.Path, err)
-	}
-	plan.Priority = priorityName(req.Priority)
-	if err := putJSON(ctx, in.Store, campaign.PlanKey(step, plan.ParamHash), plan); err != nil {
-		return nil, err
+	if !resumed {
+		var err error
+		if plan, err = PlanStep(ctx, in.Store, man, cfg, in.Workers, in.Version); err != nil {
+			return nil, fmt.Errorf("ingest: %s: pass 1: %w", req.Path, err)
+		}
+		plan.Priority = priorityName(req.Priority)
+		if err := putJSON(ctx, in.Store, campaign.PlanKey(step, plan.ParamHash), plan); err != nil {
+			return nil, err
+		}
+	} else {
+		for i := 0; i < plan.Tiles; i++ {
+			rk, _ := step.TileResult(i, plan.ParamHash)
+			if _, err := in.Store.Get(ctx, rk); err != nil {
+				todo = append(todo, i)
+			}
+		}
+		if len(todo) == 0 {
+			todo = []int{plan.Tiles - 1} // all stored: one result re-announced completes the step
+		}
 	}
 	labels := step.Labels()
 	if plan.ParamHash != rec.Current {
 		labels = campaign.RunLabelsKey(step, plan.ParamHash)
 	}
-	if err := PublishTiles(ctx, in.Queue, man, plan, labels, req.Priority, in.Metrics); err != nil {
+	if err := PublishTileSet(ctx, in.Queue, man, plan, labels, req.Priority, in.Metrics, todo); err != nil {
 		return nil, err
 	}
 	ready := &sluicepb.StepReady{Campaign: step.Campaign().Name(), Step: step.Name(), ManifestKey: step.Manifest(),

@@ -242,3 +242,59 @@ func (s *syncBuffer) String() string {
 	defer s.mu.Unlock()
 	return s.b.String()
 }
+
+// TestRestartOverSameDirectory: `sluice run` restarted over the same data
+// and watched directories neither redoes nor loses finished steps, and
+// picks up new scans.
+func TestRestartOverSameDirectory(t *testing.T) {
+	if testing.Short() {
+		t.Skip("pipeline test")
+	}
+	grey := pipelineScene(t, [3]int{40, 40, 40}, 11)
+	data := t.TempDir()
+	cfg := campaign.Default()
+	cfg.DetectSample = false
+	cfg.Tile = 40
+	cfg.Measure.SkipContact = true
+	cfgPath := filepath.Join(data, "c.json")
+	if err := writeDemoConfig(cfgPath, cfg); err != nil {
+		t.Fatal(err)
+	}
+	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
+	f := ingestFlags{campaign: "restart", config: cfgPath, watch: filepath.Join(data, "incoming")}
+	run := func() (func(), *syncBuffer) {
+		var logBuf syncBuffer
+		ctx, cancel := context.WithCancel(context.Background())
+		node, err := startAll(ctx, nf, inputFlags{}, f, 2, slog.New(slog.NewTextHandler(&logBuf, nil)))
+		if err != nil {
+			cancel()
+			t.Fatal(err)
+		}
+		return func() { cancel(); node.wg.Wait() }, &logBuf
+	}
+	stop, _ := run()
+	writeScanFile(t, f.watch, "scan-0001", grey, 0)
+	writeScanFile(t, f.watch, "scan-0002", grey, 45)
+	st, _ := nf.openStore(context.Background())
+	waitRows(t, st, "restart", 2, 2*time.Minute)
+	stop()
+	ctx := context.Background()
+	first, _ := st.Get(ctx, "campaigns/restart/steps/scan-0001/result.json")
+	fi1, _ := os.Stat(filepath.Join(data, "store", "campaigns", "restart", "steps", "scan-0001", "volume.zarr", ".zarray"))
+
+	stop, logs := run()
+	defer stop()
+	writeScanFile(t, f.watch, "scan-0003", grey, 90)
+	rows := waitRows(t, st, "restart", 3, 2*time.Minute)
+	if len(rows) != 3 || rows[2].Step != "scan-0003" {
+		t.Fatalf("rows after restart: %d", len(rows))
+	}
+	again, _ := st.Get(ctx, "campaigns/restart/steps/scan-0001/result.json")
+	fi2, _ := os.Stat(filepath.Join(data, "store", "campaigns", "restart", "steps", "scan-0001", "volume.zarr", ".zarray"))
+	if string(first) != string(again) || fi1 == nil || fi2 == nil || !fi1.ModTime().Equal(fi2.ModTime()) {
+		t.Errorf("a finished step was rewritten after the restart")
+	}
+	if !strings.Contains(logs.String(), "already measured") {
+		t.Errorf("restart did not report the finished scans as skipped:\n%s", logs.String())
+	}
+}

@@ -174,6 +174,10 @@ func watchAndIngest(ctx context.Context, ing *ingest.Ingester, f ingestFlags, lo
 		t0 := time.Now()
 		r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path, TimeS: a.TimeS, HasTime: a.HasTime,
 			Priority: sluicepb.Priority_PRIORITY_LIVE})
+		if errors.Is(err, ingest.ErrDone) {
+			log.Info("scan already measured; skipped", "path", a.Path, "step", a.Step)
+			return nil
+		}
 		if err != nil {
 			return err
 		}
