@@ -13,14 +13,16 @@ func ParseLength(s string) (float64, error) {
 	t := strings.TrimSpace(s)
 	t = strings.ReplaceAll(t, "µ", "u")
 	t = strings.ReplaceAll(t, "μ", "u")
-	scale := 1e-6
+	// Divide by the unit's inverse: 2.5/1e6 is the double nearest to
+	// 2.5e-6, 2.5*1e-6 is not always.
+	per := 1e6
 	for _, u := range []struct {
 		suffix string
-		scale  float64
-	}{{"nm", 1e-9}, {"um", 1e-6}, {"mm", 1e-3}, {"m", 1}} {
+		per    float64
+	}{{"nm", 1e9}, {"um", 1e6}, {"mm", 1e3}, {"m", 1}} {
 		if strings.HasSuffix(t, u.suffix) {
 			t = strings.TrimSpace(strings.TrimSuffix(t, u.suffix))
-			scale = u.scale
+			per = u.per
 			break
 		}
 	}
@@ -28,7 +30,7 @@ func ParseLength(s string) (float64, error) {
 	if err != nil || v <= 0 || v != v || v > 1e300 {
 		return 0, fmt.Errorf("volume: bad length %q (want a positive number with nm, um, mm or m)", s)
 	}
-	return v * scale, nil
+	return v / per, nil
 }
 
 // FormatLength prints a length in metres with a convenient unit.
