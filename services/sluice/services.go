@@ -13,8 +13,12 @@ import (
 	"syscall"
 	"time"
 
+	"github.com/prometheus/client_golang/prometheus"
+
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
+	"sluice/pkg/queue"
+	"sluice/pkg/store"
 	"sluice/pkg/telemetry"
 	"sluice/pkg/web"
 	"sluice/proto/sluicepb"
@@ -48,6 +52,36 @@ func loadConfig(path string) (campaign.Config, error) {
 	return campaign.Load(path)
 }
 
+// conn is what a standalone service process holds: a signal-aware
+// context, the store, the queue and a metrics registry.
+type conn struct {
+	ctx   context.Context
+	close func()
+	log   *slog.Logger
+	st    store.Store
+	q     *queue.Queue
+	reg   *prometheus.Registry
+}
+
+// connect opens the store and the queue (never an embedded server) for
+// the command what; on failure it prints the error and returns the exit
+// status.
+func (nf nodeFlags) connect(what string) (*conn, int) {
+	ctx, stop := signalContext()
+	log := logger()
+	st, err := nf.openStore(ctx)
+	if err != nil {
+		stop()
+		return nil, fail(exitBadInput, "%s: %v", what, err)
+	}
+	q, _, err := nf.openQueue(ctx, false, log)
+	if err != nil {
+		stop()
+		return nil, fail(exitBadInput, "%s: %v", what, err)
+	}
+	return &conn{ctx: ctx, close: func() { q.Close(); stop() }, log: log, st: st, q: q, reg: registry()}, exitOK
+}
+
 // runWorker is `sluice worker`.
 func runWorker(args []string) int {
 	fs := flag.NewFlagSet("worker", flag.ContinueOnError)
@@ -58,19 +92,12 @@ func runWorker(args []string) int {
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
-	ctx, stop := signalContext()
-	defer stop()
-	log := logger()
-	st, err := nf.openStore(ctx)
-	if err != nil {
-		return fail(exitBadInput, "worker: %v", err)
+	c, code := nf.connect("worker")
+	if c == nil {
+		return code
 	}
-	q, _, err := nf.openQueue(ctx, false, log)
-	if err != nil {
-		return fail(exitBadInput, "worker: %v", err)
-	}
-	defer q.Close()
-	reg := registry()
+	defer c.close()
+	ctx, st, q, reg, log := c.ctx, c.st, c.q, c.reg, c.log
 	m := telemetry.NewWorker(reg)
 	addr, err := serveHTTP(ctx, nf.http, nil, reg, nil, log)
 	if err != nil {
@@ -97,19 +124,12 @@ func runAggregate(args []string) int {
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
-	ctx, stop := signalContext()
-	defer stop()
-	log := logger()
-	st, err := nf.openStore(ctx)
-	if err != nil {
-		return fail(exitBadInput, "aggregate: %v", err)
+	c, code := nf.connect("aggregate")
+	if c == nil {
+		return code
 	}
-	q, _, err := nf.openQueue(ctx, false, log)
-	if err != nil {
-		return fail(exitBadInput, "aggregate: %v", err)
-	}
-	defer q.Close()
-	reg := registry()
+	defer c.close()
+	ctx, st, q, reg, log := c.ctx, c.st, c.q, c.reg, c.log
 	a, m, hub, err := newAggregator(ctx, st, q, reg, log)
 	if err != nil {
 		return fail(exitFailure, "aggregate: %v", err)
@@ -206,19 +226,12 @@ func runIngest(args []string) int {
 	if (len(pos) == 1) == (f.watch != "") {
 		return fail(exitBadInput, "ingest: give either one FILE or --watch DIR")
 	}
-	ctx, stop := signalContext()
-	defer stop()
-	log := logger()
-	st, err := nf.openStore(ctx)
-	if err != nil {
-		return fail(exitBadInput, "ingest: %v", err)
+	c, code := nf.connect("ingest")
+	if c == nil {
+		return code
 	}
-	q, _, err := nf.openQueue(ctx, false, log)
-	if err != nil {
-		return fail(exitBadInput, "ingest: %v", err)
-	}
-	defer q.Close()
-	reg := registry()
+	defer c.close()
+	ctx, st, q, reg, log := c.ctx, c.st, c.q, c.reg, c.log
 	m := telemetry.NewIngest(reg)
 	ready := func(r *sluicepb.StepReady) { q.PublishStepReady(ctx, r) }
 	ing, err := startIngest(ctx, f, in, st, taskPublisher{q}, ready, m, log)
