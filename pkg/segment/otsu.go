@@ -152,6 +152,11 @@ type Thresholds struct {
 	Method string `json:"method"`
 	// SolidGrey is μ_s for the partial-volume correction (0 when off).
 	SolidGrey float64 `json:"solid_grey,omitempty"`
+	// NonwettingGrey and WettingGrey are μ_n and μ_w for the local-fluid
+	// passes (peaks of the fluid classes of the merged histogram; 0 when
+	// off).
+	NonwettingGrey float64 `json:"nonwetting_grey,omitempty"`
+	WettingGrey    float64 `json:"wetting_grey,omitempty"`
 	// Sample is the cylinder used (copied from Params).
 	Sample Sample `json:"sample"`
 }
@@ -201,19 +206,42 @@ func ComputeThresholds(h Hist, p Params) (Thresholds, error) {
 					lo = binOf(th.T[1], h.Lo, h.Width, len(h.Counts)) + 1
 				}
 			}
-			peak := -1
-			for i := lo; i < hi && i < len(counts); i++ {
-				if peak < 0 || counts[i] > counts[peak] {
-					peak = i
-				}
-			}
-			if peak < 0 || counts[peak] == 0 {
+			peak := peakBin(counts, lo, hi)
+			if peak < 0 {
 				return Thresholds{}, fmt.Errorf("segment: no solid voxels in the histogram for the partial-volume correction (set partial_volume.solid_grey)")
 			}
 			th.SolidGrey = h.Centre(peak)
 		}
 	}
+	if p.PartialVolume.LocalFluid > 0 {
+		// Peaks of the three classes of the 3-class split, in grey order.
+		cut := []int{0, binOf(th.T[0], h.Lo, h.Width, len(h.Counts)) + 1, binOf(th.T[1], h.Lo, h.Width, len(h.Counts)) + 1, len(h.Counts)}
+		for k := 0; k < 3; k++ {
+			peak := peakBin(h.Counts, cut[k], cut[k+1])
+			if peak < 0 {
+				return Thresholds{}, fmt.Errorf("segment: class %d of the 3-class split is empty; local-fluid passes need the grey of both fluids", k)
+			}
+			switch p.Order[k] {
+			case 'n':
+				th.NonwettingGrey = h.Centre(peak)
+			case 'w':
+				th.WettingGrey = h.Centre(peak)
+			}
+		}
+	}
 	return th, nil
+}
+
+// peakBin returns the fullest bin of counts[lo:hi] (the first of equals), or
+// −1 when they are all empty.
+func peakBin(counts []int64, lo, hi int) int {
+	peak := -1
+	for i := max(lo, 0); i < hi && i < len(counts); i++ {
+		if counts[i] > 0 && (peak < 0 || counts[i] > counts[peak]) {
+			peak = i
+		}
+	}
+	return peak
 }
 
 // DetectSample finds the cylindrical sample from the column statistics of a

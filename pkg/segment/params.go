@@ -49,6 +49,12 @@ type PartialVolume struct {
 	// MaxFraction caps b (default 0.6): nearer the solid the correction
 	// amplifies noise more than it removes bias.
 	MaxFraction float64 `json:"max_fraction,omitempty" yaml:"max_fraction,omitempty"`
+	// LocalFluid is the number of local-fluid passes in 3-class mode (0 =
+	// off, default 0; 1 or 2 recommended with Blur set): each pass redraws
+	// the solid mask at the 50 % blurred-solid level for the fluid found
+	// around each voxel by the previous pass, then redoes the correction
+	// (see the package doc). Each pass adds 2·PVHalo() to the halo.
+	LocalFluid int `json:"local_fluid,omitempty" yaml:"local_fluid,omitempty"`
 }
 
 // PVHalo returns the halo the partial-volume correction adds.
@@ -198,6 +204,9 @@ func (p Params) Validate() error {
 	if pv.Blur < 0 || pv.Blur > 5 || math.IsNaN(pv.Blur) || math.IsNaN(pv.SolidGrey) || math.IsInf(pv.SolidGrey, 0) || (pv.Blur > 0 && !(pv.MaxFraction > 0 && pv.MaxFraction < 1)) {
 		return fmt.Errorf("segment: partial volume blur %g must be in 0..5 with max fraction in (0,1) (got %g)", pv.Blur, pv.MaxFraction)
 	}
+	if pv.LocalFluid < 0 || pv.LocalFluid > 4 || (pv.LocalFluid > 0 && (pv.Blur == 0 || p.Reference)) {
+		return fmt.Errorf("segment: partial volume local_fluid %d must be in 0..4, and above 0 only with blur > 0 in 3-class mode", pv.LocalFluid)
+	}
 	if pv.Blur > 0 && !p.Reference && p.Order[1] == 's' {
 		return fmt.Errorf("segment: partial-volume correction needs the solid darkest or brightest (order %q) or reference mode", p.Order)
 	}
@@ -227,10 +236,10 @@ func (p Params) FilterHalo() int {
 }
 
 // Halo returns the halo a tile needs for Segment to equal the whole-volume
-// result: filter halo + partial-volume blur radius + hysteresis steps +
-// (MinIsland − 1).
+// result: filter halo + partial-volume blur radius·(1 + 2·LocalFluid) +
+// hysteresis steps + (MinIsland − 1).
 func (p Params) Halo() int {
-	h := p.FilterHalo() + p.PVHalo()
+	h := p.FilterHalo() + p.PVHalo()*(1+2*p.PartialVolume.LocalFluid)
 	if p.Hysteresis.Band > 0 {
 		h += p.Hysteresis.Steps
 	}

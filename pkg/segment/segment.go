@@ -51,7 +51,17 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	}
 	l2 := core.Grow(isl).Intersect(gb)
 	l1 := l2.Grow(steps).Intersect(gb)
-	l0 := l1.Grow(p.PVHalo()).Intersect(gb)
+	// Each local-fluid pass needs the previous labels over its box grown by
+	// the blur radius (local fluid grey) and its solid mask over that box
+	// grown once more (blurred solid fraction): boxes[k] holds the labels of
+	// pass k, boxes[0] those of the plain pass, boxes[passes] = l1.
+	passes := p.PartialVolume.LocalFluid
+	boxes := make([]volume.Box, passes+1)
+	boxes[passes] = l1
+	for k := passes - 1; k >= 0; k-- {
+		boxes[k] = boxes[k+1].Grow(2 * p.PVHalo()).Intersect(gb)
+	}
+	l0 := boxes[0].Grow(p.PVHalo()).Intersect(gb)
 	if p.Reference {
 		if err := checkMask(solid, l0); err != nil {
 			return nil, err
@@ -62,10 +72,18 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 		return nil, err
 	}
 	c := classifier(p, th)
-	// g is the fluid grey over l1: the filtered grey, corrected for the
-	// blurred solid when the partial-volume correction is on.
-	g := f.Crop(l1, 0)
+	if passes > 0 {
+		// The corrected fluid grey is bimodal at μ_n and μ_w with the same
+		// noise: split it at the midpoint (Ridler–Calvard's fixed point for
+		// equal spreads) rather than at the 3-class Otsu threshold, which
+		// the partial-volume voxels of the raw histogram pull aside.
+		c.ft = (th.NonwettingGrey + th.WettingGrey) / 2
+	}
+	var lab *volume.Labels
+	var g *volume.Volume[float32]
 	if p.PartialVolume.Blur > 0 {
+		// Solid indicator of the plain pass over l0: the reference mask or
+		// the solid class of the filtered grey.
 		ind := volume.New[float32](l0, 0)
 		i := 0
 		for z := l0.Min[0]; z < l0.Max[0]; z++ {
@@ -84,37 +102,37 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 				}
 			}
 		}
-		b, err := filter.Gaussian(ind, l1, p.PartialVolume.Blur, filter.DefaultTruncate)
-		if err != nil {
-			return nil, err
-		}
-		ms, bmax := float32(th.SolidGrey), float32(p.PartialVolume.MaxFraction)
-		for i, v := range g.Pix {
-			bf := min(b.Pix[i], bmax)
-			g.Pix[i] = (v - ms*bf) / (1 - bf)
-		}
-	}
-	lab := volume.New[uint8](l1, grey.EdgeLength())
-	i := 0
-	for z := l1.Min[0]; z < l1.Max[0]; z++ {
-		for y := l1.Min[1]; y < l1.Max[1]; y++ {
-			for x := l1.Min[2]; x < l1.Max[2]; x++ {
-				switch {
-				case !p.Sample.Inside(y, x):
-					lab.Pix[i] = phase.Outside
-				case p.Reference && !poreMask(solid, p, z, y, x):
-					if solid.At(z, y, x) == phase.Outside {
-						lab.Pix[i] = phase.Outside
-					} else {
-						lab.Pix[i] = p.Codes.Solid
-					}
-				default:
-					lab.Pix[i] = c.code(float64(f.At(z, y, x)), float64(g.Pix[i]))
+		for k := 0; k <= passes; k++ {
+			if k > 0 {
+				if ind, err = localFluidSolid(f, lab, boxes[k].Grow(p.PVHalo()).Intersect(gb), th, p); err != nil {
+					return nil, err
 				}
-				i++
+			}
+			if lab, g, err = pvLabels(f, ind, boxes[k], th, p, c, solid); err != nil {
+				return nil, err
+			}
+		}
+	} else {
+		g = f.Crop(l1, 0)
+		lab = volume.New[uint8](l1, grey.EdgeLength())
+		i := 0
+		for z := l1.Min[0]; z < l1.Max[0]; z++ {
+			for y := l1.Min[1]; y < l1.Max[1]; y++ {
+				for x := l1.Min[2]; x < l1.Max[2]; x++ {
+					switch {
+					case !p.Sample.Inside(y, x):
+						lab.Pix[i] = phase.Outside
+					case p.Reference && !poreMask(solid, p, z, y, x):
+						lab.Pix[i] = maskCode(solid, p, z, y, x)
+					default:
+						lab.Pix[i] = c.codes[c.class(float64(g.Pix[i]))]
+					}
+					i++
+				}
 			}
 		}
 	}
+	lab.VoxelSize = grey.EdgeLength()
 	if steps > 0 {
 		c.hysteresis(lab, g, steps)
 	}
@@ -124,14 +142,124 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	return lab.Crop(core, 0), nil
 }
 
+// maskCode is the label of a voxel the reference mask puts outside the pore
+// space: phase.Outside or solid.
+func maskCode(solid *volume.Labels, p Params, z, y, x int) uint8 {
+	if solid.At(z, y, x) == phase.Outside {
+		return phase.Outside
+	}
+	return p.Codes.Solid
+}
+
+// pvLabels labels box out with the partial-volume correction: ind is the
+// solid indicator (1 solid, 0 not) over a box holding out grown by the blur
+// radius (clipped to the scan); solid voxels of ind are labelled solid, the
+// others take the fluid class of their corrected grey. It returns the labels
+// and the corrected fluid grey over out.
+func pvLabels(f, ind *volume.Volume[float32], out volume.Box, th Thresholds, p Params, c *classes, mask *volume.Labels) (*volume.Labels, *volume.Volume[float32], error) {
+	b, err := filter.Gaussian(ind, out, p.PartialVolume.Blur, filter.DefaultTruncate)
+	if err != nil {
+		return nil, nil, err
+	}
+	g := f.Crop(out, 0)
+	ms, bmax := float32(th.SolidGrey), float32(p.PartialVolume.MaxFraction)
+	for i, v := range g.Pix {
+		bf := min(b.Pix[i], bmax)
+		g.Pix[i] = (v - ms*bf) / (1 - bf)
+	}
+	lab := volume.New[uint8](out, 0)
+	i := 0
+	for z := out.Min[0]; z < out.Max[0]; z++ {
+		for y := out.Min[1]; y < out.Max[1]; y++ {
+			for x := out.Min[2]; x < out.Max[2]; x++ {
+				switch {
+				case !p.Sample.Inside(y, x):
+					lab.Pix[i] = phase.Outside
+				case p.Reference && !poreMask(mask, p, z, y, x):
+					lab.Pix[i] = maskCode(mask, p, z, y, x)
+				case !p.Reference && ind.At(z, y, x) == 1:
+					lab.Pix[i] = p.Codes.Solid
+				default:
+					lab.Pix[i] = c.fluid(float64(g.Pix[i]))
+				}
+				i++
+			}
+		}
+	}
+	return lab, g, nil
+}
+
+// localFluidSolid re-draws the solid mask over box out from the labels lab
+// of the previous pass (covering out grown by the blur radius, clipped to the
+// scan): with a_n and a_w the PSF-weighted amounts of nonwetting and wetting
+// voxels around a voxel (its own label left out), the local fluid grey is
+// m = (a_n·μ_n + a_w·μ_w)/(a_n + a_w), and the voxel is solid when its
+// filtered grey lies nearer μ_s than m — the 50 % level of the blurred solid
+// fraction in a local two-phase mixture v = b·μ_s + (1 − b)·m. Voxels with
+// no fluid around them (a_n + a_w below 1e-3) keep the previous label.
+func localFluidSolid(f *volume.Volume[float32], lab *volume.Labels, out volume.Box, th Thresholds, p Params) (*volume.Volume[float32], error) {
+	cs := p.Codes
+	nInd := volume.New[float32](lab.Box, 0)
+	wInd := volume.New[float32](lab.Box, 0)
+	for i, l := range lab.Pix {
+		switch l {
+		case cs.Nonwetting:
+			nInd.Pix[i] = 1
+		case cs.Wetting:
+			wInd.Pix[i] = 1
+		}
+	}
+	an, err := filter.Gaussian(nInd, out, p.PartialVolume.Blur, filter.DefaultTruncate)
+	if err != nil {
+		return nil, err
+	}
+	aw, err := filter.Gaussian(wInd, out, p.PartialVolume.Blur, filter.DefaultTruncate)
+	if err != nil {
+		return nil, err
+	}
+	k := filter.GaussianKernel(p.PartialVolume.Blur, filter.DefaultTruncate)
+	w0 := float32(k[0] * k[0] * k[0])
+	mn, mw, ms := float32(th.NonwettingGrey), float32(th.WettingGrey), float32(th.SolidGrey)
+	ind := volume.New[float32](out, 0)
+	i := 0
+	for z := out.Min[0]; z < out.Max[0]; z++ {
+		for y := out.Min[1]; y < out.Max[1]; y++ {
+			for x := out.Min[2]; x < out.Max[2]; x++ {
+				j := lab.Index(z, y, x)
+				a, b := an.Pix[i]-w0*nInd.Pix[j], aw.Pix[i]-w0*wInd.Pix[j]
+				v := f.At(z, y, x)
+				switch {
+				case lab.Pix[j] == phase.Outside:
+				case a+b < 1e-3:
+					if lab.Pix[j] == cs.Solid {
+						ind.Pix[i] = 1
+					}
+				default:
+					m := (a*mn + b*mw) / (a + b)
+					if abs32(v-ms) < abs32(v-m) {
+						ind.Pix[i] = 1
+					}
+				}
+				i++
+			}
+		}
+	}
+	return ind, nil
+}
+
+func abs32(v float32) float32 {
+	if v < 0 {
+		return -v
+	}
+	return v
+}
+
 // classes maps grey values to phase codes.
 type classes struct {
 	t     []float64
 	codes []uint8 // codes of the classes, darkest first
-	// Fluid split on the (corrected) fluid grey: fluid voxels above ft are
-	// fluidHi, the others fluidLo. pv reports whether it differs from the
-	// plain class split.
-	pv               bool
+	// Fluid split on the corrected fluid grey: fluid voxels above ft are
+	// fluidHi, the others fluidLo.
 	ft               float64
 	fluidLo, fluidHi uint8
 	solid            uint8
@@ -156,7 +284,7 @@ func classifier(p Params, th Thresholds) *classes {
 	if p.Reference {
 		order = strings.ReplaceAll(order, "s", "")
 	}
-	c := &classes{t: th.T, n: p.Codes.Nonwetting, band: p.Hysteresis.Band, solid: p.Codes.Solid, pv: p.PartialVolume.Blur > 0}
+	c := &classes{t: th.T, n: p.Codes.Nonwetting, band: p.Hysteresis.Band, solid: p.Codes.Solid}
 	for i := 0; i < len(order); i++ {
 		c.codes = append(c.codes, code(order[i]))
 	}
@@ -187,12 +315,8 @@ func (c *classes) class(v float64) int {
 	return k
 }
 
-// code returns the phase of a voxel of filtered grey v and fluid grey g.
-func (c *classes) code(v, g float64) uint8 {
-	l := c.codes[c.class(v)]
-	if !c.pv || l == c.solid {
-		return l
-	}
+// fluid returns the fluid phase of corrected fluid grey g.
+func (c *classes) fluid(g float64) uint8 {
 	if g > c.ft {
 		return c.fluidHi
 	}

@@ -172,6 +172,9 @@ func TestTileInvariance(t *testing.T) {
 		p.MinIsland = 4
 		p.Sample = Sample{Y: 14.5, X: 15, Radius: 13}
 		p.Reference = ref
+		if !ref {
+			p.PartialVolume.LocalFluid = 2
+		}
 		var mask *volume.Labels
 		if ref {
 			mask = idealMask(truth)
