@@ -73,8 +73,8 @@
 // histogram (Thresholds.NonwettingGrey, WettingGrey); with the passes on the
 // corrected fluid grey is split at (μ_n + μ_w)/2 (Ridler–Calvard's fixed
 // point for equal spreads), not at the 3-class Otsu threshold, which the
-// mixed voxels pull towards the brine (20000 vs 19040 on the pack; 1/3 of
-// the bulk brine errors came from it). The idea is the partial-volume
+// mixed voxels pull towards the brine (20000 vs 19040 on the pack at CNR 5,
+// which had bulk brine voxels called oil). The idea is the partial-volume
 // mixture view of Santago & Gage (1993, IEEE Trans. Med. Imaging 12:566):
 // a boundary voxel is a mixture of the two pure classes on either side; the
 // use of a PSF-weighted neighbour fluid to pick that pair is ours. Each pass
