@@ -27,10 +27,12 @@ import (
 	"sluice/internal/testenv"
 	"sluice/pkg/campaign"
 	"sluice/pkg/forward"
+	"sluice/pkg/queue"
 	"sluice/pkg/scenario"
 	"sluice/pkg/series"
 	"sluice/pkg/store"
 	"sluice/pkg/volio"
+	pb "sluice/proto/sluicepb"
 )
 
 const steps = 10
@@ -243,6 +245,25 @@ func TestMultiProcess(t *testing.T) {
 	}
 	if len(rows) != steps {
 		t.Errorf("%d rows for %d steps", len(rows), steps)
+	}
+	// Events worth interrupting for reach NATS subscribers: one completion
+	// per step and one breakthrough.
+	q, err := queue.Open(ctx, queue.Config{URL: nats.URL})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer q.Close()
+	kinds := map[pb.StepEvent_Kind]int{}
+	var mu sync.Mutex
+	ectx, ecancel := context.WithTimeout(ctx, 3*time.Second)
+	q.Events(ectx, "mp", true, func(e *pb.StepEvent) {
+		mu.Lock()
+		kinds[e.Kind]++
+		mu.Unlock()
+	})
+	ecancel()
+	if kinds[pb.StepEvent_KIND_COMPLETED] != steps || kinds[pb.StepEvent_KIND_BREAKTHROUGH] != 1 {
+		t.Errorf("events on NATS: %v; want %d completions and one breakthrough", kinds, steps)
 	}
 	if n := metric(w2Addr, "sluice_tiles_redelivered_total"); n < 1 {
 		t.Errorf("worker 2 saw %g redelivered tiles; the killed worker's tile was not redelivered", n)
