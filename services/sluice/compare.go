@@ -54,13 +54,13 @@ func iq(f func(*series.Row) *int64) func(*series.Row) (float64, bool) {
 
 // compared are the key quantities of `sluice compare`.
 var compared = []quantity{
-	{"saturation_wetting", "S_w", "1", 1, fq(func(r *series.Row) *float64 { return r.SatWetting })},
-	{"porosity", "φ", "1", 1, fq(func(r *series.Row) *float64 { return r.Porosity })},
+	{"saturation_wetting", "S_w", "", 1, fq(func(r *series.Row) *float64 { return r.SatWetting })},
+	{"porosity", "φ", "", 1, fq(func(r *series.Row) *float64 { return r.Porosity })},
 	{"capillary_pressure", "Pc", "kPa", 1e-3, fq(func(r *series.Row) *float64 { return r.Pc })},
 	{"specific_area_wn", "a_wn", "1/mm", 1e-3, fq(func(r *series.Row) *float64 { return r.SpecificWN })},
 	{"contact_angle_mean", "θ mean", "°", 1, fq(func(r *series.Row) *float64 { return r.AngleMean })},
-	{"ganglia_count", "ganglia", "1", 1, iq(func(r *series.Row) *int64 { return r.GangliaCount })},
-	{"euler_nonwetting", "χ_n", "1", 1, iq(func(r *series.Row) *int64 { return r.EulerNonwetting })},
+	{"ganglia_count", "ganglia", "", 1, iq(func(r *series.Row) *int64 { return r.GangliaCount })},
+	{"euler_nonwetting", "χ_n", "", 1, iq(func(r *series.Row) *int64 { return r.EulerNonwetting })},
 }
 
 // stepDiff is one step present in both runs: values of A and B per
@@ -119,7 +119,7 @@ func printCompare(w io.Writer, name, ha, hb string, both []stepDiff, onlyA, only
 	tw := tabwriter.NewWriter(w, 0, 2, 2, ' ', tabwriter.AlignRight)
 	head := []string{"step", "time s"}
 	for _, q := range compared {
-		head = append(head, "Δ"+q.label+" "+q.unit)
+		head = append(head, strings.TrimSpace("Δ"+q.label+" "+q.unit))
 	}
 	fmt.Fprintln(tw, strings.Join(head, "\t")+"\t")
 	for _, d := range both {
@@ -164,7 +164,11 @@ func printCompare(w io.Writer, name, ha, hb string, both []stepDiff, onlyA, only
 		if !math.IsNaN(maxAbs) {
 			mx = fmt.Sprintf("%.4g", maxAbs)
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", q.label, q.unit, mean(sa, na), mean(sb, nb), md, mx, at)
+		unit := q.unit
+		if unit == "" {
+			unit = "–"
+		}
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", q.label, unit, mean(sa, na), mean(sb, nb), md, mx, at)
 	}
 	tw.Flush()
 	if len(onlyA) > 0 {
@@ -186,7 +190,10 @@ func writeComparePlots(dir, ha, hb string, a, b []series.Row) ([]string, error) 
 		p := plot.New()
 		p.Title.Text = q.label + ": run A vs run B"
 		p.X.Label.Text = "time t (s)"
-		p.Y.Label.Text = q.label + " (" + q.unit + ")"
+		p.Y.Label.Text = q.label
+		if q.unit != "" {
+			p.Y.Label.Text += " (" + q.unit + ")"
+		}
 		p.Legend.Top = true
 		p.Add(plotter.NewGrid())
 		for i, run := range []struct {
