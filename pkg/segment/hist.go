@@ -135,6 +135,13 @@ func binOf(v, lo, width float64, n int) int {
 
 // filtered converts grey to float32 and runs the configured filter over
 // out (which must lie inside grey's box).
+// Filtered returns the grey of box out after p's denoiser, as float32 (grey
+// must cover out plus FilterHalo, clipped to the scan) — the values the
+// histogram and the thresholds see.
+func Filtered(grey volume.Any, out volume.Box, p Params) (*volume.Volume[float32], error) {
+	return filtered(grey, out, p)
+}
+
 func filtered(grey volume.Any, out volume.Box, p Params) (*volume.Volume[float32], error) {
 	if grey == nil {
 		return nil, fmt.Errorf("segment: nil grey volume")

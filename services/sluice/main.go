@@ -26,6 +26,7 @@ func commands() []command {
 	return []command{
 		{"measure", "measure a label or grey volume (raw, TIFF stack, Zarr)", runMeasure},
 		{"segment", "segment a grey volume into solid / wetting / nonwetting labels", runSegment},
+		{"reference", "store a campaign's solid mask from a high-quality reference scan (reference-scan mode)", runReference},
 		{"run", "all-in-one: embedded NATS, local store, watched directory, workers, aggregator, live page", runAll},
 		{"ingest", "store a scan (or watch a directory) as steps of a campaign and queue their tiles", runIngest},
 		{"worker", "process tile tasks from NATS (stateless; run as many as you like)", runWorker},
