@@ -17,6 +17,7 @@ import (
 
 	"sluice/pkg/contact"
 	"sluice/pkg/curvature"
+	"sluice/pkg/events"
 	"sluice/pkg/measure"
 	"sluice/pkg/segment"
 	"sluice/pkg/volume"
@@ -44,6 +45,22 @@ type Config struct {
 	SampleMargin float64 `json:"sample_margin" yaml:"sample_margin"`
 	// Measure configures the measurements.
 	Measure Measure `json:"measure" yaml:"measure"`
+	// Events are the steady-state tolerances of the live view (defaults
+	// K = 3 steps, |ΔS_w| ≤ 0.005, |ΔPc|/Pc ≤ 0.02). They do not change
+	// measurements, so they are not part of the parameter hash.
+	Events Events `json:"events" yaml:"events"`
+}
+
+// Events tune the experiment-event detection (package events).
+type Events struct {
+	SteadySteps   int     `json:"steady_steps" yaml:"steady_steps"`
+	MaxDeltaSw    float64 `json:"max_delta_sw" yaml:"max_delta_sw"`
+	MaxRelDeltaPc float64 `json:"max_rel_delta_pc" yaml:"max_rel_delta_pc"`
+}
+
+// EventOptions returns the event-detection options.
+func (c Config) EventOptions() events.Options {
+	return events.Options{K: c.Events.SteadySteps, MaxDeltaSw: c.Events.MaxDeltaSw, MaxRelDeltaPc: c.Events.MaxRelDeltaPc}
 }
 
 // Measure holds the measurement options of a campaign.
@@ -75,6 +92,7 @@ func Default() Config {
 		Segment:      segment.Defaults(),
 		DetectSample: true,
 		SampleMargin: 2,
+		Events:       Events{SteadySteps: events.Defaults().K, MaxDeltaSw: events.Defaults().MaxDeltaSw, MaxRelDeltaPc: events.Defaults().MaxRelDeltaPc},
 		Measure: Measure{
 			Connectivity:      26,
 			FlowAxis:          "z",
@@ -106,6 +124,9 @@ func (c Config) Validate() error {
 	mo, err := c.MeasureOptions()
 	if err != nil {
 		return err
+	}
+	if err := c.EventOptions().Validate(); err != nil {
+		return fmt.Errorf("campaign: events: %w", err)
 	}
 	halo := c.Segment.Halo() + mo.Halo()
 	if halo >= c.Tile {
@@ -150,10 +171,11 @@ func (c Config) MeasureOptions() (measure.Options, error) {
 
 // Hash returns the parameter hash: the first 16 hex digits of the SHA-256
 // of the canonical JSON of every result-changing value (all of Config but
-// Tile). Two runs with equal hashes and software versions give the same
+// Tile and Events). Two runs with equal hashes and software versions give the same
 // series.
 func (c Config) Hash() string {
 	c.Tile = 0
+	c.Events = Events{}
 	b, err := json.Marshal(c)
 	if err != nil {
 		panic(err) // plain data; cannot fail

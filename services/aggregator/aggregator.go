@@ -481,7 +481,8 @@ func (a *Aggregator) upsertRun(ctx context.Context, c layout.Campaign, hash stri
 // detectEvents runs event detection over the whole series (a pure function
 // of it) and announces events not announced before.
 func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows []series.Row) error {
-	evs, err := events.Detect(rows, a.EventOptions)
+	opt := a.eventOptions(c.Name())
+	evs, err := events.Detect(rows, opt)
 	if err != nil {
 		return err
 	}
@@ -507,7 +508,7 @@ func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows [
 		}
 	}
 	if len(rows) > 0 {
-		if w := events.Steady(rows, len(rows)-1, a.EventOptions); w.Steady {
+		if w := events.Steady(rows, len(rows)-1, opt); w.Steady {
 			steady = 1
 		}
 	}
@@ -533,6 +534,19 @@ func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows [
 		a.publish("event", map[string]any{"campaign": c.Name(), "kind": e.Kind, "step": e.Step, "time_s": e.Time, "detail": e.Detail})
 	}
 	return nil
+}
+
+// eventOptions returns the campaign's configured event tolerances, or the
+// aggregator's when the campaign has none.
+func (a *Aggregator) eventOptions(name string) events.Options {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if cs, ok := a.campaigns[name]; ok {
+		if o := cs.record.Config.EventOptions(); o.Validate() == nil {
+			return o
+		}
+	}
+	return a.EventOptions
 }
 
 // StepFailed marks a step failed (a tile exhausted its retries).

@@ -40,8 +40,10 @@ func runBench(args []string) int {
 	}
 	grey := forward.Uint16(g)
 	grey.VoxelSize = sc.VoxelSize
-	cfg := demoConfig(sc, *tile)
+	cfg := singleScanConfig(sc, *tile)
+	// 3-class Otsu on the merged histogram, as a single scan is segmented.
 	cfg.Segment.Threshold = "otsu"
+	cfg.Segment.Fixed = nil
 	mvox := float64(grey.Box.Voxels()) / 1e6
 	tw := tabwriter.NewWriter(stdout, 0, 2, 2, ' ', tabwriter.AlignRight)
 	fmt.Fprintf(tw, "stage\tseconds\tMVox/s\tMVox/s per core\t\n")

@@ -82,6 +82,11 @@ func TestLiveCampaign(t *testing.T) {
 	ctx, cancel := context.WithCancel(context.Background())
 	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
 	f := ingestFlags{campaign: "live", config: cfgPath, watch: filepath.Join(data, "incoming")}
+	if st, err := nf.openStore(ctx); err != nil {
+		t.Fatal(err)
+	} else if err := prepareDemoCampaign(ctx, st, "live", sc, demoConfig(sc, 48)); err != nil {
+		t.Fatal(err)
+	}
 	node, err := startAll(ctx, nf, inputFlags{}, f, 2, quietLog())
 	if err != nil {
 		cancel()
@@ -161,9 +166,12 @@ func TestLiveCampaign(t *testing.T) {
 		// Ground truth from the scenario: breakthrough is the first step whose
 		// labels percolate inlet → outlet; the last SteadySteps hold r_c
 		// nearly constant.
-		evs, err := events.Detect(rows, events.Defaults())
+		evs, err := events.Detect(rows, demoEvents())
 		if err != nil {
 			t.Fatal(err)
+		}
+		for _, r := range rows {
+			t.Logf("%s S_w %.4f Pc %.1f Pa", r.Step, *r.SatWetting, series.F(r.Pc))
 		}
 		var gotBT, gotSteady = -1, -1
 		for _, e := range evs {

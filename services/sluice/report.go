@@ -54,8 +54,24 @@ func loadSeries(ctx context.Context, st store.Store, name string) ([]series.Row,
 	if len(rows) == 0 {
 		return nil, nil, fmt.Errorf("campaign %s has no measured steps", name)
 	}
-	evs, err := events.Detect(rows, events.Defaults())
+	evs, err := events.Detect(rows, campaignEventOptions(ctx, st, name))
 	return rows, evs, err
+}
+
+// campaignEventOptions returns the event tolerances of a campaign's
+// configuration (the defaults when it has none).
+func campaignEventOptions(ctx context.Context, st store.Store, name string) events.Options {
+	c, err := layout.NewCampaign(name)
+	if err != nil {
+		return events.Defaults()
+	}
+	var rec campaign.Record
+	if b, err := st.Get(ctx, c.Config()); err == nil && json.Unmarshal(b, &rec) == nil {
+		if o := rec.Config.EventOptions(); o.Validate() == nil {
+			return o
+		}
+	}
+	return events.Defaults()
 }
 
 func writePlots(dir string, rows []series.Row, evs []events.Event) ([]string, error) {

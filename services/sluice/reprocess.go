@@ -564,7 +564,11 @@ func switchRun(ctx context.Context, st runStore, name, run string, partial bool)
 	if err := series.Save(ctx, st, name, done); err != nil {
 		return sum, err
 	}
-	evs, err := events.Detect(done, events.Defaults())
+	opt := events.Defaults()
+	if o := rec.Config.EventOptions(); o.Validate() == nil {
+		opt = o
+	}
+	evs, err := events.Detect(done, opt)
 	if err != nil {
 		return sum, fmt.Errorf("campaign %s: events: %w", name, err)
 	}

@@ -39,7 +39,7 @@ func archive(t *testing.T, dir string, steps int) (string, campaign.Config) {
 			t.Fatal(err)
 		}
 	}
-	cfg := demoConfig(sc, 32)
+	cfg := singleScanConfig(sc, 32)
 	path := filepath.Join(t.TempDir(), "campaign.json")
 	if err := writeDemoConfig(path, cfg); err != nil {
 		t.Fatal(err)
