@@ -193,6 +193,9 @@ func demoConfig(sc *scenario.Campaign, tile int) campaign.Config {
 	cfg.Segment.Fixed = []float64{(lv.Nonwetting + lv.Wetting) / 2}
 	cfg.Segment.PartialVolume.Blur = lv.Blur
 	cfg.Segment.PartialVolume.SolidGrey = lv.Solid
+	// Gas specks of fewer than 10 voxels (a ball of radius ~1.3 voxels) are
+	// below what CNR 5 resolves and are counted as brine (common practice).
+	cfg.Segment.MinIsland = 10
 	cfg.DetectSample = false
 	cfg.Segment.Sample.Y, cfg.Segment.Sample.X, cfg.Segment.Sample.Radius = float64(sc.Shape[1]-1)/2, float64(sc.Shape[2]-1)/2, sc.Rock.CoreRadius
 	e := demoEvents()
