@@ -3,7 +3,7 @@ GO        ?= go
 BIN       ?= bin
 GOBIN     ?= $(shell $(GO) env GOPATH)/bin
 PKGS      ?= ./...
-TESTFLAGS ?= -timeout 40m
+TESTFLAGS ?= -timeout 40m -count=1
 export PATH := $(GOBIN):$(PATH)
 
 .PHONY: help build demo test test-go setup bench fuzz lint proto proto-check clean
