@@ -20,7 +20,7 @@ import (
 type segFlags struct {
 	config, filter, threshold, fixed, order, sample, reference string
 	minIsland                                                  int
-	band                                                       float64
+	band, noise                                                float64
 	noDetect                                                   bool
 }
 
@@ -30,6 +30,7 @@ func (s *segFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&s.threshold, "threshold", "", "otsu (3-class multi-level Otsu on the filtered histogram, default) or fixed")
 	fs.StringVar(&s.fixed, "fixed", "", "fixed grey thresholds `T1,T2` (darkest|middle, middle|brightest); implies --threshold fixed")
 	fs.StringVar(&s.order, "order", "", "phases from darkest to brightest: nws (gas/oil darkest, default) or nsw (doped brine)")
+	fs.Float64Var(&s.noise, "noise-sigma", 0, "noise standard deviation in grey units, for --filter nlm (measure it in a uniform region)")
 	fs.IntVar(&s.minIsland, "min-island", -1, "nonwetting clusters smaller than this many voxels become wetting (0 = off)")
 	fs.Float64Var(&s.band, "hysteresis-band", -1, "half-width (grey units) of the uncertain band grown from nonwetting seeds (0 = off)")
 	fs.StringVar(&s.sample, "sample", "", "sample cylinder `Y,X,R` in voxels (default: detected from the image)")
@@ -51,6 +52,9 @@ func (s *segFlags) campaignConfig() (campaign.Config, error) {
 	}
 	if s.threshold != "" {
 		p.Threshold = s.threshold
+	}
+	if s.noise > 0 {
+		p.Filter.NLM.Sigma = s.noise
 	}
 	if s.fixed != "" {
 		p.Threshold = "fixed"
