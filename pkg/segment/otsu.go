@@ -244,13 +244,56 @@ func peakBin(counts []int64, lo, hi int) int {
 	return peak
 }
 
+// MinSampleContrast is the smallest ratio between the typical grey-level
+// spread of sample blocks and of outside blocks that DetectSample accepts
+// as a sample boundary in view.
+const MinSampleContrast = 3.0
+
+// MaxOutsideSpread bounds the mean deviation of blocks taken as outside,
+// in units of the noise floor (see DetectSample). Measured: 2.5 on a view
+// with a wide outside ring, 6 when the linear split cut into a sample that
+// filled the view.
+const MaxOutsideSpread = 4.0
+
+// otsuValues splits sorted-or-not values by 2-class Otsu with each value
+// its own bin; it returns the largest value of the low class and the
+// difference of the class means.
+func otsuValues(v []float64) (cut, gap float64) {
+	sorted := append([]float64(nil), v...)
+	sort.Float64s(sorted)
+	n := float64(len(sorted))
+	var tot float64
+	for _, x := range sorted {
+		tot += x
+	}
+	best := -1.0
+	cut = sorted[0]
+	var w0, m0 float64
+	for i := 0; i < len(sorted)-1; i++ {
+		w0++
+		m0 += sorted[i]
+		if sorted[i] == sorted[i+1] {
+			continue
+		}
+		w1 := n - w0
+		d := m0/w0 - (tot-m0)/w1
+		if q := w0 * w1 * d * d; q > best {
+			best, cut, gap = q, sorted[i], -d
+		}
+	}
+	return cut, gap
+}
+
 // DetectSample finds the cylindrical sample from the column statistics of a
 // merged histogram: the grey standard deviation of each (y, x) block over z is
 // large inside the rock (solid and pores alternate) and small in air and in
 // the cell wall (noise only). Blocks are split by 2-class Otsu on their
-// standard deviations; the sample is the disc with the centroid and the
-// area of the high-variance blocks, less half a block. The radius is then reduced by margin
-// voxels. Accuracy is about half a block.
+// standard deviations (linear, or log when the linear low class is not
+// noise-like); the sample is the disc with the centroid and the area of the
+// high-variance blocks, less half a block. The radius is then reduced by
+// margin voxels. Accuracy is about half a block. When no outside is in view
+// (log classes less than MinSampleContrast apart) the zero Sample (no mask)
+// is returned.
 func DetectSample(h Hist, p Params, margin float64) (Sample, error) {
 	if len(h.Columns) < 4 {
 		return Sample{}, fmt.Errorf("segment: too few column blocks (%d) to detect the sample", len(h.Columns))
@@ -263,32 +306,46 @@ func DetectSample(h Hist, p Params, margin float64) (Sample, error) {
 		m := float64(c.Sum) / float64(c.N)
 		sd[i] = math.Sqrt(math.Max(float64(c.SumSq)/float64(c.N)-m*m, 0)) * h.Width
 	}
-	sorted := append([]float64(nil), sd...)
-	sort.Float64s(sorted)
-	// Otsu on the sorted values themselves (each value its own bin).
-	n := float64(len(sorted))
-	var tot float64
-	for _, v := range sorted {
-		tot += v
+	// Two splits of the block deviations, by 2-class Otsu: on a linear
+	// scale (which follows the rim well when a fair share of the view is
+	// outside) and on a log scale (outside blocks hold noise only and form a
+	// tight cluster far below the sample's, whose wide linear spread is
+	// compact on a log scale).
+	logs := make([]float64, len(sd))
+	for i, v := range sd {
+		logs[i] = math.Log(math.Max(v, 1e-9))
 	}
-	best, cut := -1.0, sorted[0]
-	var w0, m0 float64
-	for i := 0; i < len(sorted)-1; i++ {
-		w0++
-		m0 += sorted[i]
-		if sorted[i] == sorted[i+1] {
-			continue
+	cutLin, _ := otsuValues(sd)
+	cutLog, gap := otsuValues(logs)
+	// No outside in view: the log classes are not a noise cluster and a
+	// sample cluster (means less than MinSampleContrast apart), so every
+	// voxel in view belongs to the sample.
+	if gap < math.Log(MinSampleContrast) {
+		return Sample{}, nil
+	}
+	// The linear low class must look like noise: when its mean exceeds
+	// MaxOutsideSpread times the noise floor (geometric mean of the log low
+	// class), the linear split cut through the sample's own spread (little
+	// outside in view) and the log split is used.
+	var floor, nf, lowLin, nl float64
+	for i := range sd {
+		if logs[i] <= cutLog {
+			floor += logs[i]
+			nf++
 		}
-		w1 := n - w0
-		d := m0/w0 - (tot-m0)/w1
-		if v := w0 * w1 * d * d; v > best {
-			best, cut = v, sorted[i]
+		if sd[i] <= cutLin {
+			lowLin += sd[i]
+			nl++
 		}
+	}
+	inside := func(i int) bool { return sd[i] > cutLin }
+	if nl > 0 && nf > 0 && lowLin/nl > MaxOutsideSpread*math.Exp(floor/nf) {
+		inside = func(i int) bool { return logs[i] > cutLog }
 	}
 	B := float64(p.SampleBlock)
 	var cnt, sy, sx float64
 	for i, c := range h.Columns {
-		if sd[i] > cut {
+		if inside(i) {
 			cnt++
 			sy += (float64(c.BY) + 0.5) * B
 			sx += (float64(c.BX) + 0.5) * B
