@@ -160,12 +160,8 @@ func (a *Aggregator) campaign(ctx context.Context, name string) *campaignState {
 	if err != nil {
 		return nil
 	}
-	b, err := a.Store.Get(ctx, c.Config())
+	r, err := campaign.LoadRecord(ctx, a.Store, c)
 	if err != nil {
-		return nil
-	}
-	var r campaign.Record
-	if json.Unmarshal(b, &r) != nil {
 		return nil
 	}
 	cs := &campaignState{record: r, steps: map[string]*stepState{}}
@@ -311,11 +307,11 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 		return nil
 	}
 	var man campaign.Manifest
-	if err := getJSON(ctx, a.Store, step.Manifest(), &man); err != nil {
+	if err := campaign.GetJSON(ctx, a.Store, step.Manifest(), &man); err != nil {
 		return err
 	}
 	var plan campaign.Plan
-	if err := getJSON(ctx, a.Store, campaign.PlanKey(step, hash), &plan); err != nil {
+	if err := campaign.GetJSON(ctx, a.Store, campaign.PlanKey(step, hash), &plan); err != nil {
 		return err
 	}
 	if len(keys) != plan.Tiles {
@@ -324,7 +320,7 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 	parts := make([]*measure.Partial, 0, len(keys))
 	for _, k := range keys {
 		var p measure.Partial
-		if err := getJSON(ctx, a.Store, k, &p); err != nil {
+		if err := campaign.GetJSON(ctx, a.Store, k, &p); err != nil {
 			return err
 		}
 		parts = append(parts, &p)
@@ -415,8 +411,7 @@ func (a *Aggregator) refreshCurrent(ctx context.Context, c layout.Campaign, hash
 	if cs == nil {
 		return nil, false
 	}
-	var r campaign.Record
-	if b, err := a.Store.Get(ctx, c.Config()); err == nil && json.Unmarshal(b, &r) == nil && r.Current != "" {
+	if r, err := campaign.LoadRecord(ctx, a.Store, c); err == nil && r.Current != "" {
 		cs.record = r
 	}
 	return cs, cs.record.Current == hash
@@ -435,7 +430,7 @@ func (a *Aggregator) CompleteStep(ctx context.Context, campaignName, stepName, h
 		return true, nil
 	}
 	var plan campaign.Plan
-	if err := getJSON(ctx, a.Store, campaign.PlanKey(step, hash), &plan); err != nil {
+	if err := campaign.GetJSON(ctx, a.Store, campaign.PlanKey(step, hash), &plan); err != nil {
 		return false, err
 	}
 	prefix, err := step.Tiles(hash)
@@ -598,17 +593,6 @@ func (a *Aggregator) publish(kind string, v any) {
 	if a.Hub != nil {
 		a.Hub.Publish(kind, v)
 	}
-}
-
-func getJSON(ctx context.Context, st Store, key string, v any) error {
-	b, err := st.Get(ctx, key)
-	if err != nil {
-		return err
-	}
-	if err := json.Unmarshal(b, v); err != nil {
-		return fmt.Errorf("aggregator: %s: %v", key, err)
-	}
-	return nil
 }
 
 func sortedSteps(cs *campaignState) []web.StepStatus {

@@ -91,10 +91,10 @@ func EnsureCampaign(ctx context.Context, st Store, name string, cfg campaign.Con
 	}
 	r := campaign.Record{Name: name, Current: cfg.Hash(), Config: cfg, Runs: []string{cfg.Hash()}, Version: version,
 		Scenario: scenario, CreatedAt: time.Now().UTC().Format(time.RFC3339)}
-	if err := putJSON(ctx, st, campaign.RunConfigKey(c, r.Current), cfg); err != nil {
+	if err := campaign.PutJSON(ctx, st, campaign.RunConfigKey(c, r.Current), cfg); err != nil {
 		return r, err
 	}
-	return r, putJSON(ctx, st, c.Config(), r)
+	return r, campaign.PutJSON(ctx, st, c.Config(), r)
 }
 
 // Ingest stores one scan as a step and queues its tiles under the
@@ -118,7 +118,7 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 	if err != nil {
 		return nil, err
 	}
-	rec, err := loadRecord(ctx, in.Store, step.Campaign())
+	rec, err := campaign.LoadRecord(ctx, in.Store, step.Campaign())
 	if err != nil {
 		return nil, err
 	}
@@ -155,7 +155,7 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 			return nil, fmt.Errorf("ingest: %s: pass 1: %w", req.Path, err)
 		}
 		plan.Priority = priorityName(req.Priority)
-		if err := putJSON(ctx, in.Store, campaign.PlanKey(step, plan.ParamHash), plan); err != nil {
+		if err := campaign.PutJSON(ctx, in.Store, campaign.PlanKey(step, plan.ParamHash), plan); err != nil {
 			return nil, err
 		}
 	} else {
@@ -194,7 +194,7 @@ func (in *Ingester) StoreStep(ctx context.Context, req Request) (campaign.Manife
 	if err != nil {
 		return campaign.Manifest{}, err
 	}
-	rec, err := loadRecord(ctx, in.Store, step.Campaign())
+	rec, err := campaign.LoadRecord(ctx, in.Store, step.Campaign())
 	if err != nil {
 		return campaign.Manifest{}, err
 	}
@@ -253,7 +253,7 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 	}
 	man := campaign.Manifest{Campaign: step.Campaign().Name(), Step: step.Name(), Shape: h.Shape, DType: h.DType.String(),
 		VoxelSize: vs, TimeS: t, Chunk: tile, Source: req.Path, Bytes: stored, ReceivedAt: received, IngestedAt: time.Now().UTC(), Version: in.Version}
-	return man, putJSON(ctx, in.Store, step.Manifest(), man)
+	return man, campaign.PutJSON(ctx, in.Store, step.Manifest(), man)
 }
 
 // ZarrSource reads boxes of a stored array for pass 1 and workers.
@@ -362,24 +362,4 @@ func priorityName(p sluicepb.Priority) string {
 		return "batch"
 	}
 	return "live"
-}
-
-func loadRecord(ctx context.Context, st Store, c layout.Campaign) (campaign.Record, error) {
-	var r campaign.Record
-	b, err := st.Get(ctx, c.Config())
-	if err != nil {
-		return r, fmt.Errorf("ingest: campaign %s: %w", c.Name(), err)
-	}
-	if err := json.Unmarshal(b, &r); err != nil {
-		return r, fmt.Errorf("ingest: %s: %v", c.Config(), err)
-	}
-	return r, nil
-}
-
-func putJSON(ctx context.Context, st Store, key string, v any) error {
-	b, err := json.MarshalIndent(v, "", "  ")
-	if err != nil {
-		return err
-	}
-	return st.Put(ctx, key, b)
 }

@@ -276,7 +276,7 @@ func runCompare(args []string) int {
 	if err != nil {
 		return fail(exitBadInput, "compare: %v", err)
 	}
-	rec, err := loadRecord(ctx, st, c)
+	rec, err := campaign.LoadRecord(ctx, st, c)
 	if err != nil {
 		return fail(exitBadInput, "compare: %v", err)
 	}

@@ -99,7 +99,7 @@ func TestReferenceScanMode(t *testing.T) {
 	}
 	var plan campaign.Plan
 	step := "scan-" + fmt.Sprintf("%04d", steps[0])
-	if err := getJSON(ctx, st, "campaigns/refmode/steps/"+step+"/plans/"+cfg.Hash()+".json", &plan); err != nil {
+	if err := campaign.GetJSON(ctx, st, "campaigns/refmode/steps/"+step+"/plans/"+cfg.Hash()+".json", &plan); err != nil {
 		t.Fatal(err)
 	}
 	if !plan.Config.Segment.Reference || len(plan.Thresholds.T) != 1 {

@@ -65,8 +65,7 @@ func campaignEventOptions(ctx context.Context, st store.Store, name string) even
 	if err != nil {
 		return events.Defaults()
 	}
-	var rec campaign.Record
-	if b, err := st.Get(ctx, c.Config()); err == nil && json.Unmarshal(b, &rec) == nil {
+	if rec, err := campaign.LoadRecord(ctx, st, c); err == nil {
 		if o := rec.Config.EventOptions(); o.Validate() == nil {
 			return o
 		}
@@ -153,10 +152,7 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 		return err
 	}
 	c, _ := layout.NewCampaign(name)
-	var rec campaign.Record
-	if b, err := st.Get(ctx, c.Config()); err == nil {
-		json.Unmarshal(b, &rec)
-	}
+	rec, _ := campaign.LoadRecord(ctx, st, c) // a report without campaign.json shows no parameters
 	if scenario == "" {
 		scenario = rec.Scenario
 	}

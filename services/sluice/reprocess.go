@@ -116,41 +116,6 @@ func scanSteps(ctx context.Context, st runStore, c layout.Campaign, hash string)
 	return out, nil
 }
 
-// loadRecord reads campaign.json.
-func loadRecord(ctx context.Context, st runStore, c layout.Campaign) (campaign.Record, error) {
-	var r campaign.Record
-	b, err := st.Get(ctx, c.Config())
-	if err != nil {
-		if errors.Is(err, fs.ErrNotExist) {
-			return r, fmt.Errorf("campaign %s: no %s in the store", c.Name(), c.Config())
-		}
-		return r, fmt.Errorf("campaign %s: %w", c.Name(), err)
-	}
-	if err := json.Unmarshal(b, &r); err != nil {
-		return r, fmt.Errorf("campaign %s: %s: %v", c.Name(), c.Config(), err)
-	}
-	return r, nil
-}
-
-func putJSON(ctx context.Context, st runStore, key string, v any) error {
-	b, err := json.MarshalIndent(v, "", "  ")
-	if err != nil {
-		return err
-	}
-	return st.Put(ctx, key, b)
-}
-
-func getJSON(ctx context.Context, st runStore, key string, v any) error {
-	b, err := st.Get(ctx, key)
-	if err != nil {
-		return err
-	}
-	if err := json.Unmarshal(b, v); err != nil {
-		return fmt.Errorf("%s: %v", key, err)
-	}
-	return nil
-}
-
 // stepSelection is a --steps value: numbers and ranges, "10-250,300,400-".
 type stepSelection [][2]int
 
@@ -268,7 +233,7 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 		return sum, err
 	}
 	created := false
-	rec, err := loadRecord(ctx, st, c)
+	rec, err := campaign.LoadRecord(ctx, st, c)
 	if err != nil && req.From != "" {
 		// An archive directory for a campaign the store does not know yet:
 		// the campaign is created with --config (or the defaults).
@@ -290,7 +255,7 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 	}
 	hash := cfg.Hash()
 	sum.Hash, sum.Current = hash, hash == rec.Current
-	if err := putJSON(ctx, st, campaign.RunConfigKey(c, hash), cfg); err != nil {
+	if err := campaign.PutJSON(ctx, st, campaign.RunConfigKey(c, hash), cfg); err != nil {
 		return sum, fmt.Errorf("campaign %s: %w", c.Name(), err)
 	}
 	if err := addRun(ctx, st, c, hash); err != nil {
@@ -337,7 +302,7 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 		}
 		step, _ := c.Step(name)
 		var man campaign.Manifest
-		if err := getJSON(ctx, st, step.Manifest(), &man); err != nil {
+		if err := campaign.GetJSON(ctx, st, step.Manifest(), &man); err != nil {
 			return sum, fmt.Errorf("campaign %s step %s: %w", c.Name(), name, err)
 		}
 		chosen = append(chosen, stepMan{name, man})
@@ -358,7 +323,7 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 		var plan campaign.Plan
 		havePlan := false
 		if sk.plan {
-			if err := getJSON(ctx, st, campaign.PlanKey(step, hash), &plan); err != nil {
+			if err := campaign.GetJSON(ctx, st, campaign.PlanKey(step, hash), &plan); err != nil {
 				return sum, fmt.Errorf("campaign %s step %s: %w", c.Name(), sm.name, err)
 			}
 			havePlan = plan.Version == Version
@@ -381,7 +346,7 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 				return sum, fmt.Errorf("campaign %s step %s: pass 1: %w", c.Name(), sm.name, err)
 			}
 			plan.Priority = "batch"
-			if err := putJSON(ctx, st, campaign.PlanKey(step, hash), plan); err != nil {
+			if err := campaign.PutJSON(ctx, st, campaign.PlanKey(step, hash), plan); err != nil {
 				return sum, fmt.Errorf("campaign %s step %s: %w", c.Name(), sm.name, err)
 			}
 		}
@@ -439,7 +404,7 @@ func clearRunStep(ctx context.Context, st runStore, step layout.Step, hash strin
 
 // addRun adds hash to campaign.json's runs (the current run is untouched).
 func addRun(ctx context.Context, st runStore, c layout.Campaign, hash string) error {
-	rec, err := loadRecord(ctx, st, c)
+	rec, err := campaign.LoadRecord(ctx, st, c)
 	if err != nil {
 		return err
 	}
@@ -449,7 +414,7 @@ func addRun(ctx context.Context, st runStore, c layout.Campaign, hash string) er
 		}
 	}
 	rec.Runs = append(rec.Runs, hash)
-	return putJSON(ctx, st, c.Config(), rec)
+	return campaign.PutJSON(ctx, st, c.Config(), rec)
 }
 
 // resolveRun turns "current", a full hash or a unique hash prefix into a
@@ -494,7 +459,7 @@ func switchRun(ctx context.Context, st runStore, name, run string, partial bool)
 	if err != nil {
 		return sum, err
 	}
-	rec, err := loadRecord(ctx, st, c)
+	rec, err := campaign.LoadRecord(ctx, st, c)
 	if err != nil {
 		return sum, err
 	}
@@ -504,7 +469,7 @@ func switchRun(ctx context.Context, st runStore, name, run string, partial bool)
 	}
 	sum.From, sum.To = rec.Current, hash
 	var cfg campaign.Config
-	if err := getJSON(ctx, st, campaign.RunConfigKey(c, hash), &cfg); err != nil {
+	if err := campaign.GetJSON(ctx, st, campaign.RunConfigKey(c, hash), &cfg); err != nil {
 		return sum, fmt.Errorf("campaign %s run %s: %w", name, hash, err)
 	}
 	jk, _ := campaign.RunSeriesKeys(c, hash)
@@ -539,7 +504,7 @@ func switchRun(ctx context.Context, st runStore, name, run string, partial bool)
 	}
 	sum.Dropped, sum.Rows = names, len(done)
 	rec.Current, rec.Config = hash, cfg
-	if err := putJSON(ctx, st, c.Config(), rec); err != nil {
+	if err := campaign.PutJSON(ctx, st, c.Config(), rec); err != nil {
 		return sum, err
 	}
 	for s, sk := range steps {
@@ -572,7 +537,7 @@ func switchRun(ctx context.Context, st runStore, name, run string, partial bool)
 	if err != nil {
 		return sum, fmt.Errorf("campaign %s: events: %w", name, err)
 	}
-	return sum, putJSON(ctx, st, campaign.EventsKey(c), evs)
+	return sum, campaign.PutJSON(ctx, st, campaign.EventsKey(c), evs)
 }
 
 // reprocessNode is the embedded node reprocess runs when no --nats is
@@ -776,7 +741,7 @@ func runReprocess(args []string) int {
 		}
 		step, _ := c.Step(s)
 		var plan campaign.Plan
-		if err := getJSON(ctx, st, campaign.PlanKey(step, sum.Hash), &plan); err != nil {
+		if err := campaign.GetJSON(ctx, st, campaign.PlanKey(step, sum.Hash), &plan); err != nil {
 			return fail(exitFailure, "reprocess: campaign %s step %s: %v", req.Campaign, s, err)
 		}
 		rk, _ := step.TileResult(plan.Tiles-1, sum.Hash)

@@ -85,7 +85,7 @@ func record(t *testing.T, st store.Store, name string) campaign.Record {
 	t.Helper()
 	c, _ := layout.NewCampaign(name)
 	var r campaign.Record
-	if err := getJSON(context.Background(), st, c.Config(), &r); err != nil {
+	if err := campaign.GetJSON(context.Background(), st, c.Config(), &r); err != nil {
 		t.Fatal(err)
 	}
 	return r

@@ -36,7 +36,7 @@ func campaignStatus(ctx context.Context, st runStore, q *queue.Queue, name strin
 	if err != nil {
 		return campaign.Record{}, nil, nil, err
 	}
-	rec, err := loadRecord(ctx, st, c)
+	rec, err := campaign.LoadRecord(ctx, st, c)
 	if err != nil {
 		return rec, nil, nil, err
 	}
@@ -73,7 +73,7 @@ func campaignStatus(ctx context.Context, st runStore, q *queue.Queue, name strin
 		}
 		rs := runState{Hash: hash, Current: hash == rec.Current, Reasons: map[string]string{}}
 		var cfg campaign.Config
-		if err := getJSON(ctx, st, campaign.RunConfigKey(c, hash), &cfg); err == nil && !rs.Current {
+		if err := campaign.GetJSON(ctx, st, campaign.RunConfigKey(c, hash), &cfg); err == nil && !rs.Current {
 			rs.Diff = campaign.Diff(rec.Config, cfg)
 		}
 		for _, s := range stepNames {
@@ -88,7 +88,7 @@ func campaignStatus(ctx context.Context, st runStore, q *queue.Queue, name strin
 				rs.Pending = append(rs.Pending, s)
 				step, _ := c.Step(s)
 				var plan campaign.Plan
-				if err := getJSON(ctx, st, campaign.PlanKey(step, hash), &plan); err != nil {
+				if err := campaign.GetJSON(ctx, st, campaign.PlanKey(step, hash), &plan); err != nil {
 					rs.Reasons[s] = err.Error()
 					continue
 				}

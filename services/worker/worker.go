@@ -82,11 +82,11 @@ func (w *Worker) load(ctx context.Context, st Store, step layout.Step, hash stri
 		return p, nil
 	}
 	var man campaign.Manifest
-	if err := getJSON(ctx, st, step.Manifest(), &man); err != nil {
+	if err := campaign.GetJSON(ctx, st, step.Manifest(), &man); err != nil {
 		return p, err
 	}
 	var plan campaign.Plan
-	if err := getJSON(ctx, st, key, &plan); err != nil {
+	if err := campaign.GetJSON(ctx, st, key, &plan); err != nil {
 		return p, err
 	}
 	p = planned{man: man, plan: plan}
@@ -202,15 +202,4 @@ func readBox(ctx context.Context, st Store, prefix string, box volume.Box) (volu
 		return nil, err
 	}
 	return z.ReadBox(ctx, box)
-}
-
-func getJSON(ctx context.Context, st Store, key string, v any) error {
-	b, err := st.Get(ctx, key)
-	if err != nil {
-		return err
-	}
-	if err := json.Unmarshal(b, v); err != nil {
-		return fmt.Errorf("%s: %v", key, err)
-	}
-	return nil
 }
