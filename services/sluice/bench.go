@@ -4,6 +4,7 @@ import (
 	"flag"
 	"fmt"
 	"runtime"
+	"strings"
 	"text/tabwriter"
 	"time"
 
@@ -15,10 +16,27 @@ import (
 	"sluice/pkg/volume"
 )
 
-// runBench is `sluice bench`: throughput of each stage on a synthetic
-// drainage scan on this machine.
+// runBench is `sluice bench [stages|compare|campaign]`: throughput figures
+// measured on this machine. Without a mode it runs "stages".
 func runBench(args []string) int {
-	fs := flag.NewFlagSet("bench", flag.ContinueOnError)
+	mode := "stages"
+	if len(args) > 0 && !strings.HasPrefix(args[0], "-") {
+		mode, args = args[0], args[1:]
+	}
+	switch mode {
+	case "stages":
+		return runBenchStages(args)
+	case "compare":
+		return runBenchCompare(args)
+	case "campaign":
+		return runBenchCampaign(args)
+	}
+	return fail(exitBadInput, "bench: unknown mode %q (stages, compare or campaign)", mode)
+}
+
+// runBenchStages times each processing stage on a synthetic drainage scan.
+func runBenchStages(args []string) int {
+	fs := flag.NewFlagSet("bench stages", flag.ContinueOnError)
 	size := fs.Int("size", 256, "edge of the cubic scan in voxels")
 	tile := fs.Int("tile", 128, "tile edge")
 	workers := fs.Int("workers", runtime.GOMAXPROCS(0), "goroutines")
