@@ -18,7 +18,11 @@ type MinIO struct {
 	// Dir is the server's data directory.
 	Dir string
 
-	p *process
+	t    testing.TB
+	bin  string
+	env  []string
+	args []string
+	p    *process
 }
 
 // StartMinIO starts `minio server` on a free loopback port with a temporary
@@ -28,24 +32,24 @@ type MinIO struct {
 func StartMinIO(t testing.TB) *MinIO {
 	t.Helper()
 	bin := requireBinary(t, "minio", "SLUICE_MINIO_BIN", "go install github.com/minio/minio@v0.0.0-20260212201848-7aac2a2c5b7c")
-	m := &MinIO{Dir: t.TempDir(), AccessKey: "sluice-" + randomHex(4), SecretKey: randomHex(16)}
+	m := &MinIO{t: t, bin: bin, Dir: t.TempDir(), AccessKey: "sluice-" + randomHex(4), SecretKey: randomHex(16)}
 	var lastErr error
 	for try := 0; try < 3; try++ { // a port picked free may be taken before minio binds it
 		port, console := FreePort(t), FreePort(t)
 		m.Endpoint = fmt.Sprintf("127.0.0.1:%d", port)
-		m.p = start(t, "minio", bin, []string{
+		m.env = []string{
 			"MINIO_ROOT_USER=" + m.AccessKey,
 			"MINIO_ROOT_PASSWORD=" + m.SecretKey,
 			"MINIO_BROWSER=off",
 			"MINIO_UPDATE=off",
-		}, "server", "--quiet", "--address", m.Endpoint, "--console-address", fmt.Sprintf("127.0.0.1:%d", console), m.Dir)
-		lastErr = m.p.waitReady(func() bool { return httpOK("http://" + m.Endpoint + "/minio/health/ready") })
+		}
+		m.args = []string{"server", "--quiet", "--address", m.Endpoint, "--console-address", fmt.Sprintf("127.0.0.1:%d", console), m.Dir}
+		lastErr = m.launch()
 		if lastErr == nil {
-			p := m.p
 			t.Cleanup(func() {
-				p.stop(10 * time.Second)
+				m.p.stop(10 * time.Second)
 				if t.Failed() {
-					t.Logf("testenv: minio log:\n%s", tail(p.log.String()))
+					t.Logf("testenv: minio log:\n%s", tail(m.p.log.String()))
 				}
 			})
 			return m
@@ -65,8 +69,30 @@ func (m *MinIO) URL(bucket string) string {
 	return "s3://" + bucket + "?endpoint=" + m.Endpoint + "&tls=false"
 }
 
+func (m *MinIO) launch() error {
+	m.p = start(m.t, "minio", m.bin, m.env, m.args...)
+	return m.p.waitReady(func() bool { return httpOK("http://" + m.Endpoint + "/minio/health/ready") })
+}
+
 // Stop stops the server (SIGTERM, then SIGKILL after 10 s).
 func (m *MinIO) Stop() { m.p.stop(10 * time.Second) }
+
+// Kill kills the server (SIGKILL), as a crash or power loss would.
+func (m *MinIO) Kill() { m.p.kill() }
+
+// Start starts a stopped server again on the same address, with the same
+// data directory and credentials, and waits until it is ready; the objects
+// stored before the stop are there again. It does nothing while the server
+// runs.
+func (m *MinIO) Start() {
+	m.t.Helper()
+	if !m.p.exited() {
+		return
+	}
+	if err := m.launch(); err != nil {
+		m.t.Fatal(err)
+	}
+}
 
 func randomHex(n int) string {
 	b := make([]byte, n)

@@ -89,6 +89,19 @@ func (n *NATS) Stop() { n.p.stop(10 * time.Second) }
 // Kill kills the server (SIGKILL), as a crash would.
 func (n *NATS) Kill() { n.p.kill() }
 
+// Start starts a stopped (or killed) server again on the same port with the
+// same store directory, and waits until JetStream is ready. It does nothing
+// while the server runs.
+func (n *NATS) Start(extra ...string) {
+	n.t.Helper()
+	if !n.p.exited() {
+		return
+	}
+	if err := n.launch(n.port, extra); err != nil {
+		n.t.Fatal(err)
+	}
+}
+
 // Restart stops the server if it still runs and starts it again on the same
 // port with the same store directory.
 func (n *NATS) Restart(extra ...string) {
