@@ -79,7 +79,18 @@ func (nf nodeFlags) connect(what string) (*conn, int) {
 		stop()
 		return nil, fail(exitBadInput, "%s: %v", what, err)
 	}
-	return &conn{ctx: ctx, close: func() { q.Close(); stop() }, log: log, st: st, q: q, reg: registry()}, exitOK
+	reg := registry()
+	return &conn{ctx: ctx, close: func() { q.Close(); stop() }, log: log, st: retrying(st, reg, log), q: q, reg: reg}, exitOK
+}
+
+// retrying wraps st so that object-store faults are retried with backoff
+// (store.DefaultRetry) and counted in the sluice_store_* metrics on reg.
+func retrying(st store.Store, reg prometheus.Registerer, log *slog.Logger) store.Store {
+	m := telemetry.NewStore(reg)
+	return store.WithRetry(st, store.RetryPolicy{}, func(op string, err error, again bool) {
+		m.Observe(op, err, again)
+		log.Warn("store operation failed", "op", op, "retrying", again, "err", err)
+	})
 }
 
 // runWorker is `sluice worker`.
@@ -271,6 +282,7 @@ func runIngest(args []string) int {
 // aggregator in one process.
 type allInOne struct {
 	url  string
+	nats string // client URL of the embedded NATS server when exposed
 	stop func()
 	wg   sync.WaitGroup
 	errs []error
@@ -295,7 +307,7 @@ func runAll(args []string) int {
 	nf.register(fs, "127.0.0.1:8470", true)
 	in.register(fs)
 	f.register(fs, false)
-	workers := fs.Int("workers", runtime.GOMAXPROCS(0), "tile workers in this process")
+	workers := fs.Int("workers", runtime.GOMAXPROCS(0), "tile workers in this process (0: none, for separate `sluice worker` processes)")
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
@@ -331,6 +343,7 @@ func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, w
 		return nil, err
 	}
 	reg := registry()
+	st = retrying(st, reg, log)
 	wm := telemetry.NewWorker(reg)
 	im := telemetry.NewIngest(reg)
 	agg, am, hub, err := newAggregator(ctx, st, q, reg, log)
@@ -343,18 +356,24 @@ func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, w
 	}
 	node := &allInOne{url: addr}
 	if srv != nil && srv.ClientURL() != "" {
+		node.nats = srv.ClientURL()
 		log.Info("NATS exposed for extra workers", "url", srv.ClientURL())
 	}
-	node.wg.Add(2)
+	node.wg.Add(1)
 	go func() {
 		defer node.wg.Done()
 		node.fail(runAggregator(ctx, q, agg, am, log))
 	}()
-	go func() {
-		defer node.wg.Done()
-		host, _ := os.Hostname()
-		node.fail(runWorkers(ctx, q, st, wm, fmt.Sprintf("%s:%d/run", host, os.Getpid()), workers, log))
-	}()
+	// workers = 0: no tile workers in this process (separate `sluice
+	// worker` processes join through --expose-nats).
+	if workers > 0 {
+		node.wg.Add(1)
+		go func() {
+			defer node.wg.Done()
+			host, _ := os.Hostname()
+			node.fail(runWorkers(ctx, q, st, wm, fmt.Sprintf("%s:%d/run", host, os.Getpid()), workers, log))
+		}()
+	}
 	if f.watch != "" {
 		if err := os.MkdirAll(f.watch, 0o755); err != nil {
 			return nil, err

@@ -106,6 +106,7 @@ func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.T
 		w.Metrics.Busy.Inc()
 		defer w.Metrics.Busy.Dec()
 	}
+	fault(t)
 	cs := &countingStore{Store: w.Store}
 	var stages []*sluicepb.StageTiming
 	stage := func(name string, t0 time.Time) {
@@ -115,11 +116,18 @@ func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.T
 			w.Metrics.StageSeconds.WithLabelValues(name).Observe(d.Seconds())
 		}
 	}
+	t0 := time.Now()
+	if t.PublishedAt != nil {
+		// Queue wait: publication of the task to the start of this attempt
+		// (clocks of one node, or NTP-synchronised nodes).
+		if pub := t.PublishedAt.AsTime(); !pub.IsZero() && t0.After(pub) {
+			stage("queue_wait", pub)
+		}
+	}
 	step, err := layout.NewStep(t.Campaign, t.Step)
 	if err != nil {
 		return nil, err
 	}
-	t0 := time.Now()
 	p, err := w.load(ctx, cs, step, t.ParamHash)
 	if err != nil {
 		return nil, fmt.Errorf("worker: %s tile %d: %w", step.Dir(), t.Tile, err)
