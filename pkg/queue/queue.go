@@ -176,10 +176,13 @@ type Config struct {
 	Server *Server
 	// URL is a NATS client URL list (nats://host:4222,nats://…).
 	URL string
-	// CredsFile is a NATS credentials file (JWT + nkey seed).
+	// CredsFile is a NATS credentials file (JWT + nkey seed) or a file
+	// holding a user nkey seed alone (servers without JWT accounts).
 	CredsFile string
 	// Token authenticates with a server token (see ServerConfig.Token).
 	Token string
+	// User and Password authenticate as a user of the server.
+	User, Password string
 	// TLSCA, TLSCert, TLSKey: CA bundle to verify the server, and a client
 	// certificate and key for mutual TLS.
 	TLSCA, TLSCert, TLSKey string
@@ -226,33 +229,13 @@ func Open(ctx context.Context, cfg Config) (*Queue, error) {
 	if cfg.Name == "" {
 		cfg.Name = "sluice"
 	}
-	opts := []nats.Option{nats.Name(cfg.Name), nats.MaxReconnects(-1)}
-	url := cfg.URL
-	where := url
-	if cfg.Server != nil {
-		opts = append(opts, nats.InProcessServer(cfg.Server.ns))
-		url, where = "", "embedded server"
-		if cfg.Token == "" {
-			cfg.Token = cfg.Server.cfg.Token
-		}
-	} else if url == "" {
-		return nil, errors.New("queue: no NATS URL and no embedded server")
-	}
-	if cfg.CredsFile != "" {
-		opts = append(opts, nats.UserCredentials(cfg.CredsFile))
-	}
-	if cfg.Token != "" {
-		opts = append(opts, nats.Token(cfg.Token))
-	}
-	if cfg.TLSCA != "" {
-		opts = append(opts, nats.RootCAs(cfg.TLSCA))
-	}
-	if cfg.TLSCert != "" || cfg.TLSKey != "" {
-		opts = append(opts, nats.ClientCert(cfg.TLSCert, cfg.TLSKey))
+	opts, url, where, err := connectOptions(cfg)
+	if err != nil {
+		return nil, err
 	}
 	nc, err := nats.Connect(url, opts...)
 	if err != nil {
-		return nil, fmt.Errorf("queue: connect to %s: %v", where, err)
+		return nil, fmt.Errorf("queue: connect to %s: %v", where, oneLine(err))
 	}
 	q := &Queue{nc: nc, policy: pol, log: cfg.Logger}
 	if err := q.setup(ctx, cfg); err != nil {

@@ -1,0 +1,306 @@
+package queue
+
+import (
+	"bufio"
+	"context"
+	"crypto/ecdsa"
+	"crypto/elliptic"
+	"crypto/rand"
+	"crypto/x509"
+	"crypto/x509/pkix"
+	"encoding/pem"
+	"math/big"
+	"net"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nkeys"
+	"golang.org/x/crypto/bcrypt"
+
+	pb "sluice/proto/sluicepb"
+)
+
+// testPKI is a certificate authority made for one test, with a server
+// certificate for 127.0.0.1 and a client certificate, all as PEM files.
+type testPKI struct {
+	CA, ServerCert, ServerKey, ClientCert, ClientKey string
+}
+
+func newTestPKI(t *testing.T) testPKI {
+	t.Helper()
+	dir := t.TempDir()
+	write := func(name, kind string, der []byte) string {
+		p := filepath.Join(dir, name)
+		if err := os.WriteFile(p, pem.EncodeToMemory(&pem.Block{Type: kind, Bytes: der}), 0o600); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	key := func() *ecdsa.PrivateKey {
+		k, err := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return k
+	}
+	now := time.Now()
+	caKey := key()
+	caTmpl := &x509.Certificate{SerialNumber: big.NewInt(1), Subject: pkix.Name{CommonName: "sluice test CA"},
+		NotBefore: now.Add(-time.Hour), NotAfter: now.Add(time.Hour), IsCA: true, BasicConstraintsValid: true,
+		KeyUsage: x509.KeyUsageCertSign | x509.KeyUsageDigitalSignature}
+	caDER, err := x509.CreateCertificate(rand.Reader, caTmpl, caTmpl, &caKey.PublicKey, caKey)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ca, _ := x509.ParseCertificate(caDER)
+	leaf := func(serial int64, cn string, usage x509.ExtKeyUsage) (string, string) {
+		k := key()
+		tmpl := &x509.Certificate{SerialNumber: big.NewInt(serial), Subject: pkix.Name{CommonName: cn},
+			NotBefore: now.Add(-time.Hour), NotAfter: now.Add(time.Hour), KeyUsage: x509.KeyUsageDigitalSignature,
+			ExtKeyUsage: []x509.ExtKeyUsage{usage}, IPAddresses: []net.IP{net.ParseIP("127.0.0.1")}, DNSNames: []string{"localhost"}}
+		der, err := x509.CreateCertificate(rand.Reader, tmpl, ca, &k.PublicKey, caKey)
+		if err != nil {
+			t.Fatal(err)
+		}
+		kder, _ := x509.MarshalECPrivateKey(k)
+		return write(cn+".pem", "CERTIFICATE", der), write(cn+"-key.pem", "EC PRIVATE KEY", kder)
+	}
+	var p testPKI
+	p.CA = write("ca.pem", "CERTIFICATE", caDER)
+	p.ServerCert, p.ServerKey = leaf(2, "server", x509.ExtKeyUsageServerAuth)
+	p.ClientCert, p.ClientKey = leaf(3, "client", x509.ExtKeyUsageClientAuth)
+	return p
+}
+
+// mustRefuse opens a queue with cfg and fails the test if it connects.
+func mustRefuse(t *testing.T, what string, cfg Config) error {
+	t.Helper()
+	cfg.Logger = quiet
+	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+	defer cancel()
+	q, err := Open(ctx, cfg)
+	if err == nil {
+		q.Close()
+		t.Fatalf("%s: connected, want refusal", what)
+	}
+	if strings.Contains(err.Error(), "\n") {
+		t.Errorf("%s: error spans lines: %q", what, err)
+	}
+	return err
+}
+
+// roundTrip checks that q really talks to JetStream: it publishes a task
+// and writes and reads back a progress entry.
+func roundTrip(t *testing.T, q *Queue, step string) {
+	t.Helper()
+	ctx := context.Background()
+	if _, err := q.PublishTask(ctx, task("c", step, 0, pb.Priority_PRIORITY_LIVE)); err != nil {
+		t.Fatal(err)
+	}
+	key := ProgressKey("c", step)
+	if _, err := q.PutProgress(ctx, key, []byte(step)); err != nil {
+		t.Fatal(err)
+	}
+	if v, _, err := q.GetProgress(ctx, key); err != nil || string(v) != step {
+		t.Fatalf("progress %s = %q, %v", key, v, err)
+	}
+}
+
+func TestServerRefusesExposureWithoutAuth(t *testing.T) {
+	for _, addr := range []string{"0.0.0.0:-1", ":-1", "[::]:-1", "192.0.2.1:4222"} {
+		_, err := StartServer(ServerConfig{StoreDir: t.TempDir(), Listen: addr})
+		if err == nil || !strings.Contains(err.Error(), "refusing") || strings.Contains(err.Error(), "\n") {
+			t.Errorf("Listen %s without auth: err = %v, want a one-line refusal", addr, err)
+		}
+	}
+	for _, host := range []string{"127.0.0.1", "localhost", "::1", "[::1]", "127.3.4.5"} {
+		if !IsLoopback(host) {
+			t.Errorf("IsLoopback(%q) = false", host)
+		}
+	}
+	for _, host := range []string{"", "0.0.0.0", "::", "10.0.0.1", "example.org"} {
+		if IsLoopback(host) {
+			t.Errorf("IsLoopback(%q) = true", host)
+		}
+	}
+	// With a token the same bind is allowed.
+	srv, err := StartServer(ServerConfig{StoreDir: t.TempDir(), Listen: "0.0.0.0:-1", Token: "tok-" + t.Name()})
+	if err != nil {
+		t.Fatalf("Listen 0.0.0.0 with a token: %v", err)
+	}
+	srv.Shutdown()
+}
+
+func TestServerUsersPasswordAndNKey(t *testing.T) {
+	hash, err := bcrypt.GenerateFromPassword([]byte("pw-of-bob"), bcrypt.MinCost)
+	if err != nil {
+		t.Fatal(err)
+	}
+	kp, err := nkeys.CreateUser()
+	if err != nil {
+		t.Fatal(err)
+	}
+	pub, _ := kp.PublicKey()
+	seed, _ := kp.Seed()
+	other, _ := nkeys.CreateUser()
+	otherSeed, _ := other.Seed()
+	dir := t.TempDir()
+	seedFile, otherFile := filepath.Join(dir, "worker.nk"), filepath.Join(dir, "other.nk")
+	os.WriteFile(seedFile, seed, 0o600)
+	os.WriteFile(otherFile, otherSeed, 0o600)
+	users := filepath.Join(dir, "users")
+	os.WriteFile(users, []byte("# sluice NATS users\nalice pw-of-alice\nbob "+string(hash)+"\n"+pub+"\n"), 0o600)
+	us, ks, err := LoadUsers(users)
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv, err := StartServer(ServerConfig{StoreDir: t.TempDir(), Listen: "127.0.0.1:-1", Users: us, NKeys: ks})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(srv.Shutdown)
+	url := srv.ClientURL()
+
+	mustRefuse(t, "no credentials", Config{URL: url})
+	mustRefuse(t, "wrong password", Config{URL: url, User: "alice", Password: "pw-of-bob"})
+	mustRefuse(t, "unknown user", Config{URL: url, User: "mallory", Password: "pw-of-alice"})
+	mustRefuse(t, "bcrypt hash as password", Config{URL: url, User: "bob", Password: string(hash)})
+	mustRefuse(t, "unlisted nkey", Config{URL: url, CredsFile: otherFile})
+	// The in-process user's password is random and in-process only: a
+	// network client cannot use that name even with a guessed password.
+	mustRefuse(t, "in-process user over TCP", Config{URL: url, User: inProcessUser, Password: "x"})
+
+	roundTrip(t, openQueue(t, Config{URL: url, User: "alice", Password: "pw-of-alice"}), "0001")
+	roundTrip(t, openQueue(t, Config{URL: url, User: "bob", Password: "pw-of-bob"}), "0002")
+	roundTrip(t, openQueue(t, Config{URL: url, CredsFile: seedFile}), "0003")
+	roundTrip(t, openQueue(t, Config{Server: srv}), "0004") // in-process, own credentials
+}
+
+func TestServerToken(t *testing.T) {
+	srv, err := StartServer(ServerConfig{StoreDir: t.TempDir(), Listen: "127.0.0.1:-1", Token: "tok-right"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(srv.Shutdown)
+	mustRefuse(t, "no token", Config{URL: srv.ClientURL()})
+	err = mustRefuse(t, "wrong token", Config{URL: srv.ClientURL(), Token: "tok-wrong"})
+	if strings.Contains(err.Error(), "tok-wrong") {
+		t.Errorf("error repeats the token: %v", err)
+	}
+	roundTrip(t, openQueue(t, Config{URL: srv.ClientURL(), Token: "tok-right"}), "0001")
+	if _, err := StartServer(ServerConfig{StoreDir: t.TempDir(), Token: "a", Users: []User{{"u", "p"}}}); err == nil {
+		t.Error("token and users together accepted")
+	}
+}
+
+func TestServerMutualTLS(t *testing.T) {
+	pki := newTestPKI(t)
+	srv, err := StartServer(ServerConfig{StoreDir: t.TempDir(), Listen: "127.0.0.1:-1", Token: "tok-tls",
+		TLSCert: pki.ServerCert, TLSKey: pki.ServerKey, TLSClientCA: pki.CA})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(srv.Shutdown)
+	url := srv.ClientURL()
+	if !strings.HasPrefix(url, "tls://127.0.0.1:") {
+		t.Fatalf("ClientURL = %q, want tls://", url)
+	}
+	plainURL := "nats://" + strings.TrimPrefix(url, "tls://")
+
+	// A plain-text client: the server announces tls_required and drops a
+	// CONNECT sent in the clear.
+	c, err := net.DialTimeout("tcp", strings.TrimPrefix(url, "tls://"), 5*time.Second)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c.SetDeadline(time.Now().Add(10 * time.Second))
+	r := bufio.NewReader(c)
+	info, err := r.ReadString('\n')
+	if err != nil || !strings.Contains(info, `"tls_required":true`) {
+		t.Fatalf("INFO = %q, %v; want tls_required", info, err)
+	}
+	c.Write([]byte("CONNECT {\"auth_token\":\"tok-tls\",\"verbose\":false}\r\nPING\r\n"))
+	reply, _ := r.ReadString('\n')
+	c.Close()
+	if strings.HasPrefix(reply, "PONG") {
+		t.Fatalf("plain-text client got %q", reply)
+	}
+	t.Logf("plain-text client got %q", strings.TrimSpace(reply))
+
+	mustRefuse(t, "TLS without the test CA", Config{URL: url, Token: "tok-tls"})
+	mustRefuse(t, "TLS without a client certificate", Config{URL: url, Token: "tok-tls", TLSCA: pki.CA})
+	mustRefuse(t, "right certificates, no token", Config{URL: url, TLSCA: pki.CA, TLSCert: pki.ClientCert, TLSKey: pki.ClientKey})
+	roundTrip(t, openQueue(t, Config{URL: url, Token: "tok-tls", TLSCA: pki.CA, TLSCert: pki.ClientCert, TLSKey: pki.ClientKey}), "0001")
+	// nats:// URL to the same server: the client upgrades to TLS as told.
+	roundTrip(t, openQueue(t, Config{URL: plainURL, Token: "tok-tls", TLSCA: pki.CA, TLSCert: pki.ClientCert, TLSKey: pki.ClientKey}), "0002")
+	// In-process clients need no TLS.
+	roundTrip(t, openQueue(t, Config{Server: srv}), "0003")
+}
+
+func TestParseUsers(t *testing.T) {
+	kp, _ := nkeys.CreateUser()
+	pub, _ := kp.PublicKey()
+	us, ks, err := ParseUsers("u", []byte("\n# c\n  alice   s3cr3t \n"+pub+"\n"))
+	if err != nil || len(us) != 1 || us[0] != (User{"alice", "s3cr3t"}) || len(ks) != 1 || ks[0] != pub {
+		t.Fatalf("ParseUsers = %v %v %v", us, ks, err)
+	}
+	for _, bad := range []string{"", "# only\n", "alice pw extra-secret", "alice a\nalice b", "UNOTAKEY", inProcessUser + " x", pub + "\n" + pub} {
+		_, _, err := ParseUsers("users.txt", []byte(bad))
+		if err == nil {
+			t.Errorf("ParseUsers(%q) accepted", bad)
+			continue
+		}
+		if !strings.HasPrefix(err.Error(), "queue: users file users.txt") || strings.Contains(err.Error(), "extra-secret") {
+			t.Errorf("ParseUsers(%q) error %q: want prefix and no password", bad, err)
+		}
+	}
+	if s := (User{"a", "topsecret"}).String(); strings.Contains(s, "topsecret") {
+		t.Errorf("User prints its password: %s", s)
+	}
+}
+
+func FuzzParseUsers(f *testing.F) {
+	kp, _ := nkeys.CreateUser()
+	pub, _ := kp.PublicKey()
+	f.Add([]byte("alice pw\n" + pub + "\n# x\n"))
+	f.Add([]byte("a b c"))
+	f.Add([]byte{0, '\n', 0xff})
+	f.Fuzz(func(t *testing.T, data []byte) {
+		us, ks, err := ParseUsers("f", data)
+		if err != nil {
+			if strings.Contains(err.Error(), "\n") {
+				t.Fatalf("multi-line error %q", err)
+			}
+			return
+		}
+		if len(us)+len(ks) == 0 {
+			t.Fatal("no users and no error")
+		}
+		for _, u := range us {
+			if u.Name == "" || u.Password == "" || strings.ContainsAny(u.Name+u.Password, " \t\n") {
+				t.Fatalf("bad user %q", u.Name)
+			}
+		}
+		for _, k := range ks {
+			if !nkeys.IsValidPublicUserKey(k) {
+				t.Fatalf("bad nkey %q", k)
+			}
+		}
+	})
+}
+
+func TestRedactURL(t *testing.T) {
+	for in, want := range map[string]string{
+		"nats://u:p@h:4222":         "nats://[redacted]@h:4222",
+		"nats://h:1,tls://tok@h2:2": "nats://h:1,tls://[redacted]@h2:2",
+		"nats://127.0.0.1:4222":     "nats://127.0.0.1:4222",
+		"a:b@c":                     "[redacted]@c",
+	} {
+		if got := redactURL(in); got != want {
+			t.Errorf("redactURL(%q) = %q, want %q", in, got, want)
+		}
+	}
+}
