@@ -139,19 +139,28 @@ func waitRows(t *testing.T, st store.Store, c string, n int, limit time.Duration
 // scans renders the campaign's scans into dir as raw files with headers.
 func scans(t *testing.T, dir string) ([]string, campaign.Config) {
 	t.Helper()
-	sc := &scenario.Campaign{Shape: [3]int{64, 64, 64}, Steps: steps, Seed: 3}
+	return renderScans(t, dir, 64, 32, steps)
+}
+
+// renderScans renders n scans of a size³ drainage (scenario seed 3) into
+// dir as raw files with headers, and returns them with a campaign config of
+// tile edge tile and fixed thresholds.
+func renderScans(t testing.TB, dir string, size, tile, n int) ([]string, campaign.Config) {
+	t.Helper()
+	steps := n
+	sc := &scenario.Campaign{Shape: [3]int{size, size, size}, Steps: steps, Seed: 3}
 	if err := sc.Prepare(); err != nil {
 		t.Fatal(err)
 	}
 	cfg := campaign.Default()
-	cfg.Tile = 32
+	cfg.Tile = tile
 	cfg.IFT = sc.IFT
 	cfg.VoxelSize = "4um"
 	lv := forward.Default()
 	cfg.Segment.Threshold = "fixed"
 	cfg.Segment.Fixed = []float64{(lv.Nonwetting + lv.Wetting) / 2, (lv.Wetting + lv.Solid) / 2}
 	cfg.DetectSample = false
-	c := float64(63) / 2
+	c := float64(size-1) / 2
 	cfg.Segment.Sample.Y, cfg.Segment.Sample.X, cfg.Segment.Sample.Radius = c, c, sc.Rock.CoreRadius
 	var paths []string
 	for i := 0; i < steps; i++ {

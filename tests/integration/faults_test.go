@@ -1,0 +1,671 @@
+package integration
+
+// Fault tests on real components (issue 8, part A): a process killed with
+// SIGKILL (aggregator mid-step, the all-in-one node mid-campaign), the NATS
+// server restarted, the MinIO server stopped for ten seconds, a poison tile
+// that crashes every worker that takes it, and a burst of 200 small steps.
+// Each asserts the outcome — rows, identical series, dead letters, metric
+// values, error text — never a speed.
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"regexp"
+	"strconv"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"sluice/internal/testenv"
+	"sluice/pkg/campaign"
+	"sluice/pkg/queue"
+	"sluice/pkg/series"
+	"sluice/pkg/store"
+	pb "sluice/proto/sluicepb"
+)
+
+// tmpRoot holds what the tests of this package share (binaries, rendered
+// scans, undisturbed reference runs); TestMain removes it.
+var tmpRoot string
+
+func TestMain(m *testing.M) {
+	var err error
+	if tmpRoot, err = os.MkdirTemp("", "sluice-integration-"); err != nil {
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(1)
+	}
+	code := m.Run()
+	os.RemoveAll(tmpRoot)
+	os.Exit(code)
+}
+
+var (
+	sharedMu sync.Mutex
+	binaries = map[string]string{}
+	fixtures = map[string]*fixture{}
+)
+
+// binary builds sluice once per set of build tags.
+func binary(t *testing.T, tags string) string {
+	t.Helper()
+	sharedMu.Lock()
+	defer sharedMu.Unlock()
+	if b, ok := binaries[tags]; ok {
+		return b
+	}
+	bin := filepath.Join(tmpRoot, "sluice"+strings.ReplaceAll(tags, ",", "-"))
+	args := []string{"build", "-o", bin}
+	if tags != "" {
+		args = append(args, "-tags", tags)
+	}
+	cmd := exec.Command("go", append(args, "sluice/services/sluice")...)
+	if out, err := cmd.CombinedOutput(); err != nil {
+		t.Fatalf("go build %s: %v\n%s", tags, err, out)
+	}
+	binaries[tags] = bin
+	return bin
+}
+
+// fixture is a rendered campaign and its undisturbed all-in-one run.
+type fixture struct {
+	name    string // campaign name
+	dir     string // scans (raw + header)
+	paths   []string
+	cfgPath string
+	cfg     campaign.Config
+	// want is series.json of the undisturbed run: every fault test must
+	// end with these bytes (minus the steps it kills on purpose).
+	want []byte
+	rows []series.Row
+}
+
+// prepare renders n scans of size³ (tile edge tile) and runs them once,
+// undisturbed, through `sluice reprocess --from` (all-in-one, embedded NATS,
+// local store).
+func prepare(t *testing.T, name string, size, tile, n int) *fixture {
+	t.Helper()
+	key := fmt.Sprint(name, size, tile, n)
+	sharedMu.Lock()
+	f, ok := fixtures[key]
+	sharedMu.Unlock()
+	if ok {
+		return f
+	}
+	bin := binary(t, "")
+	f = &fixture{name: name, dir: filepath.Join(tmpRoot, key, "scans")}
+	os.MkdirAll(f.dir, 0o755)
+	f.paths, f.cfg = renderScans(t, f.dir, size, tile, n)
+	f.cfgPath = filepath.Join(tmpRoot, key, "campaign.json")
+	b, _ := json.Marshal(f.cfg)
+	if err := os.WriteFile(f.cfgPath, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	ref := filepath.Join(tmpRoot, key, "ref")
+	sluiceRun(t, bin, nil, "reprocess", name, "--from", f.dir, "--config", f.cfgPath, "--data", ref, "--workers", "2")
+	st, err := store.Open(context.Background(), filepath.Join(ref, "store"), store.Credentials{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if f.want, err = seriesJSON(st, name); err != nil {
+		t.Fatal(err)
+	}
+	if f.rows, err = series.Decode(f.want); err != nil || len(f.rows) != n {
+		t.Fatalf("undisturbed run: %d rows for %d steps (%v)", len(f.rows), n, err)
+	}
+	sharedMu.Lock()
+	fixtures[key] = f
+	sharedMu.Unlock()
+	return f
+}
+
+func seriesJSON(st store.Store, c string) ([]byte, error) {
+	return st.Get(context.Background(), "campaigns/"+c+"/series.json")
+}
+
+// waitFor polls cond every 50 ms until it holds; after limit (a liveness
+// guard, not a speed check) the test fails naming what.
+func waitFor(t *testing.T, limit time.Duration, what string, cond func() bool) {
+	t.Helper()
+	for deadline := time.Now().Add(limit); !cond(); time.Sleep(50 * time.Millisecond) {
+		if time.Now().After(deadline) {
+			t.Fatalf("still waiting after %v for %s", limit, what)
+		}
+	}
+}
+
+// rowCount returns the number of rows in a campaign's series (0 when none).
+func rowCount(st store.Store, c string) int {
+	rows, err := series.Load(context.Background(), st, c)
+	if err != nil {
+		return 0
+	}
+	return len(rows)
+}
+
+// sameSeries checks that the series equals the undisturbed one byte for
+// byte, and that it has one row per step.
+func sameSeries(t *testing.T, st store.Store, f *fixture, label string) {
+	t.Helper()
+	got, err := seriesJSON(st, f.name)
+	if err != nil {
+		t.Fatalf("%s: %v", label, err)
+	}
+	checkRows(t, label, got, len(f.paths))
+	if !bytes.Equal(got, f.want) {
+		rows, _ := series.Decode(got)
+		compareRows(t, rows, f.rows)
+		t.Errorf("%s: series.json is not byte for byte the undisturbed run's (%d vs %d bytes)", label, len(got), len(f.want))
+	}
+}
+
+// cluster is a distributed deployment on loopback: a separate nats-server,
+// an object store (MinIO or a shared directory), and sluice processes.
+type cluster struct {
+	t      *testing.T
+	bin    string
+	nats   *testenv.NATS
+	minio  *testenv.MinIO // nil: local directory store
+	loc    string
+	env    []string
+	common []string
+	st     store.Store
+}
+
+func newCluster(t *testing.T, bin string, useMinIO bool, extra ...string) *cluster {
+	t.Helper()
+	c := &cluster{t: t, bin: bin, nats: testenv.StartNATS(t)}
+	creds := store.Credentials{}
+	if useMinIO {
+		c.minio = testenv.StartMinIO(t)
+		c.env = []string{"SLUICE_S3_ACCESS_KEY=" + c.minio.AccessKey, "SLUICE_S3_SECRET_KEY=" + c.minio.SecretKey}
+		c.loc = c.minio.URL("sluice-faults")
+		creds = store.Credentials{AccessKey: store.Secret(c.minio.AccessKey), SecretKey: store.Secret(c.minio.SecretKey)}
+	} else {
+		c.loc = filepath.Join(t.TempDir(), "store")
+	}
+	c.common = append([]string{"--nats", c.nats.URL, "--store", c.loc}, extra...)
+	var err error
+	if c.st, err = store.Open(context.Background(), c.loc, creds); err != nil {
+		t.Fatal(err)
+	}
+	return c
+}
+
+func (c *cluster) addr() string { return fmt.Sprintf("127.0.0.1:%d", testenv.FreePort(c.t)) }
+
+// service starts `sluice <cmd>` with the cluster's flags plus args.
+func (c *cluster) service(name, cmd string, args ...string) *proc {
+	return start(c.t, name, c.bin, c.env, append(append([]string{cmd}, args...), c.common...)...)
+}
+
+// ingest stores one scan and queues its tiles (`sluice ingest FILE`).
+func (c *cluster) ingest(f *fixture, i int) error {
+	cmd := exec.Command(c.bin, append([]string{"ingest", "--campaign", f.name, "--config", f.cfgPath, f.paths[i]}, c.common...)...)
+	cmd.Env = append(os.Environ(), c.env...)
+	out, err := cmd.CombinedOutput()
+	if err != nil {
+		return fmt.Errorf("ingest %s: %v\n%s", filepath.Base(f.paths[i]), err, tail(string(out), 20))
+	}
+	return nil
+}
+
+func (c *cluster) queue() *queue.Queue {
+	q, err := queue.Open(context.Background(), queue.Config{URL: c.nats.URL})
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	c.t.Cleanup(func() { q.Close() })
+	return q
+}
+
+// completions counts the step-completed events of a campaign on NATS.
+func completions(t *testing.T, q *queue.Queue, name string) map[string]int {
+	t.Helper()
+	n := map[string]int{}
+	var mu sync.Mutex
+	ctx, cancel := context.WithTimeout(context.Background(), 3*time.Second)
+	defer cancel()
+	q.Events(ctx, name, true, func(e *pb.StepEvent) {
+		if e.Kind == pb.StepEvent_KIND_COMPLETED {
+			mu.Lock()
+			n[e.Step]++
+			mu.Unlock()
+		}
+	})
+	return n
+}
+
+// metricSum adds the samples of a metric over all its label values on a
+// /metrics endpoint (-1 if the endpoint does not answer).
+func metricSum(addr, name string) float64 {
+	resp, err := http.Get("http://" + addr + "/metrics")
+	if err != nil {
+		return -1
+	}
+	defer resp.Body.Close()
+	b, _ := io.ReadAll(resp.Body)
+	re := regexp.MustCompile(`(?m)^` + regexp.QuoteMeta(name) + `(\{[^}]*\})? ([0-9.e+-]+)$`)
+	sum := 0.0
+	for _, m := range re.FindAllStringSubmatch(string(b), -1) {
+		v, _ := strconv.ParseFloat(m[2], 64)
+		sum += v
+	}
+	return sum
+}
+
+func kill(p *proc) {
+	p.cmd.Process.Kill()
+	p.cmd.Wait()
+}
+
+// TestKillAggregatorMidStep: the aggregator process is killed with SIGKILL
+// while a step has some of its tile results and not all, then started
+// again. Its state is the store and the durable results consumer, so every
+// step completes, once, and series.json is the undisturbed run's, byte for
+// byte.
+func TestKillAggregatorMidStep(t *testing.T) {
+	if testing.Short() {
+		t.Skip("multi-process test")
+	}
+	f := prepare(t, "faults", 48, 24, 6)
+	c := newCluster(t, binary(t, ""), true, "--ack-wait", "4s", "--max-deliver", "5")
+	aggAddr := c.addr()
+	agg := c.service("aggregate-1", "aggregate", "--http", aggAddr)
+	c.service("worker", "worker", "--http", "off", "--concurrency", "2", "--id", "w1")
+	for i := range f.paths {
+		if err := c.ingest(f, i); err != nil {
+			t.Fatal(err)
+		}
+	}
+	const tiles = 8 // 48³ in 24³ tiles
+	var received float64
+	waitFor(t, 3*time.Minute, "the aggregator to hold part of a step", func() bool {
+		received = metric(aggAddr, "sluice_tile_results_received_total")
+		return received > tiles && int(received)%tiles != 0
+	})
+	kill(agg)
+	rowsAtKill := rowCount(c.st, f.name)
+	t.Logf("aggregator killed after %g tile results (%d rows stored)", received, rowsAtKill)
+	if rowsAtKill >= len(f.paths) {
+		t.Fatalf("aggregator killed after the last step (%d rows)", rowsAtKill)
+	}
+	agg2Addr := c.addr()
+	c.service("aggregate-2", "aggregate", "--http", agg2Addr)
+	waitFor(t, 3*time.Minute, "every step after the restart", func() bool { return rowCount(c.st, f.name) >= len(f.paths) })
+	sameSeries(t, c.st, f, "after the aggregator restart")
+	t.Logf("restarted aggregator received %g tile results", metric(agg2Addr, "sluice_tile_results_received_total"))
+	for s, n := range completions(t, c.queue(), f.name) {
+		if n > 2 {
+			t.Errorf("step %s announced complete %d times", s, n)
+		}
+	}
+}
+
+// TestKillAllInOneMidCampaign: `sluice run` (embedded NATS, local store,
+// workers, aggregator, watcher) is killed with SIGKILL with part of the
+// campaign done and started again on the same directories; the watcher
+// skips measured scans, redelivered tiles finish the rest, and series.json
+// is the undisturbed run's, byte for byte.
+func TestKillAllInOneMidCampaign(t *testing.T) {
+	if testing.Short() {
+		t.Skip("multi-process test")
+	}
+	f := prepare(t, "faults", 48, 24, 6)
+	bin := binary(t, "")
+	data := t.TempDir()
+	incoming := filepath.Join(data, "incoming")
+	os.MkdirAll(incoming, 0o755)
+	args := []string{"run", "--data", data, "--watch", incoming, "--campaign", f.name, "--config", f.cfgPath,
+		"--workers", "2", "--ack-wait", "4s", "--http", "off"}
+	run := start(t, "run-1", bin, nil, args...)
+	for _, p := range f.paths {
+		for _, ext := range []string{"", ".sluice.json"} {
+			b, err := os.ReadFile(p + ext)
+			if err != nil {
+				t.Fatal(err)
+			}
+			os.WriteFile(filepath.Join(incoming, filepath.Base(p)+ext), b, 0o644)
+		}
+		os.WriteFile(filepath.Join(incoming, filepath.Base(p)+".done"), nil, 0o644)
+	}
+	st, err := store.Open(context.Background(), filepath.Join(data, "store"), store.Credentials{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	waitFor(t, 3*time.Minute, "two steps done", func() bool { return rowCount(st, f.name) >= 2 })
+	kill(run)
+	at := rowCount(st, f.name)
+	t.Logf("all-in-one killed with %d of %d steps in the series", at, len(f.paths))
+	if at >= len(f.paths) {
+		t.Fatalf("killed after the last step")
+	}
+	start(t, "run-2", bin, nil, args...)
+	waitFor(t, 3*time.Minute, "every step after the restart", func() bool { return rowCount(st, f.name) >= len(f.paths) })
+	sameSeries(t, st, f, "after the all-in-one restart")
+}
+
+// TestNATSRestart: the separate nats-server is stopped while a worker
+// holds a tile and started again three seconds later on the same port with
+// the same JetStream store directory. Worker, aggregator and the watching
+// ingest reconnect and go on; a scan arriving during the outage is
+// ingested once NATS is back; nothing is lost and series.json is the
+// undisturbed run's.
+func TestNATSRestart(t *testing.T) {
+	if testing.Short() {
+		t.Skip("multi-process test")
+	}
+	f := prepare(t, "faults", 48, 24, 6)
+	c := newCluster(t, binary(t, ""), true, "--ack-wait", "4s", "--max-deliver", "5")
+	wAddr := c.addr()
+	c.service("aggregate", "aggregate", "--http", "off")
+	c.service("worker", "worker", "--http", wAddr, "--concurrency", "1", "--id", "w1")
+	incoming := t.TempDir()
+	c.service("ingest", "ingest", "--http", "off", "--campaign", f.name, "--config", f.cfgPath, "--watch", incoming)
+	drop := func(i int) {
+		p := f.paths[i]
+		for _, ext := range []string{"", ".sluice.json"} {
+			b, err := os.ReadFile(p + ext)
+			if err != nil {
+				t.Fatal(err)
+			}
+			os.WriteFile(filepath.Join(incoming, filepath.Base(p)+ext), b, 0o644)
+		}
+		os.WriteFile(filepath.Join(incoming, filepath.Base(p)+".done"), nil, 0o644)
+	}
+	for i := 0; i < 3; i++ {
+		drop(i)
+	}
+	waitFor(t, 2*time.Minute, "the worker to hold a tile", func() bool { return metric(wAddr, "sluice_worker_tiles_in_flight") >= 1 })
+	before := metricSum(wAddr, "sluice_tiles_processed_total")
+	c.nats.Stop()
+	down := time.Now()
+	drop(3) // arrives while NATS is down
+	time.Sleep(3 * time.Second)
+	c.nats.Start()
+	up := time.Now()
+	waitFor(t, 2*time.Minute, "a tile processed after the restart", func() bool {
+		return metricSum(wAddr, "sluice_tiles_processed_total") > before+1
+	})
+	t.Logf("NATS down %.1f s; first tiles processed again %.1f s after it came back",
+		up.Sub(down).Seconds(), time.Since(up).Seconds())
+	for i := 4; i < len(f.paths); i++ {
+		drop(i)
+	}
+	waitFor(t, 3*time.Minute, "every step after the NATS restart", func() bool { return rowCount(c.st, f.name) >= len(f.paths) })
+	sameSeries(t, c.st, f, "after the NATS restart")
+	if dls, err := c.queue().DeadLetters(context.Background(), f.name); err != nil || len(dls) != 0 {
+		t.Errorf("dead letters after a NATS restart: %d (%v)", len(dls), err)
+	}
+	t.Logf("worker: %g tiles processed, %g redelivered", metricSum(wAddr, "sluice_tiles_processed_total"), metric(wAddr, "sluice_tiles_redelivered_total"))
+}
+
+// TestMinIOOutage: the MinIO server is stopped for ten seconds while a
+// worker holds a tile and an ingest is running, then started again on the
+// same address and data directory. Store operations fail, are retried with
+// backoff (sluice_store_retries_total rises on the worker), nothing is
+// dead-lettered, and series.json is the undisturbed run's.
+func TestMinIOOutage(t *testing.T) {
+	if testing.Short() {
+		t.Skip("multi-process test")
+	}
+	f := prepare(t, "faults", 48, 24, 6)
+	c := newCluster(t, binary(t, ""), true, "--ack-wait", "4s", "--max-deliver", "3")
+	wAddr, aAddr := c.addr(), c.addr()
+	c.service("aggregate", "aggregate", "--http", aAddr)
+	c.service("worker", "worker", "--http", wAddr, "--concurrency", "1", "--id", "w1")
+	for i := 0; i < 4; i++ {
+		if err := c.ingest(f, i); err != nil {
+			t.Fatal(err)
+		}
+	}
+	waitFor(t, 2*time.Minute, "the worker to hold a tile", func() bool { return metric(wAddr, "sluice_worker_tiles_in_flight") >= 1 })
+	c.minio.Stop()
+	down := time.Now()
+	ingested := make(chan error, 1)
+	go func() { ingested <- c.ingest(f, 4) }() // an ingest that meets the outage
+	time.Sleep(10 * time.Second)
+	c.minio.Start()
+	t.Logf("MinIO down %.1f s", time.Since(down).Seconds())
+	if err := <-ingested; err != nil {
+		t.Fatalf("ingest during the outage: %v", err)
+	}
+	for i := 5; i < len(f.paths); i++ {
+		if err := c.ingest(f, i); err != nil {
+			t.Fatal(err)
+		}
+	}
+	waitFor(t, 3*time.Minute, "every step after the outage", func() bool { return rowCount(c.st, f.name) >= len(f.paths) })
+	sameSeries(t, c.st, f, "after the MinIO outage")
+	retries := metricSum(wAddr, "sluice_store_retries_total")
+	if retries < 1 {
+		t.Errorf("worker sluice_store_retries_total = %g, want > 0 after a 10 s outage", retries)
+	}
+	if g := metricSum(wAddr, "sluice_store_gave_up_total"); g != 0 {
+		t.Errorf("worker gave up on %g store operations", g)
+	}
+	if n := metric(wAddr, "sluice_tiles_dead_letter_total"); n != 0 {
+		t.Errorf("%g tiles dead-lettered", n)
+	}
+	if dls, err := c.queue().DeadLetters(context.Background(), f.name); err != nil || len(dls) != 0 {
+		t.Errorf("dead letters after the outage: %d (%v)", len(dls), err)
+	}
+	t.Logf("worker: store errors %g, retries %g, tiles redelivered %g; aggregator: store errors %g, retries %g",
+		metricSum(wAddr, "sluice_store_errors_total"), retries, metric(wAddr, "sluice_tiles_redelivered_total"),
+		metricSum(aAddr, "sluice_store_errors_total"), metricSum(aAddr, "sluice_store_retries_total"))
+	out := sluiceRun(t, c.bin, c.env, append([]string{"status", f.name}, c.common...)...)
+	if !strings.Contains(out, fmt.Sprintf("done %d", len(f.paths))) || !strings.Contains(out, "failed 0") {
+		t.Errorf("sluice status after the outage:\n%s", out)
+	}
+}
+
+// TestPoisonTile: one tile kills every worker process that takes it (a
+// fault-injection hook compiled only with -tags faultinject). A supervisor
+// restarts the worker, as systemd or Kubernetes would. The tile is
+// delivered MaxDeliver = 3 times, then recorded as a dead letter from the
+// server's max-deliveries advisory; its step is failed with that reason on
+// the aggregator's API and in `sluice status`; every other step, before and
+// after it, completes with the undisturbed run's values.
+func TestPoisonTile(t *testing.T) {
+	if testing.Short() {
+		t.Skip("multi-process test")
+	}
+	f := prepare(t, "faults", 48, 24, 6)
+	bin := binary(t, "faultinject")
+	c := newCluster(t, bin, false, "--ack-wait", "2s", "--max-deliver", "3")
+	poisonStep := strings.TrimSuffix(filepath.Base(f.paths[2]), ".raw")
+	const poisonTile = 5
+	aAddr := c.addr()
+	c.service("aggregate", "aggregate", "--http", aAddr)
+
+	// The supervisor: one worker process at a time, restarted on exit.
+	ctx, cancel := context.WithCancel(context.Background())
+	var crashes int
+	var mu sync.Mutex
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		for i := 1; ctx.Err() == nil; i++ {
+			w := exec.Command(bin, append([]string{"worker", "--http", "off", "--concurrency", "1", "--id", fmt.Sprintf("w%d", i)}, c.common...)...)
+			w.Env = append(os.Environ(), "SLUICE_FAULT_CRASH_TILE="+f.name+"/"+poisonStep+"/"+fmt.Sprint(poisonTile))
+			var log bytes.Buffer
+			w.Stdout, w.Stderr = &log, &log
+			if w.Start() != nil {
+				return
+			}
+			done := make(chan struct{})
+			go func() { w.Wait(); close(done) }()
+			select {
+			case <-done:
+				mu.Lock()
+				if w.ProcessState.ExitCode() == 86 {
+					crashes++
+				}
+				mu.Unlock()
+			case <-ctx.Done():
+				w.Process.Signal(os.Interrupt)
+				<-done
+			}
+		}
+	}()
+	t.Cleanup(func() { cancel(); wg.Wait() })
+
+	for i := range f.paths {
+		if err := c.ingest(f, i); err != nil {
+			t.Fatal(err)
+		}
+	}
+	waitFor(t, 3*time.Minute, "every other step", func() bool { return rowCount(c.st, f.name) >= len(f.paths)-1 })
+	q := c.queue()
+	var dls []*pb.DeadLetter
+	waitFor(t, time.Minute, "the dead letter", func() bool {
+		dls, _ = q.DeadLetters(context.Background(), f.name)
+		return len(dls) > 0
+	})
+	mu.Lock()
+	t.Logf("worker crashes: %d", crashes)
+	if crashes != 3 {
+		t.Errorf("the poison tile crashed %d worker processes, want MaxDeliver = 3", crashes)
+	}
+	mu.Unlock()
+	if len(dls) != 1 {
+		t.Fatalf("%d dead letters, want 1", len(dls))
+	}
+	dl := dls[0]
+	t.Logf("dead letter: task %s, %d deliveries, reason %q", dl.MsgId, dl.Deliveries, dl.Reason)
+	if dl.Task == nil || dl.Task.Step != poisonStep || dl.Task.Tile != poisonTile || dl.Deliveries != 3 ||
+		!strings.Contains(dl.Reason, "no acknowledgement on any of 3 deliveries") {
+		t.Errorf("dead letter %v", dl)
+	}
+
+	// The series: every step but the poisoned one, with the undisturbed values.
+	rows, err := series.Load(context.Background(), c.st, f.name)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var want []series.Row
+	for _, r := range f.rows {
+		if r.Step != poisonStep {
+			want = append(want, r)
+		}
+	}
+	compareRows(t, rows, want)
+
+	// The aggregator's API and `sluice status` name the reason.
+	wantReason := fmt.Sprintf("tile %d: no acknowledgement on any of 3 deliveries", poisonTile)
+	var steps []struct{ Step, Status, Reason string }
+	waitFor(t, 30*time.Second, "the step failed on the aggregator's API", func() bool {
+		resp, err := http.Get("http://" + aAddr + "/api/campaigns/" + f.name + "/steps")
+		if err != nil {
+			return false
+		}
+		defer resp.Body.Close()
+		b, _ := io.ReadAll(resp.Body)
+		if json.Unmarshal(b, &steps) != nil {
+			return false
+		}
+		for _, s := range steps {
+			if s.Step == poisonStep {
+				return s.Status == "failed"
+			}
+		}
+		return false
+	})
+	for _, s := range steps {
+		if s.Step == poisonStep && !strings.Contains(s.Reason, wantReason) {
+			t.Errorf("aggregator API: step %s failed with reason %q, want it to contain %q", s.Step, s.Reason, wantReason)
+		}
+		if s.Step != poisonStep && s.Status != "done" {
+			t.Errorf("aggregator API: step %s is %s", s.Step, s.Status)
+		}
+	}
+	if n := metricSum(aAddr, "sluice_steps_failed_total"); n != 1 {
+		t.Errorf("sluice_steps_failed_total = %g, want 1", n)
+	}
+	out := sluiceRun(t, bin, c.env, append([]string{"status", f.name}, c.common...)...)
+	t.Logf("sluice status:\n%s", out)
+	wantStatus := fmt.Sprintf("failed:  step %s: tile %d dead-lettered after 3 deliveries: no acknowledgement", poisonStep, poisonTile)
+	if !strings.Contains(out, wantStatus) || !strings.Contains(out, "failed 1") {
+		t.Errorf("sluice status does not show the failed step (want %q)", wantStatus)
+	}
+}
+
+// TestBurst: 200 single-tile steps dropped into a watched directory at
+// once, two worker processes: 200 rows, no step twice, each tile processed
+// once, and the queue lag back to 0.
+func TestBurst(t *testing.T) {
+	if testing.Short() {
+		t.Skip("multi-process test")
+	}
+	const distinct, copies = 10, 20
+	f := prepare(t, "burst", 24, 24, distinct)
+	c := newCluster(t, binary(t, ""), false)
+	aAddr, w1, w2 := c.addr(), c.addr(), c.addr()
+	c.service("aggregate", "aggregate", "--http", aAddr)
+	c.service("worker-1", "worker", "--http", w1, "--concurrency", "1", "--id", "w1")
+	c.service("worker-2", "worker", "--http", w2, "--concurrency", "1", "--id", "w2")
+	incoming := t.TempDir()
+	// Each scan written 20 times under new names and times: 200 steps.
+	for k := 0; k < copies; k++ {
+		for i, p := range f.paths {
+			raw, err := os.ReadFile(p)
+			if err != nil {
+				t.Fatal(err)
+			}
+			hdr, err := os.ReadFile(p + ".sluice.json")
+			if err != nil {
+				t.Fatal(err)
+			}
+			name := filepath.Join(incoming, fmt.Sprintf("b%03d.raw", k*distinct+i))
+			os.WriteFile(name, raw, 0o644)
+			os.WriteFile(name+".sluice.json", hdr, 0o644)
+			os.WriteFile(name+".done", []byte(fmt.Sprintf(`{"time_s": %d}`, k*distinct+i)), 0o644)
+		}
+	}
+	c.service("ingest", "ingest", "--http", "off", "--campaign", f.name, "--config", f.cfgPath, "--watch", incoming)
+	const total = distinct * copies
+	waitFor(t, 5*time.Minute, "200 rows", func() bool { return rowCount(c.st, f.name) >= total })
+	b, err := seriesJSON(c.st, f.name)
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkRows(t, "burst", b, total)
+	rows, _ := series.Decode(b)
+	for _, r := range rows {
+		var i int
+		fmt.Sscanf(r.Step, "b%03d", &i)
+		w := f.rows[i%distinct]
+		if *r.SatNonwetting != *w.SatNonwetting || *r.Porosity != *w.Porosity {
+			t.Errorf("step %s: S_n %v porosity %v, its scan gave %v %v", r.Step, *r.SatNonwetting, *r.Porosity, *w.SatNonwetting, *w.Porosity)
+		}
+	}
+	processed := metricSum(w1, "sluice_tiles_processed_total") + metricSum(w2, "sluice_tiles_processed_total")
+	redelivered := metric(w1, "sluice_tiles_redelivered_total") + metric(w2, "sluice_tiles_redelivered_total")
+	t.Logf("tiles processed %g (w1 %g, w2 %g), redelivered %g", processed, metricSum(w1, "sluice_tiles_processed_total"),
+		metricSum(w2, "sluice_tiles_processed_total"), redelivered)
+	if processed != total || redelivered != 0 {
+		t.Errorf("%g tiles processed, %g redelivered; want each of %d tiles once", processed, redelivered, total)
+	}
+	if n := metricSum(aAddr, "sluice_steps_completed_total"); n != total {
+		t.Errorf("sluice_steps_completed_total = %g, want %d", n, total)
+	}
+	q := c.queue()
+	lag, err := q.Lag(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if lag != (queue.Lag{}) {
+		t.Errorf("queue lag after the burst: %+v", lag)
+	}
+	waitFor(t, 30*time.Second, "sluice_queue_lag_tasks back to 0", func() bool {
+		return metric(aAddr, `sluice_queue_lag_tasks{priority="live"}`) == 0
+	})
+}
