@@ -10,8 +10,11 @@ import (
 	"crypto/sha256"
 	"encoding/hex"
 	"encoding/json"
+	"errors"
 	"fmt"
+	"math"
 	"os"
+	"strings"
 
 	"gopkg.in/yaml.v3"
 
@@ -121,6 +124,21 @@ func (c Config) Validate() error {
 	if c.SampleMargin < 0 {
 		return fmt.Errorf("campaign: sample_margin %g must be >= 0", c.SampleMargin)
 	}
+	// The measurement packages read σ ≤ 0 as "use the default"; in a
+	// config file it is a mistake, not a request for the default.
+	m := c.Measure
+	if !(m.CurvatureSigma > 0 && m.CurvatureSigma <= 20) {
+		return fmt.Errorf("campaign: measure.curvature_sigma %g out of range (0, 20] voxels", m.CurvatureSigma)
+	}
+	if !(m.CurvatureExclude >= 0 && m.CurvatureExclude <= 1000) {
+		return fmt.Errorf("campaign: measure.curvature_exclude %g out of range [0, 1000] voxels", m.CurvatureExclude)
+	}
+	if !(m.ContactRadius > 0 && m.ContactRadius <= 100) || !(m.ContactSolidSigma > 0 && m.ContactSolidSigma <= 20) {
+		return fmt.Errorf("campaign: measure.contact_radius %g and contact_solid_sigma %g must be in (0, 100] and (0, 20] voxels", m.ContactRadius, m.ContactSolidSigma)
+	}
+	if math.IsNaN(c.IFT) || math.IsInf(c.IFT, 0) || math.IsNaN(c.SampleMargin) {
+		return fmt.Errorf("campaign: ift_n_per_m %g and sample_margin %g must be finite", c.IFT, c.SampleMargin)
+	}
 	mo, err := c.MeasureOptions()
 	if err != nil {
 		return err
@@ -208,6 +226,16 @@ func Load(path string) (Config, error) {
 	return Parse(path, b)
 }
 
+// oneLine turns a (possibly multi-line) decoder error into one line; the
+// list of a yaml.TypeError becomes "line 3: …; line 7: …".
 func oneLine(err error) string {
-	return string(bytes.ReplaceAll([]byte(err.Error()), []byte("\n"), []byte("; ")))
+	var te *yaml.TypeError
+	if errors.As(err, &te) {
+		parts := make([]string, len(te.Errors))
+		for i, e := range te.Errors {
+			parts[i] = strings.TrimSpace(e)
+		}
+		return strings.Join(parts, "; ")
+	}
+	return strings.Join(strings.Fields(strings.ReplaceAll(err.Error(), "\n", "; ")), " ")
 }

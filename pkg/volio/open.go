@@ -32,6 +32,11 @@ type Options struct {
 	// (default DefaultMaxVoxels). Inputs above it fail with ErrTooLarge
 	// before anything big is allocated.
 	MaxVoxels int64
+	// RequireChunks makes a missing Zarr chunk an ErrTruncated error naming
+	// the chunk instead of voxels at the fill value (the Zarr v2 reading).
+	// A scan handed over for measurement is complete, so a missing chunk
+	// there is a transfer that did not finish; the CLI and ingest set it.
+	RequireChunks bool
 }
 
 func (o Options) limit() int64 {
@@ -121,6 +126,7 @@ func openZarrStream(path string, opt Options) (Stream, error) {
 		return nil, err
 	}
 	z.limit = opt.limit()
+	z.requireChunks = opt.RequireChunks
 	m := z.Meta()
 	if _, ok := mulLimit(m.Shape, opt.limit()); !ok {
 		return nil, fileErr(path, ErrTooLarge, "Zarr array of %d×%d×%d voxels exceeds the limit of %d",

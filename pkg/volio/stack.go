@@ -110,6 +110,9 @@ func openStack(dir string, opt Options) (Stream, error) {
 		return nil, fileErr(dir, ErrFormat, "no .zarray and no .tif/.tiff slices in the directory")
 	}
 	sortNatural(names)
+	if err := checkNumbering(dir, names); err != nil {
+		return nil, err
+	}
 	files := make([]string, len(names))
 	for i, n := range names {
 		files[i] = filepath.Join(dir, n)
@@ -126,12 +129,68 @@ func openStackFiles(name string, files []string, isDir bool, opt Options) (Strea
 	if _, ok := mulLimit(h.Shape, opt.limit()); !ok {
 		return nil, fileErr(name, ErrTooLarge, "TIFF stack of %d×%d×%d voxels exceeds the limit of %d", h.Shape[0], h.Shape[1], h.Shape[2], opt.limit())
 	}
+	// Every slice must match the first before anything is read or stored:
+	// a stack that fails half-way through would leave half a step behind.
+	for _, f := range files[1:] {
+		t, err := tiffInfoOf(f, opt.limit())
+		if err != nil {
+			return nil, err
+		}
+		if t.width != info.width || t.height != info.height || t.dtype() != info.dtype() {
+			return nil, fileErr(f, ErrFormat, "slice is %d×%d %v, the stack is %d×%d %v (from %s)", t.width, t.height, t.dtype(),
+				info.width, info.height, info.dtype(), filepath.Base(files[0]))
+		}
+	}
 	if isDir {
 		if err := applyStackHeader(filepath.Join(name, stackHeaderName), &h); err != nil {
 			return nil, err
 		}
 	}
 	return &stackStream{dir: name, files: files, h: h, info: info, limit: opt.limit()}, nil
+}
+
+// checkNumbering finds a missing slice in a stack whose file names differ
+// only in one run of digits (z00000.tif, z00001.tif, …): the numbers must
+// then be consecutive. Stacks named any other way are taken in natural
+// order as they are.
+func checkNumbering(dir string, names []string) error {
+	prefix, _, suffix, ok := splitNumber(names[0])
+	if !ok {
+		return nil
+	}
+	nums := make([]int64, len(names))
+	for i, n := range names {
+		p, num, s, ok := splitNumber(n)
+		if !ok || p != prefix || s != suffix {
+			return nil
+		}
+		nums[i] = num
+	}
+	for i := 1; i < len(nums); i++ {
+		if nums[i] != nums[i-1]+1 {
+			return fileErr(dir, ErrFormat, "missing slice: %s is followed by %s (slice numbers must be consecutive)", names[i-1], names[i])
+		}
+	}
+	return nil
+}
+
+// splitNumber splits a file name around its last run of digits.
+func splitNumber(name string) (prefix string, num int64, suffix string, ok bool) {
+	end := strings.LastIndexFunc(name, func(r rune) bool { return r >= '0' && r <= '9' })
+	if end < 0 {
+		return "", 0, "", false
+	}
+	start := end
+	for start > 0 && isDigit(name[start-1]) {
+		start--
+	}
+	if end+1-start > 18 {
+		return "", 0, "", false
+	}
+	for _, c := range name[start : end+1] {
+		num = num*10 + int64(c-'0')
+	}
+	return name[:start], num, name[end+1:], true
 }
 
 func applyStackHeader(name string, h *Header) error {

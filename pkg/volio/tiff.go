@@ -35,6 +35,8 @@ const (
 	compNone         = 1
 	compDeflate      = 8
 	compDeflateOld   = 32946
+	compLZW          = 5     // read by golang.org/x/image/tiff
+	compPackBits     = 32773 // read by golang.org/x/image/tiff
 	photoWhiteIsZero = 0
 	photoBlackIsZero = 1
 	sampleUint       = 1
@@ -70,6 +72,21 @@ func (t tiffInfo) dtype() volume.DType {
 		return volume.Float32
 	}
 	return 0
+}
+
+// compressionName names the common TIFF compression codes we do not read
+// (TIFF 6.0 section 3 and Technical Note 2; 34712 is JPEG 2000 by common
+// practice), for error messages.
+func compressionName(c int) string {
+	switch c {
+	case 2, 3, 4:
+		return " (CCITT fax)"
+	case 6, 7:
+		return " (JPEG)"
+	case 34712:
+		return " (JPEG 2000)"
+	}
+	return ""
 }
 
 // ownPath reports whether our baseline strip reader handles the image;
@@ -223,6 +240,11 @@ func readTIFFInfo(r io.ReaderAt, size int64, limit int64) (tiffInfo, error) {
 	}
 	if t.spp != 1 {
 		return t, fmt.Errorf("%w: %d samples per pixel, want 1 (grey)", ErrFormat, t.spp)
+	}
+	switch t.compression {
+	case compNone, compDeflate, compDeflateOld, compLZW, compPackBits:
+	default:
+		return t, fmt.Errorf("%w: compression %d%s not supported (want none, Deflate, LZW or PackBits)", ErrFormat, t.compression, compressionName(t.compression))
 	}
 	if t.photometric != photoBlackIsZero && t.photometric != photoWhiteIsZero {
 		return t, fmt.Errorf("%w: photometric interpretation %d, want grey (0 or 1)", ErrFormat, t.photometric)

@@ -67,6 +67,9 @@ type Zarr struct {
 	chunkN int // voxels per (full) chunk
 	fill   []byte
 	limit  int64
+	// requireChunks makes ReadBox fail on a missing chunk instead of
+	// reading the fill value (input scans opened through OpenStream).
+	requireChunks bool
 
 	decOnce sync.Once
 	dec     *zstd.Decoder
@@ -130,6 +133,15 @@ func parseZarray(name string, data []byte) (ZarrMeta, error) {
 	m.BigEndian = dt[0] == '>'
 	if n, ok := mulLimit(m.Chunks, maxChunkBytes/int64(m.DType.Size())); !ok || n < 1 {
 		return bad("chunks %v exceed %d bytes", m.Chunks, maxChunkBytes)
+	}
+	// A chunk longer than the array along an axis holds nothing but fill
+	// there, and lets a few bytes of metadata demand a chunk buffer far
+	// larger than the array; sluice never writes one (CreateZarr refuses it), so
+	// it is read as swapped or wrong metadata.
+	for i := 0; i < 3; i++ {
+		if m.Chunks[i] > m.Shape[i] {
+			return bad("chunks %v larger than shape %v along %s (want chunks no larger than the array)", za.Chunks, za.Shape, [3]string{"z", "y", "x"}[i])
+		}
 	}
 	if c := strings.TrimSpace(string(za.Compressor)); c != "" && c != "null" {
 		var comp struct {
@@ -360,6 +372,9 @@ func CreateZarr(ctx context.Context, b Bucket, prefix string, m ZarrMeta) (*Zarr
 		if m.Shape[i] < 1 || m.Shape[i] > 1<<31 || m.Chunks[i] < 1 || m.Chunks[i] > 1<<31 {
 			return nil, fileErr(name, ErrFormat, "shape %v / chunks %v out of range", m.Shape, m.Chunks)
 		}
+		if m.Chunks[i] > m.Shape[i] {
+			return nil, fileErr(name, ErrFormat, "chunks %v larger than shape %v (want chunks no larger than the array)", m.Chunks, m.Shape)
+		}
 	}
 	if m.DType.Size() == 0 {
 		return nil, fileErr(name, ErrFormat, "unsupported dtype %v", m.DType)
@@ -582,6 +597,10 @@ func (z *Zarr) ReadBox(ctx context.Context, box volume.Box) (volume.Any, error) 
 		key := z.ChunkKey(idx)
 		data, err := z.b.Get(ctx, key)
 		if errors.Is(err, fs.ErrNotExist) {
+			if z.requireChunks {
+				return fileErr(z.where(key), ErrTruncated, "missing chunk %d.%d.%d of a %d×%d×%d grid (every chunk of a scan must be present)",
+					idx[0], idx[1], idx[2], z.Grid()[0], z.Grid()[1], z.Grid()[2])
+			}
 			return nil
 		}
 		if err != nil {

@@ -33,7 +33,9 @@ func (f *inputFlags) register(fs *flag.FlagSet) {
 
 // options turns the flags into reader options.
 func (f *inputFlags) options() (volio.Options, error) {
-	opt := volio.Options{MaxVoxels: f.maxVoxels, ByteOrder: f.byteOrder}
+	// A scan handed to sluice is complete: a missing Zarr chunk is an
+	// unfinished transfer, not voxels at the fill value.
+	opt := volio.Options{MaxVoxels: f.maxVoxels, ByteOrder: f.byteOrder, RequireChunks: true}
 	if f.shape != "" {
 		s, err := parseShape(f.shape)
 		if err != nil {
@@ -177,6 +179,9 @@ func runMeasure(args []string) int {
 			return fail(exitBadInput, "measure: %v", err)
 		}
 		v, err := volio.Open(path, ropt)
+		if err == nil {
+			err = volio.CheckFinite(path, v)
+		}
 		if err != nil {
 			return fail(exitBadInput, "%v", err)
 		}

@@ -171,6 +171,9 @@ func segmentFile(path string, in inputFlags, sf segFlags, cfg campaign.Config, l
 		return nil, scan.Prepared{}, fail(exitBadInput, "segment: %s: %v", path, err)
 	}
 	v, err := volio.Open(path, ropt)
+	if err == nil {
+		err = volio.CheckFinite(path, v)
+	}
 	if err != nil {
 		return nil, scan.Prepared{}, fail(exitBadInput, "%v", err)
 	}
