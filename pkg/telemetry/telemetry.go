@@ -17,7 +17,7 @@ type Worker struct {
 	TilesFailed      *prometheus.CounterVec   // by reason
 	TilesRedelivered prometheus.Counter       // tasks seen more than once
 	TilesDeadLetter  prometheus.Counter       // tasks that exhausted their retries
-	StageSeconds     *prometheus.HistogramVec // by stage: read, segment, measure, write
+	StageSeconds     *prometheus.HistogramVec // by stage (Stages)
 	BytesRead        prometheus.Counter
 	BytesWritten     prometheus.Counter
 	Busy             prometheus.Gauge // tiles in flight
@@ -63,8 +63,17 @@ func NewWorker(reg prometheus.Registerer) *Worker {
 // processed, or its result could not be published.
 var FailureReasons = []string{"process", "publish"}
 
-// Stages label sluice_tile_stage_duration_seconds.
-var Stages = []string{"read", "segment_measure", "write"}
+// Stages label sluice_tile_stage_duration_seconds: queue_wait is the time
+// from publication of the task to the start of its processing (the last
+// attempt's wait for a redelivered task), read the grey tile plus halo,
+// segment_measure the computation, write the label chunk and result.
+var Stages = []string{"queue_wait", "read", "segment_measure", "write"}
+
+// IngestStages label sluice_ingest_stage_duration_seconds: read the scan
+// file (decode included), zarr_write the chunk encoding and store writes,
+// pass1 the histogram pass and thresholds (zero when the thresholds are
+// known before the scan), publish the tile tasks.
+var IngestStages = []string{"read", "zarr_write", "pass1", "publish"}
 
 // Ingest metrics.
 type Ingest struct {
@@ -72,7 +81,8 @@ type Ingest struct {
 	Rejected     prometheus.Counter
 	BytesWritten prometheus.Counter
 	Seconds      prometheus.Histogram
-	Tasks        *prometheus.CounterVec // by priority
+	Tasks        *prometheus.CounterVec   // by priority
+	StageSeconds *prometheus.HistogramVec // per step and stage (IngestStages)
 }
 
 // NewIngest registers the ingest metrics on reg.
@@ -89,6 +99,12 @@ func NewIngest(reg prometheus.Registerer) *Ingest {
 			Help: "Time to store one step and queue its tiles.", Buckets: prometheus.ExponentialBuckets(0.05, 2, 12)}),
 		Tasks: f.NewCounterVec(prometheus.CounterOpts{Name: "sluice_tasks_published_total",
 			Help: "Tile tasks published, by priority."}, []string{"priority"}),
+		StageSeconds: f.NewHistogramVec(prometheus.HistogramOpts{Name: "sluice_ingest_stage_duration_seconds",
+			Help:    "Time per step and ingest stage.",
+			Buckets: prometheus.ExponentialBuckets(0.01, 2, 14)}, []string{"stage"}),
+	}
+	for _, s := range IngestStages {
+		in.StageSeconds.WithLabelValues(s)
 	}
 	in.Tasks.WithLabelValues("live")
 	in.Tasks.WithLabelValues("batch")

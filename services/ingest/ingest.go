@@ -21,6 +21,7 @@ import (
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
 	"sluice/pkg/scan"
+	"sluice/pkg/segment"
 	"sluice/pkg/telemetry"
 	"sluice/pkg/volio"
 	"sluice/pkg/volume"
@@ -151,9 +152,11 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 	}
 	if !resumed {
 		var err error
+		t0 := time.Now()
 		if plan, err = PlanStep(ctx, in.Store, man, cfg, in.Workers, in.Version); err != nil {
 			return nil, fmt.Errorf("ingest: %s: pass 1: %w", req.Path, err)
 		}
+		in.stage("pass1", t0)
 		plan.Priority = priorityName(req.Priority)
 		if err := campaign.PutJSON(ctx, in.Store, campaign.PlanKey(step, plan.ParamHash), plan); err != nil {
 			return nil, err
@@ -173,9 +176,11 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 	if plan.ParamHash != rec.Current {
 		labels = campaign.RunLabelsKey(step, plan.ParamHash)
 	}
+	t0 := time.Now()
 	if err := PublishTileSet(ctx, in.Queue, man, plan, labels, req.Priority, in.Metrics, todo); err != nil {
 		return nil, err
 	}
+	in.stage("publish", t0)
 	ready := &sluicepb.StepReady{Campaign: step.Campaign().Name(), Step: step.Name(), ManifestKey: step.Manifest(),
 		TileCount: int32(plan.Tiles), TimeS: man.TimeS, ParamHash: plan.ParamHash, Priority: req.Priority,
 		IngestedAt: timestamppb.New(man.IngestedAt)}
@@ -183,6 +188,13 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 		in.Stepped(ready)
 	}
 	return ready, nil
+}
+
+// stage records the time since t0 as one step's ingest stage.
+func (in *Ingester) stage(name string, t0 time.Time) {
+	if in.Metrics != nil {
+		in.Metrics.StageSeconds.WithLabelValues(name).Observe(time.Since(t0).Seconds())
+	}
 }
 
 // StoreStep stores one scan as a step (volume.zarr, then the manifest)
@@ -230,19 +242,24 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 		return campaign.Manifest{}, err
 	}
 	var stored int64
+	var reading, writing time.Duration
 	total := int64(h.Shape[0])
 	for z0 := 0; z0 < h.Shape[0]; z0 += chunks[0] {
 		if err := ctx.Err(); err != nil {
 			return campaign.Manifest{}, err
 		}
 		z1 := min(z0+chunks[0], h.Shape[0])
+		t0 := time.Now()
 		slab, err := st.ReadSlab(z0, z1)
 		if err != nil {
 			return campaign.Manifest{}, err
 		}
+		t1 := time.Now()
 		if err := z.WriteBox(ctx, slab); err != nil {
 			return campaign.Manifest{}, fmt.Errorf("ingest: %s: storing slices %d–%d: %w", req.Path, z0, z1, err)
 		}
+		reading += t1.Sub(t0)
+		writing += time.Since(t1)
 		stored += int64(slab.Bounds().Voxels() * h.DType.Size())
 		if in.Progress != nil {
 			in.Progress(int64(z1), total)
@@ -250,6 +267,8 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 	}
 	if in.Metrics != nil {
 		in.Metrics.BytesWritten.Add(float64(stored))
+		in.Metrics.StageSeconds.WithLabelValues("read").Observe(reading.Seconds())
+		in.Metrics.StageSeconds.WithLabelValues("zarr_write").Observe(writing.Seconds())
 	}
 	man := campaign.Manifest{Campaign: step.Campaign().Name(), Step: step.Name(), Shape: h.Shape, DType: h.DType.String(),
 		VoxelSize: vs, TimeS: t, Chunk: tile, Source: req.Path, Bytes: stored, ReceivedAt: received, IngestedAt: time.Now().UTC(), Version: in.Version}
@@ -286,7 +305,14 @@ func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign
 		return campaign.Plan{}, err
 	}
 	hash := cfg.Hash()
-	prep, eff, err := scan.Prepare(src, man.Whole(), dt, cfg, solid, workers)
+	var prep scan.Prepared
+	eff := cfg
+	if ThresholdsKnown(cfg, dt) {
+		// Nothing of pass 1 is used: skip reading and filtering the step.
+		prep.Thresholds, err = segment.ComputeThresholds(segment.Hist{}, cfg.Segment)
+	} else {
+		prep, eff, err = scan.Prepare(src, man.Whole(), dt, cfg, solid, workers)
+	}
 	if err != nil {
 		return campaign.Plan{}, err
 	}
@@ -298,6 +324,21 @@ func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign
 		Tile: cfg.Tile, Halo: halo, PlannedAt: time.Now().UTC(), Version: version}
 	p.Tiles = p.Tiling(man).Len()
 	return p, nil
+}
+
+// ThresholdsKnown reports whether a step's plan follows from cfg alone,
+// before any voxel is read: fixed thresholds, a given (or no) sample
+// cylinder, a given grey range for float32 scans, a given solid grey for
+// the partial-volume correction and no local-fluid passes (which need the
+// fluid peaks of the histogram). scan.Prepare would then read and filter
+// the whole step only to return cfg's own values.
+func ThresholdsKnown(cfg campaign.Config, dt volume.DType) bool {
+	p := cfg.Segment
+	return p.Threshold == "fixed" &&
+		!(cfg.DetectSample && p.Sample.Radius == 0) &&
+		!(dt == volume.Float32 && p.Range == [2]float64{}) &&
+		!(p.PartialVolume.Blur > 0 && p.PartialVolume.SolidGrey == 0) &&
+		p.PartialVolume.LocalFluid == 0
 }
 
 // PublishTiles queues one task per tile of a planned step.
