@@ -261,6 +261,22 @@ func metricSum(addr, name string) float64 {
 	return sum
 }
 
+// dropScan copies scan i of f into a watched directory, marker last.
+func dropScan(t *testing.T, f *fixture, i int, dir string) {
+	t.Helper()
+	p := f.paths[i]
+	for _, ext := range []string{"", ".sluice.json"} {
+		b, err := os.ReadFile(p + ext)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(filepath.Join(dir, filepath.Base(p)+ext), b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	os.WriteFile(filepath.Join(dir, filepath.Base(p)+".done"), nil, 0o644)
+}
+
 func kill(p *proc) {
 	p.cmd.Process.Kill()
 	p.cmd.Wait()
@@ -369,17 +385,7 @@ func TestNATSRestart(t *testing.T) {
 	c.service("worker", "worker", "--http", wAddr, "--concurrency", "1", "--id", "w1")
 	incoming := t.TempDir()
 	c.service("ingest", "ingest", "--http", "off", "--campaign", f.name, "--config", f.cfgPath, "--watch", incoming)
-	drop := func(i int) {
-		p := f.paths[i]
-		for _, ext := range []string{"", ".sluice.json"} {
-			b, err := os.ReadFile(p + ext)
-			if err != nil {
-				t.Fatal(err)
-			}
-			os.WriteFile(filepath.Join(incoming, filepath.Base(p)+ext), b, 0o644)
-		}
-		os.WriteFile(filepath.Join(incoming, filepath.Base(p)+".done"), nil, 0o644)
-	}
+	drop := func(i int) { dropScan(t, f, i, incoming) }
 	for i := 0; i < 3; i++ {
 		drop(i)
 	}
@@ -408,7 +414,7 @@ func TestNATSRestart(t *testing.T) {
 }
 
 // TestMinIOOutage: the MinIO server is stopped for ten seconds while a
-// worker holds a tile and an ingest is running, then started again on the
+// worker holds a tile and a scan arrives at the watching ingest, then started again on the
 // same address and data directory. Store operations fail, are retried with
 // backoff (sluice_store_retries_total rises on the worker), nothing is
 // dead-lettered, and series.json is the undisturbed run's.
@@ -421,26 +427,21 @@ func TestMinIOOutage(t *testing.T) {
 	wAddr, aAddr := c.addr(), c.addr()
 	c.service("aggregate", "aggregate", "--http", aAddr)
 	c.service("worker", "worker", "--http", wAddr, "--concurrency", "1", "--id", "w1")
+	iAddr := c.addr()
+	incoming := t.TempDir()
+	c.service("ingest", "ingest", "--http", iAddr, "--campaign", f.name, "--config", f.cfgPath, "--watch", incoming)
 	for i := 0; i < 4; i++ {
-		if err := c.ingest(f, i); err != nil {
-			t.Fatal(err)
-		}
+		dropScan(t, f, i, incoming)
 	}
 	waitFor(t, 2*time.Minute, "the worker to hold a tile", func() bool { return metric(wAddr, "sluice_worker_tiles_in_flight") >= 1 })
 	c.minio.Stop()
 	down := time.Now()
-	ingested := make(chan error, 1)
-	go func() { ingested <- c.ingest(f, 4) }() // an ingest that meets the outage
+	dropScan(t, f, 4, incoming) // a scan that arrives during the outage
 	time.Sleep(10 * time.Second)
 	c.minio.Start()
 	t.Logf("MinIO down %.1f s", time.Since(down).Seconds())
-	if err := <-ingested; err != nil {
-		t.Fatalf("ingest during the outage: %v", err)
-	}
 	for i := 5; i < len(f.paths); i++ {
-		if err := c.ingest(f, i); err != nil {
-			t.Fatal(err)
-		}
+		dropScan(t, f, i, incoming)
 	}
 	waitFor(t, 3*time.Minute, "every step after the outage", func() bool { return rowCount(c.st, f.name) >= len(f.paths) })
 	sameSeries(t, c.st, f, "after the MinIO outage")
@@ -448,8 +449,13 @@ func TestMinIOOutage(t *testing.T) {
 	if retries < 1 {
 		t.Errorf("worker sluice_store_retries_total = %g, want > 0 after a 10 s outage", retries)
 	}
-	if g := metricSum(wAddr, "sluice_store_gave_up_total"); g != 0 {
-		t.Errorf("worker gave up on %g store operations", g)
+	if r := metricSum(iAddr, "sluice_store_retries_total"); r < 1 {
+		t.Errorf("ingest sluice_store_retries_total = %g, want > 0: the scan arriving during the outage met it", r)
+	}
+	for _, a := range []string{wAddr, aAddr, iAddr} {
+		if g := metricSum(a, "sluice_store_gave_up_total"); g != 0 {
+			t.Errorf("%s gave up on %g store operations", a, g)
+		}
 	}
 	if n := metric(wAddr, "sluice_tiles_dead_letter_total"); n != 0 {
 		t.Errorf("%g tiles dead-lettered", n)
@@ -457,9 +463,10 @@ func TestMinIOOutage(t *testing.T) {
 	if dls, err := c.queue().DeadLetters(context.Background(), f.name); err != nil || len(dls) != 0 {
 		t.Errorf("dead letters after the outage: %d (%v)", len(dls), err)
 	}
-	t.Logf("worker: store errors %g, retries %g, tiles redelivered %g; aggregator: store errors %g, retries %g",
+	t.Logf("worker: store errors %g, retries %g, tiles redelivered %g; aggregator: store errors %g, retries %g; ingest: store errors %g, retries %g",
 		metricSum(wAddr, "sluice_store_errors_total"), retries, metric(wAddr, "sluice_tiles_redelivered_total"),
-		metricSum(aAddr, "sluice_store_errors_total"), metricSum(aAddr, "sluice_store_retries_total"))
+		metricSum(aAddr, "sluice_store_errors_total"), metricSum(aAddr, "sluice_store_retries_total"),
+		metricSum(iAddr, "sluice_store_errors_total"), metricSum(iAddr, "sluice_store_retries_total"))
 	out := sluiceRun(t, c.bin, c.env, append([]string{"status", f.name}, c.common...)...)
 	if !strings.Contains(out, fmt.Sprintf("done %d", len(f.paths))) || !strings.Contains(out, "failed 0") {
 		t.Errorf("sluice status after the outage:\n%s", out)

@@ -149,6 +149,9 @@ func renderScans(t testing.TB, dir string, size, tile, n int) ([]string, campaig
 	t.Helper()
 	steps := n
 	sc := &scenario.Campaign{Shape: [3]int{size, size, size}, Steps: steps, Seed: 3}
+	if n < 10 {
+		sc.SteadySteps = max(1, n/3) // the default 5 needs a longer campaign
+	}
 	if err := sc.Prepare(); err != nil {
 		t.Fatal(err)
 	}
