@@ -40,7 +40,7 @@ import (
 	"sluice/pkg/volume"
 )
 
-func check(in *volume.Volume[float32], core volume.Box) error {
+func check[T volume.Voxel](in *volume.Volume[T], core volume.Box) error {
 	if in == nil {
 		return fmt.Errorf("filter: nil input volume")
 	}

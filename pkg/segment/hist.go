@@ -133,8 +133,6 @@ func binOf(v, lo, width float64, n int) int {
 	return i
 }
 
-// filtered converts grey to float32 and runs the configured filter over
-// out (which must lie inside grey's box).
 // Filtered returns the grey of box out after p's denoiser, as float32 (grey
 // must cover out plus FilterHalo, clipped to the scan) — the values the
 // histogram and the thresholds see.
@@ -142,6 +140,9 @@ func Filtered(grey volume.Any, out volume.Box, p Params) (*volume.Volume[float32
 	return filtered(grey, out, p)
 }
 
+// filtered converts grey to float32 and runs the configured filter over
+// out (which must lie inside grey's box). Integer grey with the median or
+// no filter is filtered as integers and only out is converted.
 func filtered(grey volume.Any, out volume.Box, p Params) (*volume.Volume[float32], error) {
 	if grey == nil {
 		return nil, fmt.Errorf("segment: nil grey volume")
@@ -153,7 +154,15 @@ func filtered(grey volume.Any, out volume.Box, p Params) (*volume.Volume[float32
 	switch v := grey.(type) {
 	case *volume.Volume[float32]:
 		in = v
-	case *volume.Volume[uint8], *volume.Volume[uint16]:
+	case *volume.Volume[uint8]:
+		if f, ok, err := integerFiltered(v, out, p); ok {
+			return f, err
+		}
+		in = volume.Float(v)
+	case *volume.Volume[uint16]:
+		if f, ok, err := integerFiltered(v, out, p); ok {
+			return f, err
+		}
 		in = volume.Float(v)
 	default:
 		return nil, fmt.Errorf("segment: unsupported grey volume %T", grey)
@@ -170,6 +179,24 @@ func filtered(grey volume.Any, out volume.Box, p Params) (*volume.Volume[float32
 		return p.Filter.NLM.Apply(in, out)
 	}
 	return in.Crop(out, 0), nil
+}
+
+// integerFiltered handles integer grey with the median or no filter; ok is
+// false for the other filters.
+func integerFiltered[T filter.Integer](v *volume.Volume[T], out volume.Box, p Params) (f *volume.Volume[float32], ok bool, err error) {
+	switch p.Filter.Method {
+	case "median", "none":
+	default:
+		return nil, false, nil
+	}
+	if err := v.Validate(); err != nil {
+		return nil, true, fmt.Errorf("segment: grey: %w", err)
+	}
+	if p.Filter.Method == "none" {
+		return volume.Float(v.Crop(out, 0)), true, nil
+	}
+	f, err = medianFloat(v, out)
+	return f, true, err
 }
 
 // poreMask reports whether the reference mask marks (z, y, x) as pore.

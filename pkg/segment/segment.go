@@ -67,21 +67,29 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 			return nil, err
 		}
 	}
-	f, err := filtered(grey, l0, p)
-	if err != nil {
-		return nil, err
-	}
 	c := classifier(p, th)
-	if passes > 0 {
-		// The corrected fluid grey is bimodal at μ_n and μ_w with the same
-		// noise: split it at the midpoint (Ridler–Calvard's fixed point for
-		// equal spreads) rather than at the 3-class Otsu threshold, which
-		// the partial-volume voxels of the raw histogram pull aside.
-		c.ft = (th.NonwettingGrey + th.WettingGrey) / 2
-	}
-	var lab *volume.Labels
-	var g *volume.Volume[float32]
-	if p.PartialVolume.Blur > 0 {
+	var (
+		lab *volume.Labels
+		g   *volume.Volume[float32]
+		err error
+	)
+	if p.PartialVolume.Blur == 0 {
+		// Plain pass: l0 == l1; filter and classify row by row.
+		if lab, g, err = plainLabels(grey, l1, p, c, solid, steps > 0); err != nil {
+			return nil, err
+		}
+	} else {
+		var f *volume.Volume[float32]
+		if f, err = filtered(grey, l0, p); err != nil {
+			return nil, err
+		}
+		if passes > 0 {
+			// The corrected fluid grey is bimodal at μ_n and μ_w with the same
+			// noise: split it at the midpoint (Ridler–Calvard's fixed point for
+			// equal spreads) rather than at the 3-class Otsu threshold, which
+			// the partial-volume voxels of the raw histogram pull aside.
+			c.ft = (th.NonwettingGrey + th.WettingGrey) / 2
+		}
 		// Solid indicator of the plain pass over l0: the reference mask or
 		// the solid class of the filtered grey.
 		ind := volume.New[float32](l0, 0)
@@ -112,25 +120,6 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 				return nil, err
 			}
 		}
-	} else {
-		g = f.Crop(l1, 0)
-		lab = volume.New[uint8](l1, grey.EdgeLength())
-		i := 0
-		for z := l1.Min[0]; z < l1.Max[0]; z++ {
-			for y := l1.Min[1]; y < l1.Max[1]; y++ {
-				for x := l1.Min[2]; x < l1.Max[2]; x++ {
-					switch {
-					case !p.Sample.Inside(y, x):
-						lab.Pix[i] = phase.Outside
-					case p.Reference && !poreMask(solid, p, z, y, x):
-						lab.Pix[i] = maskCode(solid, p, z, y, x)
-					default:
-						lab.Pix[i] = c.codes[c.class(float64(g.Pix[i]))]
-					}
-					i++
-				}
-			}
-		}
 	}
 	lab.VoxelSize = grey.EdgeLength()
 	if steps > 0 {
@@ -138,6 +127,9 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	}
 	if isl > 0 {
 		removeIslands(lab, l2, p.MinIsland, p.Codes)
+	}
+	if lab.Box == core {
+		return lab, nil
 	}
 	return lab.Crop(core, 0), nil
 }

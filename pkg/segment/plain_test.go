@@ -1,0 +1,199 @@
+package segment
+
+import (
+	"syscall"
+	"testing"
+	"time"
+
+	"sluice/pkg/phase"
+	"sluice/pkg/volume"
+)
+
+// TestIntegerPathMatchesFloat segments a uint16 scene and its float32
+// conversion with the same thresholds: the integer path (integer median,
+// class table, row-wise labelling) must give the labels the float path
+// gives, with every stage that reads the filtered grey switched on in turn.
+// Source: the float path (checked by the accuracy and tiling tests);
+// float32 holds every uint16 exactly and the median commutes with the
+// monotone conversion.
+func TestIntegerPathMatchesFloat(t *testing.T) {
+	const n = 26
+	grey, truth, fp := scene(n, 4, 3)
+	f := volume.Float(grey)
+	mask := idealMask(truth)
+	core := volume.Box{Min: [3]int{4, 3, 5}, Max: [3]int{22, 24, 20}}
+	cases := map[string]func(p *Params){
+		"plain":     func(p *Params) {},
+		"none":      func(p *Params) { p.Filter.Method = "none" },
+		"sample":    func(p *Params) { p.Sample = Sample{Y: 12.5, X: 13, Radius: 11} },
+		"hyst+isl":  func(p *Params) { p.Hysteresis = Hysteresis{Band: 600, Steps: 2}; p.MinIsland = 4 },
+		"reference": func(p *Params) { p.Reference = true; p.Sample = Sample{Y: 12, X: 12, Radius: 10} },
+		"pv":        func(p *Params) { p.PartialVolume.Blur = 0.7 },
+	}
+	for name, set := range cases {
+		p := withFilter(fp, "median")
+		p.MinIsland = 0
+		set(&p)
+		var solid *volume.Labels
+		if p.Reference {
+			solid = mask
+		}
+		h, err := Histogram(grey, grey.Box, p, solid)
+		if err != nil {
+			t.Fatal(err)
+		}
+		hf, err := Histogram(f, grey.Box, withRange(p), solid)
+		if err != nil {
+			t.Fatal(err)
+		}
+		th, err := ComputeThresholds(h, p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		// Same binning (64 grey values per bin from 0): same counts.
+		for i := range h.Counts {
+			if h.Counts[i] != hf.Counts[i] {
+				t.Fatalf("%s: histogram bin %d: uint16 %d, float32 %d", name, i, h.Counts[i], hf.Counts[i])
+			}
+		}
+		a, err := Segment(grey, core, th, p, solid)
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		b, err := Segment(f, core, th, withRange(p), solid)
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		var diff, nw, out int
+		for i := range a.Pix {
+			if a.Pix[i] != b.Pix[i] {
+				diff++
+			}
+			if a.Pix[i] == p.Codes.Nonwetting {
+				nw++
+			}
+			if a.Pix[i] == phase.Outside {
+				out++
+			}
+		}
+		if diff != 0 || a.Box != b.Box || a.VoxelSize != b.VoxelSize {
+			t.Errorf("%s: %d of %d labels differ between uint16 and float32 input (boxes %v %v)", name, diff, len(a.Pix), a.Box, b.Box)
+		}
+		if nw == 0 || (p.Sample.Radius > 0 && out == 0) {
+			t.Errorf("%s: no nonwetting (%d) or outside (%d) voxels: the check proves nothing", name, nw, out)
+		}
+	}
+}
+
+// withRange gives float32 input a histogram range (unused by Segment).
+func withRange(p Params) Params {
+	p.Range = [2]float64{0, 65536}
+	return p
+}
+
+// TestIntegerMedianTiling segments with the integer median, hysteresis,
+// islands and the sample cylinder on 1, 8 and 27 tiles.
+func TestIntegerMedianTiling(t *testing.T) {
+	const n = 30
+	grey, _, fp := scene(n, 4, 5)
+	p := withFilter(fp, "median")
+	p.Hysteresis = Hysteresis{Band: 600, Steps: 2}
+	p.MinIsland = 4
+	p.Sample = Sample{Y: 14.5, X: 15, Radius: 13}
+	l1, _, _ := tiled(t, grey, grey.Box, [3]int{n, n, n}, p, nil)
+	for _, k := range []int{2, 3} {
+		e := (n + k - 1) / k
+		lk, _, _ := tiled(t, grey, grey.Box, [3]int{e, e, e}, p, nil)
+		for i := range l1.Pix {
+			if l1.Pix[i] != lk.Pix[i] {
+				t.Fatalf("%d³ tiles: label %d differs from the whole volume", k, i)
+			}
+		}
+	}
+}
+
+// cpuTime is the process CPU time (user + system), for benchmarks on a
+// shared machine where wall time is noisy.
+func cpuTime() time.Duration {
+	var ru syscall.Rusage
+	_ = syscall.Getrusage(syscall.RUSAGE_SELF, &ru)
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
+}
+
+// reportThroughput reports MVox/s (wall) and MVox per CPU second.
+func reportThroughput(b *testing.B, voxels int, cpu time.Duration) {
+	v := float64(voxels) * float64(b.N) / 1e6
+	b.ReportMetric(v/b.Elapsed().Seconds(), "MVox/s")
+	if cpu > 0 {
+		b.ReportMetric(v/cpu.Seconds(), "MVox/cpu-s")
+	}
+}
+
+// benchScene is a 96³ drainage scene (uint16) with thresholds, and the core
+// of a tile 80³ inside it (halo 8).
+func benchScene(b *testing.B, p Params) (*volume.Volume[uint16], volume.Box, Thresholds) {
+	grey, _, _ := scene(96, 4, 1)
+	h, err := Histogram(grey, grey.Box, p, nil)
+	if err != nil {
+		b.Fatal(err)
+	}
+	th, err := ComputeThresholds(h, p)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return grey, volume.Box{Min: [3]int{8, 8, 8}, Max: [3]int{88, 88, 88}}, th
+}
+
+func benchSegment(b *testing.B, set func(p *Params)) {
+	p := Defaults()
+	set(&p)
+	grey, core, th := benchScene(b, p)
+	b.ReportAllocs()
+	b.ResetTimer()
+	c0 := cpuTime()
+	for i := 0; i < b.N; i++ {
+		if _, err := Segment(grey, core, th, p, nil); err != nil {
+			b.Fatal(err)
+		}
+	}
+	reportThroughput(b, core.Voxels(), cpuTime()-c0)
+}
+
+// BenchmarkSegmentMedian: median + thresholding (the default) on uint16.
+func BenchmarkSegmentMedian(b *testing.B) { benchSegment(b, func(p *Params) {}) }
+
+// BenchmarkSegmentThreshold: thresholding alone (filter none) on uint16.
+func BenchmarkSegmentThreshold(b *testing.B) {
+	benchSegment(b, func(p *Params) { p.Filter.Method = "none" })
+}
+
+// BenchmarkSegmentHysteresis: no filter, hysteresis of 4 steps.
+func BenchmarkSegmentHysteresis(b *testing.B) {
+	benchSegment(b, func(p *Params) { p.Filter.Method = "none"; p.Hysteresis = Hysteresis{Band: 600, Steps: 4} })
+}
+
+// BenchmarkSegmentIslands: no filter, island removal below 8 voxels.
+func BenchmarkSegmentIslands(b *testing.B) {
+	benchSegment(b, func(p *Params) { p.Filter.Method = "none"; p.MinIsland = 8 })
+}
+
+// BenchmarkSegmentPartialVolume: median, partial-volume correction σ 0.7.
+func BenchmarkSegmentPartialVolume(b *testing.B) {
+	benchSegment(b, func(p *Params) { p.PartialVolume.Blur = 0.7 })
+}
+
+// BenchmarkHistogram: pass 1 on one tile (median + binning + columns).
+func BenchmarkHistogram(b *testing.B) {
+	p := Defaults()
+	grey, core, _ := benchScene(b, p)
+	in := grey.Crop(core.Grow(1), 0)
+	b.ReportAllocs()
+	b.ResetTimer()
+	c0 := cpuTime()
+	for i := 0; i < b.N; i++ {
+		if _, err := Histogram(in, core, p, nil); err != nil {
+			b.Fatal(err)
+		}
+	}
+	reportThroughput(b, core.Voxels(), cpuTime()-c0)
+}
