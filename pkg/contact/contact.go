@@ -96,6 +96,9 @@ package contact
 
 import (
 	"math"
+	"runtime"
+	"sync"
+	"sync/atomic"
 
 	"sluice/pkg/levelset"
 	"sluice/pkg/phase"
@@ -114,6 +117,9 @@ type Options struct {
 	SolidSigma float64 `json:"solid_sigma"`
 	// MinFaces is the fewest interface faces a fit accepts (default 12).
 	MinFaces int `json:"min_faces"`
+	// Workers is the number of goroutines Measure fits samples on
+	// (0 = runtime.GOMAXPROCS). The result does not depend on it.
+	Workers int `json:"-"`
 }
 
 // Defaults.
@@ -162,25 +168,51 @@ type Partial struct {
 
 // Measure returns the angles at the contact-line samples owned by core
 // (clipped to lab.Box). lab must cover core plus Halo() voxels on every
-// side, clipped to the scan.
+// side, clipped to the scan. The samples are fitted on opt.Workers
+// goroutines and summed in voxel order, so the result does not depend on
+// the worker count.
 func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core volume.Box, opt Options) Partial {
 	opt = opt.norm()
 	var p Partial
 	core = core.Intersect(lab.Box)
-	f := fitter{lab: lab, solid: solid, wet: wetting, non: nonwetting, pore: levelset.Union(wetting, nonwetting), opt: opt}
-	f.classify(core.Grow(int(math.Ceil(opt.Radius))))
-	for z := core.Min[0]; z < core.Max[0]; z++ {
-		for y := core.Min[1]; y < core.Max[1]; y++ {
-			for x := core.Min[2]; x < core.Max[2]; x++ {
-				if !nonwetting[lab.At(z, y, x)] || !f.onLine(z, y, x) {
-					continue
+	if core.Empty() {
+		return p
+	}
+	f := newFitter(lab, solid, wetting, nonwetting, opt)
+	workers := opt.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	f.classify(core.Grow(int(math.Ceil(opt.Radius))), workers)
+	samples := f.line(core)
+	if len(samples) == 0 {
+		return p
+	}
+	angles := make([]float64, len(samples))
+	ok := make([]bool, len(samples))
+	const chunk = 16
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for w := 0; w < min(workers, (len(samples)+chunk-1)/chunk); w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			g := f.clone()
+			for {
+				a := int(next.Add(chunk)) - chunk
+				if a >= len(samples) {
+					return
 				}
-				th, ok := f.angle([3]int{z, y, x})
-				if !ok {
-					continue
+				for i := a; i < min(a+chunk, len(samples)); i++ {
+					angles[i], ok[i] = g.angle(samples[i])
 				}
-				p.addAngle(th)
 			}
+		}()
+	}
+	wg.Wait()
+	for i, th := range angles {
+		if ok[i] {
+			p.addAngle(th)
 		}
 	}
 	return p
@@ -190,11 +222,12 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 // the contact-line voxel p, or false when p is not on the line or its fit is
 // under-determined.
 func Angle(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, p [3]int, opt Options) (float64, bool) {
-	f := fitter{lab: lab, solid: solid, wet: wetting, non: nonwetting, pore: levelset.Union(wetting, nonwetting), opt: opt.norm()}
-	if !lab.Box.Contains(p[0], p[1], p[2]) || !nonwetting[lab.At(p[0], p[1], p[2])] || !f.onLine(p[0], p[1], p[2]) {
+	f := newFitter(lab, solid, wetting, nonwetting, opt.norm())
+	at := volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}
+	if !lab.Box.Contains(p[0], p[1], p[2]) || len(f.line(at)) == 0 {
 		return 0, false
 	}
-	f.classify(volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}.Grow(int(math.Ceil(f.opt.Radius))))
+	f.classify(at.Grow(int(math.Ceil(f.opt.Radius))), 1)
 	return f.angle(p)
 }
 
@@ -208,19 +241,57 @@ func (p *Partial) addAngle(th float64) {
 	p.Hist[min(max(int(th*10), 0), HistBins-1)]++
 }
 
-var axes = [6][3]int{{1, 0, 0}, {-1, 0, 0}, {0, 1, 0}, {0, -1, 0}, {0, 0, 1}, {0, 0, -1}}
+// Phase classes of a label, for the face and contact-line tables.
+const (
+	classOther = iota // outside the sample or not in any set
+	classWet
+	classNon
+	classSolid
+)
 
 type fitter struct {
 	lab                   *volume.Labels
 	solid, wet, non, pore *phase.Set
 	opt                   Options
-	faces                 []face // scratch, reused between samples
-	// faceCodes holds, per voxel a, 3 bits per axis (x: bits 0–2, y: 3–5,
-	// z: 6–8; the axis index ax of [z, y, x] uses bits 3·ax…3·ax+2) for
-	// the face between a and its +axis neighbour: facePresent, faceWall
-	// (solid–pore rather than wetting–nonwetting) and faceNeg (the normal,
-	// wetting → nonwetting or solid → pore, points along −axis).
-	faceCodes *volume.Volume[uint16]
+	class                 [256]uint8 // label → class
+	faces                 []face     // scratch, reused between samples
+	// box is the classified box; plane k = z − box.Min[0] lists its faces
+	// row by row: the faces of row y are entries rowStart[k][j] …
+	// rowStart[k][j+1]−1 (j = y − box.Min[1]) of faceX[k] (global x of the
+	// voxel, increasing) and faceCode[k]. A code holds 3 bits per axis (z:
+	// bits 0–2, y: 3–5, x: 6–8, i.e. axis ax of [z, y, x] uses bits
+	// 3·ax…3·ax+2) for the face between the voxel and its +axis neighbour:
+	// facePresent, faceWall (solid–pore rather than wetting–nonwetting)
+	// and faceNeg (the normal, wetting → nonwetting or solid → pore, points
+	// along −axis). Voxels without faces are not listed.
+	box      volume.Box
+	rowStart [][]int32
+	faceX    [][]int32
+	faceCode [][]uint16
+	// gauss holds the unnormalised Gaussian taps of the solid normal.
+	gauss []float64
+}
+
+func newFitter(lab *volume.Labels, solid, wet, non *phase.Set, opt Options) *fitter {
+	f := &fitter{lab: lab, solid: solid, wet: wet, non: non, pore: levelset.Union(wet, non), opt: opt}
+	for v := range f.class {
+		switch {
+		case wet[v]:
+			f.class[v] = classWet
+		case non[v]:
+			f.class[v] = classNon
+		case solid[v]:
+			f.class[v] = classSolid
+		}
+	}
+	return f
+}
+
+// clone returns a fitter sharing the read-only tables with its own scratch.
+func (f *fitter) clone() *fitter {
+	g := *f
+	g.faces = nil
+	return &g
 }
 
 // Face code bits, per axis.
@@ -230,77 +301,155 @@ const (
 	faceNeg     = 4
 )
 
-// classify fills f.faceCodes on box ∩ lab.Box.
-func (f *fitter) classify(box volume.Box) {
+// faceTable[ca*4+cb] is the 3-bit face code between a voxel of class ca and
+// its +axis neighbour of class cb. The classes are exclusive in the order
+// wetting, nonwetting, solid, matching the set tests of the definition.
+var faceTable = func() (t [16]uint16) {
+	for ca := 0; ca < 4; ca++ {
+		for cb := 0; cb < 4; cb++ {
+			pa, pb := ca == classWet || ca == classNon, cb == classWet || cb == classNon
+			var v uint16
+			switch {
+			case ca == classWet && cb == classNon:
+				v = facePresent
+			case ca == classNon && cb == classWet:
+				v = facePresent | faceNeg
+			case ca == classSolid && pb:
+				v = facePresent | faceWall
+			case pa && cb == classSolid:
+				v = facePresent | faceWall | faceNeg
+			}
+			t[ca*4+cb] = v
+		}
+	}
+	return t
+}()
+
+// classify lists the faces of box ∩ lab.Box, one z plane per task on
+// `workers` goroutines.
+func (f *fitter) classify(box volume.Box, workers int) {
 	lab := f.lab
 	box = box.Intersect(lab.Box)
-	fc := &volume.Volume[uint16]{Pix: make([]uint16, box.Voxels()), Box: box}
+	f.box = box
+	n := box.Size()
+	f.rowStart = make([][]int32, n[0])
+	f.faceX = make([][]int32, n[0])
+	f.faceCode = make([][]uint16, n[0])
 	s := lab.Box.Size()
 	strides := [3]int{s[1] * s[2], s[2], 1}
+	plane := func(z int) {
+		k := z - box.Min[0]
+		rs := make([]int32, n[1]+1)
+		var xs []int32
+		var cs []uint16
+		hasZ := z+1 < lab.Box.Max[0]
+		for y := box.Min[1]; y < box.Max[1]; y++ {
+			rs[y-box.Min[1]] = int32(len(xs))
+			hasY := y+1 < lab.Box.Max[1]
+			j := lab.Index(z, y, box.Min[2])
+			for x := box.Min[2]; x < box.Max[2]; x, j = x+1, j+1 {
+				ca := uint16(f.class[lab.Pix[j]]) * 4
+				var code uint16
+				if hasZ {
+					code = faceTable[ca+uint16(f.class[lab.Pix[j+strides[0]]])]
+				}
+				if hasY {
+					code |= faceTable[ca+uint16(f.class[lab.Pix[j+strides[1]]])] << 3
+				}
+				if x+1 < lab.Box.Max[2] {
+					code |= faceTable[ca+uint16(f.class[lab.Pix[j+1]])] << 6
+				}
+				if code != 0 {
+					xs = append(xs, int32(x))
+					cs = append(cs, code)
+				}
+			}
+		}
+		rs[n[1]] = int32(len(xs))
+		f.rowStart[k], f.faceX[k], f.faceCode[k] = rs, xs, cs
+	}
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for w := 0; w < max(1, min(workers, n[0])); w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				k := int(next.Add(1)) - 1
+				if k >= n[0] {
+					return
+				}
+				plane(box.Min[0] + k)
+			}
+		}()
+	}
+	wg.Wait()
+}
+
+// line returns the contact-line samples in box ∩ lab.Box in z, y, x
+// order: the nonwetting voxels that touch the solid (a solid
+// face-neighbour) and have among their 26 neighbours a wetting voxel that
+// touches the solid too. The second condition keeps the boundary between
+// the wetting-covered and nonwetting-covered parts of the wall and drops
+// the inside of a one-voxel nonwetting film (solid below, wetting above),
+// which lies away from the line.
+func (f *fitter) line(box volume.Box) [][3]int {
+	lab := f.lab
+	box = box.Intersect(lab.Box)
+	if box.Empty() {
+		return nil
+	}
+	// touch marks, on box grown by one, the voxels touching the solid whose
+	// class is wetting or nonwetting (the only ones asked about).
+	tb := box.Grow(1).Intersect(lab.Box)
+	ts := tb.Size()
+	touch := make([]uint8, tb.Voxels())
+	s := lab.Box.Size()
+	sz, sy := s[1]*s[2], s[2]
 	i := 0
+	for z := tb.Min[0]; z < tb.Max[0]; z++ {
+		for y := tb.Min[1]; y < tb.Max[1]; y++ {
+			j := lab.Index(z, y, tb.Min[2])
+			for x := tb.Min[2]; x < tb.Max[2]; x, i, j = x+1, i+1, j+1 {
+				c := f.class[lab.Pix[j]]
+				if c != classWet && c != classNon {
+					continue
+				}
+				if (x > lab.Box.Min[2] && f.solid[lab.Pix[j-1]]) || (x+1 < lab.Box.Max[2] && f.solid[lab.Pix[j+1]]) ||
+					(y > lab.Box.Min[1] && f.solid[lab.Pix[j-sy]]) || (y+1 < lab.Box.Max[1] && f.solid[lab.Pix[j+sy]]) ||
+					(z > lab.Box.Min[0] && f.solid[lab.Pix[j-sz]]) || (z+1 < lab.Box.Max[0] && f.solid[lab.Pix[j+sz]]) {
+					touch[i] = c
+				}
+			}
+		}
+	}
+	var out [][3]int
+	tsz, tsy := ts[1]*ts[2], ts[2]
 	for z := box.Min[0]; z < box.Max[0]; z++ {
 		for y := box.Min[1]; y < box.Max[1]; y++ {
-			j := lab.Index(z, y, box.Min[2])
-			for x := box.Min[2]; x < box.Max[2]; x, i, j = x+1, i+1, j+1 {
-				a := lab.Pix[j]
-				var code uint16
-				for ax, c := range [3]int{z, y, x} {
-					if c+1 >= lab.Box.Max[ax] {
-						continue
-					}
-					b := lab.Pix[j+strides[ax]]
-					var v uint16
-					switch {
-					case f.wet[a] && f.non[b]:
-						v = facePresent
-					case f.non[a] && f.wet[b]:
-						v = facePresent | faceNeg
-					case f.solid[a] && f.pore[b]:
-						v = facePresent | faceWall
-					case f.pore[a] && f.solid[b]:
-						v = facePresent | faceWall | faceNeg
-					}
-					code |= v << (3 * ax)
+			i := ((z-tb.Min[0])*ts[1]+(y-tb.Min[1]))*ts[2] + box.Min[2] - tb.Min[2]
+			for x := box.Min[2]; x < box.Max[2]; x, i = x+1, i+1 {
+				if touch[i] != classNon {
+					continue
 				}
-				fc.Pix[i] = code
-			}
-		}
-	}
-	f.faceCodes = fc
-}
-
-// onLine reports whether voxel (z, y, x) lies on the contact line: it
-// touches the solid (a solid face-neighbour) and one of its 26 neighbours is
-// a wetting voxel that touches the solid too. The second condition keeps the
-// boundary between the wetting-covered and nonwetting-covered parts of the
-// wall and drops the inside of a one-voxel nonwetting film (solid below,
-// wetting above), which lies away from the line.
-func (f *fitter) onLine(z, y, x int) bool {
-	if !f.touches(z, y, x, f.solid) {
-		return false
-	}
-	for dz := -1; dz <= 1; dz++ {
-		for dy := -1; dy <= 1; dy++ {
-			for dx := -1; dx <= 1; dx++ {
-				q := [3]int{z + dz, y + dy, x + dx}
-				if f.lab.Box.Contains(q[0], q[1], q[2]) && f.wet[f.lab.At(q[0], q[1], q[2])] && f.touches(q[0], q[1], q[2], f.solid) {
-					return true
+				found := false
+				for dz := max(z-1, tb.Min[0]) - z; dz <= min(z+1, tb.Max[0]-1)-z && !found; dz++ {
+					for dy := max(y-1, tb.Min[1]) - y; dy <= min(y+1, tb.Max[1]-1)-y && !found; dy++ {
+						for dx := max(x-1, tb.Min[2]) - x; dx <= min(x+1, tb.Max[2]-1)-x; dx++ {
+							if touch[i+dz*tsz+dy*tsy+dx] == classWet {
+								found = true
+								break
+							}
+						}
+					}
+				}
+				if found {
+					out = append(out, [3]int{z, y, x})
 				}
 			}
 		}
 	}
-	return false
-}
-
-// touches reports whether a face-neighbour of (z, y, x) inside lab is in s.
-func (f *fitter) touches(z, y, x int, s *phase.Set) bool {
-	for _, a := range axes {
-		q := [3]int{z + a[0], y + a[1], x + a[2]}
-		if f.lab.Box.Contains(q[0], q[1], q[2]) && s[f.lab.At(q[0], q[1], q[2])] {
-			return true
-		}
-	}
-	return false
+	return out
 }
 
 type face struct {
@@ -311,54 +460,86 @@ type face struct {
 
 // angle computes the contact angle at sample p (see the package doc).
 func (f *fitter) angle(p [3]int) (float64, bool) {
-	lab, R, hw := f.lab, f.opt.Radius, f.opt.LineHalfWidth
-	g := levelset.GradientAt(lab, f.solid, p, f.opt.SolidSigma)
+	R, hw := f.opt.Radius, f.opt.LineHalfWidth
+	g := levelset.GradientAt(f.lab, f.solid, p, f.opt.SolidSigma)
 	ns, ok := unit([3]float64{-g[0], -g[1], -g[2]})
 	if !ok {
 		return 0, false
 	}
-	// Gather the faces within R of p, in a fixed order relative to p.
+	// Gather the faces within R of p, in a fixed order relative to p
+	// (z, y, x of the voxel, then axis).
 	f.faces = f.faces[:0]
 	var wallW, wallD float64
 	rc := int(math.Ceil(R))
-	fc := f.faceCodes
-	nb := volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}.Grow(rc).Intersect(fc.Box)
+	nb := volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}.Grow(rc).Intersect(f.box)
+	// near returns a lower bound of |offset + ½d| over d ∈ {0, 1}.
+	near := func(d int) float64 {
+		if d >= 0 {
+			return float64(d)
+		}
+		return -float64(d) - 0.5
+	}
+	// Wall faces enter the fit only through wallW = Σ τ|e·n_s| and
+	// wallD = Σ τ|e·n_s| n_s·q. With e = ±(axis a), |e·n_s| = |n_s,a|, so
+	// both follow from per-axis sums of τ and τq.
+	var tw [3]float64
+	var tq [3][3]float64
+	R2 := R * R
 	for z := nb.Min[0]; z < nb.Max[0]; z++ {
+		k := z - f.box.Min[0]
+		rs, xs, cs := f.rowStart[k], f.faceX[k], f.faceCode[k]
+		dz := float64(z - p[0])
+		nz := near(z - p[0])
 		for y := nb.Min[1]; y < nb.Max[1]; y++ {
-			row := fc.Pix[fc.Index(z, y, nb.Min[2]):][:nb.Max[2]-nb.Min[2]]
-			for k, code := range row {
-				if code == 0 {
+			if ny := near(y - p[1]); nz*nz+ny*ny >= R2 {
+				continue // every face of this row is at least R away
+			}
+			dy := float64(y - p[1])
+			j := y - f.box.Min[1]
+			for e := rs[j]; e < rs[j+1]; e++ {
+				x := int(xs[e])
+				if x < nb.Min[2] {
 					continue
 				}
-				x := nb.Min[2] + k
+				if x >= nb.Max[2] {
+					break
+				}
+				code := cs[e]
+				dx := float64(x - p[2])
 				for ax := 0; ax < 3; ax++ {
 					c := code >> (3 * ax) & 7
 					if c == 0 {
 						continue
 					}
-					var d [3]int
-					d[ax] = 1
-					q := [3]float64{float64(z-p[0]) + 0.5*float64(d[0]), float64(y-p[1]) + 0.5*float64(d[1]), float64(x-p[2]) + 0.5*float64(d[2])}
-					r2 := dot(q, q)
-					if r2 >= R*R {
+					q := [3]float64{dz, dy, dx}
+					q[ax] += 0.5
+					r2 := q[0]*q[0] + q[1]*q[1] + q[2]*q[2]
+					if r2 >= R2 {
 						continue
 					}
-					sign := 1.0
-					if c&faceNeg != 0 {
-						sign = -1
-					}
-					t := (1 - r2/(R*R)) * (1 - r2/(R*R))
-					e := [3]float64{sign * float64(d[0]), sign * float64(d[1]), sign * float64(d[2])}
+					u := 1 - r2/R2
+					t := u * u
 					if c&faceWall != 0 {
-						w := t * math.Abs(dot(e, ns))
-						wallW += w
-						wallD += w * dot(ns, q)
-					} else {
-						f.faces = append(f.faces, face{q: q, e: e, t: t})
+						tw[ax] += t
+						tq[ax][0] += t * q[0]
+						tq[ax][1] += t * q[1]
+						tq[ax][2] += t * q[2]
+						continue
 					}
+					var e [3]float64
+					e[ax] = 1
+					if c&faceNeg != 0 {
+						e[ax] = -1
+					}
+					f.faces = append(f.faces, face{q: q, e: e, t: t})
 				}
 			}
 		}
+	}
+	for ax := 0; ax < 3; ax++ {
+		a := math.Abs(ns[ax])
+		wallW += a * tw[ax]
+		wallD += a * dot(ns, tq[ax])
 	}
 	if len(f.faces) < f.opt.MinFaces || wallW == 0 {
 		return 0, false

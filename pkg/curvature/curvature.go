@@ -148,46 +148,142 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 		return p
 	}
 	pore := levelset.Union(wetting, nonwetting)
-	phi := levelset.Fraction(lab, nonwetting, pore, core.Grow(1), opt.Sigma)
-	near := levelset.Near(lab, solid, core, opt.Exclude)
-	scale := 1 / (1 - 2*Band)
+	var rest phase.Set // den ∖ num of the fraction
+	for v := range rest {
+		rest[v] = pore[v] && !nonwetting[v]
+	}
+	// Narrow band (package levelset): φ can lie strictly inside (0, 1) only
+	// where the kernel cube holds both nonwetting and other pore voxels.
+	// The candidates are the pore voxels of the core there that are not
+	// excluded near the solid, in z, y, x order; φ is computed only on
+	// them and the 3×3×3 neighbours their derivatives read.
+	mix := levelset.Mixed(lab, nonwetting, &rest, core, levelset.Radius(opt.Sigma))
+	ex := newExclusion(lab, solid, opt.Exclude)
+	var cand []int32 // offsets in core, z-major
 	i := 0
 	for z := core.Min[0]; z < core.Max[0]; z++ {
 		for y := core.Min[1]; y < core.Max[1]; y++ {
-			row := lab.Pix[lab.Index(z, y, core.Min[2]):]
-			for x := core.Min[2]; x < core.Max[2]; x, i = x+1, i+1 {
-				if !pore[row[x-core.Min[2]]] || near.Pix[i] != 0 {
-					continue
+			row := lab.Pix[lab.Index(z, y, core.Min[2]):][:core.Max[2]-core.Min[2]]
+			m := mix.Pix[i:][:len(row)]
+			for k, l := range row {
+				if m[k] != 0 && pore[l] && !ex.near(z, y, core.Min[2]+k) {
+					cand = append(cand, int32(i+k))
 				}
-				f := float64(phi.At(z, y, x))
-				if !(f >= Band && f <= 1-Band) {
-					continue
+			}
+			i += len(row)
+		}
+	}
+	if len(cand) == 0 {
+		return p
+	}
+	pb := core.Grow(1).Intersect(lab.Box)
+	need := volume.New[uint8](pb, 0)
+	cs := core.Size()
+	ps := pb.Size()
+	pos := func(c int32) (z, y, x int) {
+		ci := int(c)
+		return core.Min[0] + ci/(cs[1]*cs[2]), core.Min[1] + ci/cs[2]%cs[1], core.Min[2] + ci%cs[2]
+	}
+	for _, c := range cand {
+		z, y, x := pos(c)
+		for zz := max(z-1, pb.Min[0]); zz <= min(z+1, pb.Max[0]-1); zz++ {
+			for yy := max(y-1, pb.Min[1]); yy <= min(y+1, pb.Max[1]-1); yy++ {
+				o := ((zz-pb.Min[0])*ps[1] + yy - pb.Min[1]) * ps[2]
+				for xx := max(x-1, pb.Min[2]); xx <= min(x+1, pb.Max[2]-1); xx++ {
+					need.Pix[o+xx-pb.Min[2]] = 1
 				}
-				g, ok := levelset.Gradient(phi, z, y, x)
-				if !ok {
-					continue
-				}
-				h, ok := levelset.Hessian(phi, z, y, x)
-				if !ok {
-					continue
-				}
-				k := levelset.TotalCurvature(g, h)
-				if math.IsNaN(k) {
-					continue
-				}
-				w := math.Sqrt(g[0]*g[0]+g[1]*g[1]+g[2]*g[2]) * scale
-				p.Area += w
-				p.KappaArea += k * w
-				p.Kappa2Area += k * k * w
-				p.Voxels++
-				if p.Hist == nil {
-					p.Hist = make([]float64, HistBins)
-				}
-				p.Hist[bin(k)] += w
 			}
 		}
 	}
+	phi := levelset.FractionOn(lab, nonwetting, pore, pb, opt.Sigma, need)
+	scale := 1 / (1 - 2*Band)
+	for _, c := range cand {
+		z, y, x := pos(c)
+		f := float64(phi.At(z, y, x))
+		if !(f >= Band && f <= 1-Band) {
+			continue
+		}
+		g, ok := levelset.Gradient(phi, z, y, x)
+		if !ok {
+			continue
+		}
+		h, ok := levelset.Hessian(phi, z, y, x)
+		if !ok {
+			continue
+		}
+		k := levelset.TotalCurvature(g, h)
+		if math.IsNaN(k) {
+			continue
+		}
+		w := math.Sqrt(g[0]*g[0]+g[1]*g[1]+g[2]*g[2]) * scale
+		p.Area += w
+		p.KappaArea += k * w
+		p.Kappa2Area += k * k * w
+		p.Voxels++
+		if p.Hist == nil {
+			p.Hist = make([]float64, HistBins)
+		}
+		p.Hist[bin(k)] += w
+	}
 	return p
+}
+
+// exclusion answers whether a voxel lies within distance e (Euclidean,
+// centre to centre, the voxel itself included) of a solid voxel inside
+// lab — the test levelset.Near makes for a whole box, asked here only for
+// band candidates. The ball's offsets are sorted nearest first, so voxels
+// next to a wall stop at the first few.
+type exclusion struct {
+	lab   *volume.Labels
+	solid *phase.Set
+	off   [][3]int // ball offsets, nearest first
+	flat  []int    // the same as Pix offsets
+	r     int
+}
+
+func newExclusion(lab *volume.Labels, solid *phase.Set, e float64) *exclusion {
+	x := &exclusion{lab: lab, solid: solid, r: -1}
+	if e < 0 {
+		return x
+	}
+	x.r = int(math.Floor(e))
+	lim := int(math.Floor(e*e + 1e-9))
+	s := lab.Box.Size()
+	for d2 := 0; d2 <= lim; d2++ {
+		for dz := -x.r; dz <= x.r; dz++ {
+			for dy := -x.r; dy <= x.r; dy++ {
+				for dx := -x.r; dx <= x.r; dx++ {
+					if dz*dz+dy*dy+dx*dx == d2 {
+						x.off = append(x.off, [3]int{dz, dy, dx})
+						x.flat = append(x.flat, (dz*s[1]+dy)*s[2]+dx)
+					}
+				}
+			}
+		}
+	}
+	return x
+}
+
+func (x *exclusion) near(z, y, xx int) bool {
+	if x.r < 0 {
+		return false
+	}
+	lab, b := x.lab, x.lab.Box
+	j := lab.Index(z, y, xx)
+	if z-x.r >= b.Min[0] && z+x.r < b.Max[0] && y-x.r >= b.Min[1] && y+x.r < b.Max[1] && xx-x.r >= b.Min[2] && xx+x.r < b.Max[2] {
+		for _, o := range x.flat {
+			if x.solid[lab.Pix[j+o]] {
+				return true
+			}
+		}
+		return false
+	}
+	for k, o := range x.off {
+		if b.Contains(z+o[0], y+o[1], xx+o[2]) && x.solid[lab.Pix[j+x.flat[k]]] {
+			return true
+		}
+	}
+	return false
 }
 
 func bin(k float64) int {

@@ -265,7 +265,13 @@ func TotalCurvature(g [3]float64, h [6]float64) float64 {
 // set; its length is in arbitrary units.
 func GradientAt(lab *volume.Labels, set *phase.Set, p [3]int, sigma float64) [3]float64 {
 	r := Radius(sigma)
-	w := make([]float64, 2*r+1)
+	var buf [64]float64 // no allocation for σ up to 10
+	var w []float64
+	if 2*r+1 <= len(buf) {
+		w = buf[:2*r+1]
+	} else {
+		w = make([]float64, 2*r+1)
+	}
 	for i := range w {
 		d := float64(i - r)
 		w[i] = math.Exp(-d * d / (2 * sigma * sigma))

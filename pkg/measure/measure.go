@@ -58,6 +58,9 @@ type Options struct {
 	Contact   contact.Options
 	// Skip turns off the expensive measurements (for quick looks).
 	SkipCurvature, SkipContact bool
+	// Workers is the number of goroutines MeasureTile uses inside one tile
+	// (0 = runtime.GOMAXPROCS). Results do not depend on it.
+	Workers int `json:"-"`
 }
 
 // Defaults returns the documented default options.
@@ -166,40 +169,74 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 		return nil, fmt.Errorf("measure: tile data %v does not cover core %v with halo %d", lab.Box, core, opt.Halo())
 	}
 	solid, wet, non := opt.Codes.Sets()
-	sets := [3]*phase.Set{solid, wet, non}
 	p := &Partial{Core: core}
+	workers := opt.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	// The stages write disjoint fields of p. With more than one worker the
+	// cheap whole-tile passes (counts, configuration histograms, clusters)
+	// run beside the curvature while the contact-angle fits share the
+	// workers; no stage's result depends on how it is scheduled.
+	var wg sync.WaitGroup
+	run := func(f func()) {
+		if workers == 1 {
+			f()
+			return
+		}
+		wg.Add(1)
+		go func() { defer wg.Done(); f() }()
+	}
+	run(func() {
+		countPhases(p, lab, core, wet, non)
+		po, io := paddedOrigins(core, whole), interiorOrigins(core, whole)
+		for i, s := range [3]*phase.Set{solid, wet, non} {
+			p.Padded[i] = morph.Cells(lab, s, po)
+			p.Interior[i] = morph.Cells(lab, s, io)
+		}
+		p.Clusters = cluster.Label(lab, non, core, whole, opt.clusterOptions())
+	})
+	if !opt.SkipCurvature {
+		run(func() {
+			c := curvature.Measure(lab, solid, wet, non, core, opt.Curvature)
+			p.Curvature = &c
+		})
+	}
+	if !opt.SkipContact {
+		co := opt.Contact
+		co.Workers = workers
+		c := contact.Measure(lab, solid, wet, non, core, co)
+		p.Contact = &c
+	}
+	wg.Wait()
+	return p, nil
+}
+
+// countPhases fills p.Counts over core.
+func countPhases(p *Partial, lab *volume.Labels, core volume.Box, wet, non *phase.Set) {
+	var class [256]uint8 // index into Counts
+	for v := range class {
+		switch {
+		case uint8(v) == phase.Outside:
+			class[v] = 3
+		case wet[v]:
+			class[v] = Wetting
+		case non[v]:
+			class[v] = Nonwetting
+		default:
+			class[v] = Solid
+		}
+	}
+	var n [4]int64
 	for z := core.Min[0]; z < core.Max[0]; z++ {
 		for y := core.Min[1]; y < core.Max[1]; y++ {
 			row := lab.Pix[lab.Index(z, y, core.Min[2]):][:core.Max[2]-core.Min[2]]
 			for _, v := range row {
-				switch {
-				case v == phase.Outside:
-					p.Counts[3]++
-				case wet[v]:
-					p.Counts[Wetting]++
-				case non[v]:
-					p.Counts[Nonwetting]++
-				default:
-					p.Counts[Solid]++
-				}
+				n[class[v]]++
 			}
 		}
 	}
-	po, io := paddedOrigins(core, whole), interiorOrigins(core, whole)
-	for i, s := range sets {
-		p.Padded[i] = morph.Cells(lab, s, po)
-		p.Interior[i] = morph.Cells(lab, s, io)
-	}
-	if !opt.SkipCurvature {
-		c := curvature.Measure(lab, solid, wet, non, core, opt.Curvature)
-		p.Curvature = &c
-	}
-	if !opt.SkipContact {
-		c := contact.Measure(lab, solid, wet, non, core, opt.Contact)
-		p.Contact = &c
-	}
-	p.Clusters = cluster.Label(lab, non, core, whole, opt.clusterOptions())
-	return p, nil
+	p.Counts = n
 }
 
 // Volume measures a whole label volume, cutting it into tiles of edge tile

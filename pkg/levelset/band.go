@@ -1,0 +1,292 @@
+package levelset
+
+import (
+	"math"
+
+	"sluice/pkg/phase"
+	"sluice/pkg/volume"
+)
+
+// # Narrow band
+//
+// Where the cube of radius r = Radius(σ) around a voxel holds no voxel of
+// num, G∗χ_num is exactly 0 there; where it holds no voxel of den∖num,
+// χ_num and χ_den agree on every tap, the two sums are computed by the same
+// operations and φ is exactly 1 (or NaN below MinWeight). Only voxels whose
+// cube holds both (Mixed) can take a value strictly between 0 and 1, so a
+// measurement that keeps a band inside (0, 1) needs φ only on those voxels
+// and the few neighbours its derivatives read. FractionOn computes φ on
+// such a mask, bit for bit as Fraction does.
+
+// Mixed returns, on box ∩ lab.Box, 1 where the cube of radius r (Chebyshev
+// distance, the voxel itself included) holds a voxel of a and a voxel of b,
+// and 0 elsewhere; voxels beyond lab.Box are missing. The cube is three 1-D
+// windows (x, y, z), each a running count of the a and b voxels packed in
+// the low and high byte of a uint16 (counts ≤ 2r+1 ≤ 255).
+func Mixed(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.Volume[uint8] {
+	box = box.Intersect(lab.Box)
+	out := volume.New[uint8](box, lab.VoxelSize)
+	if box.Empty() || r < 0 || 2*r+1 > 255 {
+		return out
+	}
+	var code [256]uint16
+	for v := range code {
+		if a[v] {
+			code[v] |= 1
+		}
+		if b[v] {
+			code[v] |= 1 << 8
+		}
+	}
+	src := box.Grow(r).Intersect(lab.Box)
+	s := src.Size()
+	cur := make([]uint16, src.Voxels())
+	i := 0
+	for z := src.Min[0]; z < src.Max[0]; z++ {
+		for y := src.Min[1]; y < src.Max[1]; y++ {
+			row := lab.Pix[lab.Index(z, y, src.Min[2]):][:s[2]]
+			for _, l := range row {
+				cur[i] = code[l]
+				i++
+			}
+		}
+	}
+	// any turns packed counts into packed 0/1 flags.
+	any := func(c uint16) uint16 {
+		var f uint16
+		if c&0xff != 0 {
+			f = 1
+		}
+		if c>>8 != 0 {
+			f |= 1 << 8
+		}
+		return f
+	}
+	// Each pass is a window sum along one axis over the whole of src (the
+	// other axes keep their extent), then the flags; only box is kept at
+	// the end.
+	nxt := make([]uint16, len(cur))
+	// A line along axis has n voxels at stride st; inner lines side by side
+	// are contiguous (inner = st), outer groups follow each other.
+	for axis := 2; axis >= 0; axis-- {
+		n := s[axis]
+		st := [3]int{s[1] * s[2], s[2], 1}[axis]
+		outer := len(cur) / (n * st)
+		c := make([]uint16, st)
+		for o := 0; o < outer; o++ {
+			base := o * n * st
+			clear(c)
+			for t := 0; t < min(r, n); t++ {
+				for x, v := range cur[base+t*st:][:st] {
+					c[x] += v
+				}
+			}
+			for t := 0; t < n; t++ {
+				if t+r < n {
+					for x, v := range cur[base+(t+r)*st:][:st] {
+						c[x] += v
+					}
+				}
+				if t-r-1 >= 0 {
+					for x, v := range cur[base+(t-r-1)*st:][:st] {
+						c[x] -= v
+					}
+				}
+				dst := nxt[base+t*st:][:st]
+				for x, v := range c {
+					dst[x] = any(v)
+				}
+			}
+		}
+		cur, nxt = nxt, cur
+	}
+	i = 0
+	for z := box.Min[0]; z < box.Max[0]; z++ {
+		for y := box.Min[1]; y < box.Max[1]; y++ {
+			row := cur[((z-src.Min[0])*s[1]+(y-src.Min[1]))*s[2]+box.Min[2]-src.Min[2]:][:box.Max[2]-box.Min[2]]
+			for _, c := range row {
+				if c == 1|1<<8 {
+					out.Pix[i] = 1
+				}
+				i++
+			}
+		}
+	}
+	return out
+}
+
+// FractionOn returns Fraction(lab, num, den, box, sigma) on the voxels of
+// box where need is non-zero (need covers box), with the same float32
+// values bit for bit; the other voxels are NaN. It runs the three
+// separable passes of Smooth on both indicators at once, each pass only on
+// the voxels the later passes read: need, then need widened by r along z,
+// then that widened by r along y.
+func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma float64, need *volume.Volume[uint8]) *volume.Volume[float32] {
+	box = box.Intersect(lab.Box)
+	out := volume.New[float32](box, lab.VoxelSize)
+	nan := float32(math.NaN())
+	for i := range out.Pix {
+		out.Pix[i] = nan
+	}
+	if box.Empty() {
+		return out
+	}
+	r := Radius(sigma)
+	k := Kernel(sigma)
+	b0 := box.Grow(r).Intersect(lab.Box)
+	// Boxes of the pass outputs, as in Smooth: x narrowed, then y, then z.
+	bx := b0
+	bx.Min[2], bx.Max[2] = box.Min[2], box.Max[2]
+	by := bx
+	by.Min[1], by.Max[1] = box.Min[1], box.Max[1]
+	nx := box.Max[2] - box.Min[2]
+	// Masks: mz on box (= need), my on by (mz widened along z), mx on bx
+	// (my widened along y); rows flags say whether a row has any voxel.
+	mz := make([]uint8, box.Voxels())
+	for z := box.Min[0]; z < box.Max[0]; z++ {
+		for y := box.Min[1]; y < box.Max[1]; y++ {
+			copy(mz[((z-box.Min[0])*(box.Max[1]-box.Min[1])+(y-box.Min[1]))*nx:][:nx], need.Pix[need.Index(z, y, box.Min[2]):][:nx])
+		}
+	}
+	widen := func(src []uint8, sb volume.Box, db volume.Box, axis int) []uint8 {
+		// dst on db: OR of src over ±r along axis (src on sb, sb ⊂ db on
+		// that axis, equal on the others).
+		ds := db.Size()
+		dst := make([]uint8, db.Voxels())
+		ss := sb.Size()
+		for z := sb.Min[0]; z < sb.Max[0]; z++ {
+			for y := sb.Min[1]; y < sb.Max[1]; y++ {
+				row := src[((z-sb.Min[0])*ss[1]+(y-sb.Min[1]))*ss[2]:][:ss[2]]
+				c := [2]int{z, y}[axis]
+				lo, hi := max(c-r, db.Min[axis]), min(c+r, db.Max[axis]-1)
+				for t := lo; t <= hi; t++ {
+					zz, yy := z, y
+					if axis == 0 {
+						zz = t
+					} else {
+						yy = t
+					}
+					d := dst[((zz-db.Min[0])*ds[1]+(yy-db.Min[1]))*ds[2]:][:ds[2]]
+					for x, v := range row {
+						d[x] |= v
+					}
+				}
+			}
+		}
+		return dst
+	}
+	my := widen(mz, box, by, 0)
+	mx := widen(my, by, bx, 1)
+
+	// Pass x: indicator sums, taps inside lab only, increasing offset.
+	var ind [256]uint8
+	for v := range ind {
+		if num[v] {
+			ind[v] |= 1
+		}
+		if den[v] {
+			ind[v] |= 2
+		}
+	}
+	sx := bx.Size()
+	xn := make([]float32, bx.Voxels())
+	xd := make([]float32, bx.Voxels())
+	lo, hi := lab.Box.Min[2], lab.Box.Max[2]
+	i := 0
+	for z := bx.Min[0]; z < bx.Max[0]; z++ {
+		for y := bx.Min[1]; y < bx.Max[1]; y++ {
+			m := mx[i : i+sx[2]]
+			row := lab.Pix[lab.Index(z, y, lo):][:hi-lo]
+			for x := bx.Min[2]; x < bx.Max[2]; x++ {
+				if m[x-bx.Min[2]] == 0 {
+					continue
+				}
+				a, b := max(x-r, lo), min(x+r, hi-1)
+				var sn, sd float64
+				for t := a; t <= b; t++ {
+					c := ind[row[t-lo]]
+					w := k[t-x+r]
+					if c&1 != 0 {
+						sn += w
+					}
+					if c&2 != 0 {
+						sd += w
+					}
+				}
+				xn[i+x-bx.Min[2]] = float32(sn)
+				xd[i+x-bx.Min[2]] = float32(sd)
+			}
+			i += sx[2]
+		}
+	}
+	// Passes y and z: weighted rows, accumulated in float64 in increasing
+	// tap order, masked per voxel.
+	colPass := func(srcN, srcD []float32, sb volume.Box, db volume.Box, mask []uint8, axis int) ([]float32, []float32) {
+		ss, ds := sb.Size(), db.Size()
+		dn := make([]float32, db.Voxels())
+		dd := make([]float32, db.Voxels())
+		an := make([]float64, ds[2])
+		ad := make([]float64, ds[2])
+		lo, hi := sb.Min[axis], sb.Max[axis]
+		j := 0
+		for z := db.Min[0]; z < db.Max[0]; z++ {
+			for y := db.Min[1]; y < db.Max[1]; y++ {
+				m := mask[j : j+ds[2]]
+				j0 := j
+				j += ds[2]
+				anyv := false
+				for _, v := range m {
+					if v != 0 {
+						anyv = true
+						break
+					}
+				}
+				if !anyv {
+					continue
+				}
+				clear(an)
+				clear(ad)
+				c := [2]int{z, y}[axis]
+				a, b := max(c-r, lo), min(c+r, hi-1)
+				for t := a; t <= b; t++ {
+					w := k[t-c+r]
+					zz, yy := z, y
+					if axis == 0 {
+						zz = t
+					} else {
+						yy = t
+					}
+					o := ((zz-sb.Min[0])*ss[1] + (yy - sb.Min[1])) * ss[2]
+					rn, rd := srcN[o:][:ds[2]], srcD[o:][:ds[2]]
+					for x, v := range m {
+						if v != 0 {
+							an[x] += w * float64(rn[x])
+							ad[x] += w * float64(rd[x])
+						}
+					}
+				}
+				on, od := dn[j0:][:ds[2]], dd[j0:][:ds[2]]
+				for x, v := range m {
+					if v != 0 {
+						on[x] = float32(an[x])
+						od[x] = float32(ad[x])
+					}
+				}
+			}
+		}
+		return dn, dd
+	}
+	yn, yd := colPass(xn, xd, bx, by, my, 1)
+	zn, zd := colPass(yn, yd, by, box, mz, 0)
+	for i, v := range mz {
+		if v == 0 {
+			continue
+		}
+		if w := zd[i]; w < MinWeight {
+			out.Pix[i] = nan
+		} else {
+			out.Pix[i] = float32(float64(zn[i]) / float64(w))
+		}
+	}
+	return out
+}
