@@ -13,6 +13,7 @@ import (
 	"runtime"
 	"slices"
 	"strings"
+	"syscall"
 	"text/tabwriter"
 	"time"
 
@@ -66,10 +67,14 @@ var compareStages = []struct{ key, name string }{
 	{"mesh", "marching cubes + area, 3 smoothed phases"},
 }
 
-// stageFigure is one timed stage.
+// stageFigure is one timed stage: wall-clock seconds and CPU seconds of
+// the process (user + system), medians over the repeats. On a shared
+// machine the CPU figure is the steadier one.
 type stageFigure struct {
-	Seconds  float64 `json:"seconds"`
-	MVoxPerS float64 `json:"mvox_per_s"`
+	Seconds     float64 `json:"seconds"`
+	MVoxPerS    float64 `json:"mvox_per_s"`
+	CPUSeconds  float64 `json:"cpu_seconds"`
+	MVoxPerCPUS float64 `json:"mvox_per_cpu_s"`
 }
 
 // gaussianProbe is the smoothed value at one voxel.
@@ -114,8 +119,10 @@ type compareRow struct {
 	Stage     string      `json:"stage"`
 	Sluice    stageFigure `json:"sluice"`
 	Reference stageFigure `json:"reference"`
-	// Ratio is the sluice throughput over the reference throughput.
-	Ratio float64 `json:"ratio"`
+	// Ratio is the sluice throughput over the reference throughput (wall
+	// clock); CPURatio the same in CPU seconds.
+	Ratio    float64 `json:"ratio"`
+	CPURatio float64 `json:"cpu_ratio"`
 }
 
 // compareCheck is one agreement check between the two chains.
@@ -274,24 +281,24 @@ func compareScan(size int) (*volume.Volume[uint16], error) {
 // functions, on one goroutine (GOMAXPROCS 1 while it runs), each stage
 // repeat times; it returns the median seconds per stage, the results of the
 // last run and its smoothed nonwetting indicator (for the probe checks).
-func sluiceChain(grey *volume.Volume[uint16], repeat int) (map[string]float64, chainResults, *volume.Volume[float32], error) {
+func sluiceChain(grey *volume.Volume[uint16], repeat int) (map[string]stageFigure, chainResults, *volume.Volume[float32], error) {
 	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(1))
 	box := grey.Box
 	codes := phase.Default()
 	code := map[string]uint8{"nonwetting": codes.Nonwetting, "wetting": codes.Wetting, "solid": codes.Solid}
-	times := map[string]float64{}
+	times := map[string]stageFigure{}
 	res := chainResults{Voxels: map[string]int64{}, Clusters: map[string]int{}, MeshArea: map[string]float64{}, MeshAreaBinary: map[string]float64{}, Euler26: map[string]int64{}}
 	timed := func(key string, fn func() error) error {
-		ts := make([]float64, 0, repeat)
+		ts, cs := make([]float64, 0, repeat), make([]float64, 0, repeat)
 		for range repeat {
-			t0 := time.Now()
+			c0, t0 := processCPU(), time.Now()
 			if err := fn(); err != nil {
 				return err
 			}
 			ts = append(ts, time.Since(t0).Seconds())
+			cs = append(cs, processCPU()-c0)
 		}
-		slices.Sort(ts)
-		times[key] = medianSorted(ts)
+		times[key] = stageFigure{Seconds: median(ts), CPUSeconds: median(cs)}
 		return nil
 	}
 
@@ -404,7 +411,18 @@ func sluiceChain(grey *volume.Volume[uint16], repeat int) (map[string]float64, c
 	return times, res, sm, nil
 }
 
-func medianSorted(ts []float64) float64 {
+// processCPU returns the user + system CPU seconds of this process.
+func processCPU() float64 {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return math.NaN()
+	}
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano()).Seconds()
+}
+
+func median(v []float64) float64 {
+	ts := slices.Clone(v)
+	slices.Sort(ts)
 	n := len(ts)
 	if n%2 == 1 {
 		return ts[n/2]
@@ -441,20 +459,29 @@ func runReferenceChain(python string, args []string) (referenceRun, error) {
 }
 
 // buildCompareReport puts both runs side by side and runs the checks.
-func buildCompareReport(grey *volume.Volume[uint16], repeat int, own map[string]float64, ownRes chainResults, sm *volume.Volume[float32], ref referenceRun) compareReport {
+func buildCompareReport(grey *volume.Volume[uint16], repeat int, own map[string]stageFigure, ownRes chainResults, sm *volume.Volume[float32], ref referenceRun) compareReport {
 	n := int64(grey.Box.Voxels())
 	mvox := float64(n) / 1e6
-	fig := func(s float64) stageFigure { return stageFigure{Seconds: s, MVoxPerS: mvox / s} }
+	fig := func(f stageFigure) stageFigure {
+		f.MVoxPerS, f.MVoxPerCPUS = mvox/f.Seconds, mvox/f.CPUSeconds
+		return f
+	}
 	rep := compareReport{Shape: grey.Box.Size(), Voxels: n, Repeat: repeat, Versions: ref.Versions,
 		SluiceResults: ownRes, ReferenceResults: ref.Results, SluiceGoroutines: 1, ReferenceThreads: 1}
-	var tOwn, tRef float64
-	for _, st := range compareStages {
-		o, r := fig(own[st.key]), fig(ref.Stages[st.key].Seconds)
-		tOwn += o.Seconds
-		tRef += r.Seconds
-		rep.Stages = append(rep.Stages, compareRow{Stage: st.name, Sluice: o, Reference: r, Ratio: r.Seconds / o.Seconds})
+	var tOwn, tRef stageFigure
+	row := func(name string, o, r stageFigure) compareRow {
+		o, r = fig(o), fig(r)
+		return compareRow{Stage: name, Sluice: o, Reference: r, Ratio: r.Seconds / o.Seconds, CPURatio: r.CPUSeconds / o.CPUSeconds}
 	}
-	rep.Chain = compareRow{Stage: "whole chain", Sluice: fig(tOwn), Reference: fig(tRef), Ratio: tRef / tOwn}
+	for _, st := range compareStages {
+		o, r := own[st.key], ref.Stages[st.key]
+		tOwn.Seconds += o.Seconds
+		tOwn.CPUSeconds += o.CPUSeconds
+		tRef.Seconds += r.Seconds
+		tRef.CPUSeconds += r.CPUSeconds
+		rep.Stages = append(rep.Stages, row(st.name, o, r))
+	}
+	rep.Chain = row("whole chain", tOwn, tRef)
 	rep.Checks = compareChecks(ownRes, ref.Results, sm)
 	rep.Agree = true
 	for _, c := range rep.Checks {
@@ -547,16 +574,17 @@ func printCompareReport(rep compareReport) {
 	fmt.Fprintf(stdout, "\n%d×%d×%d uint16 (%.2f MVox), median of %d; sluice on 1 goroutine, reference on 1 thread (%s)\n\n",
 		s[0], s[1], s[2], float64(rep.Voxels)/1e6, rep.Repeat, versionLine(rep.Versions))
 	tw := tabwriter.NewWriter(stdout, 0, 2, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintf(tw, "stage\tsluice s\tsluice MVox/s\treference s\treference MVox/s\tratio\t\n")
+	fmt.Fprintf(tw, "stage\tsluice s\tsluice MVox/s\treference s\treference MVox/s\tratio\tCPU ratio\t\n")
 	row := func(r compareRow) {
-		fmt.Fprintf(tw, "%s\t%.3f\t%.2f\t%.3f\t%.2f\t%.1f×\t\n", r.Stage, r.Sluice.Seconds, r.Sluice.MVoxPerS,
-			r.Reference.Seconds, r.Reference.MVoxPerS, r.Ratio)
+		fmt.Fprintf(tw, "%s\t%.3f\t%.2f\t%.3f\t%.2f\t%.1f×\t%.1f×\t\n", r.Stage, r.Sluice.Seconds, r.Sluice.MVoxPerS,
+			r.Reference.Seconds, r.Reference.MVoxPerS, r.Ratio, r.CPURatio)
 	}
 	for _, r := range rep.Stages {
 		row(r)
 	}
 	row(rep.Chain)
 	tw.Flush()
+	fmt.Fprintf(stdout, "(MVox/s by wall clock; ratio = sluice throughput / reference throughput; CPU ratio = reference CPU s / sluice CPU s)\n")
 	fmt.Fprintf(stdout, "\nagreement checks:\n")
 	tw = tabwriter.NewWriter(stdout, 0, 2, 2, ' ', 0)
 	fmt.Fprintf(tw, "check\tsluice\treference\ttolerance\t\n")

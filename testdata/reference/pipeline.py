@@ -8,7 +8,8 @@ scikit-image 0.19 (Debian python3-scipy, python3-skimage; run it with
 Input: raw little-endian uint16 voxels in C order, z slowest and x fastest
 (the layout of sluice's raw files, see pkg/volio), shape given as Z,Y,X.
 
-Stages (each timed with time.perf_counter; the median of --repeat runs):
+Stages (each timed with time.perf_counter, wall clock, and
+time.process_time, CPU of the process; the median of --repeat runs):
 
   median     scipy.ndimage.median_filter, size 3, mode 'nearest' (for a 3^3
              window the same as the default 'reflect')
@@ -106,13 +107,16 @@ def read(path, shape):
 
 
 def timed(fn, repeat):
-    """Runs fn repeat times; returns (median seconds, last result)."""
-    ts, out = [], None
+    """Runs fn repeat times; returns ((median wall seconds, median CPU
+    seconds of the process), last result). On a shared machine the CPU
+    time is the steadier figure."""
+    ts, cs, out = [], [], None
     for _ in range(repeat):
-        t0 = time.perf_counter()
+        c0, t0 = time.process_time(), time.perf_counter()
         out = fn()
         ts.append(time.perf_counter() - t0)
-    return statistics.median(ts), out
+        cs.append(time.process_time() - c0)
+    return (statistics.median(ts), statistics.median(cs)), out
 
 
 def main():
@@ -121,8 +125,10 @@ def main():
     nvox = grey.size
     stages, results = {}, {}
 
-    def record(name, seconds):
-        stages[name] = {"seconds": seconds, "mvox_per_s": nvox / seconds / 1e6}
+    def record(name, t):
+        wall, cpu = t
+        stages[name] = {"seconds": wall, "mvox_per_s": nvox / wall / 1e6,
+                        "cpu_seconds": cpu, "mvox_per_cpu_s": nvox / max(cpu, 1e-9) / 1e6}
 
     s, med = timed(lambda: ndimage.median_filter(grey, size=3, mode="nearest"), repeat)
     record("median", s)
@@ -170,6 +176,7 @@ def main():
     results["mesh_area_binary"] = {p: area((cls == k).astype(np.float32)) for k, p in enumerate(PHASES)}
 
     total = sum(v["seconds"] for v in stages.values())
+    cpu = sum(v["cpu_seconds"] for v in stages.values())
     json.dump({
         "shape": list(shape),
         "voxels": nvox,
@@ -177,7 +184,8 @@ def main():
         "versions": {"python": sys.version.split()[0], "numpy": np.__version__,
                      "scipy": scipy.__version__, "skimage": skimage.__version__},
         "stages": stages,
-        "chain": {"seconds": total, "mvox_per_s": nvox / total / 1e6},
+        "chain": {"seconds": total, "mvox_per_s": nvox / total / 1e6,
+                  "cpu_seconds": cpu, "mvox_per_cpu_s": nvox / max(cpu, 1e-9) / 1e6},
         "results": results,
     }, sys.stdout, indent=1)
     print()
