@@ -52,13 +52,20 @@ type Watcher struct {
 	Settle time.Duration
 	// Poll is the scan interval (default 1 s).
 	Poll time.Duration
-	Log  *slog.Logger
+	// Attempts bounds how often a scan whose ingest failed is offered
+	// again (default 5), after 2, 4, 8 … polls: an object store or NATS
+	// outage longer than the services' own retries must not lose a scan,
+	// and bad input must not be retried for ever.
+	Attempts int
+	Log      *slog.Logger
 
 	seen   map[string]bool
 	sizes  map[string]sizeSeen
 	t0     time.Time
 	t0Set  bool
 	failed map[string]bool
+	tries  map[string]int       // failed ingests per scan name
+	after  map[string]time.Time // no new attempt before
 }
 
 type sizeSeen struct {
@@ -68,8 +75,9 @@ type sizeSeen struct {
 }
 
 // Run calls found for every complete scan, in name order within a poll,
-// until ctx ends. An error from found is logged and the scan is not retried
-// (bad input must not stop the campaign).
+// until ctx ends. An error from found is logged and the scan offered again
+// up to Attempts times with a doubling delay, then given up (bad input must
+// not stop the campaign).
 func (w *Watcher) Run(ctx context.Context, found func(Arrival) error) error {
 	if w.Poll <= 0 {
 		w.Poll = time.Second
@@ -86,7 +94,7 @@ func (w *Watcher) Run(ctx context.Context, found func(Arrival) error) error {
 		}
 		for _, a := range arr {
 			if err := found(a); err != nil {
-				w.Log.Error("ingest failed; continuing with the next scan", "path", a.Path, "err", err)
+				w.retry(a, err)
 			}
 		}
 		select {
@@ -97,10 +105,30 @@ func (w *Watcher) Run(ctx context.Context, found func(Arrival) error) error {
 	}
 }
 
+// retry forgets a failed scan so that a later poll offers it again, or
+// gives it up after Attempts failures.
+func (w *Watcher) retry(a Arrival, err error) {
+	if w.Attempts <= 0 {
+		w.Attempts = 5
+	}
+	name := filepath.Base(a.Path)
+	w.tries[name]++
+	n := w.tries[name]
+	if n >= w.Attempts {
+		w.Log.Error("ingest failed; giving the scan up and continuing with the next", "path", a.Path, "attempts", n, "err", err)
+		return
+	}
+	wait := w.Poll << n
+	w.Log.Warn("ingest failed; will try the scan again", "path", a.Path, "attempt", n, "in", wait, "err", err)
+	delete(w.seen, name)
+	w.after[name] = time.Now().Add(wait)
+}
+
 // Scan returns the scans that became complete since the last call.
 func (w *Watcher) Scan() ([]Arrival, error) {
 	if w.seen == nil {
 		w.seen, w.sizes, w.failed = map[string]bool{}, map[string]sizeSeen{}, map[string]bool{}
+		w.tries, w.after = map[string]int{}, map[string]time.Time{}
 	}
 	ents, err := os.ReadDir(w.Dir)
 	if err != nil {
@@ -119,6 +147,9 @@ func (w *Watcher) Scan() ([]Arrival, error) {
 	now := time.Now()
 	for _, name := range keys {
 		if w.seen[name] || strings.HasSuffix(name, Marker) || strings.HasSuffix(name, ".sluice.json") || strings.HasPrefix(name, ".") {
+			continue
+		}
+		if now.Before(w.after[name]) {
 			continue
 		}
 		path := filepath.Join(w.Dir, name)

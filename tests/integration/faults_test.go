@@ -192,10 +192,14 @@ func newCluster(t *testing.T, bin string, useMinIO bool, extra ...string) *clust
 		c.loc = filepath.Join(t.TempDir(), "store")
 	}
 	c.common = append([]string{"--nats", c.nats.URL, "--store", c.loc}, extra...)
-	var err error
-	if c.st, err = store.Open(context.Background(), c.loc, creds); err != nil {
-		t.Fatal(err)
-	}
+	// MinIO can answer "Server not initialized yet" for a moment after its
+	// readiness endpoint says ready; the services start only once a store
+	// operation has succeeded here.
+	waitFor(t, 30*time.Second, "the store to answer", func() bool {
+		var err error
+		c.st, err = store.Open(context.Background(), c.loc, creds)
+		return err == nil
+	})
 	return c
 }
 
