@@ -31,17 +31,21 @@ func benchScan() *volume.Volume[uint16] {
 	return v
 }
 
-// BenchmarkZarrZstd writes and reads a 256³ uint16 volume in 64³ zstd
-// chunks through a Dir bucket, at zstd level 3 (klauspost SpeedDefault) and
-// 9 (SpeedBetterCompression); MB/s counts uncompressed voxel bytes and
+// BenchmarkZarrZstd writes and reads a 256³ uint16 volume in 64³ chunks
+// through a Dir bucket, uncompressed (level0) and with zstd at level 1
+// (klauspost SpeedFastest), 3 (SpeedDefault) and 9
+// (SpeedBetterCompression); MB/s counts uncompressed voxel bytes and
 // "ratio" is uncompressed / stored bytes.
 func BenchmarkZarrZstd(b *testing.B) {
 	v := benchScan()
 	ctx := context.Background()
 	root := b.TempDir()
 	bytes := int64(len(v.Pix) * 2)
-	for _, level := range []int{3, 9} {
+	for _, level := range []int{0, 1, 3, 9} {
 		meta := ZarrMeta{Shape: [3]int{256, 256, 256}, Chunks: [3]int{64, 64, 64}, DType: volume.Uint16, Compressor: "zstd", Level: level}
+		if level == 0 {
+			meta.Compressor = ""
+		}
 		z, err := CreateZarr(ctx, Dir(root), fmt.Sprintf("scan%d.zarr", level), meta)
 		if err != nil {
 			b.Fatal(err)

@@ -4,6 +4,7 @@ import (
 	"encoding/binary"
 	"fmt"
 	"math"
+	"unsafe"
 
 	"sluice/pkg/volume"
 )
@@ -52,34 +53,100 @@ func newVolume(dt volume.DType, box volume.Box, voxelSize float64) volume.Any {
 	panic("volio: unsupported dtype " + dt.String())
 }
 
-// decodeVoxels fills dst from src (len(src) == len(dst)*size) in byte order o.
+// hostLittle reports whether this machine stores multi-byte numbers
+// little-endian (amd64, arm64, riscv64 …).
+var hostLittle = func() bool {
+	x := uint16(1)
+	return *(*byte)(unsafe.Pointer(&x)) == 1
+}()
+
+// native reports whether byte order o is the machine's own: voxels then
+// move between files and volumes as one memory copy.
+func native(o binary.ByteOrder) bool {
+	if o == binary.ByteOrder(binary.LittleEndian) {
+		return hostLittle
+	}
+	return o == binary.ByteOrder(binary.BigEndian) && !hostLittle
+}
+
+// voxelBytes views the voxels of s as their bytes in machine order
+// (len(s)·size bytes, no copy).
+func voxelBytes[T volume.Voxel](s []T) []byte {
+	if len(s) == 0 {
+		return nil
+	}
+	return unsafe.Slice((*byte)(unsafe.Pointer(unsafe.SliceData(s))), len(s)*int(unsafe.Sizeof(s[0])))
+}
+
+// decodeVoxels fills dst from src (len(src) == len(dst)*size) in byte order
+// o: a memory copy when o is the machine's order, else a loop on the
+// concrete order (no interface call per voxel).
 func decodeVoxels[T volume.Voxel](dst []T, src []byte, o binary.ByteOrder) {
+	if native(o) {
+		copy(voxelBytes(dst), src)
+		return
+	}
+	big := o == binary.ByteOrder(binary.BigEndian)
 	switch d := any(dst).(type) {
 	case []uint8:
 		copy(d, src)
 	case []uint16:
-		for i := range d {
-			d[i] = o.Uint16(src[2*i:])
+		src = src[:2*len(d)]
+		if big {
+			for i := range d {
+				d[i] = binary.BigEndian.Uint16(src[2*i:])
+			}
+		} else {
+			for i := range d {
+				d[i] = binary.LittleEndian.Uint16(src[2*i:])
+			}
 		}
 	case []float32:
-		for i := range d {
-			d[i] = math.Float32frombits(o.Uint32(src[4*i:]))
+		src = src[:4*len(d)]
+		if big {
+			for i := range d {
+				d[i] = math.Float32frombits(binary.BigEndian.Uint32(src[4*i:]))
+			}
+		} else {
+			for i := range d {
+				d[i] = math.Float32frombits(binary.LittleEndian.Uint32(src[4*i:]))
+			}
 		}
 	}
 }
 
-// encodeVoxels writes src into dst (len(dst) == len(src)*size) in byte order o.
+// encodeVoxels writes src into dst (len(dst) == len(src)*size) in byte
+// order o, as decodeVoxels reads it.
 func encodeVoxels[T volume.Voxel](dst []byte, src []T, o binary.ByteOrder) {
+	if native(o) {
+		copy(dst, voxelBytes(src))
+		return
+	}
+	big := o == binary.ByteOrder(binary.BigEndian)
 	switch s := any(src).(type) {
 	case []uint8:
 		copy(dst, s)
 	case []uint16:
-		for i, v := range s {
-			o.PutUint16(dst[2*i:], v)
+		dst = dst[:2*len(s)]
+		if big {
+			for i, v := range s {
+				binary.BigEndian.PutUint16(dst[2*i:], v)
+			}
+		} else {
+			for i, v := range s {
+				binary.LittleEndian.PutUint16(dst[2*i:], v)
+			}
 		}
 	case []float32:
-		for i, v := range s {
-			o.PutUint32(dst[4*i:], math.Float32bits(v))
+		dst = dst[:4*len(s)]
+		if big {
+			for i, v := range s {
+				binary.BigEndian.PutUint32(dst[4*i:], math.Float32bits(v))
+			}
+		} else {
+			for i, v := range s {
+				binary.LittleEndian.PutUint32(dst[4*i:], math.Float32bits(v))
+			}
 		}
 	}
 }
