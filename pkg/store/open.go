@@ -9,7 +9,9 @@ import (
 )
 
 // Credentials authenticate against an S3 store. Open falls back to
-// SLUICE_S3_ACCESS_KEY and SLUICE_S3_SECRET_KEY when both are empty.
+// SLUICE_S3_ACCESS_KEY and SLUICE_S3_SECRET_KEY when both are empty, then to
+// AWS_ACCESS_KEY_ID and AWS_SECRET_ACCESS_KEY. Both fields are Secrets:
+// they never print. Store errors are scrubbed of them.
 type Credentials struct {
 	AccessKey, SecretKey Secret
 }

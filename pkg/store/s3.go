@@ -8,7 +8,6 @@ import (
 	"io"
 	"log/slog"
 	"net/http"
-	"os"
 	"sort"
 	"strings"
 
@@ -72,8 +71,9 @@ type S3Config struct {
 type S3 struct {
 	client *minio.Client
 	bucket string
-	prefix string // "" or ending with "/"
-	where  string // "s3://bucket/prefix/" for messages; holds no credentials
+	prefix string      // "" or ending with "/"
+	where  string      // "s3://bucket/prefix/" for messages; holds no credentials
+	creds  Credentials // only to scrub them from client errors
 }
 
 // NewS3 connects to the object store, checks that the bucket exists (making
@@ -93,9 +93,10 @@ func NewS3(ctx context.Context, cfg S3Config) (*S3, error) {
 		prefix += "/"
 	}
 	if cfg.AccessKey == "" && cfg.SecretKey == "" {
-		cfg.AccessKey = Secret(os.Getenv(EnvAccessKey))
-		cfg.SecretKey = Secret(os.Getenv(EnvSecretKey))
+		env := credentialsFromEnv()
+		cfg.AccessKey, cfg.SecretKey = env.AccessKey, env.SecretKey
 	}
+	creds := Credentials{AccessKey: cfg.AccessKey, SecretKey: cfg.SecretKey}
 	client, err := minio.New(cfg.Endpoint, &minio.Options{
 		Creds:     credentials.NewStaticV4(string(cfg.AccessKey), string(cfg.SecretKey), ""),
 		Secure:    cfg.TLS,
@@ -103,12 +104,12 @@ func NewS3(ctx context.Context, cfg S3Config) (*S3, error) {
 		Transport: cfg.Transport,
 	})
 	if err != nil {
-		return nil, fmt.Errorf("store: s3 endpoint %s: %v", cfg.Endpoint, err)
+		return nil, fmt.Errorf("store: s3 endpoint %s: %s", cfg.Endpoint, creds.scrub(err.Error()))
 	}
-	s := &S3{client: client, bucket: cfg.Bucket, prefix: prefix, where: "s3://" + cfg.Bucket + "/" + prefix}
+	s := &S3{client: client, bucket: cfg.Bucket, prefix: prefix, where: "s3://" + cfg.Bucket + "/" + prefix, creds: creds}
 	ok, err := client.BucketExists(ctx, cfg.Bucket)
 	if err != nil {
-		return nil, fmt.Errorf("store: s3 bucket %s at %s: %v", cfg.Bucket, cfg.Endpoint, err)
+		return nil, fmt.Errorf("store: s3 bucket %s at %s: %s", cfg.Bucket, cfg.Endpoint, creds.scrub(err.Error()))
 	}
 	if !ok {
 		if !cfg.CreateBucket {
@@ -118,7 +119,7 @@ func NewS3(ctx context.Context, cfg S3Config) (*S3, error) {
 		if err != nil {
 			// Another process may have made it in between.
 			if c := minio.ToErrorResponse(err).Code; c != "BucketAlreadyOwnedByYou" && c != "BucketAlreadyExists" {
-				return nil, fmt.Errorf("store: make s3 bucket %s at %s: %v", cfg.Bucket, cfg.Endpoint, err)
+				return nil, fmt.Errorf("store: make s3 bucket %s at %s: %s", cfg.Bucket, cfg.Endpoint, creds.scrub(err.Error()))
 			}
 		}
 	}
@@ -143,7 +144,7 @@ func (s *S3) err(op, key string, err error) error {
 	if isMissing(err) {
 		return notFound(op, s.where, key)
 	}
-	return fmt.Errorf("store: %s %s%s: %v", op, s.where, key, err)
+	return fmt.Errorf("store: %s %s%s: %s", op, s.where, key, s.creds.scrub(err.Error()))
 }
 
 // Get downloads the object of key.
@@ -211,7 +212,7 @@ func (s *S3) List(ctx context.Context, prefix string) ([]string, error) {
 	var keys []string
 	for oi := range s.client.ListObjects(ctx, s.bucket, minio.ListObjectsOptions{Prefix: s.prefix + prefix, Recursive: true}) {
 		if oi.Err != nil {
-			return nil, fmt.Errorf("store: list %s%s: %v", s.where, prefix, oi.Err)
+			return nil, fmt.Errorf("store: list %s%s: %s", s.where, prefix, s.creds.scrub(oi.Err.Error()))
 		}
 		if k, ok := strings.CutPrefix(oi.Key, s.prefix); ok && !strings.HasSuffix(k, "/") {
 			keys = append(keys, k)

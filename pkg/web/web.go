@@ -3,6 +3,12 @@
 // server-sent-event stream that announces completed steps and experiment
 // events, and a page (embedded in the binary, no separate front end) that
 // plots the series as they grow.
+//
+// Every campaign and step name taken from a URL is checked with
+// layout.CheckName ([a-z0-9][a-z0-9._-]{0,63}) before the Source sees it,
+// so no request can name a store key outside its campaign; a bad name is
+// answered 400. Access control, limits and timeouts are in guard.go (Serve,
+// Guard).
 package web
 
 import (
@@ -18,6 +24,8 @@ import (
 	"strings"
 	"sync"
 	"time"
+
+	"sluice/pkg/layout"
 )
 
 //go:embed static
@@ -126,30 +134,30 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 		v, err := src.Campaigns(r.Context())
 		writeJSON(w, v, err)
 	})
-	mux.HandleFunc("GET /api/campaigns/{c}/steps", func(w http.ResponseWriter, r *http.Request) {
+	mux.HandleFunc("GET /api/campaigns/{c}/steps", checked(func(w http.ResponseWriter, r *http.Request) {
 		v, err := src.Steps(r.Context(), r.PathValue("c"))
 		writeJSON(w, v, err)
-	})
-	mux.HandleFunc("GET /api/campaigns/{c}/series.json", func(w http.ResponseWriter, r *http.Request) {
+	}))
+	mux.HandleFunc("GET /api/campaigns/{c}/series.json", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.SeriesJSON(r.Context(), r.PathValue("c"))
 		writeBytes(w, "application/json", b, err)
-	})
-	mux.HandleFunc("GET /api/campaigns/{c}/series.csv", func(w http.ResponseWriter, r *http.Request) {
+	}))
+	mux.HandleFunc("GET /api/campaigns/{c}/series.csv", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.SeriesCSV(r.Context(), r.PathValue("c"))
 		if err == nil {
 			w.Header().Set("Content-Disposition", fmt.Sprintf("attachment; filename=%q", r.PathValue("c")+"-series.csv"))
 		}
 		writeBytes(w, "text/csv; charset=utf-8", b, err)
-	})
-	mux.HandleFunc("GET /api/campaigns/{c}/events", func(w http.ResponseWriter, r *http.Request) {
+	}))
+	mux.HandleFunc("GET /api/campaigns/{c}/events", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.Events(r.Context(), r.PathValue("c"))
 		writeBytes(w, "application/json", b, err)
-	})
-	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/result", func(w http.ResponseWriter, r *http.Request) {
+	}))
+	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/result", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.Result(r.Context(), r.PathValue("c"), r.PathValue("s"))
 		writeBytes(w, "application/json", b, err)
-	})
-	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/preview.png", func(w http.ResponseWriter, r *http.Request) {
+	}))
+	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/preview.png", checked(func(w http.ResponseWriter, r *http.Request) {
 		p := [3]int{-1, -1, -1}
 		for i, k := range []string{"z", "y", "x"} {
 			if s := r.URL.Query().Get(k); s != "" {
@@ -166,7 +174,7 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 			w.Header().Set("Cache-Control", "max-age=60")
 		}
 		writeBytes(w, "image/png", b, err)
-	})
+	}))
 	mux.HandleFunc("GET /api/health", func(w http.ResponseWriter, r *http.Request) {
 		writeJSON(w, src.Health(r.Context()), nil)
 	})
@@ -176,6 +184,8 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 			http.Error(w, "streaming unsupported", http.StatusInternalServerError)
 			return
 		}
+		// The stream outlives the server's WriteTimeout on purpose.
+		http.NewResponseController(w).SetWriteDeadline(time.Time{})
 		w.Header().Set("Content-Type", "text/event-stream")
 		w.Header().Set("Cache-Control", "no-cache")
 		c := hub.subscribe()
@@ -198,6 +208,25 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 		}
 	})
 	return mux
+}
+
+// checked answers 400 unless the path values {c} (campaign) and {s} (step),
+// where the route has them, are valid names; the wrapped handler runs only
+// with valid ones.
+func checked(h http.HandlerFunc) http.HandlerFunc {
+	return func(w http.ResponseWriter, r *http.Request) {
+		for _, p := range [...]struct{ key, what string }{{"c", "campaign"}, {"s", "step"}} {
+			v := r.PathValue(p.key)
+			if v == "" && !strings.Contains(r.Pattern, "{"+p.key+"}") {
+				continue
+			}
+			if err := layout.CheckName(p.what, v); err != nil {
+				http.Error(w, oneLine(err), http.StatusBadRequest)
+				return
+			}
+		}
+		h(w, r)
+	}
 }
 
 func status(err error) int {

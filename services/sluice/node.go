@@ -6,10 +6,10 @@ import (
 	"flag"
 	"fmt"
 	"log/slog"
-	"net"
 	"net/http"
 	"os"
 	"path/filepath"
+	"strings"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
@@ -25,30 +25,73 @@ import (
 	"sluice/services/worker"
 )
 
-// nodeFlags say where the store and NATS are and where to serve HTTP.
+// nodeFlags say where the store and NATS are, how to authenticate to
+// them and where to serve HTTP. Secrets never come from a flag value: they
+// are read from files named by flags or from environment variables.
 type nodeFlags struct {
-	data, store, nats, natsCreds, natsToken  string
-	tlsCA, tlsCert, tlsKey, http, exposeNATS string
-	s3Access, s3Secret                       string
-	ackWait                                  time.Duration
-	maxDeliver                               int
+	data, store, nats, natsCreds              string
+	natsUser, natsPasswordFile, natsTokenFile string
+	tlsCA, tlsCert, tlsKey, http, exposeNATS  string
+	natsUsersFile                             string
+	exposeTLSCert, exposeTLSKey, exposeTLSCA  string
+	httpTokenFile, s3CredsFile                string
+	ackWait                                   time.Duration
+	maxDeliver                                int
 }
+
+// Environment variables holding secrets (files named by flags win).
+const (
+	envNATSUser     = "SLUICE_NATS_USER"
+	envNATSPassword = "SLUICE_NATS_PASSWORD"
+	envNATSToken    = "SLUICE_NATS_TOKEN"
+	envHTTPToken    = "SLUICE_HTTP_TOKEN"
+)
 
 func (f *nodeFlags) register(fs *flag.FlagSet, httpDefault string, embedded bool) {
 	if embedded {
 		fs.StringVar(&f.data, "data", "sluice-data", "data directory: local store in DATA/store, embedded NATS in DATA/nats")
-		fs.StringVar(&f.exposeNATS, "expose-nats", "", "also listen for NATS clients on `host:port`, so workers on other machines can join")
+		fs.StringVar(&f.exposeNATS, "expose-nats", "", "also listen for NATS clients on `host:port`, so workers on other machines can join (beyond loopback only with --nats-users-file, --nats-user or a NATS token)")
+		fs.StringVar(&f.natsUsersFile, "nats-users-file", "", "users of the exposed NATS server: `FILE` with lines \"NAME PASSWORD\" (password may be a bcrypt hash) or a public user nkey")
+		fs.StringVar(&f.exposeTLSCert, "expose-nats-tls-cert", "", "certificate `FILE` (PEM): the exposed NATS listener requires TLS")
+		fs.StringVar(&f.exposeTLSKey, "expose-nats-tls-key", "", "key `FILE` (PEM) of --expose-nats-tls-cert")
+		fs.StringVar(&f.exposeTLSCA, "expose-nats-tls-client-ca", "", "CA `FILE`: exposed NATS clients must show a certificate it signed (mutual TLS)")
 	}
 	fs.StringVar(&f.store, "store", "", "object store: a directory, file:///dir or s3://bucket/prefix?endpoint=host:port&tls=false")
+	fs.StringVar(&f.s3CredsFile, "s3-credentials-file", "", "S3 credentials `FILE` (lines access_key=…, secret_key=…; default: $SLUICE_S3_ACCESS_KEY/$SLUICE_S3_SECRET_KEY, then $AWS_ACCESS_KEY_ID/$AWS_SECRET_ACCESS_KEY)")
 	fs.StringVar(&f.nats, "nats", "", "NATS server URL(s), e.g. nats://nats-1:4222"+map[bool]string{true: " (default: embedded server)", false: ""}[embedded])
-	fs.StringVar(&f.natsCreds, "nats-creds", "", "NATS credentials file")
-	fs.StringVar(&f.natsToken, "nats-token", os.Getenv("SLUICE_NATS_TOKEN"), "NATS token (or SLUICE_NATS_TOKEN)")
+	fs.StringVar(&f.natsCreds, "nats-creds", "", "NATS credentials `FILE`: a .creds file (user JWT + seed) or a user nkey seed")
+	fs.StringVar(&f.natsUser, "nats-user", os.Getenv(envNATSUser), "NATS user `NAME` (or $"+envNATSUser+"); password from --nats-password-file or $"+envNATSPassword)
+	fs.StringVar(&f.natsPasswordFile, "nats-password-file", "", "`FILE` holding the NATS password (default: $"+envNATSPassword+")")
+	fs.StringVar(&f.natsTokenFile, "nats-token-file", "", "`FILE` holding the NATS token (default: $"+envNATSToken+")")
 	fs.StringVar(&f.tlsCA, "nats-tls-ca", "", "CA bundle to verify the NATS server")
 	fs.StringVar(&f.tlsCert, "nats-tls-cert", "", "client certificate for NATS mutual TLS")
 	fs.StringVar(&f.tlsKey, "nats-tls-key", "", "client key for NATS mutual TLS")
-	fs.StringVar(&f.http, "http", httpDefault, "serve /metrics, /healthz, /readyz (and the live page on run/aggregate) on `addr`")
+	fs.StringVar(&f.http, "http", httpDefault, "serve /metrics, /healthz, /readyz (and the live page on run/aggregate) on `addr`; beyond loopback a token is required")
+	fs.StringVar(&f.httpTokenFile, "http-token-file", "", "`FILE` holding the bearer token HTTP clients must send (default: $"+envHTTPToken+")")
 	fs.DurationVar(&f.ackWait, "ack-wait", 30*time.Second, "redeliver a tile whose worker sent no heartbeat for this long")
 	fs.IntVar(&f.maxDeliver, "max-deliver", 5, "give a tile up (dead letter) after this many deliveries")
+}
+
+// secret reads a secret from file when one is named, else from the
+// environment variable env. Trailing line breaks and spaces are dropped; an
+// empty file is an error.
+func secret(flagName, file, env string) (string, error) {
+	if file == "" {
+		return os.Getenv(env), nil
+	}
+	b, err := os.ReadFile(file)
+	if err != nil {
+		var pe *os.PathError
+		if errors.As(err, &pe) {
+			err = pe.Err
+		}
+		return "", fmt.Errorf("--%s %s: %v", flagName, file, err)
+	}
+	v := strings.TrimRight(string(b), "\r\n\t ")
+	if v == "" {
+		return "", fmt.Errorf("--%s %s: file is empty", flagName, file)
+	}
+	return v, nil
 }
 
 func (f *nodeFlags) openStore(ctx context.Context) (store.Store, error) {
@@ -59,25 +102,86 @@ func (f *nodeFlags) openStore(ctx context.Context) (store.Store, error) {
 		}
 		loc = filepath.Join(f.data, "store")
 	}
-	return store.Open(ctx, loc, store.Credentials{AccessKey: store.Secret(f.s3Access), SecretKey: store.Secret(f.s3Secret)})
+	var creds store.Credentials
+	if f.s3CredsFile != "" {
+		var err error
+		if creds, err = store.LoadCredentials(f.s3CredsFile); err != nil {
+			return nil, err
+		}
+	}
+	return store.Open(ctx, loc, creds)
+}
+
+// natsAuth returns the client credentials: user + password, or token.
+func (f *nodeFlags) natsAuth() (user, password, token string, err error) {
+	if token, err = secret("nats-token-file", f.natsTokenFile, envNATSToken); err != nil {
+		return
+	}
+	if f.natsUser != "" {
+		if password, err = secret("nats-password-file", f.natsPasswordFile, envNATSPassword); err != nil {
+			return
+		}
+		if password == "" {
+			err = fmt.Errorf("--nats-user %s: no password (--nats-password-file or $%s)", f.natsUser, envNATSPassword)
+			return
+		}
+		user = f.natsUser
+		if f.natsTokenFile == "" {
+			token = "" // an inherited $SLUICE_NATS_TOKEN does not compete with an explicit user
+		}
+	} else if f.natsPasswordFile != "" {
+		err = errors.New("--nats-password-file needs --nats-user")
+	}
+	return
+}
+
+// serverConfig is the embedded server's configuration: the store under
+// --data, and for --expose-nats the listener, its TLS and who may connect
+// (--nats-users-file, --nats-user + password, or the NATS token).
+func (f *nodeFlags) serverConfig() (queue.ServerConfig, error) {
+	cfg := queue.ServerConfig{StoreDir: filepath.Join(f.data, "nats"), Listen: f.exposeNATS,
+		TLSCert: f.exposeTLSCert, TLSKey: f.exposeTLSKey, TLSClientCA: f.exposeTLSCA}
+	user, password, token, err := f.natsAuth()
+	if err != nil {
+		return cfg, err
+	}
+	cfg.Token = token
+	if user != "" {
+		cfg.Users = append(cfg.Users, queue.User{Name: user, Password: password})
+	}
+	if f.natsUsersFile != "" {
+		us, ks, err := queue.LoadUsers(f.natsUsersFile)
+		if err != nil {
+			return cfg, err
+		}
+		cfg.Users, cfg.NKeys = append(cfg.Users, us...), ks
+	}
+	return cfg, nil
 }
 
 // openQueue connects to --nats, or starts the embedded server when allowed
 // and no URL is given.
 func (f *nodeFlags) openQueue(ctx context.Context, embedded bool, log *slog.Logger) (*queue.Queue, *queue.Server, error) {
-	cfg := queue.Config{URL: f.nats, CredsFile: f.natsCreds, Token: f.natsToken, TLSCA: f.tlsCA, TLSCert: f.tlsCert, TLSKey: f.tlsKey,
+	cfg := queue.Config{URL: f.nats, CredsFile: f.natsCreds, TLSCA: f.tlsCA, TLSCert: f.tlsCert, TLSKey: f.tlsKey,
 		Logger: log, Policy: queue.Policy{AckWait: f.ackWait, MaxDeliver: f.maxDeliver}}
 	var srv *queue.Server
 	if f.nats == "" {
 		if !embedded {
 			return nil, nil, errors.New("--nats is required")
 		}
-		var err error
-		srv, err = queue.StartServer(queue.ServerConfig{StoreDir: filepath.Join(f.data, "nats"), Listen: f.exposeNATS, Token: f.natsToken})
+		scfg, err := f.serverConfig()
 		if err != nil {
 			return nil, nil, err
 		}
-		cfg.Server = srv
+		if srv, err = queue.StartServer(scfg); err != nil {
+			return nil, nil, err
+		}
+		cfg.Server = srv // in-process clients use the server's own credentials
+	} else {
+		var err error
+		if cfg.User, cfg.Password, cfg.Token, err = f.natsAuth(); err != nil {
+			return nil, nil, err
+		}
 	}
 	q, err := queue.Open(ctx, cfg)
 	if err != nil {
@@ -89,6 +193,26 @@ func (f *nodeFlags) openQueue(ctx context.Context, embedded bool, log *slog.Logg
 	return q, srv, nil
 }
 
+// checkHTTP refuses, before anything starts, an HTTP address beyond
+// loopback without a token, and an unreadable token file.
+func (f *nodeFlags) checkHTTP() error {
+	if f.http == "" || f.http == "off" {
+		return nil
+	}
+	hc, err := f.httpServe()
+	if err != nil {
+		return fmt.Errorf("http: %v", err)
+	}
+	return web.CheckBind(hc.Addr, hc.Token)
+}
+
+// httpServe is where and how serveHTTP serves: --http, and the token from
+// --http-token-file or $SLUICE_HTTP_TOKEN.
+func (f *nodeFlags) httpServe() (web.ServeConfig, error) {
+	tok, err := secret("http-token-file", f.httpTokenFile, envHTTPToken)
+	return web.ServeConfig{Addr: f.http, Token: tok}, err
+}
+
 // registry returns a Prometheus registry with the process collectors.
 func registry() *prometheus.Registry {
 	reg := prometheus.NewRegistry()
@@ -96,11 +220,16 @@ func registry() *prometheus.Registry {
 	return reg
 }
 
-// serveHTTP serves mux plus /metrics, /healthz and /readyz on addr and
-// returns the address it listens on.
-func serveHTTP(ctx context.Context, addr string, mux *http.ServeMux, reg *prometheus.Registry, ready func() bool, log *slog.Logger) (string, error) {
-	if addr == "" || addr == "off" {
+// serveHTTP serves mux plus /metrics, /healthz and /readyz on nf.http
+// behind web.Guard (token, limits, timeouts) and returns the address it
+// listens on; an empty or "off" address serves nothing.
+func serveHTTP(ctx context.Context, nf nodeFlags, mux *http.ServeMux, reg *prometheus.Registry, ready func() bool, log *slog.Logger) (string, error) {
+	if nf.http == "" || nf.http == "off" {
 		return "", nil
+	}
+	hc, err := nf.httpServe()
+	if err != nil {
+		return "", fmt.Errorf("http: %v", err)
 	}
 	if mux == nil {
 		mux = http.NewServeMux()
@@ -114,22 +243,12 @@ func serveHTTP(ctx context.Context, addr string, mux *http.ServeMux, reg *promet
 		}
 		fmt.Fprintln(w, "ready")
 	})
-	ln, err := net.Listen("tcp", addr)
+	hc.Log = log
+	addr, err := web.Serve(ctx, hc, mux)
 	if err != nil {
 		return "", fmt.Errorf("http: %v", err)
 	}
-	srv := &http.Server{Handler: mux, ReadHeaderTimeout: 10 * time.Second}
-	go func() {
-		if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
-			log.Error("http server", "err", err)
-		}
-	}()
-	context.AfterFunc(ctx, func() {
-		sctx, cancel := context.WithTimeout(context.Background(), 3*time.Second)
-		defer cancel()
-		srv.Shutdown(sctx)
-	})
-	return ln.Addr().String(), nil
+	return addr, nil
 }
 
 // taskPublisher adapts the queue to ingest.Publisher.

@@ -565,7 +565,7 @@ func startReprocessNode(ctx context.Context, nf nodeFlags, st store.Store, worke
 		}
 		return nil, err
 	}
-	if _, err := serveHTTP(ctx, nf.http, nil, reg, nil, log); err != nil {
+	if _, err := serveHTTP(ctx, nf, nil, reg, nil, log); err != nil {
 		return nil, err
 	}
 	n := &reprocessNode{q: q, agg: agg}

@@ -67,6 +67,9 @@ type conn struct {
 // the command what; on failure it prints the error and returns the exit
 // status.
 func (nf nodeFlags) connect(what string) (*conn, int) {
+	if err := nf.checkHTTP(); err != nil {
+		return nil, fail(exitBadInput, "%s: %v", what, err)
+	}
 	ctx, stop := signalContext()
 	log := logger()
 	st, err := nf.openStore(ctx)
@@ -110,7 +113,7 @@ func runWorker(args []string) int {
 	defer c.close()
 	ctx, st, q, reg, log := c.ctx, c.st, c.q, c.reg, c.log
 	m := telemetry.NewWorker(reg)
-	addr, err := serveHTTP(ctx, nf.http, nil, reg, nil, log)
+	addr, err := serveHTTP(ctx, nf, nil, reg, nil, log)
 	if err != nil {
 		return fail(exitFailure, "worker: %v", err)
 	}
@@ -145,7 +148,7 @@ func runAggregate(args []string) int {
 	if err != nil {
 		return fail(exitFailure, "aggregate: %v", err)
 	}
-	addr, err := serveHTTP(ctx, nf.http, web.Handler(a, hub, log), reg, nil, log)
+	addr, err := serveHTTP(ctx, nf, web.Handler(a, hub, log), reg, nil, log)
 	if err != nil {
 		return fail(exitFailure, "aggregate: %v", err)
 	}
@@ -250,7 +253,7 @@ func runIngest(args []string) int {
 		return fail(exitBadInput, "ingest: %v", err)
 	}
 	if f.watch != "" {
-		serveHTTP(ctx, nf.http, nil, reg, nil, log)
+		serveHTTP(ctx, nf, nil, reg, nil, log)
 		if err := watchAndIngest(ctx, ing, f, log); err != nil {
 			return fail(exitFailure, "ingest: %v", err)
 		}
@@ -331,6 +334,9 @@ func runAll(args []string) int {
 // startAll starts the all-in-one node; it stops when ctx ends (wait on
 // node.wg).
 func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, workers int, log *slog.Logger) (*allInOne, error) {
+	if err := nf.checkHTTP(); err != nil {
+		return nil, err
+	}
 	if err := os.MkdirAll(nf.data, 0o755); err != nil {
 		return nil, err
 	}
@@ -350,7 +356,7 @@ func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, w
 	if err != nil {
 		return nil, err
 	}
-	addr, err := serveHTTP(ctx, nf.http, web.Handler(agg, hub, log), reg, nil, log)
+	addr, err := serveHTTP(ctx, nf, web.Handler(agg, hub, log), reg, nil, log)
 	if err != nil {
 		return nil, err
 	}
