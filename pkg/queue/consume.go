@@ -29,6 +29,7 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 	if err != nil {
 		return fmt.Errorf("queue: consumer %s: %v", durable, err)
 	}
+	pause := pullBackoff{first: time.Second}
 	for ctx.Err() == nil {
 		// One message per pull: a slow handler (a step completing) must not
 		// hold other messages past their ack wait.
@@ -37,12 +38,15 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 			if q.nc.IsClosed() {
 				return fmt.Errorf("queue: consumer %s: connection closed", durable)
 			}
+			d := pause.next()
+			q.log.Warn("queue: pull failed; retrying", "consumer", durable, "err", err, "in", d)
 			select {
 			case <-ctx.Done():
-			case <-time.After(time.Second):
+			case <-time.After(d):
 			}
 			continue
 		}
+		pause.reset()
 		for m := range b.Messages() {
 			meta, _ := m.Metadata()
 			var seq, n uint64

@@ -126,19 +126,22 @@ func (q *Queue) Work(ctx context.Context, handler Handler, opts WorkOptions) err
 }
 
 func (q *Queue) workLoop(ctx, hctx context.Context, handler Handler, opts WorkOptions) error {
+	pause := pullBackoff{first: opts.IdleWait}
 	for ctx.Err() == nil {
 		m, err := q.next(opts.IdleWait)
 		if err != nil {
 			if q.nc.IsClosed() {
 				return fmt.Errorf("queue: connection closed: %v", err)
 			}
-			q.log.Warn("queue: pull failed", "err", err)
+			d := pause.next()
+			q.log.Warn("queue: pull failed; retrying", "err", err, "in", d, "connected", q.nc.IsConnected())
 			select {
 			case <-ctx.Done():
-			case <-time.After(opts.IdleWait):
+			case <-time.After(d):
 			}
 			continue
 		}
+		pause.reset()
 		if m != nil {
 			q.handle(hctx, m, handler, opts)
 		}
@@ -330,3 +333,26 @@ func (q *Queue) onMaxDeliveries(data []byte, worker string) {
 		}
 	}
 }
+
+// pullBackoff spaces pulls that keep failing (NATS restarting, JetStream
+// not ready): first, then doubling up to maxPullPause, reset by a pull that
+// works. The client reconnects on its own; this only stops a worker from
+// hammering a server that is coming up.
+type pullBackoff struct {
+	first, cur time.Duration
+}
+
+// maxPullPause bounds the pause, and so how long a worker may stay idle
+// after the server is back.
+const maxPullPause = 5 * time.Second
+
+func (b *pullBackoff) next() time.Duration {
+	if b.cur == 0 {
+		b.cur = max(b.first, 100*time.Millisecond)
+	} else {
+		b.cur = min(2*b.cur, maxPullPause)
+	}
+	return b.cur
+}
+
+func (b *pullBackoff) reset() { b.cur = 0 }
