@@ -49,3 +49,15 @@ type Record struct {
 	Scenario  string   `json:"scenario,omitempty"`
 	CreatedAt string   `json:"created_at"`
 }
+
+// ShapeKey returns the key of the campaign's reference shape
+// ({"shape_zyx": [nz, ny, nx]}): written once, by the first step stored, and
+// compared with every later step (see ReferenceShape).
+func ShapeKey(c layout.Campaign) string { return c.Dir() + "reference-shape.json" }
+
+// ReferenceShape is the content of ShapeKey.
+type ReferenceShape struct {
+	Shape [3]int `json:"shape_zyx"`
+	// From names the scan that fixed it.
+	From string `json:"from"`
+}

@@ -117,7 +117,7 @@ func (in *Ingester) Ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepReady, error) {
 	step, err := layout.NewStep(req.Campaign, req.Step)
 	if err != nil {
-		return nil, err
+		return nil, fmt.Errorf("ingest: %s: %w", req.Path, err)
 	}
 	rec, err := campaign.LoadRecord(ctx, in.Store, step.Campaign())
 	if err != nil {
@@ -222,6 +222,10 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 	}
 	defer st.Close()
 	h := st.Header()
+	if err := in.checkShape(ctx, step, req.Path, h); err != nil {
+		return campaign.Manifest{}, err
+	}
+	st = finiteSlabs{Stream: st, path: req.Path}
 	vs := h.VoxelSize
 	if v := cfg.VoxelSizeM(); v > 0 {
 		vs = v

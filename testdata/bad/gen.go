@@ -141,10 +141,10 @@ func main() {
 
 	// Task messages.
 	write("task-garbage.bin", []byte{0x0a, 0xff, 0xff, 0xff, 0xff, 0x0f, 0x12, 0x03, 'a', 'b'})
-	tk := &sluicepb.TileTask{Campaign: "bad", Step: "scan-0001", Tile: 0, TileCount: 1, ParamHash: "0123456789abcdef",
+	tk := &sluicepb.TileTask{Campaign: "bad", Step: "scan-0001", Tile: 7, TileCount: 8, ParamHash: "0123456789abcdef",
 		Core: &sluicepb.Box{MinZ: 1000, MinY: 0, MinX: 0, MaxZ: 1024, MaxY: 24, MaxX: 24}, Halo: 4,
 		ManifestKey: "campaigns/bad/steps/scan-0001/manifest.json", InputKey: "campaigns/bad/steps/scan-0001/volume.zarr/",
-		LabelKey: "campaigns/bad/steps/scan-0001/labels.zarr/", ResultKey: "campaigns/bad/steps/scan-0001/tiles/0123456789abcdef/0.json"}
+		LabelKey: "campaigns/bad/steps/scan-0001/labels.zarr/", ResultKey: "campaigns/bad/steps/scan-0001/tiles/0123456789abcdef/7.json"}
 	b, err := proto.Marshal(tk)
 	must(err)
 	write("task-box-out-of-range.bin", b)
