@@ -183,6 +183,10 @@ func (cs *campaignState) step(name string) *stepState {
 
 // StepReady records a newly ingested step.
 func (a *Aggregator) StepReady(ctx context.Context, r *sluicepb.StepReady) error {
+	if err := CheckStepReady(r); err != nil {
+		a.dropInvalid(err)
+		return nil
+	}
 	a.mu.Lock()
 	cs := a.campaign(ctx, r.Campaign)
 	if cs == nil {
@@ -204,6 +208,10 @@ func (a *Aggregator) StepReady(ctx context.Context, r *sluicepb.StepReady) error
 func (a *Aggregator) TileDone(ctx context.Context, d *sluicepb.TileDone) error {
 	if a.Metrics != nil {
 		a.Metrics.TilesReceived.Inc()
+	}
+	if err := CheckTileDone(d); err != nil {
+		a.dropInvalid(err)
+		return nil
 	}
 	step, err := layout.NewStep(d.Campaign, d.Step)
 	if err != nil {
