@@ -19,6 +19,8 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nkeys"
+
 	"sluice/pkg/campaign"
 	"sluice/pkg/queue"
 	"sluice/pkg/scenario"
@@ -445,5 +447,61 @@ scrape_configs:
 	}
 	if strings.Contains(logb.String(), tok) {
 		t.Error("Prometheus log shows the token")
+	}
+}
+
+// TestExposedNATSUsersFile: `--expose-nats` with `--nats-users-file`: the
+// node's own clients connect in-process, remote `sluice status` processes
+// get in with a listed user's password or nkey seed (`--nats-creds`) and
+// not without.
+func TestExposedNATSUsersFile(t *testing.T) {
+	dir := t.TempDir()
+	t.Setenv(envNATSToken, "")
+	t.Setenv(envNATSPassword, "")
+	t.Setenv(envNATSUser, "")
+	kp, err := nkeys.CreateUser()
+	if err != nil {
+		t.Fatal(err)
+	}
+	pub, _ := kp.PublicKey()
+	seed, _ := kp.Seed()
+	write := func(name, v string) string {
+		p := filepath.Join(dir, name)
+		os.WriteFile(p, []byte(v), 0o600)
+		return p
+	}
+	users := write("users", "# remote workers\nalice pw-alice-77\n"+pub+"\n")
+	nf := nodeFlags{data: filepath.Join(dir, "node"), exposeNATS: "127.0.0.1:-1", natsUsersFile: users, ackWait: 30 * time.Second, maxDeliver: 3}
+	ctx := context.Background()
+	st, err := nf.openStore(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := ingest.EnsureCampaign(ctx, st, "demo", campaign.Default(), Version, ""); err != nil {
+		t.Fatal(err)
+	}
+	q, srv, err := nf.openQueue(ctx, true, slog.New(slog.NewTextHandler(io.Discard, nil)))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer func() { q.Close(); srv.Shutdown() }()
+	if _, err := q.PutProgress(ctx, queue.ProgressKey("demo", "0001"), []byte("x")); err != nil {
+		t.Fatalf("in-process client of the exposed node: %v", err)
+	}
+	base := []string{"status", "demo", "--store", filepath.Join(nf.data, "store"), "--nats", srv.ClientURL()}
+	for _, tc := range []struct {
+		name string
+		args []string
+		code int
+	}{
+		{"listed user", []string{"--nats-user", "alice", "--nats-password-file", write("pw", "pw-alice-77\n")}, exitOK},
+		{"listed nkey", []string{"--nats-creds", write("seed.nk", string(seed))}, exitOK},
+		{"wrong password", []string{"--nats-user", "alice", "--nats-password-file", write("pw2", "pw-alice-78")}, exitFailure},
+		{"no credentials", nil, exitFailure},
+	} {
+		code, _, errs := runCLI(t, append(base, tc.args...)...)
+		if code != tc.code {
+			t.Errorf("%s: exit %d, want %d (%s)", tc.name, code, tc.code, strings.TrimSpace(errs))
+		}
 	}
 }
