@@ -233,9 +233,16 @@ func oneLine(err error) string {
 	if errors.As(err, &te) {
 		parts := make([]string, len(te.Errors))
 		for i, e := range te.Errors {
-			parts[i] = strings.TrimSpace(e)
+			parts[i] = flatLine(e)
 		}
 		return strings.Join(parts, "; ")
 	}
-	return strings.Join(strings.Fields(strings.ReplaceAll(err.Error(), "\n", "; ")), " ")
+	return flatLine(err.Error())
+}
+
+// flatLine writes line breaks inside s (from a quoted value, say) as "; "
+// and collapses runs of white space.
+func flatLine(s string) string {
+	s = strings.NewReplacer("\r\n", "; ", "\n", "; ", "\r", "; ").Replace(s)
+	return strings.Join(strings.Fields(s), " ")
 }
