@@ -78,6 +78,19 @@ func voxelBytes[T volume.Voxel](s []T) []byte {
 	return unsafe.Slice((*byte)(unsafe.Pointer(unsafe.SliceData(s))), len(s)*int(unsafe.Sizeof(s[0])))
 }
 
+// volumeBytes views v.Pix as bytes in machine order (no copy).
+func volumeBytes(v volume.Any) []byte {
+	switch t := v.(type) {
+	case *volume.Volume[uint8]:
+		return t.Pix
+	case *volume.Volume[uint16]:
+		return voxelBytes(t.Pix)
+	case *volume.Volume[float32]:
+		return voxelBytes(t.Pix)
+	}
+	return nil
+}
+
 // decodeVoxels fills dst from src (len(src) == len(dst)*size) in byte order
 // o: a memory copy when o is the machine's order, else a loop on the
 // concrete order (no interface call per voxel).

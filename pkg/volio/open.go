@@ -67,6 +67,14 @@ type Stream interface {
 	Close() error
 }
 
+// BandReader is a Stream that also reads bands narrower than a slab:
+// slices z0 <= z < z1 and rows y0 <= y < y1 with every x, as a volume whose
+// Box is [z0:z1, y0:y1, 0:nx]. Ingest stores one row of chunks at a time
+// through it, so its memory follows the chunk edge, not the cross-section.
+type BandReader interface {
+	ReadBand(z0, z1, y0, y1 int) (volume.Any, error)
+}
+
 // Open reads a whole volume from path, detecting the format:
 //   - a directory containing .zarray: a Zarr v2 array;
 //   - any other directory: a stack of 2-D TIFF slices;
@@ -147,6 +155,19 @@ func (s *zarrStream) ReadSlab(z0, z1 int) (volume.Any, error) {
 		return nil, fileErr(string(s.z.bucketName()), ErrFormat, "slab %d:%d outside 0:%d", z0, z1, s.h.Shape[0])
 	}
 	v, err := s.z.ReadBox(context.Background(), volume.Box{Min: [3]int{z0, 0, 0}, Max: [3]int{z1, s.h.Shape[1], s.h.Shape[2]}})
+	if err != nil {
+		return nil, err
+	}
+	setVoxelSize(v, s.h.VoxelSize)
+	return v, nil
+}
+
+// ReadBand reads the chunks of a band of rows (see BandReader).
+func (s *zarrStream) ReadBand(z0, z1, y0, y1 int) (volume.Any, error) {
+	if z0 < 0 || z1 > s.h.Shape[0] || z0 >= z1 || y0 < 0 || y1 > s.h.Shape[1] || y0 >= y1 {
+		return nil, fileErr(string(s.z.bucketName()), ErrFormat, "band %d:%d × %d:%d outside 0:%d × 0:%d", z0, z1, y0, y1, s.h.Shape[0], s.h.Shape[1])
+	}
+	v, err := s.z.ReadBox(context.Background(), volume.Box{Min: [3]int{z0, y0, 0}, Max: [3]int{z1, y1, s.h.Shape[2]}})
 	if err != nil {
 		return nil, err
 	}

@@ -207,27 +207,52 @@ func (s *rawStream) ReadSlab(z0, z1 int) (volume.Any, error) {
 	if z0 < 0 || z1 > sh[0] || z0 >= z1 {
 		return nil, fileErr(s.name, ErrFormat, "slab %d:%d outside 0:%d", z0, z1, sh[0])
 	}
-	if _, ok := mulLimit([3]int{z1 - z0, sh[1], sh[2]}, s.limit); !ok {
-		return nil, fileErr(s.name, ErrTooLarge, "slab %d:%d of %d×%d voxels per slice exceeds the limit of %d", z0, z1, sh[1], sh[2], s.limit)
+	return s.ReadBand(z0, z1, 0, sh[1])
+}
+
+// ReadBand returns slices z0 <= z < z1, rows y0 <= y < y1, every x: one
+// contiguous file read per slice. Voxels in the machine's byte order are
+// read straight into the volume; others pass through a 4 MiB buffer.
+func (s *rawStream) ReadBand(z0, z1, y0, y1 int) (volume.Any, error) {
+	sh := s.h.Shape
+	if z0 < 0 || z1 > sh[0] || z0 >= z1 || y0 < 0 || y1 > sh[1] || y0 >= y1 {
+		return nil, fileErr(s.name, ErrFormat, "band %d:%d × %d:%d outside 0:%d × 0:%d", z0, z1, y0, y1, sh[0], sh[1])
 	}
-	v := newVolume(s.h.DType, volume.Box{Min: [3]int{z0, 0, 0}, Max: [3]int{z1, sh[1], sh[2]}}, s.h.VoxelSize)
+	if _, ok := mulLimit([3]int{z1 - z0, y1 - y0, sh[2]}, s.limit); !ok {
+		return nil, fileErr(s.name, ErrTooLarge, "slab %d:%d of %d×%d voxels per slice exceeds the limit of %d", z0, z1, y1-y0, sh[2], s.limit)
+	}
+	v := newVolume(s.h.DType, volume.Box{Min: [3]int{z0, y0, 0}, Max: [3]int{z1, y1, sh[2]}}, s.h.VoxelSize)
 	size := s.h.DType.Size()
-	total := int64(v.Bounds().Voxels()) * int64(size)
-	start := s.l.offset + int64(z0)*int64(sh[1])*int64(sh[2])*int64(size)
-	// Read through a bounded buffer so a slab never costs twice its size.
-	const piece = 4 << 20
-	buf := make([]byte, min(total, piece))
-	for done := int64(0); done < total; {
-		n := min(total-done, int64(len(buf)))
-		got, err := s.f.ReadAt(buf[:n], start+done)
-		if int64(got) < n {
-			if err == nil || err == io.EOF {
-				return nil, fileErr(s.name, ErrTruncated, "truncated raw volume: got %d of %d bytes", start+done+int64(got)-s.l.offset, int64(sh[0])*int64(sh[1])*int64(sh[2])*int64(size))
+	plane := int64(y1-y0) * int64(sh[2]) * int64(size) // bytes of one slice of the band
+	whole := int64(sh[0]) * int64(sh[1]) * int64(sh[2]) * int64(size)
+	direct := native(s.l.order) || size == 1
+	var all, buf []byte
+	if direct {
+		all = volumeBytes(v)
+	} else {
+		buf = make([]byte, min(plane, 4<<20))
+	}
+	for z := z0; z < z1; z++ {
+		start := s.l.offset + (int64(z)*int64(sh[1])+int64(y0))*int64(sh[2])*int64(size)
+		out := int64(z-z0) * plane // byte offset of this slice in the band
+		for done := int64(0); done < plane; {
+			dst := buf
+			n := min(plane-done, int64(len(buf)))
+			if direct {
+				dst, n = all[out+done:out+plane], plane-done
 			}
-			return nil, osErr(s.name, err)
+			got, err := s.f.ReadAt(dst[:n], start+done)
+			if int64(got) < n {
+				if err == nil || err == io.EOF {
+					return nil, fileErr(s.name, ErrTruncated, "truncated raw volume: got %d of %d bytes", start+done+int64(got)-s.l.offset, whole)
+				}
+				return nil, osErr(s.name, err)
+			}
+			if !direct {
+				decodeAt(v, int(out+done)/size, dst[:n], s.l.order)
+			}
+			done += n
 		}
-		decodeAt(v, int(done)/size, buf[:n], s.l.order)
-		done += n
 	}
 	return v, nil
 }

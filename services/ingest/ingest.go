@@ -2,8 +2,10 @@
 // their tiles: it streams a volume slab by slab into a Zarr v2 array (chunk
 // = tile core, zstd) in the object store, writes the step manifest, runs
 // pass 1 (histogram → thresholds) from the stored chunks, writes the plan
-// and publishes one task per tile. Memory is bounded by one slab (tile
-// height × one cross-section) plus a few tiles, never the whole volume.
+// and publishes one task per tile. Memory is bounded by one band of chunks
+// (tile × tile × nx voxels; one slab, tile height × cross-section, for TIFF
+// stacks) plus a few tiles, never the whole volume; pass 1 is skipped when
+// the configuration fixes the thresholds (ThresholdsKnown).
 package ingest
 
 import (
@@ -221,6 +223,10 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 		return campaign.Manifest{}, err
 	}
 	defer st.Close()
+	// Raw files and Zarr arrays are read one row of chunks at a time, so
+	// memory follows tile² × nx, not the cross-section; other formats
+	// (TIFF slices decode whole) go slab by slab.
+	bands, _ := st.(volio.BandReader)
 	h := st.Header()
 	if err := in.checkShape(ctx, step, req.Path, h); err != nil {
 		return campaign.Manifest{}, err
@@ -248,23 +254,37 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 	var stored int64
 	var reading, writing time.Duration
 	total := int64(h.Shape[0])
+	rows := h.Shape[1]
+	if bands != nil {
+		rows = chunks[1]
+	}
 	for z0 := 0; z0 < h.Shape[0]; z0 += chunks[0] {
-		if err := ctx.Err(); err != nil {
-			return campaign.Manifest{}, err
-		}
 		z1 := min(z0+chunks[0], h.Shape[0])
-		t0 := time.Now()
-		slab, err := st.ReadSlab(z0, z1)
-		if err != nil {
-			return campaign.Manifest{}, err
+		for y0 := 0; y0 < h.Shape[1]; y0 += rows {
+			if err := ctx.Err(); err != nil {
+				return campaign.Manifest{}, err
+			}
+			y1 := min(y0+rows, h.Shape[1])
+			t0 := time.Now()
+			var part volume.Any
+			if bands != nil {
+				if part, err = bands.ReadBand(z0, z1, y0, y1); err == nil {
+					err = volio.CheckFinite(req.Path, part)
+				}
+			} else {
+				part, err = st.ReadSlab(z0, z1)
+			}
+			if err != nil {
+				return campaign.Manifest{}, err
+			}
+			t1 := time.Now()
+			if err := z.WriteBox(ctx, part); err != nil {
+				return campaign.Manifest{}, fmt.Errorf("ingest: %s: storing slices %d–%d, rows %d–%d: %w", req.Path, z0, z1, y0, y1, err)
+			}
+			reading += t1.Sub(t0)
+			writing += time.Since(t1)
+			stored += int64(part.Bounds().Voxels() * h.DType.Size())
 		}
-		t1 := time.Now()
-		if err := z.WriteBox(ctx, slab); err != nil {
-			return campaign.Manifest{}, fmt.Errorf("ingest: %s: storing slices %d–%d: %w", req.Path, z0, z1, err)
-		}
-		reading += t1.Sub(t0)
-		writing += time.Since(t1)
-		stored += int64(slab.Bounds().Voxels() * h.DType.Size())
 		if in.Progress != nil {
 			in.Progress(int64(z1), total)
 		}

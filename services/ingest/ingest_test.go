@@ -24,22 +24,25 @@ import (
 	"sluice/pkg/volume"
 )
 
-// memShape is the scan of the memory test: 128 MiB of uint16, 64 slabs of
-// 2 MiB at tile 32 (z × y × x = 2048 × 256 × 128).
-var memShape = [3]int{2048, 256, 128}
+// memShape is the scan of the memory test: 128 MiB of uint16 with a wide
+// cross-section (z × y × x = 256 × 1024 × 256): at tile 32 a slab (tile
+// height × cross-section) is 16 MiB, a band (one row of chunks) 512 KiB.
+var memShape = [3]int{256, 1024, 256}
 
 const memTile = 32
 
-// TestIngestMemoryBounded stores a scan 64 times larger than one slab in a
-// separate process and checks that the growth of its peak resident set
-// stays within a bound derived from the slab size, far below the scan size:
-// ingest streams slab by slab and never holds the volume.
+// TestIngestMemoryBounded stores a scan 256 times larger than one band of
+// chunks in a separate process and checks that the growth of its peak
+// resident set stays within a bound derived from the band size, below
+// twice one slab and far below the scan size: ingest streams band by band
+// and never holds the volume or a whole cross-section.
 //
-// Bound (derivation): a slab volume (S bytes) is live while the raw reader
-// fills it through a 4 MiB buffer and the Zarr writer encodes its chunks
-// one at a time (one chunk ≤ S); the garbage collector lets the heap reach
-// about twice the live set (GOGC=100), so ≤ 2·(S + 4 MiB + S) plus a fixed
-// part for the zstd encoder state and runtime (32 MiB allowed).
+// Bound (derivation): a band (B bytes: tile × tile × nx voxels) is live
+// while the raw reader fills it (machine byte order: straight into the
+// volume) and the Zarr writer encodes its chunks (raw chunk + compressed
+// copy, each ≤ B); the garbage collector lets the heap reach about twice
+// the live set (GOGC=100), so ≤ 2·(B + 2B) plus a fixed part for the zstd
+// encoders (one per chunk goroutine) and the runtime: 32 MiB allowed.
 func TestIngestMemoryBounded(t *testing.T) {
 	if path := os.Getenv("SLUICE_INGEST_MEMORY_CHILD"); path != "" {
 		ingestMemoryChild(t, path)
@@ -63,16 +66,17 @@ func TestIngestMemoryBounded(t *testing.T) {
 	if peak == 0 {
 		t.Fatalf("child reported no memory figures:\n%s", out)
 	}
+	band := int64(memTile * memTile * memShape[2] * 2)
 	slab := int64(memTile * memShape[1] * memShape[2] * 2)
 	scanBytes := int64(memShape[0]*memShape[1]*memShape[2]) * 2
-	bound := 2*(2*slab+4<<20) + 32<<20
+	bound := 2*(3*band) + 32<<20
 	grew := (peak - base) * 1024
-	t.Logf("scan %d MiB, slab %d MiB: peak RSS grew by %.1f MiB (bound %.1f MiB)", scanBytes>>20, slab>>20, float64(grew)/(1<<20), float64(bound)/(1<<20))
+	t.Logf("scan %d MiB, slab %d MiB, band %d KiB: peak RSS grew by %.1f MiB (bound %.1f MiB)", scanBytes>>20, slab>>20, band>>10, float64(grew)/(1<<20), float64(bound)/(1<<20))
 	if grew > bound {
-		t.Errorf("ingest of a %d MiB scan grew the peak RSS by %.1f MiB, more than the slab-derived bound %.1f MiB", scanBytes>>20, float64(grew)/(1<<20), float64(bound)/(1<<20))
+		t.Errorf("ingest of a %d MiB scan grew the peak RSS by %.1f MiB, more than the band-derived bound %.1f MiB", scanBytes>>20, float64(grew)/(1<<20), float64(bound)/(1<<20))
 	}
-	if bound >= scanBytes/2 {
-		t.Fatalf("test scan too small to tell streaming from whole-volume reads")
+	if bound >= 2*(2*slab) || bound >= scanBytes/2 {
+		t.Fatalf("test scan too small to tell band streaming from slab or whole-volume reads")
 	}
 }
 
