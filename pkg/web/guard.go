@@ -56,6 +56,16 @@ type ServeConfig struct {
 	Token string
 	// Log receives server errors (default slog.Default()).
 	Log *slog.Logger
+	// ReadTimeout, WriteTimeout and IdleTimeout override the defaults
+	// (the constants above) when positive.
+	ReadTimeout, WriteTimeout, IdleTimeout time.Duration
+}
+
+func orDefault(d, def time.Duration) time.Duration {
+	if d > 0 {
+		return d
+	}
+	return def
 }
 
 // isLoopback reports whether host only reaches this machine; the empty host
@@ -96,10 +106,10 @@ func Serve(ctx context.Context, cfg ServeConfig, h http.Handler) (string, error)
 	}
 	srv := &http.Server{
 		Handler:           Guard(h, cfg.Token),
-		ReadHeaderTimeout: ReadHeaderTimeout,
-		ReadTimeout:       ReadTimeout,
-		WriteTimeout:      WriteTimeout,
-		IdleTimeout:       IdleTimeout,
+		ReadHeaderTimeout: min(ReadHeaderTimeout, orDefault(cfg.ReadTimeout, ReadTimeout)),
+		ReadTimeout:       orDefault(cfg.ReadTimeout, ReadTimeout),
+		WriteTimeout:      orDefault(cfg.WriteTimeout, WriteTimeout),
+		IdleTimeout:       orDefault(cfg.IdleTimeout, IdleTimeout),
 		MaxHeaderBytes:    MaxHeaderBytes,
 		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
 	}

@@ -1,6 +1,7 @@
 package web
 
 import (
+	"bufio"
 	"context"
 	"io"
 	"net/http"
@@ -9,6 +10,7 @@ import (
 	"net/url"
 	"strings"
 	"testing"
+	"time"
 )
 
 // page is the wrapped handler: it names the path it served.
@@ -184,4 +186,62 @@ func mustURL(s string) *url.URL {
 		panic(err)
 	}
 	return u
+}
+
+// TestStreamOutlivesTimeouts: with read and write timeouts of 300 ms, an
+// ordinary handler that writes late loses its response, while the event
+// stream still delivers a message published 1.5 s after it opened.
+func TestStreamOutlivesTimeouts(t *testing.T) {
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	hub := NewHub()
+	mux := http.NewServeMux()
+	mux.HandleFunc("GET /api/stream", Handler(nil, hub, nil).ServeHTTP)
+	block := make(chan struct{})
+	mux.HandleFunc("GET /slow", func(w http.ResponseWriter, r *http.Request) {
+		<-block
+		io.WriteString(w, strings.Repeat("late ", 1<<16))
+	})
+	const d = 300 * time.Millisecond
+	addr, err := Serve(ctx, ServeConfig{Addr: "127.0.0.1:0", ReadTimeout: d, WriteTimeout: d}, mux)
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp, err := http.Get("http://" + addr + "/api/stream")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	r := bufio.NewReader(resp.Body)
+	if l, _ := r.ReadString('\n'); l != "event: hello\n" {
+		t.Fatalf("stream starts with %q", l)
+	}
+	r.ReadString('\n')
+	r.ReadString('\n')
+	time.Sleep(5 * d)
+	hub.Publish("step", map[string]string{"step": "0042"})
+	got := make(chan string, 1)
+	go func() {
+		l1, _ := r.ReadString('\n')
+		l2, _ := r.ReadString('\n')
+		got <- l1 + l2
+	}()
+	select {
+	case l := <-got:
+		if l != "event: step\ndata: {\"step\":\"0042\"}\n" {
+			t.Fatalf("stream after the timeouts: %q", l)
+		}
+	case <-time.After(10 * time.Second):
+		t.Fatal("no event on the stream after the server timeouts")
+	}
+	// The same timeouts do end an ordinary response written too late.
+	go func() { time.Sleep(3 * d); close(block) }()
+	sresp, err := http.Get("http://" + addr + "/slow")
+	if err == nil {
+		_, err = io.ReadAll(sresp.Body)
+		sresp.Body.Close()
+	}
+	if err == nil {
+		t.Error("a response written after WriteTimeout arrived whole")
+	}
 }

@@ -184,7 +184,9 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 			http.Error(w, "streaming unsupported", http.StatusInternalServerError)
 			return
 		}
-		// The stream outlives the server's WriteTimeout on purpose.
+		// The stream outlives the server's WriteTimeout on purpose (the
+		// read deadline is already cleared by net/http once the request
+		// is read).
 		http.NewResponseController(w).SetWriteDeadline(time.Time{})
 		w.Header().Set("Content-Type", "text/event-stream")
 		w.Header().Set("Cache-Control", "no-cache")
