@@ -6,7 +6,7 @@ PKGS      ?= ./...
 TESTFLAGS ?= -timeout 40m -count=1
 export PATH := $(GOBIN):$(PATH)
 
-.PHONY: help build demo test test-go setup bench fuzz lint proto proto-check clean
+.PHONY: help build demo test test-go setup bench fuzz fuzz-ci lint proto proto-check clean
 
 help: ## list the targets
 	@awk 'BEGIN {FS = ":.*## "} /^[a-zA-Z_-]+:.*## / {printf "  \033[1m%-12s\033[0m %s\n", $$1, $$2}' $(MAKEFILE_LIST)
@@ -20,9 +20,10 @@ demo: build ## run the demo campaign through the whole pipeline (embedded NATS, 
 setup: ## install what the tests need (Debian packages, MinIO, nats-server, playwright-core); idempotent
 	bash scripts/setup-test-env
 
-test: setup proto-check ## set up, then run every test (the command CI runs)
+test: setup proto-check ## set up, then run every test and a short fuzz of every parser (the command CI runs)
 	$(GO) vet $(PKGS)
 	$(GO) test $(TESTFLAGS) $(PKGS)
+	$(MAKE) fuzz-ci
 
 test-go: ## run the Go tests only, without set-up
 	$(GO) test $(TESTFLAGS) $(PKGS)
@@ -31,11 +32,25 @@ bench: build ## run the benchmarks (MVox/s and MB/s figures)
 	$(GO) test -run '^$$' -bench . -benchtime 3x $(PKGS)
 	$(BIN)/sluice bench
 
-fuzz: ## fuzz every parser for 20 s each
-	@for t in $$(grep -rhoE '^func Fuzz[A-Za-z0-9_]+' --include='*_test.go' pkg | sed 's/func //'); do \
-		pkg=$$(grep -rlE "^func $$t\(" --include='*_test.go' pkg | head -1 | xargs dirname); \
-		echo "== $$pkg $$t"; $(GO) test -run '^$$' -fuzz "^$$t$$" -fuzztime 20s ./$$pkg || exit 1; \
+# Every fuzz target of the repository, as "dir:FuzzName" pairs (seeds come
+# from each package's testdata/ and from testdata/bad; crashers found are
+# written to <dir>/testdata/fuzz/<FuzzName>/ and must be committed with a fix).
+FUZZ_TARGETS = $(shell for d in $$(grep -rlE '^func Fuzz[A-Za-z0-9_]+' --include='*_test.go' pkg services | xargs -n1 dirname | sort -u); do \
+	for t in $$(grep -hoE '^func Fuzz[A-Za-z0-9_]+' $$d/*_test.go | sed 's/func //'); do echo $$d:$$t; done; done)
+FUZZTIME    ?= 60s
+FUZZCI_TIME ?= 4s
+
+fuzz: ## fuzz every parser for FUZZTIME (60 s) each
+	@for x in $(FUZZ_TARGETS); do d=$${x%%:*}; t=$${x##*:}; \
+		echo "== $$d $$t"; $(GO) test -run '^$$' -fuzz "^$$t$$" -fuzztime $(FUZZTIME) ./$$d || exit 1; \
 	done
+
+fuzz-ci: ## fuzz every parser briefly (FUZZCI_TIME each; part of `make test`)
+	@n=0; for x in $(FUZZ_TARGETS); do d=$${x%%:*}; t=$${x##*:}; n=$$((n+1)); \
+		echo "== fuzz $$d $$t ($(FUZZCI_TIME))"; \
+		$(GO) test -run '^$$' -fuzz "^$$t$$" -fuzztime $(FUZZCI_TIME) -parallel 2 ./$$d > fuzz-ci.log 2>&1 || { cat fuzz-ci.log; rm -f fuzz-ci.log; exit 1; }; \
+		tail -1 fuzz-ci.log; \
+	done; rm -f fuzz-ci.log; echo "fuzz-ci: $$n targets, no failures"
 
 lint: ## gofmt and go vet
 	@test -z "$$(gofmt -l $$(git ls-files '*.go'))" || (gofmt -l $$(git ls-files '*.go'); echo "gofmt needed"; exit 1)
