@@ -178,6 +178,13 @@ func (f *nodeFlags) openQueue(ctx context.Context, embedded bool, log *slog.Logg
 		}
 		cfg.Server = srv // in-process clients use the server's own credentials
 	} else {
+		// Credentials in the URL would sit in shell history, process
+		// lists and logs.
+		for _, u := range strings.Split(f.nats, ",") {
+			if hasUserInfo(u) {
+				return nil, nil, errors.New("--nats URL holds credentials; use --nats-user with --nats-password-file, --nats-token-file or --nats-creds")
+			}
+		}
 		var err error
 		if cfg.User, cfg.Password, cfg.Token, err = f.natsAuth(); err != nil {
 			return nil, nil, err
@@ -204,6 +211,16 @@ func (f *nodeFlags) checkHTTP() error {
 		return fmt.Errorf("http: %v", err)
 	}
 	return web.CheckBind(hc.Addr, hc.Token)
+}
+
+// hasUserInfo reports whether a URL ([scheme://][user[:pass]@]host[:port]
+// [/…]) carries user information.
+func hasUserInfo(u string) bool {
+	if _, rest, ok := strings.Cut(u, "://"); ok {
+		u = rest
+	}
+	authority, _, _ := strings.Cut(u, "/")
+	return strings.Contains(authority, "@")
 }
 
 // httpServe is where and how serveHTTP serves: --http, and the token from
