@@ -41,9 +41,17 @@ if [ -n "${CPUS:-}" ]; then cpuflag=(-cpu "$CPUS"); fi
 	echo "# recorded $(date -u +%Y-%m-%dT%H:%M:%SZ) on $(nproc) CPUs, $(go env GOVERSION)"
 	echo "# load average at start $(cut -d' ' -f1-3 /proc/loadavg)"
 	echo "# go test -run '^\$' -bench '$bench' -benchtime $benchtime -count $count -benchmem ${cpuflag[*]} $pkgs"
+	# A package that fails to build or whose benchmark fails is reported
+	# (FAIL lines stay in the record) without losing the other packages.
+	status=0
 	(cd "$tmp" && go test -run '^$' -bench "$bench" -benchtime "$benchtime" -count "$count" \
-		-benchmem -timeout 90m "${cpuflag[@]}" $pkgs)
+		-benchmem -timeout 90m "${cpuflag[@]}" $pkgs) || status=$?
 	echo "# load average at end $(cut -d' ' -f1-3 /proc/loadavg)"
-} >"$out.tmp"
+	echo "# go test exit status $status"
+} >"$out.tmp" 2>&1
 mv "$out.tmp" "$out"
+if grep -q '^\(FAIL\|--- FAIL\)' "$out"; then
+	echo "wrote $out ($commit); some packages FAILED, see the FAIL lines" >&2
+	exit 1
+fi
 echo "wrote $out ($commit)" >&2

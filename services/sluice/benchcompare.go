@@ -11,6 +11,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"runtime"
+	"runtime/pprof"
 	"slices"
 	"strings"
 	"syscall"
@@ -163,6 +164,7 @@ func runBenchCompare(args []string) int {
 	python := fs.String("python", refInterpreter, "interpreter with SciPy 1.10 and scikit-image 0.19")
 	script := fs.String("script", "", "reference script (default: "+referenceScript+" found from the working directory or the executable)")
 	asJSON := fs.Bool("json", false, "print the report as JSON")
+	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the sluice chain to this file (go tool pprof)")
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
@@ -198,7 +200,23 @@ func runBenchCompare(args []string) int {
 	if !*asJSON {
 		fmt.Fprintf(stdout, "sluice chain, one goroutine, median of %d …\n", *repeat)
 	}
+	var prof *os.File
+	if *cpuProfile != "" {
+		if prof, err = os.Create(*cpuProfile); err != nil {
+			return fail(exitFailure, "bench compare: %v", err)
+		}
+		if err := pprof.StartCPUProfile(prof); err != nil {
+			prof.Close()
+			return fail(exitFailure, "bench compare: %s: %v", *cpuProfile, err)
+		}
+	}
 	own, ownRes, sm, err := sluiceChain(grey, *repeat)
+	if prof != nil {
+		pprof.StopCPUProfile()
+		if cerr := prof.Close(); cerr != nil && err == nil {
+			err = fmt.Errorf("%s: %v", *cpuProfile, cerr)
+		}
+	}
 	if err != nil {
 		return fail(exitFailure, "bench compare: %v", err)
 	}
