@@ -34,12 +34,16 @@
 // # TIFF stacks
 //
 // A directory of single-image TIFF files (.tif/.tiff), one per z slice,
-// sorted in natural order of the file names ("z2" before "z10"). Each slice
+// sorted in natural order of the file names ("z2" before "z10"). When the
+// names differ only in one run of digits, the numbers must be consecutive
+// (a gap is a missing slice); every slice's header is checked against the
+// first when the stack is opened, before any voxel is read. Each slice
 // is 8- or 16-bit unsigned grey or 32-bit IEEE float (SampleFormat 3), as in
 // the TIFF 6.0 specification (Adobe, 1992). Uncompressed and Deflate strips
 // (with or without horizontal-differencing predictor) are decoded by our own
 // baseline reader, which checks every offset against the file size; other
-// 8/16-bit encodings (LZW, PackBits, tiles) go through golang.org/x/image/tiff.
+// 8/16-bit encodings (LZW, PackBits, tiles) go through golang.org/x/image/tiff;
+// any other compression (JPEG, CCITT, …) is refused when the slice is opened.
 // Voxel size and time, which TIFF tags do not carry, come from an optional
 // stack.sluice.json inside the directory ({"shape", "dtype", "voxel_size",
 // "time_s"}, all optional; shape and dtype must agree with the slices) or
@@ -55,7 +59,10 @@
 // gzip are also read — fill_value, order "C", filters null,
 // dimension_separator "." or "/") and one key per chunk, "iz.iy.ix" or
 // "iz/iy/ix". Chunks are always stored at full chunk shape, edge chunks
-// padded with the fill value; missing chunks read as the fill value. We write
+// padded with the fill value; missing chunks read as the fill value, unless
+// Options.RequireChunks is set (a scan handed over for measurement is
+// complete: the CLI and ingest set it). Chunks longer than the array along
+// any axis are refused. We write
 // "/" separators, little-endian dtypes and .zattrs holding "voxel_size"
 // ("2.5um") and "time_s" besides any caller attributes. The zstd codec is
 // the Zstandard frame format of RFC 8878 (github.com/klauspost/compress/zstd).
@@ -63,6 +70,12 @@
 // Storage goes through Bucket, a two-method key-value interface; Dir is a
 // Bucket on a local directory with atomic writes. An object store adapter
 // only needs Get and Put.
+//
+// # Non-finite grey values
+//
+// The readers return float32 voxels as stored; CheckFinite reports NaN and
+// ±Inf with their count and first position, and sluice refuses such scans
+// before segmenting them.
 //
 // # Memory layout
 //
