@@ -128,3 +128,41 @@ func FuzzRawFile(f *testing.F) {
 		}
 	})
 }
+
+// FuzzStackDir runs OpenStream on a TIFF stack directory of two fuzzed
+// slices and a fuzzed stack.sluice.json: every error is a one-line
+// FileError naming a file in the directory, and an accepted stack reads
+// whole with the header's shape (two slices of equal size and type).
+func FuzzStackDir(f *testing.F) {
+	tifs, _ := filepath.Glob(filepath.Join("testdata", "*.tif"))
+	bad, _ := filepath.Glob(filepath.Join(badCorpus, "tiff-*", "*.tif"))
+	for i, n := range append(tifs, bad...) {
+		b := readSeed(f, n)
+		hdr := []byte(`{"voxel_size": "1.5um", "time_s": 12}`)
+		if i%2 == 1 {
+			hdr = []byte(`{"shape": [2, 12, 16], "dtype": "uint16"}`)
+		}
+		f.Add(hdr, b, b)
+	}
+	f.Fuzz(func(t *testing.T, header, s0, s1 []byte) {
+		dir := t.TempDir()
+		os.WriteFile(filepath.Join(dir, "z00000.tif"), s0, 0o644)
+		os.WriteFile(filepath.Join(dir, "z00001.tif"), s1, 0o644)
+		os.WriteFile(filepath.Join(dir, stackHeaderName), header, 0o644)
+		s, err := OpenStream(dir, Options{MaxVoxels: fuzzLimit})
+		if err != nil {
+			checkFileError(t, dir, err)
+			return
+		}
+		defer s.Close()
+		h := s.Header()
+		v, err := s.ReadSlab(0, h.Shape[0])
+		if err != nil {
+			checkFileError(t, dir, err)
+			return
+		}
+		if h.Shape[0] != 2 || v.Bounds().Size() != h.Shape || v.DType() != h.DType || v.Bounds().Voxels() > fuzzLimit {
+			t.Fatalf("read %v %v, header %v %v", v.Bounds(), v.DType(), h.Shape, h.DType)
+		}
+	})
+}
