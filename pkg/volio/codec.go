@@ -78,6 +78,25 @@ func voxelBytes[T volume.Voxel](s []T) []byte {
 	return unsafe.Slice((*byte)(unsafe.Pointer(unsafe.SliceData(s))), len(s)*int(unsafe.Sizeof(s[0])))
 }
 
+// reuseVolume returns v moved to box when it has dtype dt and box's size
+// (its voxels are kept, to be overwritten), else a new zeroed volume.
+func reuseVolume(v volume.Any, dt volume.DType, box volume.Box, voxelSize float64) volume.Any {
+	if v != nil && v.DType() == dt && v.Bounds().Size() == box.Size() {
+		switch t := v.(type) {
+		case *volume.Volume[uint8]:
+			t.Box, t.VoxelSize = box, voxelSize
+			return t
+		case *volume.Volume[uint16]:
+			t.Box, t.VoxelSize = box, voxelSize
+			return t
+		case *volume.Volume[float32]:
+			t.Box, t.VoxelSize = box, voxelSize
+			return t
+		}
+	}
+	return newVolume(dt, box, voxelSize)
+}
+
 // volumeBytes views v.Pix as bytes in machine order (no copy).
 func volumeBytes(v volume.Any) []byte {
 	switch t := v.(type) {

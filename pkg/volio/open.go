@@ -73,6 +73,9 @@ type Stream interface {
 // through it, so its memory follows the chunk edge, not the cross-section.
 type BandReader interface {
 	ReadBand(z0, z1, y0, y1 int) (volume.Any, error)
+	// ReadBandInto is ReadBand that may reuse dst's memory (dst may be
+	// nil); streaming callers pass the previous band back in.
+	ReadBandInto(dst volume.Any, z0, z1, y0, y1 int) (volume.Any, error)
 }
 
 // Open reads a whole volume from path, detecting the format:
@@ -173,6 +176,11 @@ func (s *zarrStream) ReadBand(z0, z1, y0, y1 int) (volume.Any, error) {
 	}
 	setVoxelSize(v, s.h.VoxelSize)
 	return v, nil
+}
+
+// ReadBandInto reads like ReadBand; Zarr chunks decode into a new volume.
+func (s *zarrStream) ReadBandInto(_ volume.Any, z0, z1, y0, y1 int) (volume.Any, error) {
+	return s.ReadBand(z0, z1, y0, y1)
 }
 
 func setVoxelSize(v volume.Any, vs float64) {

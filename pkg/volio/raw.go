@@ -214,6 +214,12 @@ func (s *rawStream) ReadSlab(z0, z1 int) (volume.Any, error) {
 // contiguous file read per slice. Voxels in the machine's byte order are
 // read straight into the volume; others pass through a 4 MiB buffer.
 func (s *rawStream) ReadBand(z0, z1, y0, y1 int) (volume.Any, error) {
+	return s.ReadBandInto(nil, z0, z1, y0, y1)
+}
+
+// ReadBandInto is ReadBand reusing dst's voxels when dst has the band's
+// dtype and size (every voxel is overwritten).
+func (s *rawStream) ReadBandInto(dst volume.Any, z0, z1, y0, y1 int) (volume.Any, error) {
 	sh := s.h.Shape
 	if z0 < 0 || z1 > sh[0] || z0 >= z1 || y0 < 0 || y1 > sh[1] || y0 >= y1 {
 		return nil, fileErr(s.name, ErrFormat, "band %d:%d × %d:%d outside 0:%d × 0:%d", z0, z1, y0, y1, sh[0], sh[1])
@@ -221,7 +227,7 @@ func (s *rawStream) ReadBand(z0, z1, y0, y1 int) (volume.Any, error) {
 	if _, ok := mulLimit([3]int{z1 - z0, y1 - y0, sh[2]}, s.limit); !ok {
 		return nil, fileErr(s.name, ErrTooLarge, "slab %d:%d of %d×%d voxels per slice exceeds the limit of %d", z0, z1, y1-y0, sh[2], s.limit)
 	}
-	v := newVolume(s.h.DType, volume.Box{Min: [3]int{z0, y0, 0}, Max: [3]int{z1, y1, sh[2]}}, s.h.VoxelSize)
+	v := reuseVolume(dst, s.h.DType, volume.Box{Min: [3]int{z0, y0, 0}, Max: [3]int{z1, y1, sh[2]}}, s.h.VoxelSize)
 	size := s.h.DType.Size()
 	plane := int64(y1-y0) * int64(sh[2]) * int64(size) // bytes of one slice of the band
 	whole := int64(sh[0]) * int64(sh[1]) * int64(sh[2]) * int64(size)

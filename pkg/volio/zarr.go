@@ -13,6 +13,7 @@ import (
 	"io/fs"
 	"math"
 	"path/filepath"
+	"runtime"
 	"strconv"
 	"strings"
 	"sync"
@@ -77,7 +78,13 @@ type Zarr struct {
 	encOnce sync.Once
 	enc     *zstd.Encoder
 	encErr  error
+	// rawChunks holds scratch raw chunks (*[]byte of chunkN·size bytes)
+	// for encodeChunk, so a streaming writer does not allocate one per chunk.
+	rawChunks sync.Pool
 }
+
+// readWorkers is the number of chunks ReadBox decodes at once.
+const readWorkers = 4
 
 // zarray is the JSON form of .zarray (Zarr storage specification v2).
 type zarray struct {
@@ -519,9 +526,9 @@ func (z *Zarr) decodeChunk(key string, data []byte) ([]byte, error) {
 	return out, nil
 }
 
-// forChunks runs f on every chunk index in [lo, hi] (inclusive) with a few
-// goroutines, returning the first error.
-func forChunks(ctx context.Context, lo, hi [3]int, f func(idx [3]int) error) error {
+// forChunks runs f on every chunk index in [lo, hi] (inclusive) with
+// `workers` goroutines, returning the first error.
+func forChunks(ctx context.Context, lo, hi [3]int, workers int, f func(idx [3]int) error) error {
 	var idxs [][3]int
 	for a := lo[0]; a <= hi[0]; a++ {
 		for b := lo[1]; b <= hi[1]; b++ {
@@ -530,7 +537,6 @@ func forChunks(ctx context.Context, lo, hi [3]int, f func(idx [3]int) error) err
 			}
 		}
 	}
-	const workers = 4
 	var (
 		mu    sync.Mutex
 		next  int
@@ -593,7 +599,7 @@ func (z *Zarr) ReadBox(ctx context.Context, box volume.Box) (volume.Any, error) 
 		hi[i] = (in.Max[i] - 1) / z.meta.Chunks[i]
 	}
 	c := z.meta.Chunks
-	err := forChunks(ctx, lo, hi, func(idx [3]int) error {
+	err := forChunks(ctx, lo, hi, readWorkers, func(idx [3]int) error {
 		key := z.ChunkKey(idx)
 		data, err := z.b.Get(ctx, key)
 		if errors.Is(err, fs.ErrNotExist) {
@@ -647,11 +653,26 @@ func fillVolume(v volume.Any, f float64) {
 // encodeChunk builds the stored bytes of chunk idx from the part of v inside
 // it; the rest of the (always full-size) chunk holds the fill value.
 func (z *Zarr) encodeChunk(v volume.Any, idx [3]int) ([]byte, error) {
-	raw := make([]byte, z.chunkN*z.size)
+	compressed := z.meta.Compressor != ""
+	var raw []byte
+	if compressed {
+		// The raw chunk is scratch for the encoder: reuse it.
+		if p, ok := z.rawChunks.Get().(*[]byte); ok {
+			raw = *p
+		} else {
+			raw = make([]byte, z.chunkN*z.size)
+		}
+		defer z.rawChunks.Put(&raw)
+	} else {
+		raw = make([]byte, z.chunkN*z.size)
+	}
 	cb := z.ChunkBox(idx)
 	ov := cb.Intersect(v.Bounds())
 	if ov != cb || cb.Size() != z.meta.Chunks {
 		// Some bytes stay at the fill value.
+		if compressed {
+			clear(raw)
+		}
 		if !allZero(z.fill) {
 			for i := 0; i < len(raw); i += z.size {
 				copy(raw[i:], z.fill)
@@ -744,7 +765,10 @@ func (z *Zarr) WriteBox(ctx context.Context, v volume.Any) error {
 		lo[i] = b.Min[i] / c
 		hi[i] = (b.Max[i] - 1) / c
 	}
-	return forChunks(ctx, lo, hi, func(idx [3]int) error {
+	// Each writer holds a raw chunk and its compressed copy: as many
+	// writers as CPUs (at most 4) keep the cores busy without multiplying
+	// chunk-sized buffers.
+	return forChunks(ctx, lo, hi, min(readWorkers, runtime.GOMAXPROCS(0)), func(idx [3]int) error {
 		data, err := z.encodeChunk(v, idx)
 		if err != nil {
 			return err

@@ -258,6 +258,7 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 	if bands != nil {
 		rows = chunks[1]
 	}
+	var band volume.Any // reused: WriteBox is done with a band before the next is read
 	for z0 := 0; z0 < h.Shape[0]; z0 += chunks[0] {
 		z1 := min(z0+chunks[0], h.Shape[0])
 		for y0 := 0; y0 < h.Shape[1]; y0 += rows {
@@ -268,8 +269,8 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 			t0 := time.Now()
 			var part volume.Any
 			if bands != nil {
-				if part, err = bands.ReadBand(z0, z1, y0, y1); err == nil {
-					err = volio.CheckFinite(req.Path, part)
+				if band, err = bands.ReadBandInto(band, z0, z1, y0, y1); err == nil {
+					part, err = band, volio.CheckFinite(req.Path, band)
 				}
 			} else {
 				part, err = st.ReadSlab(z0, z1)
