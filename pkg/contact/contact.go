@@ -255,21 +255,28 @@ type fitter struct {
 	opt                   Options
 	class                 [256]uint8 // label → class
 	faces                 []face     // scratch, reused between samples
-	// box is the classified box; plane k = z − box.Min[0] lists its faces
-	// row by row: the faces of row y are entries rowStart[k][j] …
-	// rowStart[k][j+1]−1 (j = y − box.Min[1]) of faceX[k] (global x of the
-	// voxel, increasing) and faceCode[k]. A code holds 3 bits per axis (z:
-	// bits 0–2, y: 3–5, x: 6–8, i.e. axis ax of [z, y, x] uses bits
-	// 3·ax…3·ax+2) for the face between the voxel and its +axis neighbour:
-	// facePresent, faceWall (solid–pore rather than wetting–nonwetting)
-	// and faceNeg (the normal, wetting → nonwetting or solid → pore, points
-	// along −axis). Voxels without faces are not listed.
-	box      volume.Box
-	rowStart [][]int32
-	faceX    [][]int32
-	faceCode [][]uint16
-	// gauss holds the unnormalised Gaussian taps of the solid normal.
-	gauss []float64
+	// box is the classified box; planes[z − box.Min[0]] lists its faces.
+	box    volume.Box
+	planes []facePlane
+}
+
+// facePlane lists the faces of one z plane row by row (j = y − box.Min[1]),
+// each list in increasing x (global x of the voxel owning the face, i.e.
+// the face between it and its +axis neighbour).
+//
+// Interface (wetting–nonwetting) faces: entries iStart[j] … iStart[j+1]−1
+// of iX and iCode. A code holds 3 bits per axis (z: bits 0–2, y: 3–5, x:
+// 6–8, i.e. axis ax of [z, y, x] uses bits 3·ax…3·ax+2): facePresent and
+// faceNeg (the normal, wetting → nonwetting, points along −axis).
+//
+// Wall (solid–pore) faces normal to axis a: entries wStart[a][j] …
+// wStart[a][j+1]−1 of wX[a]; their orientation does not enter the fit.
+type facePlane struct {
+	iStart []int32
+	iX     []int32
+	iCode  []uint16
+	wStart [3][]int32
+	wX     [3][]int32
 }
 
 func newFitter(lab *volume.Labels, solid, wet, non *phase.Set, opt Options) *fitter {
@@ -332,41 +339,59 @@ func (f *fitter) classify(box volume.Box, workers int) {
 	box = box.Intersect(lab.Box)
 	f.box = box
 	n := box.Size()
-	f.rowStart = make([][]int32, n[0])
-	f.faceX = make([][]int32, n[0])
-	f.faceCode = make([][]uint16, n[0])
+	f.planes = make([]facePlane, n[0])
 	s := lab.Box.Size()
 	strides := [3]int{s[1] * s[2], s[2], 1}
 	plane := func(z int) {
-		k := z - box.Min[0]
-		rs := make([]int32, n[1]+1)
-		var xs []int32
-		var cs []uint16
+		fp := &f.planes[z-box.Min[0]]
+		fp.iStart = make([]int32, n[1]+1)
+		for a := range fp.wStart {
+			fp.wStart[a] = make([]int32, n[1]+1)
+		}
 		hasZ := z+1 < lab.Box.Max[0]
 		for y := box.Min[1]; y < box.Max[1]; y++ {
-			rs[y-box.Min[1]] = int32(len(xs))
+			jr := y - box.Min[1]
+			fp.iStart[jr] = int32(len(fp.iX))
+			for a := range fp.wStart {
+				fp.wStart[a][jr] = int32(len(fp.wX[a]))
+			}
 			hasY := y+1 < lab.Box.Max[1]
 			j := lab.Index(z, y, box.Min[2])
 			for x := box.Min[2]; x < box.Max[2]; x, j = x+1, j+1 {
 				ca := uint16(f.class[lab.Pix[j]]) * 4
-				var code uint16
+				var c [3]uint16
 				if hasZ {
-					code = faceTable[ca+uint16(f.class[lab.Pix[j+strides[0]]])]
+					c[0] = faceTable[ca+uint16(f.class[lab.Pix[j+strides[0]]])]
 				}
 				if hasY {
-					code |= faceTable[ca+uint16(f.class[lab.Pix[j+strides[1]]])] << 3
+					c[1] = faceTable[ca+uint16(f.class[lab.Pix[j+strides[1]]])]
 				}
 				if x+1 < lab.Box.Max[2] {
-					code |= faceTable[ca+uint16(f.class[lab.Pix[j+1]])] << 6
+					c[2] = faceTable[ca+uint16(f.class[lab.Pix[j+1]])]
+				}
+				if c == [3]uint16{} {
+					continue
+				}
+				var code uint16
+				for a, v := range c {
+					switch {
+					case v == 0:
+					case v&faceWall != 0:
+						fp.wX[a] = append(fp.wX[a], int32(x))
+					default:
+						code |= v << (3 * a)
+					}
 				}
 				if code != 0 {
-					xs = append(xs, int32(x))
-					cs = append(cs, code)
+					fp.iX = append(fp.iX, int32(x))
+					fp.iCode = append(fp.iCode, code)
 				}
 			}
 		}
-		rs[n[1]] = int32(len(xs))
-		f.rowStart[k], f.faceX[k], f.faceCode[k] = rs, xs, cs
+		fp.iStart[n[1]] = int32(len(fp.iX))
+		for a := range fp.wStart {
+			fp.wStart[a][n[1]] = int32(len(fp.wX[a]))
+		}
 	}
 	var next atomic.Int64
 	var wg sync.WaitGroup
@@ -452,10 +477,13 @@ func (f *fitter) line(box volume.Box) [][3]int {
 	return out
 }
 
+// face is one wetting–nonwetting voxel face near a sample. Its axis normal
+// e (wetting → nonwetting) is sign times the unit vector of axis ax.
 type face struct {
-	q [3]float64 // centre relative to the sample
-	e [3]float64 // axis normal (wetting → nonwetting, or solid → pore)
-	t float64    // taper
+	q    [3]float64 // centre relative to the sample
+	t    float64    // taper
+	sign float64    // ±1
+	ax   int        // 0 z, 1 y, 2 x
 }
 
 // angle computes the contact angle at sample p (see the package doc).
@@ -482,12 +510,13 @@ func (f *fitter) angle(p [3]int) (float64, bool) {
 	// Wall faces enter the fit only through wallW = Σ τ|e·n_s| and
 	// wallD = Σ τ|e·n_s| n_s·q. With e = ±(axis a), |e·n_s| = |n_s,a|, so
 	// both follow from per-axis sums of τ and τq.
+	var sum [3]float64 // Σ τ e over interface faces
 	var tw [3]float64
 	var tq [3][3]float64
 	R2 := R * R
+	xlo := int32(nb.Min[2])
 	for z := nb.Min[0]; z < nb.Max[0]; z++ {
-		k := z - f.box.Min[0]
-		rs, xs, cs := f.rowStart[k], f.faceX[k], f.faceCode[k]
+		fp := &f.planes[z-f.box.Min[0]]
 		dz := float64(z - p[0])
 		nz := near(z - p[0])
 		for y := nb.Min[1]; y < nb.Max[1]; y++ {
@@ -496,11 +525,40 @@ func (f *fitter) angle(p [3]int) (float64, bool) {
 			}
 			dy := float64(y - p[1])
 			j := y - f.box.Min[1]
-			for e := rs[j]; e < rs[j+1]; e++ {
-				x := int(xs[e])
-				if x < nb.Min[2] {
+			// Wall faces, axis by axis (each axis has its own sums, so the
+			// order within an axis is the z, y, x order).
+			for ax := 0; ax < 3; ax++ {
+				xs := fp.wX[ax][fp.wStart[ax][j]:fp.wStart[ax][j+1]]
+				q := [3]float64{dz, dy, 0}
+				q[ax] += 0.5
+				a := q[0]*q[0] + q[1]*q[1]
+				if a >= R2 {
 					continue
 				}
+				xh := 0.0
+				if ax == 2 {
+					xh = 0.5
+				}
+				for _, x := range xs[firstAtLeast(xs, xlo):] {
+					if int(x) >= nb.Max[2] {
+						break
+					}
+					qx := float64(int(x)-p[2]) + xh
+					r2 := a + qx*qx
+					if r2 >= R2 {
+						continue
+					}
+					u := 1 - r2/R2
+					t := u * u
+					tw[ax] += t
+					tq[ax][0] += t * q[0]
+					tq[ax][1] += t * q[1]
+					tq[ax][2] += t * qx
+				}
+			}
+			xs, cs := fp.iX[fp.iStart[j]:fp.iStart[j+1]], fp.iCode[fp.iStart[j]:fp.iStart[j+1]]
+			for e := firstAtLeast(xs, xlo); e < len(xs); e++ {
+				x := int(xs[e])
 				if x >= nb.Max[2] {
 					break
 				}
@@ -519,19 +577,12 @@ func (f *fitter) angle(p [3]int) (float64, bool) {
 					}
 					u := 1 - r2/R2
 					t := u * u
-					if c&faceWall != 0 {
-						tw[ax] += t
-						tq[ax][0] += t * q[0]
-						tq[ax][1] += t * q[1]
-						tq[ax][2] += t * q[2]
-						continue
-					}
-					var e [3]float64
-					e[ax] = 1
+					sign := 1.0
 					if c&faceNeg != 0 {
-						e[ax] = -1
+						sign = -1
 					}
-					f.faces = append(f.faces, face{q: q, e: e, t: t})
+					sum[ax] += sign * t
+					f.faces = append(f.faces, face{q: q, t: t, ax: ax, sign: sign})
 				}
 			}
 		}
@@ -545,11 +596,8 @@ func (f *fitter) angle(p [3]int) (float64, bool) {
 		return 0, false
 	}
 	wallD /= wallW
-	// Frame: e_w from the area vector of the interface patch.
-	var sum [3]float64
-	for _, fc := range f.faces {
-		sum = add(sum, scale(fc.e, fc.t))
-	}
+	// Frame: e_w from the area vector Σ τ e of the interface patch (summed
+	// while gathering).
 	ew, ok := unit(sum)
 	if !ok {
 		return 0, false
@@ -568,7 +616,7 @@ func (f *fitter) angle(p [3]int) (float64, bool) {
 		if rho >= 1 {
 			continue
 		}
-		wt := (1 - rho) * (1 - rho) * math.Abs(dot(fc.e, ew))
+		wt := (1 - rho) * (1 - rho) * math.Abs(ew[fc.ax])
 		if wt == 0 {
 			continue
 		}
@@ -749,4 +797,19 @@ func unit(a [3]float64) ([3]float64, bool) {
 		return a, false
 	}
 	return scale(a, 1/n), true
+}
+
+// firstAtLeast returns the index of the first element of the increasing
+// list xs that is ≥ x (len(xs) when none is).
+func firstAtLeast(xs []int32, x int32) int {
+	lo, hi := 0, len(xs)
+	for lo < hi {
+		m := int(uint(lo+hi) >> 1)
+		if xs[m] < x {
+			lo = m + 1
+		} else {
+			hi = m
+		}
+	}
+	return lo
 }

@@ -2,6 +2,7 @@ package levelset
 
 import (
 	"math"
+	"sync"
 
 	"sluice/pkg/phase"
 	"sluice/pkg/volume"
@@ -115,6 +116,25 @@ func Mixed(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.V
 	return out
 }
 
+// maxScratchRadius is the largest kernel radius FractionOn handles itself
+// (σ ≤ 10); wider kernels fall back to Fraction.
+const maxScratchRadius = 30
+
+// scratch recycles the float32 pass buffers of FractionOn between calls
+// (their contents are not cleared: only masked voxels are written and read).
+var scratch floatPool
+
+type floatPool struct{ p sync.Pool }
+
+func (f *floatPool) get(n int) []float32 {
+	if v, ok := f.p.Get().(*[]float32); ok && cap(*v) >= n {
+		return (*v)[:n]
+	}
+	return make([]float32, n)
+}
+
+func (f *floatPool) put(b []float32) { f.p.Put(&b) }
+
 // FractionOn returns Fraction(lab, num, den, box, sigma) on the voxels of
 // box where need is non-zero (need covers box), with the same float32
 // values bit for bit; the other voxels are NaN. It runs the three
@@ -132,6 +152,15 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 		return out
 	}
 	r := Radius(sigma)
+	if r > maxScratchRadius {
+		f := Fraction(lab, num, den, box, sigma)
+		for i, m := range need.Pix {
+			if m != 0 {
+				out.Pix[i] = f.Pix[i]
+			}
+		}
+		return out
+	}
 	k := Kernel(sigma)
 	b0 := box.Grow(r).Intersect(lab.Box)
 	// Boxes of the pass outputs, as in Smooth: x narrowed, then y, then z.
@@ -157,6 +186,9 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 		for z := sb.Min[0]; z < sb.Max[0]; z++ {
 			for y := sb.Min[1]; y < sb.Max[1]; y++ {
 				row := src[((z-sb.Min[0])*ss[1]+(y-sb.Min[1]))*ss[2]:][:ss[2]]
+				if !anySet(row) {
+					continue
+				}
 				c := [2]int{z, y}[axis]
 				lo, hi := max(c-r, db.Min[axis]), min(c+r, db.Max[axis]-1)
 				for t := lo; t <= hi; t++ {
@@ -189,8 +221,9 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 		}
 	}
 	sx := bx.Size()
-	xn := make([]float32, bx.Voxels())
-	xd := make([]float32, bx.Voxels())
+	xn, xd := scratch.get(bx.Voxels()), scratch.get(bx.Voxels())
+	defer scratch.put(xn)
+	defer scratch.put(xd)
 	lo, hi := lab.Box.Min[2], lab.Box.Max[2]
 	i := 0
 	for z := bx.Min[0]; z < bx.Max[0]; z++ {
@@ -219,65 +252,59 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 			i += sx[2]
 		}
 	}
-	// Passes y and z: weighted rows, accumulated in float64 in increasing
-	// tap order, masked per voxel.
+	// Passes y and z: per masked voxel, the taps in increasing order,
+	// accumulated in float64 as Smooth does row by row. Scratch values off
+	// the masks are never read.
 	colPass := func(srcN, srcD []float32, sb volume.Box, db volume.Box, mask []uint8, axis int) ([]float32, []float32) {
 		ss, ds := sb.Size(), db.Size()
-		dn := make([]float32, db.Voxels())
-		dd := make([]float32, db.Voxels())
-		an := make([]float64, ds[2])
-		ad := make([]float64, ds[2])
+		dn, dd := scratch.get(db.Voxels()), scratch.get(db.Voxels())
 		lo, hi := sb.Min[axis], sb.Max[axis]
+		var offs [2*maxScratchRadius + 1]int
+		var ws [2*maxScratchRadius + 1]float64
 		j := 0
 		for z := db.Min[0]; z < db.Max[0]; z++ {
 			for y := db.Min[1]; y < db.Max[1]; y++ {
 				m := mask[j : j+ds[2]]
 				j0 := j
 				j += ds[2]
-				anyv := false
-				for _, v := range m {
-					if v != 0 {
-						anyv = true
-						break
-					}
-				}
-				if !anyv {
-					continue
-				}
-				clear(an)
-				clear(ad)
 				c := [2]int{z, y}[axis]
 				a, b := max(c-r, lo), min(c+r, hi-1)
+				nt := 0
 				for t := a; t <= b; t++ {
-					w := k[t-c+r]
 					zz, yy := z, y
 					if axis == 0 {
 						zz = t
 					} else {
 						yy = t
 					}
-					o := ((zz-sb.Min[0])*ss[1] + (yy - sb.Min[1])) * ss[2]
-					rn, rd := srcN[o:][:ds[2]], srcD[o:][:ds[2]]
-					for x, v := range m {
-						if v != 0 {
-							an[x] += w * float64(rn[x])
-							ad[x] += w * float64(rd[x])
-						}
-					}
+					offs[nt] = ((zz-sb.Min[0])*ss[1] + (yy - sb.Min[1])) * ss[2]
+					ws[nt] = k[t-c+r]
+					nt++
 				}
 				on, od := dn[j0:][:ds[2]], dd[j0:][:ds[2]]
 				for x, v := range m {
-					if v != 0 {
-						on[x] = float32(an[x])
-						od[x] = float32(ad[x])
+					if v == 0 {
+						continue
 					}
+					var an, ad float64
+					for t := 0; t < nt; t++ {
+						o := offs[t] + x
+						an += ws[t] * float64(srcN[o])
+						ad += ws[t] * float64(srcD[o])
+					}
+					on[x] = float32(an)
+					od[x] = float32(ad)
 				}
 			}
 		}
 		return dn, dd
 	}
 	yn, yd := colPass(xn, xd, bx, by, my, 1)
+	defer scratch.put(yn)
+	defer scratch.put(yd)
 	zn, zd := colPass(yn, yd, by, box, mz, 0)
+	defer scratch.put(zn)
+	defer scratch.put(zd)
 	for i, v := range mz {
 		if v == 0 {
 			continue
@@ -289,4 +316,13 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 		}
 	}
 	return out
+}
+
+func anySet(m []uint8) bool {
+	for _, v := range m {
+		if v != 0 {
+			return true
+		}
+	}
+	return false
 }

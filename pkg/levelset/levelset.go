@@ -283,17 +283,16 @@ func GradientAt(lab *volume.Labels, set *phase.Set, p [3]int, sigma float64) [3]
 		for y := nb.Min[1]; y < nb.Max[1]; y++ {
 			dy := y - p[1]
 			wzy := w[dz+r] * w[dy+r]
-			j := lab.Index(z, y, nb.Min[2])
-			for x := nb.Min[2]; x < nb.Max[2]; x++ {
-				if set[lab.Pix[j]] {
-					dx := x - p[2]
+			row := lab.Pix[lab.Index(z, y, nb.Min[2]):][:nb.Max[2]-nb.Min[2]]
+			for k, l := range row {
+				if set[l] {
+					dx := nb.Min[2] + k - p[2]
 					c := wzy * w[dx+r]
 					// ∇_p G(p − q) = −(p − q)/σ² G = (q − p)/σ² G.
 					g[0] += c * float64(dz)
 					g[1] += c * float64(dy)
 					g[2] += c * float64(dx)
 				}
-				j++
 			}
 		}
 	}
