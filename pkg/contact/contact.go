@@ -92,6 +92,17 @@
 // fixed order relative to the sample, so a tile with that halo computes
 // bit-identical angles for the samples its core owns; N and Hist add
 // exactly, Sum and SumSq to rounding.
+//
+// # Cost
+//
+// The faces of the tile (plus Radius) are listed once, per row and in
+// increasing x, split into interface faces and wall faces per axis; a
+// sample visits only the rows its ball crosses and binary-searches the
+// first face inside it. The wall enters the fit only through two sums,
+// Σ τ|e·n_s| and Σ τ|e·n_s| n_s·q, which follow from per-axis sums of τ
+// and τq, so wall faces are never stored. Samples are independent and are
+// fitted on Options.Workers goroutines; their angles are summed in voxel
+// order, so the partial does not depend on the number of workers.
 package contact
 
 import (

@@ -57,6 +57,13 @@
 // 1/(1 − 2·Band) so that it estimates the interface area (co-area over the
 // kept levels).
 //
+// Only voxels where φ can lie inside (0, 1) are visited: those whose kernel
+// cube holds both nonwetting and wetting voxels (levelset.Mixed). φ is
+// computed on them and on the neighbours their derivatives read
+// (levelset.FractionOn, bit for bit the dense field), and the exclusion
+// test is made for them alone, so the cost follows the interface, not the
+// tile.
+//
 // # Histogram and median
 //
 // Hist holds Σ|∇φ| per κ bin: HistBins bins of width (HistMax−HistMin)/
@@ -82,7 +89,8 @@ type Options struct {
 	// (default 3; negative disables the exclusion). On flat walls 3 drops
 	// the first three voxel layers: with 2, drops of 60° on a wall came out
 	// +10 % (mean, σ = 1.5, R = 20), with 3 within ±3.5 % (see the tests).
-	// Distances are found with levelset.Near.
+	// The test is the one levelset.Near makes, asked only for the
+	// candidate band voxels.
 	Exclude float64 `json:"exclude"`
 }
 

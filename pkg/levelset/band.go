@@ -8,17 +8,6 @@ import (
 	"sluice/pkg/volume"
 )
 
-// # Narrow band
-//
-// Where the cube of radius r = Radius(σ) around a voxel holds no voxel of
-// num, G∗χ_num is exactly 0 there; where it holds no voxel of den∖num,
-// χ_num and χ_den agree on every tap, the two sums are computed by the same
-// operations and φ is exactly 1 (or NaN below MinWeight). Only voxels whose
-// cube holds both (Mixed) can take a value strictly between 0 and 1, so a
-// measurement that keeps a band inside (0, 1) needs φ only on those voxels
-// and the few neighbours its derivatives read. FractionOn computes φ on
-// such a mask, bit for bit as Fraction does.
-
 // Mixed returns, on box ∩ lab.Box, 1 where the cube of radius r (Chebyshev
 // distance, the voxel itself included) holds a voxel of a and a voxel of b,
 // and 0 elsewhere; voxels beyond lab.Box are missing. The cube is three 1-D

@@ -41,6 +41,17 @@
 // on the smoothed field (step 1 voxel); GradientAt evaluates the derivative of
 // the Gaussian analytically at one voxel, for sparse sample points.
 //
+// # Narrow band
+//
+// Where the cube of radius r = Radius(σ) around a voxel holds no voxel of
+// num, G∗χ_num is exactly 0 there; where it holds no voxel of den∖num,
+// χ_num and χ_den agree on every tap, the two sums are computed by the same
+// operations and φ is exactly 1 (or NaN below MinWeight). Only voxels whose
+// cube holds both (Mixed) can take a value strictly between 0 and 1, so a
+// measurement that keeps a band inside (0, 1) needs φ only on those voxels
+// and the few neighbours its derivatives read. FractionOn computes φ on
+// such a mask, bit for bit as Fraction does.
+//
 // Fields are volume.Volume[float32]: Pix[((z-Min0)*NY+(y-Min1))*NX+(x-Min2)];
 // sums are accumulated in float64 and stored as float32.
 package levelset

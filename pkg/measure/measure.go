@@ -18,7 +18,9 @@
 //	                                   are merged with union-find (cluster.Merge)
 //
 // The result equals the whole-volume result whatever the tiling, provided
-// each tile is read with a halo of at least Options.Halo() voxels.
+// each tile is read with a halo of at least Options.Halo() voxels, and it
+// does not depend on Options.Workers, the goroutines one tile is measured
+// on (for steps with fewer tiles than cores).
 //
 // Interfacial areas follow from the three phase surfaces (science.md):
 // A_wn = (S_w + S_n − S_s)/2, A_ws = (S_w + S_s − S_n)/2,
