@@ -320,10 +320,11 @@ func sluiceChain(grey *volume.Volume[uint16], repeat int) (map[string]stageFigur
 		return nil
 	}
 
-	// Median: uint16 → float32 (as segment does before filtering), 3×3×3.
-	var med *volume.Volume[float32]
+	// Median: the exact integer 3×3×3 median on uint16, as segment filters
+	// integer grey.
+	var med *volume.Volume[uint16]
 	if err := timed("median", func() (err error) {
-		med, err = filter.Median3(volume.Float(grey), box)
+		med, err = filter.Median3Integer(grey, box)
 		return err
 	}); err != nil {
 		return nil, res, nil, err
@@ -335,7 +336,6 @@ func sluiceChain(grey *volume.Volume[uint16], repeat int) (map[string]stageFigur
 	sp := segment.Defaults()
 	sp.Filter.Method = "none"
 	sp.Bins = 1024
-	sp.Range = [2]float64{0, 65536}
 	var lab *volume.Labels
 	if err := timed("otsu", func() error {
 		h, err := segment.Histogram(med, box, sp, nil)
