@@ -85,8 +85,11 @@ func TestBadInputFiles(t *testing.T) {
 			t.Errorf("segment %s wrote %s", c.file, out)
 		}
 	}
+	// A limit configured on the command line is the one enforced.
+	code, _, errs := runCLI(t, "measure", "--max-voxels", "10000", bad("duplicate-step.raw"))
+	oneLineError(t, "measure --max-voxels 10000", code, errs, "duplicate-step.raw", "24×24×24 voxels exceeds the limit of 10000")
 	// The label path reads the same files through the same readers.
-	code, _, errs := runCLI(t, "measure", "--labels", bad("zarr-missing-chunk"))
+	code, _, errs = runCLI(t, "measure", "--labels", bad("zarr-missing-chunk"))
 	oneLineError(t, "measure --labels zarr-missing-chunk", code, errs, "missing chunk 1.0.0")
 }
 
