@@ -194,6 +194,12 @@ type Config struct {
 	DuplicateWindow time.Duration
 	// Policy is the task delivery policy.
 	Policy Policy
+	// KeepPolicy leaves existing task consumers as they are (their policy
+	// included) and uses Policy only to create missing ones: for processes
+	// that queue or read but do not work tasks (ingest, status), which
+	// would otherwise reset a running deployment's MaxDeliver and AckWait
+	// to their own flags' defaults. The policy in force is read back.
+	KeepPolicy bool
 	// Logger receives warnings (default slog.Default()).
 	Logger *slog.Logger
 }
@@ -276,6 +282,17 @@ func (q *Queue) setup(ctx context.Context, cfg Config) error {
 		name, filter string
 		dst          *jetstream.Consumer
 	}{{ConsumerLive, subjectLive + ">", &q.live}, {ConsumerBatch, subjectBatch + ">", &q.batch}} {
+		if cfg.KeepPolicy {
+			if cons, err := js.Consumer(ctx, StreamTasks, c.name); err == nil {
+				*c.dst = cons
+				if cc := cons.CachedInfo().Config; c.name == ConsumerLive {
+					q.policy.AckWait, q.policy.MaxDeliver, q.policy.BackOff = cc.AckWait, cc.MaxDeliver, cc.BackOff
+				}
+				continue
+			} else if !errors.Is(err, jetstream.ErrConsumerNotFound) {
+				return fmt.Errorf("queue: consumer %s: %v", c.name, err)
+			}
+		}
 		cons, err := js.CreateOrUpdateConsumer(ctx, StreamTasks, jetstream.ConsumerConfig{
 			Durable:       c.name,
 			FilterSubject: c.filter,

@@ -37,6 +37,9 @@ type nodeFlags struct {
 	httpTokenFile, s3CredsFile                string
 	ackWait                                   time.Duration
 	maxDeliver                                int
+	// keepPolicy: this process works no tasks (ingest, status), so it
+	// leaves the task consumers' delivery policy as the workers set it.
+	keepPolicy bool
 }
 
 // Environment variables holding secrets (files named by flags win).
@@ -163,7 +166,7 @@ func (f *nodeFlags) serverConfig() (queue.ServerConfig, error) {
 // and no URL is given.
 func (f *nodeFlags) openQueue(ctx context.Context, embedded bool, log *slog.Logger) (*queue.Queue, *queue.Server, error) {
 	cfg := queue.Config{URL: f.nats, CredsFile: f.natsCreds, TLSCA: f.tlsCA, TLSCert: f.tlsCert, TLSKey: f.tlsKey,
-		Logger: log, Policy: queue.Policy{AckWait: f.ackWait, MaxDeliver: f.maxDeliver}}
+		Logger: log, Policy: queue.Policy{AckWait: f.ackWait, MaxDeliver: f.maxDeliver}, KeepPolicy: f.keepPolicy}
 	var srv *queue.Server
 	if f.nats == "" {
 		if !embedded {
