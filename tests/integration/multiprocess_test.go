@@ -2,7 +2,10 @@
 // external components: a MinIO server as the object store, a separately
 // started nats-server with JetStream, two `sluice worker` processes, one
 // `sluice aggregate` and `sluice ingest` per scan, all on loopback; and
-// compares the outcome with the all-in-one `sluice run`.
+// compares the outcome with the all-in-one `sluice run`. faults_test.go
+// kills, restarts and starves those processes (SIGKILL, a NATS restart, a
+// MinIO outage, a poison tile, a burst) and checks that the series comes
+// out as an undisturbed run's.
 package integration
 
 import (
