@@ -88,43 +88,48 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 				}
 			}
 		}
-		// Pass 2 (y) over x grown by r.
+		// Pass 2 (y) over x grown by r: the rows y−j and y+j (clamped to
+		// b1) are looked up once per output row.
 		b2 := volume.Box{Min: [3]int{z0, core.Min[1], b1.Min[2]}, Max: [3]int{z1, core.Max[1], b1.Max[2]}}
 		t2 := volume.New[float32](b2, 0)
+		nx2 := b2.Max[2] - b2.Min[2]
+		rowsY := make([][]float32, 2*r+1)
 		for z := z0; z < z1; z++ {
+			base := (z - z0) * n1[1] * n1[2]
 			for y := b2.Min[1]; y < b2.Max[1]; y++ {
-				o := t2.Index(z, y, b2.Min[2])
-				base := (z - z0) * n1[1] * n1[2]
-				for x := b2.Min[2]; x < b2.Max[2]; x++ {
-					xi := x - b1.Min[2]
-					at := func(yy int) float64 {
-						yy = clamp(yy, b1.Min[1], b1.Max[1]) - b1.Min[1]
-						return float64(t1.Pix[base+yy*n1[2]+xi])
-					}
-					acc := w[0] * at(y)
+				for k := -r; k <= r; k++ {
+					yy := clamp(y+k, b1.Min[1], b1.Max[1]) - b1.Min[1]
+					rowsY[k+r] = t1.Pix[base+yy*n1[2]:][:nx2]
+				}
+				dst := t2.Pix[t2.Index(z, y, b2.Min[2]):][:nx2]
+				mid := rowsY[r]
+				for xi := range dst {
+					acc := w[0] * float64(mid[xi])
 					for j := 1; j <= r; j++ {
-						acc += w[j] * (at(y-j) + at(y+j))
+						acc += w[j] * (float64(rowsY[r-j][xi]) + float64(rowsY[r+j][xi]))
 					}
-					t2.Pix[o] = float32(acc)
-					o++
+					dst[xi] = float32(acc)
 				}
 			}
 		}
-		// Pass 3 (x) over the core.
+		// Pass 3 (x) over the core, from a copy of each row padded by r
+		// clamped values on both sides.
+		ncx := core.Max[2] - core.Min[2]
+		pad := make([]float32, ncx+2*r)
 		for z := z0; z < z1; z++ {
 			for y := core.Min[1]; y < core.Max[1]; y++ {
-				row := t2.Pix[t2.Index(z, y, b2.Min[2]):][:b2.Max[2]-b2.Min[2]]
-				o := out.Index(z, y, core.Min[2])
-				for x := core.Min[2]; x < core.Max[2]; x++ {
-					at := func(xx int) float64 {
-						return float64(row[clamp(xx, b2.Min[2], b2.Max[2])-b2.Min[2]])
-					}
-					acc := w[0] * at(x)
+				row := t2.Pix[t2.Index(z, y, b2.Min[2]):][:nx2]
+				for i := range pad {
+					pad[i] = row[clamp(core.Min[2]-r+i, b2.Min[2], b2.Max[2])-b2.Min[2]]
+				}
+				dst := out.Pix[out.Index(z, y, core.Min[2]):][:ncx]
+				for i := range dst {
+					c := i + r
+					acc := w[0] * float64(pad[c])
 					for j := 1; j <= r; j++ {
-						acc += w[j] * (at(x-j) + at(x+j))
+						acc += w[j] * (float64(pad[c-j]) + float64(pad[c+j]))
 					}
-					out.Pix[o] = float32(acc)
-					o++
+					dst[i] = float32(acc)
 				}
 			}
 		}

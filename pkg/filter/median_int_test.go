@@ -147,3 +147,62 @@ func BenchmarkMedian3Uint16Tile128(b *testing.B) {
 	}
 	reportPerCore(b, n*n*n)
 }
+
+// TestMedianLevelsMatchesMedian checks the threshold-decomposition counts
+// against the median itself: above = number of cuts below the median, for
+// cuts on and between the grey levels (ties), beyond both ends, and for
+// clamped and interior sub-boxes. Source: Median3Integer (checked against
+// scipy above); Fitch, Coyle & Gallagher 1984 for the identity.
+func TestMedianLevelsMatchesMedian(t *testing.T) {
+	v := randomUint16(10, 13, 17, 21, 6)
+	step := 65535 / 5
+	cutSets := [][]int{{step - 1, 3 * step}, {step, 2 * step, 4 * step, 5 * step}, {-5}, {70000}, {0}, {2*step + 7, 2 * step}}
+	for _, cuts := range cutSets {
+		for _, core := range []volume.Box{v.Box, {Min: [3]int{1, 1, 1}, Max: [3]int{9, 12, 16}}, {Min: [3]int{0, 2, 3}, Max: [3]int{5, 13, 4}}, {Min: [3]int{9, 0, 0}, Max: [3]int{10, 1, 17}}} {
+			med, err := Median3Integer(v, core)
+			if err != nil {
+				t.Fatal(err)
+			}
+			seen := 0
+			err = Median3Levels(v, core, cuts, func(z, y int, above []uint8) {
+				seen++
+				for i, a := range above {
+					m := int(med.At(z, y, core.Min[2]+i))
+					want := 0
+					for _, c := range cuts {
+						if m > c {
+							want++
+						}
+					}
+					if int(a) != want {
+						t.Errorf("cuts %v core %v at (%d,%d,%d): %d cuts below, median %d gives %d", cuts, core, z, y, core.Min[2]+i, a, m, want)
+					}
+				}
+			})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if s := core.Size(); seen != s[0]*s[1] {
+				t.Fatalf("%d rows emitted, want %d", seen, s[0]*s[1])
+			}
+		}
+	}
+	if err := Median3Levels(v, v.Box, []int{1, 2, 3, 4, 5}, func(int, int, []uint8) {}); err == nil {
+		t.Error("five cuts accepted")
+	}
+}
+
+// BenchmarkMedian3LevelsTile128: two cuts over one 128³ tile (uint16).
+func BenchmarkMedian3LevelsTile128(b *testing.B) {
+	const n = 128
+	v := randomUint16(n+2, n+2, n+2, 5, 0)
+	core := volume.BoxOf(n, n, n).Translate([3]int{1, 1, 1})
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if err := Median3Levels(v, core, []int{20000, 40000}, func(z, y int, above []uint8) {}); err != nil {
+			b.Fatal(err)
+		}
+	}
+	reportPerCore(b, n*n*n)
+}

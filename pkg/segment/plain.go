@@ -2,6 +2,7 @@ package segment
 
 import (
 	"fmt"
+	"math"
 
 	"sluice/pkg/filter"
 	"sluice/pkg/phase"
@@ -15,10 +16,12 @@ import (
 // filtered grey over out (hysteresis needs it).
 //
 // uint8 and uint16 grey with the median (or no) filter never become
-// float32: the integer median (exact, the same values as the float median)
-// is classified row by row through a table of the class code of every grey
-// value, on the goroutines of the median. Other inputs are filtered as
-// float32 first.
+// float32. Without hysteresis only the class of the median matters, and
+// filter.Median3Levels gives it by threshold decomposition (counts of
+// voxels above each threshold, no sorting); with hysteresis the integer
+// median (exact, the same values as the float median) is classified row by
+// row through a table of the class code of every grey value. Both run on
+// the goroutines of the filter. Other inputs are filtered as float32 first.
 func plainLabels(grey volume.Any, out volume.Box, p Params, c *classes, mask *volume.Labels, keepGrey bool) (*volume.Labels, *volume.Volume[float32], error) {
 	rl := &rowLabeller{p: p, c: c, mask: mask, out: out, lab: volume.New[uint8](out, grey.EdgeLength())}
 	rl.span = sampleSpans(p.Sample, out)
@@ -138,6 +141,21 @@ func intLabels[T filter.Integer](v *volume.Volume[T], rl *rowLabeller, median bo
 	}
 	out := rl.out
 	nx := out.Max[2] - out.Min[2]
+	if median && rl.g == nil && len(rl.c.t) <= filter.MaxLevels {
+		// Only the class of the median is needed: count, do not sort. For
+		// integer v, v > t ⇔ v > ⌊t⌋ (cuts clamped to the int range).
+		cuts := make([]int, len(rl.c.t))
+		for k, t := range rl.c.t {
+			cuts[k] = int(math.Max(math.Min(math.Floor(t), 1<<20), -1))
+		}
+		return filter.Median3Levels(v, out, cuts, func(z, y int, above []uint8) {
+			dst, x0, x1 := rl.row(z, y)
+			for i, k := range above[x0:x1] {
+				dst[x0+i] = rl.c.codes[k]
+			}
+			rl.masked(z, y, dst, x0, x1)
+		})
+	}
 	emit := func(z, y int, row []T) {
 		dst, x0, x1 := rl.row(z, y)
 		for i, gv := range row[x0:x1] {

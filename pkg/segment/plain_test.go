@@ -1,11 +1,14 @@
 package segment
 
 import (
+	"math"
 	"syscall"
 	"testing"
 	"time"
 
+	"sluice/pkg/forward"
 	"sluice/pkg/phase"
+	"sluice/pkg/synth"
 	"sluice/pkg/volume"
 )
 
@@ -129,10 +132,24 @@ func reportThroughput(b *testing.B, voxels int, cpu time.Duration) {
 	}
 }
 
-// benchScene is a 96³ drainage scene (uint16) with thresholds, and the core
-// of a tile 80³ inside it (halo 8).
+// benchScene is a 96³ three-phase scene (uint16, CNR 4): nonwetting and
+// solid Boolean models of spheres on wetting, rendered by the forward model,
+// with its thresholds and the core of an 80³ tile inside it (halo 8).
 func benchScene(b *testing.B, p Params) (*volume.Volume[uint16], volume.Box, Thresholds) {
-	grey, _, _ := scene(96, 4, 1)
+	c := phase.Default()
+	lab := volume.NewShape[uint8](96, 96, 96, 2e-6)
+	for i := range lab.Pix {
+		lab.Pix[i] = c.Wetting
+	}
+	synth.Boolean(lab, synth.BooleanIntensity(-math.Log(0.6), 5), 5, c.Nonwetting, 2)
+	synth.Boolean(lab, synth.BooleanIntensity(-math.Log(0.4), 7), 7, c.Solid, 1)
+	fp := forward.Default()
+	fp.CNR, fp.Seed = 4, 1
+	img, err := forward.Render(lab, fp)
+	if err != nil {
+		b.Fatal(err)
+	}
+	grey := forward.Uint16(img)
 	h, err := Histogram(grey, grey.Box, p, nil)
 	if err != nil {
 		b.Fatal(err)

@@ -397,17 +397,28 @@ func (c *classes) hysteresis(lab *volume.Labels, f *volume.Volume[float32], step
 
 // removeIslands relabels as wetting every 26-connected nonwetting component
 // of lab restricted to box that has fewer than minSize voxels.
+//
+// Breadth-first search over box-local indices li = (z·NY + y)·NX + x, with
+// lab's own strides for the label reads (no per-neighbour index arithmetic
+// through the volume).
 func removeIslands(lab *volume.Labels, box volume.Box, minSize int, codes phase.Codes) {
 	s := box.Size()
 	nyx := s[1] * s[2]
+	ls := lab.Box.Size()
+	lnx, lnyx := ls[2], ls[1]*ls[2]
+	base := lab.Index(box.Min[0], box.Min[1], box.Min[2])
+	// at(z, y, x) is the offset in lab.Pix of box-local voxel (z, y, x).
+	at := func(z, y, x int) int { return base + z*lnyx + y*lnx + x }
+	nw := codes.Nonwetting
 	seen := make([]bool, box.Voxels())
-	at := func(z, y, x int) int { return lab.Index(z+box.Min[0], y+box.Min[1], x+box.Min[2]) }
 	var comp []int32
+	li := 0
 	for z := 0; z < s[0]; z++ {
 		for y := 0; y < s[1]; y++ {
-			for x := 0; x < s[2]; x++ {
-				li := (z*s[1]+y)*s[2] + x
-				if seen[li] || lab.Pix[at(z, y, x)] != codes.Nonwetting {
+			row := lab.Pix[at(z, y, 0):][:s[2]]
+			for x, l := range row {
+				li = (z*s[1]+y)*s[2] + x
+				if l != nw || seen[li] {
 					continue
 				}
 				seen[li] = true
@@ -416,25 +427,18 @@ func removeIslands(lab *volume.Labels, box volume.Box, minSize int, codes phase.
 					j := int(comp[head])
 					cz, r := j/nyx, j%nyx
 					cy, cx := r/s[2], r%s[2]
-					for dz := -1; dz <= 1; dz++ {
-						zz := cz + dz
-						if zz < 0 || zz >= s[0] {
-							continue
-						}
-						for dy := -1; dy <= 1; dy++ {
-							yy := cy + dy
-							if yy < 0 || yy >= s[1] {
-								continue
-							}
-							for dx := -1; dx <= 1; dx++ {
-								xx := cx + dx
-								if xx < 0 || xx >= s[2] {
-									continue
-								}
-								k := (zz*s[1]+yy)*s[2] + xx
-								if !seen[k] && lab.Pix[at(zz, yy, xx)] == codes.Nonwetting {
-									seen[k] = true
-									comp = append(comp, int32(k))
+					z0, z1 := max(cz-1, 0), min(cz+1, s[0]-1)
+					y0, y1 := max(cy-1, 0), min(cy+1, s[1]-1)
+					x0, x1 := max(cx-1, 0), min(cx+1, s[2]-1)
+					for zz := z0; zz <= z1; zz++ {
+						for yy := y0; yy <= y1; yy++ {
+							k0 := (zz*s[1]+yy)*s[2] + x0
+							lrow := lab.Pix[at(zz, yy, x0):][:x1-x0+1]
+							sr := seen[k0:][:x1-x0+1]
+							for dx, v := range lrow {
+								if v == nw && !sr[dx] {
+									sr[dx] = true
+									comp = append(comp, int32(k0+dx))
 								}
 							}
 						}
