@@ -419,7 +419,7 @@ func TestKillAllInOneMidCampaign(t *testing.T) {
 }
 
 // TestNATSRestart: the separate nats-server is stopped while a worker
-// holds a tile and started again three seconds later on the same port with
+// holds a tile and started again twelve seconds later on the same port with
 // the same JetStream store directory. Worker, aggregator and the watching
 // ingest reconnect and go on; a scan arriving during the outage is
 // ingested once NATS is back; nothing is lost and series.json is the
@@ -444,7 +444,9 @@ func TestNATSRestart(t *testing.T) {
 	c.nats.Stop()
 	down := time.Now()
 	drop(3) // arrives while NATS is down
-	time.Sleep(3 * time.Second)
+	// Longer than a JetStream publish waits for its acknowledgement (5 s):
+	// the ingest of scan 3 fails and the watcher offers the scan again.
+	time.Sleep(12 * time.Second)
 	c.nats.Start()
 	up := time.Now()
 	waitFor(t, 2*time.Minute, "a tile processed after the restart", func() bool {
@@ -461,6 +463,9 @@ func TestNATSRestart(t *testing.T) {
 		t.Errorf("dead letters after a NATS restart: %d (%v)", len(dls), err)
 	}
 	onceAtMost(t, completedSteps(agg))
+	if n := count(ing, "will try the scan again"); n < 1 {
+		t.Errorf("the ingest during the outage never failed and was never retried (%d retries)", n)
+	}
 	processed := metricSum(wAddr, "sluice_tiles_processed_total")
 	t.Logf("worker: %g tiles processed, %g redelivered; failed pulls retried: worker %d, aggregator %d; ingests retried %d",
 		processed, metric(wAddr, "sluice_tiles_redelivered_total"), count(wk, "pull failed"), count(agg, "pull failed"),
