@@ -82,3 +82,60 @@ func TestWholeIndependentOfTiling(t *testing.T) {
 		}
 	}
 }
+
+// TestDefaultSegmentationTiling: with the default segmentation (median
+// classes by threshold decomposition, detected sample cylinder) the labels
+// of 1, 8 and 27 tiles and of uneven tiles are identical, and equal those
+// of the same scan given as float32 (the float median path). Source:
+// architecture.md (tiling invariance); the float path is the one checked
+// against scipy.
+func TestDefaultSegmentationTiling(t *testing.T) {
+	grey, _ := greyScene(t, 40)
+	c := campaign.Default()
+	c.Tile = 40
+	c.Measure.SkipContact = true
+	c.Measure.SkipCurvature = true
+	ref, _, refPrep, err := Whole(grey, c, nil, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var nw, out int
+	for _, v := range ref.Pix {
+		switch v {
+		case phase.Outside:
+			out++
+		case c.Segment.Codes.Nonwetting:
+			nw++
+		}
+	}
+	if nw == 0 || out == 0 {
+		t.Fatalf("no nonwetting (%d) or outside (%d) voxels: the check proves nothing", nw, out)
+	}
+	for _, tile := range []int{20, 14, 17} {
+		c.Tile = tile
+		lab, _, _, err := Whole(grey, c, nil, 2)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for i := range lab.Pix {
+			if lab.Pix[i] != ref.Pix[i] {
+				t.Fatalf("tile %d: label %d is %d, single tile %d", tile, i, lab.Pix[i], ref.Pix[i])
+			}
+		}
+	}
+	// The float32 scan through the float median, with the thresholds and
+	// sample of the uint16 run.
+	c.Tile = 40
+	c.Segment.Sample = refPrep.Thresholds.Sample
+	f := volume.Float(grey)
+	core := grey.Box
+	lab, _, err := Tile(f, core, grey.Box, refPrep.Thresholds, c, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range lab.Pix {
+		if lab.Pix[i] != ref.Pix[i] {
+			t.Fatalf("float32 input: label %d is %d, uint16 %d", i, lab.Pix[i], ref.Pix[i])
+		}
+	}
+}
