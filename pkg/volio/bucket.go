@@ -16,7 +16,8 @@ type Bucket interface {
 	// Get returns the value stored under key; a missing key gives an error
 	// wrapping fs.ErrNotExist.
 	Get(ctx context.Context, key string) ([]byte, error)
-	// Put stores data under key, replacing any earlier value.
+	// Put stores data under key, replacing any earlier value; it keeps no
+	// reference to data after it returns (writers reuse the buffer).
 	Put(ctx context.Context, key string, data []byte) error
 }
 

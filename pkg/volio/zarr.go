@@ -81,6 +81,9 @@ type Zarr struct {
 	// rawChunks holds scratch raw chunks (*[]byte of chunkN·size bytes)
 	// for encodeChunk, so a streaming writer does not allocate one per chunk.
 	rawChunks sync.Pool
+	// packedChunks holds buffers for encoded chunks (*[]byte), returned
+	// after the bucket's Put (Buckets keep no reference to data).
+	packedChunks sync.Pool
 }
 
 // readWorkers is the number of chunks ReadBox decodes at once.
@@ -694,12 +697,27 @@ func (z *Zarr) encodeChunk(v volume.Any, idx [3]int) ([]byte, error) {
 		if err != nil {
 			return nil, fileErr(z.where(z.ChunkKey(idx)), ErrFormat, "zstd: %v", err)
 		}
-		return enc.EncodeAll(raw, make([]byte, 0, len(raw)/2)), nil
+		// Room for incompressible input (zstd raw blocks: 3 bytes per
+		// 128 KiB block plus the frame header), so the output never grows.
+		var dst []byte
+		if p, ok := z.packedChunks.Get().(*[]byte); ok {
+			dst = (*p)[:0]
+		} else {
+			dst = make([]byte, 0, len(raw)+len(raw)/1024+64)
+		}
+		return enc.EncodeAll(raw, dst), nil
 	}
 	if z.meta.Compressor != "" {
 		return nil, fileErr(z.where(z.ChunkKey(idx)), ErrFormat, "writing %s chunks is not supported", z.meta.Compressor)
 	}
 	return raw, nil
+}
+
+// recycle keeps an encoded chunk's buffer for the next encodeChunk.
+func (z *Zarr) recycle(data []byte) {
+	if z.meta.Compressor != "" {
+		z.packedChunks.Put(&data)
+	}
 }
 
 func allZero(b []byte) bool {
@@ -773,6 +791,8 @@ func (z *Zarr) WriteBox(ctx context.Context, v volume.Any) error {
 		if err != nil {
 			return err
 		}
-		return z.b.Put(ctx, z.ChunkKey(idx), data)
+		err = z.b.Put(ctx, z.ChunkKey(idx), data)
+		z.recycle(data)
+		return err
 	})
 }
