@@ -459,9 +459,12 @@ func runReferenceChain(python string, args []string) (referenceRun, error) {
 		if i := strings.LastIndexByte(msg, '\n'); i >= 0 {
 			msg = msg[i+1:]
 		}
-		var ee *exec.Error
-		if errors.As(err, &ee) {
+		var ee *exec.ExitError
+		if !errors.As(err, &ee) {
 			return ref, fmt.Errorf("reference interpreter %s: %v", python, err)
+		}
+		if msg == "" {
+			return ref, fmt.Errorf("reference script %s: %v", args[0], err)
 		}
 		return ref, fmt.Errorf("reference script %s: %v: %s", args[0], err, msg)
 	}
