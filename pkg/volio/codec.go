@@ -78,19 +78,26 @@ func voxelBytes[T volume.Voxel](s []T) []byte {
 	return unsafe.Slice((*byte)(unsafe.Pointer(unsafe.SliceData(s))), len(s)*int(unsafe.Sizeof(s[0])))
 }
 
-// reuseVolume returns v moved to box when it has dtype dt and box's size
-// (its voxels are kept, to be overwritten), else a new zeroed volume.
+// reuseVolume returns v moved to box when it has dtype dt and room for
+// box's voxels (Pix is resliced; its voxels are kept, to be overwritten),
+// else a new zeroed volume. Streaming readers pass their previous buffer,
+// so the smaller bands at the volume's edges reuse it too.
 func reuseVolume(v volume.Any, dt volume.DType, box volume.Box, voxelSize float64) volume.Any {
-	if v != nil && v.DType() == dt && v.Bounds().Size() == box.Size() {
-		switch t := v.(type) {
-		case *volume.Volume[uint8]:
-			t.Box, t.VoxelSize = box, voxelSize
+	n := box.Voxels()
+	switch t := v.(type) {
+	case *volume.Volume[uint8]:
+		if dt == volume.Uint8 && cap(t.Pix) >= n {
+			t.Box, t.VoxelSize, t.Pix = box, voxelSize, t.Pix[:n]
 			return t
-		case *volume.Volume[uint16]:
-			t.Box, t.VoxelSize = box, voxelSize
+		}
+	case *volume.Volume[uint16]:
+		if dt == volume.Uint16 && cap(t.Pix) >= n {
+			t.Box, t.VoxelSize, t.Pix = box, voxelSize, t.Pix[:n]
 			return t
-		case *volume.Volume[float32]:
-			t.Box, t.VoxelSize = box, voxelSize
+		}
+	case *volume.Volume[float32]:
+		if dt == volume.Float32 && cap(t.Pix) >= n {
+			t.Box, t.VoxelSize, t.Pix = box, voxelSize, t.Pix[:n]
 			return t
 		}
 	}

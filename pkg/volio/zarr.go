@@ -713,6 +713,18 @@ func (z *Zarr) encodeChunk(v volume.Any, idx [3]int) ([]byte, error) {
 	return raw, nil
 }
 
+// writeBudget bounds the chunk buffers of concurrent chunk writers.
+const writeBudget = 64 << 20
+
+// writers is the number of chunks WriteBox encodes at once: each holds a raw
+// chunk and its encoded copy (2 · chunk bytes), so as many as CPUs (at most
+// 4) while their buffers fit in writeBudget, and at least one. For 256³
+// uint16 chunks (32 MiB) that is one writer: ingest of a 1000³ step then
+// holds one 128 MiB band plus 64 MiB of chunk buffers.
+func (z *Zarr) writers() int {
+	return max(1, min(readWorkers, runtime.GOMAXPROCS(0), writeBudget/max(2*z.chunkN*z.size, 1)))
+}
+
 // recycle keeps an encoded chunk's buffer for the next encodeChunk.
 func (z *Zarr) recycle(data []byte) {
 	if z.meta.Compressor != "" {
@@ -783,10 +795,7 @@ func (z *Zarr) WriteBox(ctx context.Context, v volume.Any) error {
 		lo[i] = b.Min[i] / c
 		hi[i] = (b.Max[i] - 1) / c
 	}
-	// Each writer holds a raw chunk and its compressed copy: as many
-	// writers as CPUs (at most 4) keep the cores busy without multiplying
-	// chunk-sized buffers.
-	return forChunks(ctx, lo, hi, min(readWorkers, runtime.GOMAXPROCS(0)), func(idx [3]int) error {
+	return forChunks(ctx, lo, hi, z.writers(), func(idx [3]int) error {
 		data, err := z.encodeChunk(v, idx)
 		if err != nil {
 			return err
