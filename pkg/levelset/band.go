@@ -1,6 +1,7 @@
 package levelset
 
 import (
+	"encoding/binary"
 	"math"
 	"sync"
 
@@ -187,10 +188,7 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 					} else {
 						yy = t
 					}
-					d := dst[((zz-db.Min[0])*ds[1]+(yy-db.Min[1]))*ds[2]:][:ds[2]]
-					for x, v := range row {
-						d[x] |= v
-					}
+					orRow(dst[((zz-db.Min[0])*ds[1]+(yy-db.Min[1]))*ds[2]:][:ds[2]], row)
 				}
 			}
 		}
@@ -218,6 +216,10 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 	for z := bx.Min[0]; z < bx.Max[0]; z++ {
 		for y := bx.Min[1]; y < bx.Max[1]; y++ {
 			m := mx[i : i+sx[2]]
+			if !anySet(m) {
+				i += sx[2]
+				continue
+			}
 			row := lab.Pix[lab.Index(z, y, lo):][:hi-lo]
 			for x := bx.Min[2]; x < bx.Max[2]; x++ {
 				if m[x-bx.Min[2]] == 0 {
@@ -256,6 +258,9 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 				m := mask[j : j+ds[2]]
 				j0 := j
 				j += ds[2]
+				if !anySet(m) {
+					continue
+				}
 				c := [2]int{z, y}[axis]
 				a, b := max(c-r, lo), min(c+r, hi-1)
 				nt := 0
@@ -307,11 +312,30 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 	return out
 }
 
+// anySet reports whether m has a non-zero byte, eight bytes at a time.
 func anySet(m []uint8) bool {
-	for _, v := range m {
+	i := 0
+	for ; i+8 <= len(m); i += 8 {
+		if binary.LittleEndian.Uint64(m[i:]) != 0 {
+			return true
+		}
+	}
+	for _, v := range m[i:] {
 		if v != 0 {
 			return true
 		}
 	}
 	return false
+}
+
+// orRow sets d[x] |= s[x], eight bytes at a time.
+func orRow(d, s []uint8) {
+	s = s[:len(d)]
+	i := 0
+	for ; i+8 <= len(d); i += 8 {
+		binary.LittleEndian.PutUint64(d[i:], binary.LittleEndian.Uint64(d[i:])|binary.LittleEndian.Uint64(s[i:]))
+	}
+	for ; i < len(d); i++ {
+		d[i] |= s[i]
+	}
 }
