@@ -494,12 +494,19 @@ func TestMinIOOutage(t *testing.T) {
 		dropScan(t, f, i, incoming)
 	}
 	waitFor(t, 2*time.Minute, "the worker to hold a tile", func() bool { return metric(wAddr, "sluice_worker_tiles_in_flight") >= 1 })
+	before := metricSum(wAddr, "sluice_tiles_processed_total")
 	c.minio.Stop()
 	down := time.Now()
 	dropScan(t, f, 4, incoming) // a scan that arrives during the outage
 	time.Sleep(10 * time.Second)
+	during := metricSum(wAddr, "sluice_tiles_processed_total")
 	c.minio.Start()
-	t.Logf("MinIO down %.1f s", time.Since(down).Seconds())
+	up := time.Now()
+	waitFor(t, 2*time.Minute, "a tile processed after MinIO is back", func() bool {
+		return metricSum(wAddr, "sluice_tiles_processed_total") > during
+	})
+	t.Logf("MinIO down %.1f s; tiles processed during the outage %g; first tile done %.1f s after it came back",
+		up.Sub(down).Seconds(), during-before, time.Since(up).Seconds())
 	for i := 5; i < len(f.paths); i++ {
 		dropScan(t, f, i, incoming)
 	}
@@ -546,6 +553,17 @@ func TestPoisonTile(t *testing.T) {
 	}
 	f := prepare(t, "faults", 48, 24, 6)
 	bin := binary(t, "faultinject")
+	// Production builds carry no hook: the variable's name is in the
+	// fault-injection binary only.
+	for b, want := range map[string]bool{bin: true, binary(t, ""): false} {
+		exe, err := os.ReadFile(b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := bytes.Contains(exe, []byte("SLUICE_FAULT_CRASH_TILE")); got != want {
+			t.Fatalf("%s: fault-injection hook present %v, want %v", filepath.Base(b), got, want)
+		}
+	}
 	c := newCluster(t, bin, false, 2*time.Second, 3)
 	poisonStep := strings.TrimSuffix(filepath.Base(f.paths[2]), ".raw")
 	const poisonTile = 5
