@@ -38,7 +38,7 @@ bench: build ## run the benchmarks (MVox/s and MB/s figures)
 FUZZ_TARGETS = $(shell for d in $$(grep -rlE '^func Fuzz[A-Za-z0-9_]+' --include='*_test.go' pkg services | xargs -n1 dirname | sort -u); do \
 	for t in $$(grep -hoE '^func Fuzz[A-Za-z0-9_]+' $$d/*_test.go | sed 's/func //'); do echo $$d:$$t; done; done)
 FUZZTIME    ?= 60s
-FUZZCI_TIME ?= 4s
+FUZZCI_TIME ?= 3s
 
 fuzz: ## fuzz every parser for FUZZTIME (60 s) each
 	@for x in $(FUZZ_TARGETS); do d=$${x%%:*}; t=$${x##*:}; \
@@ -46,11 +46,15 @@ fuzz: ## fuzz every parser for FUZZTIME (60 s) each
 	done
 
 fuzz-ci: ## fuzz every parser briefly (FUZZCI_TIME each; part of `make test`)
-	@n=0; for x in $(FUZZ_TARGETS); do d=$${x%%:*}; t=$${x##*:}; n=$$((n+1)); \
-		echo "== fuzz $$d $$t ($(FUZZCI_TIME))"; \
-		$(GO) test -run '^$$' -fuzz "^$$t$$" -fuzztime $(FUZZCI_TIME) -parallel 2 ./$$d > fuzz-ci.log 2>&1 || { cat fuzz-ci.log; rm -f fuzz-ci.log; exit 1; }; \
-		tail -1 fuzz-ci.log; \
-	done; rm -f fuzz-ci.log; echo "fuzz-ci: $$n targets, no failures"
+	@tmp=$$(mktemp -d); n=0; \
+	for d in $$(echo "$(FUZZ_TARGETS)" | tr ' ' '\n' | cut -d: -f1 | sort -u); do \
+		$(GO) test -c -fuzz . -o $$tmp/fuzz.test ./$$d || { rm -rf $$tmp; exit 1; }; \
+		for t in $$(echo "$(FUZZ_TARGETS)" | tr ' ' '\n' | grep "^$$d:" | cut -d: -f2); do n=$$((n+1)); \
+			( cd $$d && $$tmp/fuzz.test -test.run '^$$' -test.fuzz "^$$t$$" -test.fuzztime $(FUZZCI_TIME) -test.parallel 2 \
+				-test.fuzzcachedir $$tmp/cache/$$d > $$tmp/log 2>&1 ) || { cat $$tmp/log; rm -rf $$tmp; exit 1; }; \
+			echo "fuzz $$d $$t: $$(grep -o 'execs: [0-9]*' $$tmp/log | tail -1) in $(FUZZCI_TIME)"; \
+		done; \
+	done; rm -rf $$tmp; echo "fuzz-ci: $$n targets, no failures"
 
 lint: ## gofmt and go vet
 	@test -z "$$(gofmt -l $$(git ls-files '*.go'))" || (gofmt -l $$(git ls-files '*.go'); echo "gofmt needed"; exit 1)
