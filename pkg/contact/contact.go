@@ -792,9 +792,6 @@ func (p *Partial) Histogram1Deg() [180]int64 {
 }
 
 func dot(a, b [3]float64) float64 { return a[0]*b[0] + a[1]*b[1] + a[2]*b[2] }
-func add(a, b [3]float64) [3]float64 {
-	return [3]float64{a[0] + b[0], a[1] + b[1], a[2] + b[2]}
-}
 func sub(a, b [3]float64) [3]float64 {
 	return [3]float64{a[0] - b[0], a[1] - b[1], a[2] - b[2]}
 }
