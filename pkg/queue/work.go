@@ -90,15 +90,11 @@ func (o WorkOptions) withDefaults(p Policy) WorkOptions {
 // connection closes under it.
 func (q *Queue) Work(ctx context.Context, handler Handler, opts WorkOptions) error {
 	opts = opts.withDefaults(q.policy)
-	// Records tasks whose last delivery was never acknowledged. A queue
-	// group: among all workers, one records each.
-	sub, err := q.nc.QueueSubscribe(advisoryMaxDeliveries, deadLetterGroup, func(m *nats.Msg) {
-		q.onMaxDeliveries(m.Data, opts.WorkerID)
-	})
+	unsub, err := q.RecordMaxDeliveries(opts.WorkerID)
 	if err != nil {
-		return fmt.Errorf("queue: subscribe to max-deliveries advisories: %v", err)
+		return err
 	}
-	defer sub.Unsubscribe()
+	defer unsub()
 
 	// Handlers run under hctx, which outlives ctx by DrainTimeout.
 	hctx, hcancel := context.WithCancel(context.WithoutCancel(ctx))
@@ -294,6 +290,23 @@ func (q *Queue) deadLetter(ctx context.Context, d *pb.DeadLetter) {
 		return
 	}
 	q.log.Warn("queue: dead letter", "msg_id", d.MsgId, "seq", d.StreamSeq, "deliveries", d.Deliveries, "reason", d.Reason)
+}
+
+// RecordMaxDeliveries records, as dead letters, the tasks whose last
+// delivery was never acknowledged, from the server's max-deliveries
+// advisories, until the returned function is called. Every Work call does
+// it; a long-lived process that works no tasks (the aggregator) should too:
+// the advisory is not stored, so when a poison tile has crashed every worker
+// and none is running at that moment, only such a process hears it. The
+// subscribers form a queue group, so each advisory is recorded once.
+func (q *Queue) RecordMaxDeliveries(who string) (stop func(), err error) {
+	sub, err := q.nc.QueueSubscribe(advisoryMaxDeliveries, deadLetterGroup, func(m *nats.Msg) {
+		q.onMaxDeliveries(m.Data, who)
+	})
+	if err != nil {
+		return nil, fmt.Errorf("queue: subscribe to max-deliveries advisories: %v", err)
+	}
+	return func() { _ = sub.Unsubscribe() }, nil
 }
 
 // maxDeliveriesAdvisory is the part of the server's

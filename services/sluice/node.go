@@ -311,6 +311,14 @@ func runWorkers(ctx context.Context, q *queue.Queue, st store.Store, m *telemetr
 // runAggregator consumes step announcements and tile results and watches
 // the dead-letter records and the queue backlog until ctx ends.
 func runAggregator(ctx context.Context, q *queue.Queue, a *aggregator.Aggregator, m *telemetry.Aggregator, log *slog.Logger) error {
+	// The aggregator outlives crashing workers: it too records tiles that
+	// ran out of deliveries.
+	host, _ := os.Hostname()
+	stopDead, err := q.RecordMaxDeliveries(fmt.Sprintf("aggregator@%s:%d", host, os.Getpid()))
+	if err != nil {
+		return err
+	}
+	defer stopDead()
 	errc := make(chan error, 3)
 	go func() { errc <- q.StepsReady(ctx, a.StepReady) }()
 	go func() { errc <- q.Results(ctx, a.TileDone) }()

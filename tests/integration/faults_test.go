@@ -542,9 +542,11 @@ func TestMinIOOutage(t *testing.T) {
 
 // TestPoisonTile: one tile kills every worker process that takes it (a
 // fault-injection hook compiled only with -tags faultinject). A supervisor
-// restarts the worker, as systemd or Kubernetes would. The tile is
-// delivered MaxDeliver = 3 times, then recorded as a dead letter from the
-// server's max-deliveries advisory; its step is failed with that reason on
+// restarts the worker, as systemd or Kubernetes would — after the third
+// crash only after a pause, so that no worker runs when the server gives
+// the tile up. The tile is delivered MaxDeliver = 3 times, then recorded as
+// a dead letter from the server's max-deliveries advisory by the
+// aggregator; its step is failed with that reason on
 // the aggregator's API and in `sluice status`; every other step, before and
 // after it, completes with the undisturbed run's values.
 func TestPoisonTile(t *testing.T) {
@@ -594,7 +596,17 @@ func TestPoisonTile(t *testing.T) {
 				if w.ProcessState.ExitCode() == 86 {
 					crashes++
 				}
+				n := crashes
 				mu.Unlock()
+				if n == 3 {
+					// Restart late, as a crash-looping pod is: no worker
+					// runs when the server gives the tile up, and only the
+					// aggregator hears the advisory.
+					select {
+					case <-ctx.Done():
+					case <-time.After(6 * time.Second):
+					}
+				}
 			case <-ctx.Done():
 				w.Process.Signal(os.Interrupt)
 				<-done
@@ -625,10 +637,13 @@ func TestPoisonTile(t *testing.T) {
 		t.Fatalf("%d dead letters, want 1", len(dls))
 	}
 	dl := dls[0]
-	t.Logf("dead letter: task %s, %d deliveries, reason %q", dl.MsgId, dl.Deliveries, dl.Reason)
+	t.Logf("dead letter: task %s, %d deliveries, recorded by %s, reason %q", dl.MsgId, dl.Deliveries, dl.WorkerId, dl.Reason)
 	if dl.Task == nil || dl.Task.Step != poisonStep || dl.Task.Tile != poisonTile || dl.Deliveries != 3 ||
 		!strings.Contains(dl.Reason, "no acknowledgement on any of 3 deliveries") {
 		t.Errorf("dead letter %v", dl)
+	}
+	if !strings.HasPrefix(dl.WorkerId, "aggregator@") {
+		t.Errorf("dead letter recorded by %q; with no worker running only the aggregator could", dl.WorkerId)
 	}
 
 	// The series: every step but the poisoned one, with the undisturbed values.
