@@ -2,7 +2,12 @@
 // reconstructions before segmentation:
 //
 //   - Median3: the 3×3×3 median (Tukey's running median in 3-D; common
-//     practice for speckle and ring residue in micro-CT);
+//     practice for speckle and ring residue in micro-CT); Median3Integer and
+//     Median3Rows compute it exactly on uint8/uint16 voxels (same networks,
+//     no float copy), and Median3Levels tells only how many given grey
+//     levels the median exceeds, by threshold decomposition (Fitch, Coyle &
+//     Gallagher 1984, IEEE Trans. ASSP 32:1183): a box count per level,
+//     no sorting;
 //   - Gaussian: a separable Gaussian with the kernel of scipy.ndimage
 //     (weights exp(−x²/2σ²) normalised to sum 1, radius int(truncate·σ + 0.5),
 //     truncate 4 by default), applied along z, then y, then x;

@@ -76,14 +76,7 @@ func Median3Levels[T Integer](in *volume.Volume[T], core volume.Box, cuts []int,
 			ringZ[k] = zz
 			for yy := ya; yy < yb; yy++ {
 				src := in.Pix[(zz-ib.Min[0])*nyx+(yy-ib.Min[1])*s[2]+xa-ib.Min[2]:][:len(wrow)]
-				for i, v := range src {
-					vi := int32(v)
-					var w uint32
-					for c := 0; c < nc; c++ {
-						w |= uint32((cs[c]-vi)>>31&1) << (8 * c)
-					}
-					wrow[i] = w
-				}
+				indicators(wrow, src, &cs, nc)
 				d := xs[(yy-ya)*ncx:][:ncx]
 				o := core.Min[2] - xa // index in wrow of output 0
 				if ncx == 1 {
@@ -126,4 +119,32 @@ func Median3Levels[T Integer](in *volume.Volume[T], core volume.Box, cuts []int,
 		}
 	})
 	return nil
+}
+
+// indicators writes the packed indicators of a row: byte k of w[i] is 1
+// when v[i] > cut k (cs[k] − v < 0), else 0.
+func indicators[T Integer](w []uint32, v []T, cs *[MaxLevels]int32, nc int) {
+	w = w[:len(v)]
+	switch nc {
+	case 1:
+		c0 := cs[0]
+		for i, x := range v {
+			w[i] = uint32((c0 - int32(x)) >> 31 & 1)
+		}
+	case 2:
+		c0, c1 := cs[0], cs[1]
+		for i, x := range v {
+			xi := int32(x)
+			w[i] = uint32((c0-xi)>>31&1) | uint32((c1-xi)>>31&1)<<8
+		}
+	default:
+		for i, x := range v {
+			xi := int32(x)
+			var u uint32
+			for c := 0; c < nc; c++ {
+				u |= uint32((cs[c]-xi)>>31&1) << (8 * c)
+			}
+			w[i] = u
+		}
+	}
 }

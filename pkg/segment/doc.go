@@ -127,6 +127,22 @@
 // (checked with 1, 8 and 27 tiles, every stage on, two local-fluid passes
 // in 3-class mode).
 //
+// # Integer grey without a float copy
+//
+// uint8 and uint16 tiles with the median (or no) filter are never converted
+// to float32 as a whole. With the median, Segment only compares the median
+// with fixed grey levels (the class thresholds and, with hysteresis, the
+// band edges tn ± band; for integer v, v > t ⇔ v > ⌊t⌋), so it asks
+// filter.Median3Levels how many of those levels each median exceeds —
+// threshold decomposition (Fitch, Coyle & Gallagher 1984): a count of the
+// voxels above each level over the 3×3×3 window, no sorting — and labels
+// row by row on the filter's goroutines. Without a filter a table maps each
+// grey value to its class. Histogram bins the exact integer median
+// (filter.Median3Rows) converted to float32 over the core only. All paths
+// give the labels of the float32 path bit for bit (tested on uint16 against
+// its float32 conversion, every stage on in turn, and with 1/8/27 tiles).
+// Partial-volume correction, Gaussian and NLM still run on float32.
+//
 // # Accuracy on forward-model scans
 //
 // TestAccuracyForwardModel renders the demo's rock at 128³ — a cemented

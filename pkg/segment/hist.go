@@ -3,7 +3,6 @@ package segment
 import (
 	"fmt"
 	"math"
-	"sort"
 
 	"sluice/pkg/filter"
 	"sluice/pkg/volume"
@@ -253,29 +252,28 @@ func Histogram(grey volume.Any, core volume.Box, p Params, solid *volume.Labels)
 	if p.Reference {
 		h.Solid = make([]int64, n)
 	}
+	// Blocks of the core: by0..by1 × bx0..bx1, held in (BY, BX) order.
 	B := p.SampleBlock
-	cols := map[[2]int]*Column{}
+	by0, bx0 := floorDiv(core.Min[1], B), floorDiv(core.Min[2], B)
+	nbx := floorDiv(core.Max[2]-1, B) - bx0 + 1
+	h.Columns = make([]Column, (floorDiv(core.Max[1]-1, B)-by0+1)*nbx)
+	for k := range h.Columns {
+		h.Columns[k].BY, h.Columns[k].BX = by0+k/nbx, bx0+k%nbx
+	}
+	spans := sampleSpans(p.Sample, core)
 	i := 0
 	for z := core.Min[0]; z < core.Max[0]; z++ {
 		for y := core.Min[1]; y < core.Max[1]; y++ {
-			by := floorDiv(y, B)
-			var c *Column
-			cbx := math.MinInt
+			cr := h.Columns[(floorDiv(y, B)-by0)*nbx:][:nbx]
+			sp := spans[y-core.Min[1]]
 			for x := core.Min[2]; x < core.Max[2]; x++ {
 				b := binOf(float64(f.Pix[i]), lo, width, n)
 				i++
-				if bx := floorDiv(x, B); bx != cbx {
-					cbx = bx
-					c = cols[[2]int{by, bx}]
-					if c == nil {
-						c = &Column{BY: by, BX: bx}
-						cols[[2]int{by, bx}] = c
-					}
-				}
+				c := &cr[floorDiv(x, B)-bx0]
 				c.N++
 				c.Sum += int64(b)
 				c.SumSq += int64(b) * int64(b)
-				if !p.Sample.Inside(y, x) {
+				if xi := x - core.Min[2]; xi < sp[0] || xi >= sp[1] {
 					continue
 				}
 				if p.Reference && !poreMask(solid, p, z, y, x) {
@@ -291,14 +289,6 @@ func Histogram(grey volume.Any, core volume.Box, p Params, solid *volume.Labels)
 			}
 		}
 	}
-	h.Columns = make([]Column, 0, len(cols))
-	for _, c := range cols {
-		h.Columns = append(h.Columns, *c)
-	}
-	sort.Slice(h.Columns, func(a, b int) bool {
-		x, y := h.Columns[a], h.Columns[b]
-		return x.BY < y.BY || (x.BY == y.BY && x.BX < y.BX)
-	})
 	return h, nil
 }
 

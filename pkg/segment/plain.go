@@ -3,6 +3,7 @@ package segment
 import (
 	"fmt"
 	"math"
+	"slices"
 
 	"sluice/pkg/filter"
 	"sluice/pkg/phase"
@@ -12,39 +13,37 @@ import (
 // plainLabels filters grey over box out and labels every voxel of out by
 // the class of its filtered grey: phase.Outside outside the sample
 // cylinder, the reference mask's code outside the pore space (reference
-// mode), else the code of the grey class. With keepGrey it also returns the
-// filtered grey over out (hysteresis needs it).
+// mode), else the code of the grey class. With hyst it also returns what
+// the hysteresis needs: the hysteresis kind of every voxel, or else the
+// filtered grey over out.
 //
 // uint8 and uint16 grey with the median (or no) filter never become
-// float32. Without hysteresis only the class of the median matters, and
-// filter.Median3Levels gives it by threshold decomposition (counts of
-// voxels above each threshold, no sorting); with hysteresis the integer
-// median (exact, the same values as the float median) is classified row by
-// row through a table of the class code of every grey value. Both run on
-// the goroutines of the filter. Other inputs are filtered as float32 first.
-func plainLabels(grey volume.Any, out volume.Box, p Params, c *classes, mask *volume.Labels, keepGrey bool) (*volume.Labels, *volume.Volume[float32], error) {
-	rl := &rowLabeller{p: p, c: c, mask: mask, out: out, lab: volume.New[uint8](out, grey.EdgeLength())}
+// float32. With the median, only comparisons of the median with fixed grey
+// levels matter (class thresholds, hysteresis band edges), and
+// filter.Median3Levels gives them by threshold decomposition (counts of
+// voxels above each level, no sorting). Unfiltered integer grey is
+// classified row by row through a table of the class code of every grey
+// value. Other inputs are filtered as float32 first.
+func plainLabels(grey volume.Any, out volume.Box, p Params, c *classes, mask *volume.Labels, hyst bool) (*volume.Labels, *volume.Volume[float32], []uint8, error) {
+	rl := &rowLabeller{p: p, c: c, mask: mask, out: out, lab: volume.New[uint8](out, grey.EdgeLength()), hyst: hyst}
 	rl.span = sampleSpans(p.Sample, out)
-	if keepGrey {
-		rl.g = volume.New[float32](out, 0)
-	}
 	integer := p.Filter.Method == "median" || p.Filter.Method == "none"
 	var err error
 	switch v := grey.(type) {
 	case *volume.Volume[uint16]:
 		if integer {
 			err = intLabels(v, rl, p.Filter.Method == "median")
-			return rl.lab, rl.g, err
+			return rl.lab, rl.g, rl.kind, err
 		}
 	case *volume.Volume[uint8]:
 		if integer {
 			err = intLabels(v, rl, p.Filter.Method == "median")
-			return rl.lab, rl.g, err
+			return rl.lab, rl.g, rl.kind, err
 		}
 	}
 	f, err := filtered(grey, out, p)
 	if err != nil {
-		return nil, nil, err
+		return nil, nil, nil, err
 	}
 	nx := out.Max[2] - out.Min[2]
 	for z := out.Min[0]; z < out.Max[0]; z++ {
@@ -57,10 +56,10 @@ func plainLabels(grey volume.Any, out volume.Box, p Params, c *classes, mask *vo
 			rl.masked(z, y, dst, x0, x1)
 		}
 	}
-	if keepGrey {
+	if hyst {
 		rl.g = f
 	}
-	return rl.lab, rl.g, nil
+	return rl.lab, rl.g, nil, nil
 }
 
 // rowLabeller writes the labels (and grey) of box out row by row; rows are
@@ -71,7 +70,9 @@ type rowLabeller struct {
 	mask *volume.Labels
 	out  volume.Box
 	lab  *volume.Labels
+	hyst bool // hysteresis follows: keep g, or kind
 	g    *volume.Volume[float32]
+	kind []uint8 // hysteresis kinds over out, same layout as lab
 	// span[y−out.Min[1]] is the x range [x0, x1), relative to out.Min[2],
 	// of row y inside the sample cylinder.
 	span [][2]int
@@ -141,20 +142,66 @@ func intLabels[T filter.Integer](v *volume.Volume[T], rl *rowLabeller, median bo
 	}
 	out := rl.out
 	nx := out.Max[2] - out.Min[2]
-	if median && rl.g == nil && len(rl.c.t) <= filter.MaxLevels {
-		// Only the class of the median is needed: count, do not sort. For
-		// integer v, v > t ⇔ v > ⌊t⌋ (cuts clamped to the int range).
-		cuts := make([]int, len(rl.c.t))
-		for k, t := range rl.c.t {
-			cuts[k] = int(math.Max(math.Min(math.Floor(t), 1<<20), -1))
+	if median {
+		// Threshold decomposition: the median is only compared with fixed
+		// grey levels (the class thresholds and, with hysteresis, the band
+		// edges tn ± band), and for integer v, v > t ⇔ v > ⌊t⌋. The count
+		// of sorted distinct cuts below the median gives every comparison.
+		var raw []float64
+		raw = append(raw, rl.c.t...)
+		if rl.hyst {
+			raw = append(raw, rl.c.tn-rl.c.band, rl.c.tn+rl.c.band)
 		}
-		return filter.Median3Levels(v, out, cuts, func(z, y int, above []uint8) {
-			dst, x0, x1 := rl.row(z, y)
-			for i, k := range above[x0:x1] {
-				dst[x0+i] = rl.c.codes[k]
+		cuts := make([]int, 0, len(raw))
+		for _, t := range raw {
+			cuts = append(cuts, int(math.Max(math.Min(math.Floor(t), 1<<20), -1)))
+		}
+		slices.Sort(cuts)
+		cuts = slices.Compact(cuts)
+		// above(t, k): the median lies above t when k cuts lie below it.
+		above := func(t float64, k int) bool {
+			ct := int(math.Max(math.Min(math.Floor(t), 1<<20), -1))
+			return slices.Index(cuts, ct) < k
+		}
+		if len(cuts) <= filter.MaxLevels {
+			n := len(cuts) + 1
+			code := make([]uint8, n)
+			strict, relaxed := make([]bool, n), make([]bool, n)
+			for k := range code {
+				cls := 0
+				for _, t := range rl.c.t {
+					if above(t, k) {
+						cls++
+					}
+				}
+				code[k] = rl.c.codes[cls]
+				lo, hi := above(rl.c.tn-rl.c.band, k), above(rl.c.tn+rl.c.band, k)
+				if rl.c.darkSide {
+					strict[k], relaxed[k] = !lo, !hi
+				} else {
+					strict[k], relaxed[k] = hi, lo
+				}
 			}
-			rl.masked(z, y, dst, x0, x1)
-		})
+			if rl.hyst {
+				rl.kind = make([]uint8, len(rl.lab.Pix))
+			}
+			return filter.Median3Levels(v, out, cuts, func(z, y int, ks []uint8) {
+				dst, x0, x1 := rl.row(z, y)
+				for i, k := range ks[x0:x1] {
+					dst[x0+i] = code[k]
+				}
+				rl.masked(z, y, dst, x0, x1)
+				if rl.kind != nil {
+					kr := rl.kind[rl.lab.Index(z, y, out.Min[2]):][:nx]
+					for i, k := range ks {
+						kr[i] = rl.c.kindOf(dst[i], strict[k], relaxed[k])
+					}
+				}
+			})
+		}
+	}
+	if rl.hyst {
+		rl.g = volume.New[float32](out, 0)
 	}
 	emit := func(z, y int, row []T) {
 		dst, x0, x1 := rl.row(z, y)

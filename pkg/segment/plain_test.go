@@ -26,10 +26,16 @@ func TestIntegerPathMatchesFloat(t *testing.T) {
 	mask := idealMask(truth)
 	core := volume.Box{Min: [3]int{4, 3, 5}, Max: [3]int{22, 24, 20}}
 	cases := map[string]func(p *Params){
-		"plain":     func(p *Params) {},
-		"none":      func(p *Params) { p.Filter.Method = "none" },
-		"sample":    func(p *Params) { p.Sample = Sample{Y: 12.5, X: 13, Radius: 11} },
-		"hyst+isl":  func(p *Params) { p.Hysteresis = Hysteresis{Band: 600, Steps: 2}; p.MinIsland = 4 },
+		"plain":    func(p *Params) {},
+		"none":     func(p *Params) { p.Filter.Method = "none" },
+		"sample":   func(p *Params) { p.Sample = Sample{Y: 12.5, X: 13, Radius: 11} },
+		"hyst+isl": func(p *Params) { p.Hysteresis = Hysteresis{Band: 600, Steps: 2}; p.MinIsland = 4 },
+		"hyst-bright": func(p *Params) {
+			p.Order = "wsn"
+			p.Hysteresis = Hysteresis{Band: 900, Steps: 3}
+			p.Sample = Sample{Y: 12.5, X: 13, Radius: 11}
+		},
+		"hyst-ref":  func(p *Params) { p.Reference = true; p.Hysteresis = Hysteresis{Band: 600, Steps: 2} },
 		"reference": func(p *Params) { p.Reference = true; p.Sample = Sample{Y: 12, X: 12, Radius: 10} },
 		"pv":        func(p *Params) { p.PartialVolume.Blur = 0.7 },
 	}
@@ -187,6 +193,11 @@ func BenchmarkSegmentThreshold(b *testing.B) {
 // BenchmarkSegmentHysteresis: no filter, hysteresis of 4 steps.
 func BenchmarkSegmentHysteresis(b *testing.B) {
 	benchSegment(b, func(p *Params) { p.Filter.Method = "none"; p.Hysteresis = Hysteresis{Band: 600, Steps: 4} })
+}
+
+// BenchmarkSegmentMedianHysteresis: median, hysteresis of 4 steps.
+func BenchmarkSegmentMedianHysteresis(b *testing.B) {
+	benchSegment(b, func(p *Params) { p.Hysteresis = Hysteresis{Band: 600, Steps: 4} })
 }
 
 // BenchmarkSegmentIslands: no filter, island removal below 8 voxels.

@@ -69,13 +69,14 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	}
 	c := classifier(p, th)
 	var (
-		lab *volume.Labels
-		g   *volume.Volume[float32]
-		err error
+		lab  *volume.Labels
+		g    *volume.Volume[float32]
+		kind []uint8 // hysteresis kinds, when the labelling gave them
+		err  error
 	)
 	if p.PartialVolume.Blur == 0 {
 		// Plain pass: l0 == l1; filter and classify row by row.
-		if lab, g, err = plainLabels(grey, l1, p, c, solid, steps > 0); err != nil {
+		if lab, g, kind, err = plainLabels(grey, l1, p, c, solid, steps > 0); err != nil {
 			return nil, err
 		}
 	} else {
@@ -123,7 +124,10 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	}
 	lab.VoxelSize = grey.EdgeLength()
 	if steps > 0 {
-		c.hysteresis(lab, g, steps)
+		if kind == nil {
+			kind = c.kinds(lab, g)
+		}
+		c.grow(lab, kind, steps)
 	}
 	if isl > 0 {
 		removeIslands(lab, l2, p.MinIsland, p.Codes)
@@ -315,23 +319,33 @@ func (c *classes) fluid(g float64) uint8 {
 	return c.fluidLo
 }
 
-// hysteresis: seeds are nonwetting voxels beyond tn by more than band;
+// Hysteresis kinds of voxels.
+const (
+	other = iota
+	seed
+	cand
+)
+
+// kindOf: seeds are nonwetting voxels beyond tn by more than band (strict);
 // candidates are voxels of the nonwetting or the next class within band of
-// tn. Candidates at most steps face moves from a seed through candidates
-// become nonwetting; the others become the next class.
-func (c *classes) hysteresis(lab *volume.Labels, f *volume.Volume[float32], steps int) {
-	s := lab.Box.Size()
-	nyx := s[1] * s[2]
-	const (
-		other = iota
-		seed
-		cand
-	)
+// tn (relaxed but not strict).
+func (c *classes) kindOf(l uint8, strict, relaxed bool) uint8 {
+	switch {
+	case l != c.n && l != c.next:
+		return other
+	case strict && l == c.n:
+		return seed
+	case relaxed && !strict:
+		return cand
+	}
+	return other
+}
+
+// kinds returns the hysteresis kind of every voxel of lab from the filtered
+// grey f (same box).
+func (c *classes) kinds(lab *volume.Labels, f *volume.Volume[float32]) []uint8 {
 	kind := make([]uint8, len(lab.Pix))
-	dist := make([]int8, len(lab.Pix))
-	var queue []int32
 	for i, l := range lab.Pix {
-		dist[i] = -1
 		if l != c.n && l != c.next {
 			continue
 		}
@@ -342,13 +356,24 @@ func (c *classes) hysteresis(lab *volume.Labels, f *volume.Volume[float32], step
 		} else {
 			strict, relaxed = v > c.tn+c.band, v > c.tn-c.band
 		}
-		switch {
-		case strict && l == c.n:
-			kind[i] = seed
+		kind[i] = c.kindOf(l, strict, relaxed)
+	}
+	return kind
+}
+
+// grow is the hysteresis proper: candidates at most steps face moves from a
+// seed through candidates become nonwetting; the other candidates become
+// the next class.
+func (c *classes) grow(lab *volume.Labels, kind []uint8, steps int) {
+	s := lab.Box.Size()
+	nyx := s[1] * s[2]
+	dist := make([]int8, len(lab.Pix))
+	var queue []int32
+	for i, k := range kind {
+		dist[i] = -1
+		if k == seed {
 			dist[i] = 0
 			queue = append(queue, int32(i))
-		case relaxed && !strict:
-			kind[i] = cand
 		}
 	}
 	for head := 0; head < len(queue); head++ {
