@@ -308,6 +308,15 @@ func badTasks(t *testing.T, url, root, hash string) {
 	if _, err := q.PublishTask(ctx, task); err != nil {
 		t.Fatal(err)
 	}
+	// A forged task: a valid box whose result key points at another step's
+	// objects. The worker must refuse it rather than overwrite them.
+	forged := proto.CloneOf(task)
+	forged.Tile = 5 // not a tile ingest published, so not a duplicate id
+	forged.Core = &sluicepb.Box{MaxZ: 16, MaxY: 16, MaxX: 16}
+	forged.ResultKey = "campaigns/bad/steps/scan-0002/tiles/" + hash + "/5.json"
+	if _, err := q.PublishTask(ctx, forged); err != nil {
+		t.Fatal(err)
+	}
 	wctx, stop := context.WithCancel(ctx)
 	done := make(chan error, 1)
 	go func() {
@@ -320,17 +329,17 @@ func badTasks(t *testing.T, url, root, hash string) {
 			t.Fatal(err)
 		}
 		dead = all
-		if len(all) >= 2 {
+		if len(all) >= 3 {
 			break
 		}
 		time.Sleep(200 * time.Millisecond)
 	}
 	stop()
 	<-done
-	if len(dead) != 2 {
-		t.Fatalf("%d dead letters, want 2", len(dead))
+	if len(dead) != 3 {
+		t.Fatalf("%d dead letters, want 3", len(dead))
 	}
-	var poison, box bool
+	var poison, box, keys bool
 	for _, d := range dead {
 		t.Logf("dead letter: %s", d.Reason)
 		if strings.Contains(d.Reason, "\n") {
@@ -341,10 +350,18 @@ func badTasks(t *testing.T, url, root, hash string) {
 			poison = true
 		case d.Task != nil && strings.Contains(d.Reason, "outside scan"):
 			box = true
+			if d.Deliveries != 1 {
+				t.Errorf("box outside the scan was delivered %d times, want 1 (permanent)", d.Deliveries)
+			}
+		case d.Task != nil && strings.Contains(d.Reason, "result key") && strings.Contains(d.Reason, "scan-0002"):
+			keys = true
 		}
 	}
-	if !poison || !box {
-		t.Errorf("dead letters do not name both problems (poison %v, box %v)", poison, box)
+	if !poison || !box || !keys {
+		t.Errorf("dead letters do not name all three problems (poison %v, box %v, forged keys %v)", poison, box, keys)
+	}
+	if _, err := st.Get(context.Background(), forged.ResultKey); err == nil {
+		t.Errorf("a result was written under the forged key")
 	}
 	if _, err := st.Get(context.Background(), task.ResultKey); err == nil {
 		t.Errorf("a result was written for the out-of-range tile")

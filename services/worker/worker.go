@@ -21,6 +21,7 @@ import (
 
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
+	"sluice/pkg/queue"
 	"sluice/pkg/scan"
 	"sluice/pkg/telemetry"
 	"sluice/pkg/volio"
@@ -128,6 +129,9 @@ func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.T
 	if err != nil {
 		return nil, err
 	}
+	if err := checkKeys(step, t); err != nil {
+		return nil, queue.Permanent(err)
+	}
 	p, err := w.load(ctx, cs, step, t.ParamHash)
 	if err != nil {
 		return nil, fmt.Errorf("worker: %s tile %d: %w", step.Dir(), t.Tile, err)
@@ -135,7 +139,8 @@ func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.T
 	whole := p.man.Whole()
 	core := ingest.BoxFromProto(t.Core)
 	if core.Empty() || !whole.ContainsBox(core) {
-		return nil, fmt.Errorf("worker: %s tile %d: core %v outside scan %v", step.Dir(), t.Tile, core, whole)
+		// No retry can mend a box outside the scan: dead-letter at once.
+		return nil, queue.Permanent(fmt.Errorf("worker: %s tile %d: core %v outside scan %v", step.Dir(), t.Tile, core, whole))
 	}
 	box := core.Grow(p.plan.Halo).Intersect(whole)
 	grey, err := readBox(ctx, cs, t.InputKey, box)
@@ -182,6 +187,26 @@ func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.T
 	return &sluicepb.TileDone{Campaign: t.Campaign, Step: t.Step, Tile: t.Tile, TileCount: t.TileCount, ParamHash: t.ParamHash,
 		ResultKey: t.ResultKey, LabelKey: t.LabelKey, WorkerId: w.ID, Attempt: t.Attempt, Stages: stages,
 		BytesRead: cs.read, BytesWritten: cs.written, TimeS: t.TimeS, FinishedAt: timestamppb.Now(), PublishedAt: t.PublishedAt}, nil
+}
+
+// checkKeys refuses a task whose object keys are not the ones the layout
+// gives its step, tile and parameter hash: the keys travel in the message,
+// and a forged or corrupted task must not make a worker read or overwrite
+// another step's objects.
+func checkKeys(step layout.Step, t *sluicepb.TileTask) error {
+	rk, err := step.TileResult(int(t.Tile), t.ParamHash)
+	if err != nil {
+		return fmt.Errorf("worker: %s tile %d: %w", step.Dir(), t.Tile, err)
+	}
+	switch {
+	case t.InputKey != step.Volume():
+		return fmt.Errorf("worker: %s tile %d: input key %q is not the step's volume %q", step.Dir(), t.Tile, t.InputKey, step.Volume())
+	case t.ResultKey != rk:
+		return fmt.Errorf("worker: %s tile %d: result key %q is not %q", step.Dir(), t.Tile, t.ResultKey, rk)
+	case t.LabelKey != step.Labels() && t.LabelKey != campaign.RunLabelsKey(step, t.ParamHash):
+		return fmt.Errorf("worker: %s tile %d: label key %q belongs to no run of this step", step.Dir(), t.Tile, t.LabelKey)
+	}
+	return nil
 }
 
 // writeLabels writes the tile's label chunk, creating the label array on
