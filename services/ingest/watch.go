@@ -3,6 +3,7 @@ package ingest
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"log/slog"
 	"os"
@@ -12,6 +13,7 @@ import (
 	"time"
 
 	"sluice/pkg/layout"
+	"sluice/pkg/volio"
 )
 
 // Arrival is one scan found complete in a watched directory.
@@ -119,7 +121,14 @@ func (w *Watcher) retry(a Arrival, err error) {
 		return
 	}
 	wait := w.Poll << n
-	w.Log.Warn("ingest failed; will try the scan again", "path", a.Path, "attempt", n, "in", wait, "err", err)
+	if badInput(err) {
+		// The file itself is at fault: say so at error level now, not only
+		// when the attempts run out. It is still offered again, in case it
+		// is replaced by a good copy under the same name.
+		w.Log.Error("ingest failed: bad scan file; will look at it again", "path", a.Path, "attempt", n, "in", wait, "err", err)
+	} else {
+		w.Log.Warn("ingest failed; will try the scan again", "path", a.Path, "attempt", n, "in", wait, "err", err)
+	}
 	delete(w.seen, name)
 	w.after[name] = time.Now().Add(wait)
 }
@@ -245,4 +254,10 @@ func treeSize(path string) (int64, time.Time, error) {
 		return nil
 	})
 	return size, latest, err
+}
+
+// badInput reports whether err is a fault of the scan file (truncated,
+// malformed, too large) rather than of the store or the queue.
+func badInput(err error) bool {
+	return errors.Is(err, volio.ErrTruncated) || errors.Is(err, volio.ErrFormat) || errors.Is(err, volio.ErrTooLarge)
 }
