@@ -299,13 +299,36 @@ func runWorkers(ctx context.Context, q *queue.Queue, st store.Store, m *telemetr
 			}
 			return err
 		}
-		if _, err := q.PublishResult(ctx, done); err != nil {
+		if err := publishResult(ctx, q, done, log); err != nil {
 			m.TilesFailed.WithLabelValues("publish").Inc()
 			return err
 		}
 		m.TilesProcessed.WithLabelValues(prio).Inc()
 		return nil
 	}, queue.WorkOptions{Concurrency: concurrency, WorkerID: id})
+}
+
+// publishResult publishes a finished tile's result, retrying with a
+// growing pause for up to a minute while NATS is unreachable: the tile's
+// heartbeat keeps the task ours meanwhile, so an outage shorter than that
+// costs no recomputation and no delivery attempt. The result's message id
+// makes a publish that did reach the server before an error a duplicate.
+func publishResult(ctx context.Context, q *queue.Queue, done *sluicepb.TileDone, log *slog.Logger) error {
+	const budget = time.Minute
+	start, wait := time.Now(), 250*time.Millisecond
+	for attempt := 1; ; attempt++ {
+		_, err := q.PublishResult(ctx, done)
+		if err == nil || ctx.Err() != nil || time.Since(start)+wait > budget {
+			return err
+		}
+		log.Warn("result publish failed; retrying", "campaign", done.Campaign, "step", done.Step, "tile", done.Tile, "attempt", attempt, "in", wait, "err", err)
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case <-time.After(wait):
+		}
+		wait = min(2*wait, 5*time.Second)
+	}
 }
 
 // runAggregator consumes step announcements and tile results and watches
