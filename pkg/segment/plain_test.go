@@ -2,6 +2,7 @@ package segment
 
 import (
 	"math"
+	"math/rand/v2"
 	"syscall"
 	"testing"
 	"time"
@@ -224,4 +225,89 @@ func BenchmarkHistogram(b *testing.B) {
 		}
 	}
 	reportThroughput(b, core.Voxels(), cpuTime()-c0)
+}
+
+// growReference is the multi-source breadth-first search the package used
+// before (all seeds queued at distance 0, expansion while the distance is
+// below steps): the definition of the bounded hysteresis, written plainly.
+func growReference(c *classes, lab *volume.Labels, kind []uint8, steps int) {
+	s := lab.Box.Size()
+	nyx := s[1] * s[2]
+	dist := make([]int, len(kind))
+	var queue []int
+	for i, k := range kind {
+		dist[i] = -1
+		if k == seed {
+			dist[i] = 0
+			queue = append(queue, i)
+		}
+	}
+	for head := 0; head < len(queue); head++ {
+		i := queue[head]
+		if dist[i] >= steps {
+			continue
+		}
+		z, y, x := i/nyx, i%nyx/s[2], i%s[2]
+		for _, d := range [][3]int{{0, 0, -1}, {0, 0, 1}, {0, -1, 0}, {0, 1, 0}, {-1, 0, 0}, {1, 0, 0}} {
+			zz, yy, xx := z+d[0], y+d[1], x+d[2]
+			if zz < 0 || yy < 0 || xx < 0 || zz >= s[0] || yy >= s[1] || xx >= s[2] {
+				continue
+			}
+			j := (zz*s[1]+yy)*s[2] + xx
+			if kind[j] == cand && dist[j] < 0 {
+				dist[j] = dist[i] + 1
+				queue = append(queue, j)
+			}
+		}
+	}
+	for i, k := range kind {
+		if k == cand {
+			if dist[i] >= 0 {
+				lab.Pix[i] = c.n
+			} else if lab.Pix[i] == c.n {
+				lab.Pix[i] = c.next
+			}
+		}
+	}
+}
+
+// TestGrowMatchesReference runs the layered hysteresis against the plain
+// multi-source search on random kinds (fixed seeds), for 1..6 steps.
+// Source: the definition in the package doc (bounded face-path growth).
+func TestGrowMatchesReference(t *testing.T) {
+	c := &classes{n: 2, next: 1}
+	for trial := uint64(0); trial < 12; trial++ {
+		rng := rand.New(rand.NewPCG(trial, 17))
+		box := volume.BoxOf(5+rng.IntN(6), 4+rng.IntN(7), 3+rng.IntN(9))
+		lab := volume.New[uint8](box, 1)
+		kind := make([]uint8, len(lab.Pix))
+		for i := range kind {
+			r := rng.Float64()
+			switch {
+			case r < 0.05:
+				kind[i], lab.Pix[i] = seed, c.n
+			case r < 0.6:
+				kind[i] = cand
+				lab.Pix[i] = []uint8{c.n, c.next}[rng.IntN(2)]
+			default:
+				lab.Pix[i] = []uint8{0, c.next}[rng.IntN(2)]
+			}
+		}
+		steps := 1 + int(trial%6)
+		want := lab.Clone()
+		growReference(c, want, kind, steps)
+		c.grow(lab, kind, steps)
+		changed := 0
+		for i := range lab.Pix {
+			if lab.Pix[i] != want.Pix[i] {
+				t.Fatalf("trial %d steps %d voxel %d: %d, reference %d", trial, steps, i, lab.Pix[i], want.Pix[i])
+			}
+			if kind[i] == cand && lab.Pix[i] == c.n {
+				changed++
+			}
+		}
+		if changed == 0 {
+			t.Fatalf("trial %d: no candidate reached", trial)
+		}
+	}
 }

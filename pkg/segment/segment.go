@@ -364,55 +364,68 @@ func (c *classes) kinds(lab *volume.Labels, f *volume.Volume[float32]) []uint8 {
 // grow is the hysteresis proper: candidates at most steps face moves from a
 // seed through candidates become nonwetting; the other candidates become
 // the next class.
+//
+// Breadth-first by layers from the candidates only: layer 1 holds the
+// candidates with a seed among their face neighbours, layer d+1 the
+// unreached candidates next to layer d, up to layer steps. Seeds are far
+// more numerous than candidates and are never queued.
 func (c *classes) grow(lab *volume.Labels, kind []uint8, steps int) {
 	s := lab.Box.Size()
-	nyx := s[1] * s[2]
-	dist := make([]int8, len(lab.Pix))
-	var queue []int32
-	for i, k := range kind {
-		dist[i] = -1
-		if k == seed {
-			dist[i] = 0
-			queue = append(queue, int32(i))
-		}
-	}
-	for head := 0; head < len(queue); head++ {
-		i := int(queue[head])
-		if int(dist[i]) >= steps {
-			continue
-		}
+	nx, nyx := s[2], s[1]*s[2]
+	// reached[i]: candidate i is at most steps moves from a seed.
+	reached := make([]bool, len(kind))
+	// visit calls f for each face neighbour of i inside the box.
+	visit := func(i int, f func(j int)) {
 		z, r := i/nyx, i%nyx
-		y, x := r/s[2], r%s[2]
-		try := func(j int) {
-			if kind[j] == cand && dist[j] < 0 {
-				dist[j] = dist[i] + 1
-				queue = append(queue, int32(j))
-			}
-		}
+		y, x := r/nx, r%nx
 		if x > 0 {
-			try(i - 1)
+			f(i - 1)
 		}
-		if x+1 < s[2] {
-			try(i + 1)
+		if x+1 < nx {
+			f(i + 1)
 		}
 		if y > 0 {
-			try(i - s[2])
+			f(i - nx)
 		}
 		if y+1 < s[1] {
-			try(i + s[2])
+			f(i + nx)
 		}
 		if z > 0 {
-			try(i - nyx)
+			f(i - nyx)
 		}
 		if z+1 < s[0] {
-			try(i + nyx)
+			f(i + nyx)
 		}
+	}
+	var front, next []int32
+	for i, k := range kind {
+		if k != cand {
+			continue
+		}
+		hit := false
+		visit(i, func(j int) { hit = hit || kind[j] == seed })
+		if hit {
+			reached[i] = true
+			front = append(front, int32(i))
+		}
+	}
+	for layer := 1; layer < steps && len(front) > 0; layer++ {
+		next = next[:0]
+		for _, i := range front {
+			visit(int(i), func(j int) {
+				if kind[j] == cand && !reached[j] {
+					reached[j] = true
+					next = append(next, int32(j))
+				}
+			})
+		}
+		front, next = next, front
 	}
 	for i, k := range kind {
 		if k != cand {
 			continue
 		}
-		if dist[i] >= 0 {
+		if reached[i] {
 			lab.Pix[i] = c.n
 		} else if lab.Pix[i] == c.n {
 			lab.Pix[i] = c.next
