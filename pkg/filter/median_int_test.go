@@ -187,6 +187,30 @@ func TestMedianLevelsMatchesMedian(t *testing.T) {
 			}
 		}
 	}
+	// uint8, cuts inside and beyond the 0..255 range.
+	u8 := volume.NewShape[uint8](7, 8, 9, 1)
+	rng := rand.New(rand.NewPCG(8, 8))
+	for i := range u8.Pix {
+		u8.Pix[i] = uint8(rng.IntN(4) * 85)
+	}
+	med8, _ := Median3Integer(u8, u8.Box)
+	cuts8 := []int{84, 85, 170, 300}
+	err := Median3Levels(u8, u8.Box, cuts8, func(z, y int, above []uint8) {
+		for i, a := range above {
+			m, want := int(med8.At(z, y, i)), 0
+			for _, c := range cuts8 {
+				if m > c {
+					want++
+				}
+			}
+			if int(a) != want {
+				t.Errorf("uint8 at (%d,%d,%d): %d cuts below, median %d gives %d", z, y, i, a, m, want)
+			}
+		}
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
 	if err := Median3Levels(v, v.Box, []int{1, 2, 3, 4, 5}, func(int, int, []uint8) {}); err == nil {
 		t.Error("five cuts accepted")
 	}
