@@ -215,6 +215,16 @@ func (in *Ingester) StoreStep(ctx context.Context, req Request) (campaign.Manife
 	return in.store(ctx, step, req, rec.Config)
 }
 
+// MaxChunk is the largest chunk edge of a stored grey volume. A worker
+// reads its tile with a halo, and a Zarr reader decodes whole chunks: with
+// chunks as large as the tile, the 27 chunks around a 256³ tile are 19×
+// the voxels it needs (290³ of 768³); with 64³ chunks they are 2.3×
+// (384³). Smaller chunks also shrink ingest's band buffer (chunk² × nx).
+const MaxChunk = 64
+
+// ChunkEdge returns the chunk edge of grey volumes stored for a tile edge.
+func ChunkEdge(tile int) int { return min(tile, MaxChunk) }
+
 // store streams the volume into volume.zarr and writes the manifest.
 func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cfg campaign.Config) (campaign.Manifest, error) {
 	received := time.Now().UTC()
@@ -244,7 +254,8 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 		t = h.TimeS
 	}
 	tile := cfg.Tile
-	chunks := [3]int{min(tile, h.Shape[0]), min(tile, h.Shape[1]), min(tile, h.Shape[2])}
+	c := ChunkEdge(tile)
+	chunks := [3]int{min(c, h.Shape[0]), min(c, h.Shape[1]), min(c, h.Shape[2])}
 	z, err := volio.CreateZarr(ctx, in.Store, strings.TrimSuffix(step.Volume(), "/"), volio.ZarrMeta{
 		Shape: h.Shape, Chunks: chunks, DType: h.DType, Compressor: "zstd", VoxelSize: vs, TimeS: t, HasTime: true,
 		Attrs: map[string]any{"campaign": step.Campaign().Name(), "step": step.Name()}})
@@ -296,7 +307,7 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 		in.Metrics.StageSeconds.WithLabelValues("zarr_write").Observe(writing.Seconds())
 	}
 	man := campaign.Manifest{Campaign: step.Campaign().Name(), Step: step.Name(), Shape: h.Shape, DType: h.DType.String(),
-		VoxelSize: vs, TimeS: t, Chunk: tile, Source: req.Path, Bytes: stored, ReceivedAt: received, IngestedAt: time.Now().UTC(), Version: in.Version}
+		VoxelSize: vs, TimeS: t, Chunk: c, Source: req.Path, Bytes: stored, ReceivedAt: received, IngestedAt: time.Now().UTC(), Version: in.Version}
 	return man, campaign.PutJSON(ctx, in.Store, step.Manifest(), man)
 }
 
