@@ -3,6 +3,7 @@ package filter
 import (
 	"fmt"
 	"math"
+	"sync"
 
 	"sluice/pkg/volume"
 )
@@ -43,7 +44,26 @@ func GaussianKernel(sigma, truncate float64) []float64 {
 // Gaussian returns in smoothed by a Gaussian of standard deviation sigma
 // voxels (separable: z, then y, then x; boundary mode 'nearest'), over core.
 // It matches scipy.ndimage.gaussian_filter(in, sigma, mode='nearest',
-// truncate=truncate) on float32 data. sigma = 0 copies the core.
+// truncate=truncate) on float32 data to float32 rounding. sigma = 0 copies
+// the core.
+//
+// Arithmetic. Each pass stores float32; each output voxel of a pass is the
+// float64 sum w[0]·c + Σ_{j=1..r} w[j]·(float64(a₋ⱼ) + float64(a₊ⱼ)), taken
+// in increasing j (the symmetric pairing is our own order; scipy's
+// correlate1d sums the taps one by one, so the two differ in the last float32
+// bit now and then). Any change of this order changes bits:
+// TestGaussianBitIdentical pins it against a whole-box reference.
+//
+// Loop order. The sums run "row at a time": for one group of taps, the
+// partial sums of a whole row are updated in a float64 row buffer from the
+// source rows shifted by ±j, so every inner loop is a contiguous sweep over
+// x with no index arithmetic and no bounds checks, while each voxel still
+// receives its terms in the order above. Per z-slice of the core the z pass
+// fills one plane (y and x grown by r within in.Box); each core row of that
+// plane then goes through the y pass into a row padded by r clamped values on
+// both sides, and the x pass writes the output row from it. Scratch per
+// goroutine is therefore one plane of float32, one float64 row and one
+// padded row, reused through a sync.Pool.
 func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float64) (*volume.Volume[float32], error) {
 	if err := check(in, core); err != nil {
 		return nil, err
@@ -59,80 +79,150 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 	out := volume.New[float32](core, in.VoxelSize)
 	ib := in.Box
 	s := ib.Size()
+	// b1: the y, x extent of the z pass (core grown by r, within in.Box).
+	y1a, y1b := max(core.Min[1]-r, ib.Min[1]), min(core.Max[1]+r, ib.Max[1])
+	x1a, x1b := max(core.Min[2]-r, ib.Min[2]), min(core.Max[2]+r, ib.Max[2])
+	ny1, nx1 := y1b-y1a, x1b-x1a
+	ncx := core.Max[2] - core.Min[2]
+	// Offset in the padded row of x1a (the padded row starts at core x − r).
+	off := x1a - (core.Min[2] - r)
 	slabs(core.Min[0], core.Max[0], func(z0, z1 int) {
-		// Pass 1 (z) over y, x grown by r (within in.Box).
-		b1 := volume.Box{Min: [3]int{z0, max(core.Min[1]-r, ib.Min[1]), max(core.Min[2]-r, ib.Min[2])},
-			Max: [3]int{z1, min(core.Max[1]+r, ib.Max[1]), min(core.Max[2]+r, ib.Max[2])}}
-		t1 := volume.New[float32](b1, 0)
-		n1 := b1.Size()
+		sc := gaussScratchPool.Get().(*gaussScratch)
+		defer gaussScratchPool.Put(sc)
+		plane := grow(&sc.plane, ny1*nx1)
+		acc := grow(&sc.acc, max(nx1, ncx))
+		pad := grow(&sc.pad, ncx+2*r)
+		src := make([][]float32, 2*r+1)
 		for z := z0; z < z1; z++ {
-			var zo [64]int
-			zoff := zo[:0]
-			if 2*r+1 > len(zo) {
-				zoff = make([]int, 0, 2*r+1)
-			}
-			for k := -r; k <= r; k++ {
-				zoff = append(zoff, (clamp(z+k, ib.Min[0], ib.Max[0])-ib.Min[0])*s[1]*s[2])
-			}
-			for y := b1.Min[1]; y < b1.Max[1]; y++ {
-				row := (y-ib.Min[1])*s[2] - ib.Min[2]
-				o := t1.Index(z, y, b1.Min[2])
-				for x := b1.Min[2]; x < b1.Max[2]; x++ {
-					p := row + x
-					acc := w[0] * float64(in.Pix[zoff[r]+p])
-					for j := 1; j <= r; j++ {
-						acc += w[j] * (float64(in.Pix[zoff[r-j]+p]) + float64(in.Pix[zoff[r+j]+p]))
-					}
-					t1.Pix[o] = float32(acc)
-					o++
-				}
-			}
-		}
-		// Pass 2 (y) over x grown by r: the rows y−j and y+j (clamped to
-		// b1) are looked up once per output row.
-		b2 := volume.Box{Min: [3]int{z0, core.Min[1], b1.Min[2]}, Max: [3]int{z1, core.Max[1], b1.Max[2]}}
-		t2 := volume.New[float32](b2, 0)
-		nx2 := b2.Max[2] - b2.Min[2]
-		rowsY := make([][]float32, 2*r+1)
-		for z := z0; z < z1; z++ {
-			base := (z - z0) * n1[1] * n1[2]
-			for y := b2.Min[1]; y < b2.Max[1]; y++ {
+			// Pass 1 (z): plane[y][x] over y1a..y1b, x1a..x1b.
+			for y := y1a; y < y1b; y++ {
 				for k := -r; k <= r; k++ {
-					yy := clamp(y+k, b1.Min[1], b1.Max[1]) - b1.Min[1]
-					rowsY[k+r] = t1.Pix[base+yy*n1[2]:][:nx2]
+					zz := clamp(z+k, ib.Min[0], ib.Max[0]) - ib.Min[0]
+					src[k+r] = in.Pix[(zz*s[1]+y-ib.Min[1])*s[2]+x1a-ib.Min[2]:][:nx1]
 				}
-				dst := t2.Pix[t2.Index(z, y, b2.Min[2]):][:nx2]
-				mid := rowsY[r]
-				for xi := range dst {
-					acc := w[0] * float64(mid[xi])
-					for j := 1; j <= r; j++ {
-						acc += w[j] * (float64(rowsY[r-j][xi]) + float64(rowsY[r+j][xi]))
-					}
-					dst[xi] = float32(acc)
-				}
+				symmetricRow(plane[(y-y1a)*nx1:][:nx1], acc[:nx1], w, src)
 			}
-		}
-		// Pass 3 (x) over the core, from a copy of each row padded by r
-		// clamped values on both sides.
-		ncx := core.Max[2] - core.Min[2]
-		pad := make([]float32, ncx+2*r)
-		for z := z0; z < z1; z++ {
 			for y := core.Min[1]; y < core.Max[1]; y++ {
-				row := t2.Pix[t2.Index(z, y, b2.Min[2]):][:nx2]
-				for i := range pad {
-					pad[i] = row[clamp(core.Min[2]-r+i, b2.Min[2], b2.Max[2])-b2.Min[2]]
+				// Pass 2 (y): rows y+k of the plane, clamped to y1a..y1b,
+				// into the padded row.
+				for k := -r; k <= r; k++ {
+					yy := clamp(y+k, y1a, y1b) - y1a
+					src[k+r] = plane[yy*nx1:][:nx1]
 				}
-				dst := out.Pix[out.Index(z, y, core.Min[2]):][:ncx]
-				for i := range dst {
-					c := i + r
-					acc := w[0] * float64(pad[c])
-					for j := 1; j <= r; j++ {
-						acc += w[j] * (float64(pad[c-j]) + float64(pad[c+j]))
-					}
-					dst[i] = float32(acc)
+				symmetricRow(pad[off:][:nx1], acc[:nx1], w, src)
+				lo, hi := pad[off], pad[off+nx1-1]
+				for i := range pad[:off] {
+					pad[i] = lo
 				}
+				for i := off + nx1; i < len(pad); i++ {
+					pad[i] = hi
+				}
+				// Pass 3 (x): the output row from the padded row shifted by k.
+				for k := -r; k <= r; k++ {
+					src[k+r] = pad[r+k:][:ncx]
+				}
+				symmetricRow(out.Pix[out.Index(z, y, core.Min[2]):][:ncx], acc[:ncx], w, src)
 			}
 		}
 	})
 	return out, nil
+}
+
+// gaussScratch is the per-goroutine working memory of Gaussian.
+type gaussScratch struct {
+	plane []float32 // one z-pass plane, [y][x] row-major
+	acc   []float64 // partial sums of one row
+	pad   []float32 // one y-pass row padded by r on both sides
+}
+
+var gaussScratchPool = sync.Pool{New: func() any { return new(gaussScratch) }}
+
+// grow returns (*buf)[:n], reallocating when the capacity is short.
+func grow[T float32 | float64](buf *[]T, n int) []T {
+	if cap(*buf) < n {
+		*buf = make([]T, n)
+	}
+	return (*buf)[:n]
+}
+
+// symmetricRow sets dst[i] = float32(w[0]·c[i] + Σ_{j=1..r} w[j]·(a₋ⱼ[i] +
+// a₊ⱼ[i])) with the sum taken in increasing j, where src[r+k] is the source
+// row shifted by k (k = −r..r; every row at least len(dst) long) and acc is a
+// float64 row of len(dst). Taps are applied two pairs per sweep; the last
+// sweep writes dst.
+func symmetricRow(dst []float32, acc []float64, w []float64, src [][]float32) {
+	r := len(w) - 1
+	if r == 0 {
+		c := src[0][:len(dst)]
+		for i := range dst {
+			dst[i] = float32(w[0] * float64(c[i]))
+		}
+		return
+	}
+	tapsFirst(acc, w[0], src[r], w[1], src[r-1], src[r+1])
+	j := 2
+	for ; j+1 <= r; j += 2 {
+		if j+1 == r {
+			tapsTwoStore(dst, acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1])
+			return
+		}
+		tapsTwo(acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1])
+	}
+	if j == r {
+		tapsOneStore(dst, acc, w[j], src[r-j], src[r+j])
+		return
+	}
+	store(dst, acc)
+}
+
+// tapsFirst: acc[i] = w0·c[i] + w1·(a[i] + b[i]).
+func tapsFirst(acc []float64, w0 float64, c []float32, w1 float64, a, b []float32) {
+	c, a, b = c[:len(acc)], a[:len(acc)], b[:len(acc)]
+	for i := range acc {
+		s := w0 * float64(c[i])
+		s += w1 * (float64(a[i]) + float64(b[i]))
+		acc[i] = s
+	}
+}
+
+// tapsTwo: acc[i] += wj·(a[i] + b[i]), then += wk·(c[i] + d[i]).
+func tapsTwo(acc []float64, wj float64, a, b []float32, wk float64, c, d []float32) {
+	a, b, c, d = a[:len(acc)], b[:len(acc)], c[:len(acc)], d[:len(acc)]
+	for i := range acc {
+		s := acc[i]
+		s += wj * (float64(a[i]) + float64(b[i]))
+		s += wk * (float64(c[i]) + float64(d[i]))
+		acc[i] = s
+	}
+}
+
+// tapsTwoStore: dst[i] = float32(acc[i] + wj·(a[i] + b[i]) + wk·(c[i] + d[i])).
+func tapsTwoStore(dst []float32, acc []float64, wj float64, a, b []float32, wk float64, c, d []float32) {
+	acc = acc[:len(dst)]
+	a, b, c, d = a[:len(dst)], b[:len(dst)], c[:len(dst)], d[:len(dst)]
+	for i := range dst {
+		s := acc[i]
+		s += wj * (float64(a[i]) + float64(b[i]))
+		s += wk * (float64(c[i]) + float64(d[i]))
+		dst[i] = float32(s)
+	}
+}
+
+// tapsOneStore: dst[i] = float32(acc[i] + wj·(a[i] + b[i])).
+func tapsOneStore(dst []float32, acc []float64, wj float64, a, b []float32) {
+	acc = acc[:len(dst)]
+	a, b = a[:len(dst)], b[:len(dst)]
+	for i := range dst {
+		s := acc[i]
+		s += wj * (float64(a[i]) + float64(b[i]))
+		dst[i] = float32(s)
+	}
+}
+
+// store: dst[i] = float32(acc[i]).
+func store(dst []float32, acc []float64) {
+	acc = acc[:len(dst)]
+	for i := range dst {
+		dst[i] = float32(acc[i])
+	}
 }

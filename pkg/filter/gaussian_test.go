@@ -86,7 +86,7 @@ func TestGaussianBitIdentical(t *testing.T) {
 		{Min: [3]int{10, 16, 20}, Max: ib.Max},
 		{Min: [3]int{7, 12, 5}, Max: [3]int{8, 13, 30}},
 	}
-	cases := []struct{ sigma, truncate float64 }{{0.5, 4}, {0.8, 4}, {1, 4}, {1.5, 3}, {1.5, 4}, {2.2, 2.5}, {4, 4}, {7, 4}}
+	cases := []struct{ sigma, truncate float64 }{{0.1, 4}, {0.3, 4}, {0.5, 4}, {0.8, 4}, {1, 4}, {1.5, 3}, {1.5, 4}, {2.2, 2.5}, {4, 4}, {7, 4}}
 	for _, c := range cases {
 		for ci, core := range cores {
 			want := gaussianReference(in, core, c.sigma, c.truncate)
