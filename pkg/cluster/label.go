@@ -184,8 +184,8 @@ func offsets(conn int) [][3]int {
 // faces. Label panics on invalid options or a core outside lab.Box, both
 // programming errors.
 //
-// Memory: one int32 per core voxel for the labels plus the provisional
-// label forest, freed on return.
+// Memory: the runs of the set along x (12 bytes each, see labelRuns) and
+// one face plane of int32, freed on return; no per-voxel label array.
 func Label(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options) *Tile {
 	opt, err := opt.normalized()
 	if err != nil {
@@ -197,7 +197,7 @@ func Label(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options
 	if !whole.ContainsBox(core) {
 		panic(fmt.Sprintf("cluster: core %v is not inside the whole box %v", core, whole))
 	}
-	ids, sizes := components(lab, s, core, opt.Connectivity)
+	rl, sizes := labelRuns(lab, s, core, opt.Connectivity)
 	n := core.Size()
 	t := &Tile{
 		Core: core, Whole: whole,
@@ -206,14 +206,14 @@ func Label(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options
 		Inlet:  make([]bool, len(sizes)),
 		Outlet: make([]bool, len(sizes)),
 	}
-	var buf []int32
+	buf := make([]int32, max(n[1]*n[2], n[0]*n[2], n[0]*n[1]))
 	for a := 0; a < 3; a++ {
 		for side := 0; side < 2; side++ {
 			at := 0
 			if side == 1 {
 				at = n[a] - 1
 			}
-			buf = facePlane(ids, n, a, at, buf)
+			buf = rl.facePlane(a, at, buf)
 			u, v := planeAxes(a)
 			t.Faces[2*a+side] = encodePlane(buf, n[u], n[v])
 			f := opt.FlowAxis
@@ -236,29 +236,48 @@ func mark(flags []bool, ids []int32) {
 	}
 }
 
-// facePlane copies the plane at local coordinate at along axis a of the
-// labels ids (shape n, C order) into buf, in the order of Plane.
-func facePlane(ids []int32, n [3]int, a, at int, buf []int32) []int32 {
-	u, v := planeAxes(a)
-	buf = buf[:0]
-	stride := [3]int{n[1] * n[2], n[2], 1}
-	for i := 0; i < n[u]; i++ {
-		for j := 0; j < n[v]; j++ {
-			buf = append(buf, ids[at*stride[a]+i*stride[u]+j*stride[v]])
-		}
-	}
-	return buf
+// run is a maximal stretch [X0, X1) of set voxels along x in one row of
+// the core, with its label: provisional during the scan, final after it.
+type run struct {
+	X0, X1 int32
+	L      int32
 }
 
-// components labels the set voxels of core by the two-pass algorithm and
-// returns the labels (C order over core, 0 outside the set, components
-// 1..len(sizes) numbered in raster order of first voxel) and their sizes.
-func components(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) ([]int32, []int64) {
+// runLabels is the labelling of a core as runs. Runs are stored in raster
+// order; the runs of row r = z*ny + y (core-local z, y) are
+// Runs[Start[r]:Start[r+1]].
+type runLabels struct {
+	N     [3]int
+	Runs  []run
+	Start []int32
+}
+
+// row returns the runs of core-local row (z, y).
+func (rl *runLabels) row(z, y int) []run {
+	r := z*rl.N[1] + y
+	return rl.Runs[rl.Start[r]:rl.Start[r+1]]
+}
+
+// labelRuns labels the set voxels of core by the two-pass algorithm on runs
+// along x (the run-based form of Rosenfeld & Pfaltz's raster scan): each run
+// is joined to the runs it touches in the already scanned neighbour rows,
+// found by a merge walk of the sorted run lists: rows (z, y−1), (z−1, y−1),
+// (z−1, y), (z−1, y+1) with x ranges touching or overlapping diagonally for
+// 26-connectivity; rows (z, y−1), (z−1, y) with overlapping x ranges for 6.
+// Runs end with final labels 1..len(sizes) numbered in raster order of first
+// voxel, and sizes holds the voxel counts.
+//
+// Memory: 12 bytes per run (at most ⌈nx/2⌉ per row) plus 4 bytes per row,
+// and the provisional label forest (4 bytes per run without a backward
+// neighbour).
+func labelRuns(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) (*runLabels, []int64) {
 	n := core.Size()
 	nz, ny, nx := n[0], n[1], n[2]
-	ids := make([]int32, core.Voxels())
+	rl := &runLabels{N: n, Start: make([]int32, nz*ny+1)}
 	// Provisional label forest; parent[0] is unused. Roots are the smallest
-	// label of their class, so classes are numbered by first appearance.
+	// label of their class; a class's smallest label is that of its first
+	// run in raster order (a run with a backward neighbour in its class
+	// takes an existing label), so classes are numbered by first voxel.
 	parent := []int32{0}
 	find := func(l int32) int32 {
 		for parent[l] != l {
@@ -267,80 +286,76 @@ func components(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) ([]
 		}
 		return l
 	}
-	union := func(a, b int32) int32 {
-		a, b = find(a), find(b)
-		if a == b {
-			return a
-		}
-		if b < a {
-			a, b = b, a
-		}
-		parent[b] = a
-		return a
+	// reach widens a run's x range for the overlap test: by one voxel on
+	// each side for 26-connectivity (diagonal contact), none for 6.
+	reach := int32(1)
+	if conn == 6 {
+		reach = 0
 	}
-	type nb struct {
-		off   int  // index offset of the neighbour
-		needs byte // bits: 1 x−1, 2 x+1, 4 y−1, 8 y+1, 16 z−1 inside the core
-	}
-	var nbs []nb
-	for _, o := range offsets(conn) {
-		var need byte
-		if o[2] < 0 {
-			need |= 1
-		}
-		if o[2] > 0 {
-			need |= 2
-		}
-		if o[1] < 0 {
-			need |= 4
-		}
-		if o[1] > 0 {
-			need |= 8
-		}
-		if o[0] < 0 {
-			need |= 16
-		}
-		nbs = append(nbs, nb{off: (o[0]*ny+o[1])*nx + o[2], needs: need})
-	}
+	var nbRows [4][]run
+	runs := make([]run, 0, 1024)
 	for z := 0; z < nz; z++ {
 		for y := 0; y < ny; y++ {
-			row := lab.Pix[lab.Index(core.Min[0]+z, core.Min[1]+y, core.Min[2]):][:nx]
-			base := (z*ny + y) * nx
-			var have byte
-			if y > 0 {
-				have |= 4
-			}
-			if y < ny-1 {
-				have |= 8
-			}
-			if z > 0 {
-				have |= 16
-			}
-			for x, p := range row {
-				if !s[p] {
+			r := z*ny + y
+			first := len(runs)
+			rowPix := lab.Pix[lab.Index(core.Min[0]+z, core.Min[1]+y, core.Min[2]):][:nx]
+			// Runs of the row.
+			for x := 0; x < nx; {
+				if !s[rowPix[x]] {
+					x++
 					continue
 				}
-				h := have
-				if x > 0 {
-					h |= 1
+				x0 := x
+				for x++; x < nx && s[rowPix[x]]; x++ {
 				}
-				if x < nx-1 {
-					h |= 2
+				runs = append(runs, run{X0: int32(x0), X1: int32(x)})
+			}
+			rl.Start[r+1] = int32(len(runs))
+			if len(runs) == first {
+				continue
+			}
+			// Backward neighbour rows.
+			k := 0
+			row := func(zz, yy int) {
+				if zz < 0 || yy < 0 || yy >= ny {
+					return
 				}
-				i := base + x
+				rr := zz*ny + yy
+				if rl.Start[rr] < rl.Start[rr+1] {
+					nbRows[k] = runs[rl.Start[rr]:rl.Start[rr+1]]
+					k++
+				}
+			}
+			row(z, y-1)
+			if conn == 6 {
+				row(z-1, y)
+			} else {
+				row(z-1, y-1)
+				row(z-1, y)
+				row(z-1, y+1)
+			}
+			var pos [4]int
+			cur := runs[first:]
+			for i := range cur {
+				a, b := cur[i].X0-reach, cur[i].X1+reach
 				var l int32
-				for _, q := range nbs {
-					if q.needs&h != q.needs {
-						continue
+				for q := 0; q < k; q++ {
+					nb := nbRows[q]
+					j := pos[q]
+					for j < len(nb) && nb[j].X1 <= a {
+						j++
 					}
-					m := ids[i+q.off]
-					if m == 0 {
-						continue
-					}
-					if l == 0 {
-						l = m
-					} else if m != l {
-						l = union(l, m)
+					pos[q] = j
+					for ; j < len(nb) && nb[j].X0 < b; j++ {
+						m := find(nb[j].L)
+						if l == 0 {
+							l = m
+						} else if m != l {
+							if m < l {
+								l, m = m, l
+							}
+							parent[m] = l
+						}
 					}
 				}
 				if l == 0 {
@@ -350,7 +365,7 @@ func components(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) ([]
 					}
 					parent = append(parent, l)
 				}
-				ids[i] = l
+				cur[i].L = l
 			}
 		}
 	}
@@ -367,12 +382,74 @@ func components(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) ([]
 		}
 	}
 	sizes := make([]int64, next)
-	for i, l := range ids {
-		if l != 0 {
-			f := final[l]
-			ids[i] = f
-			sizes[f-1]++
+	for i := range runs {
+		f := final[runs[i].L]
+		runs[i].L = f
+		sizes[f-1] += int64(runs[i].X1 - runs[i].X0)
+	}
+	rl.Runs = runs
+	return rl, sizes
+}
+
+// components labels the set voxels of core (see labelRuns) and returns the
+// labels in C order over core, 0 outside the set, and the sizes.
+func components(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) ([]int32, []int64) {
+	rl, sizes := labelRuns(lab, s, core, conn)
+	n := rl.N
+	ids := make([]int32, core.Voxels())
+	for r := 0; r < n[0]*n[1]; r++ {
+		row := ids[r*n[2]:][:n[2]]
+		for _, u := range rl.Runs[rl.Start[r]:rl.Start[r+1]] {
+			for x := u.X0; x < u.X1; x++ {
+				row[x] = u.L
+			}
 		}
 	}
 	return ids, sizes
+}
+
+// facePlane writes into buf the labels of the plane at core-local
+// coordinate at along axis a, in the order of Plane, expanding the runs.
+func (rl *runLabels) facePlane(a, at int, buf []int32) []int32 {
+	n := rl.N
+	u, v := planeAxes(a)
+	buf = buf[:n[u]*n[v]]
+	clear(buf)
+	switch a {
+	case 0: // (y, x): rows of plane z = at
+		for y := 0; y < n[1]; y++ {
+			fill(buf[y*n[2]:][:n[2]], rl.row(at, y))
+		}
+	case 1: // (z, x): rows y = at
+		for z := 0; z < n[0]; z++ {
+			fill(buf[z*n[2]:][:n[2]], rl.row(z, at))
+		}
+	case 2: // (z, y): voxel x = at of every row
+		x := int32(at)
+		for z := 0; z < n[0]; z++ {
+			for y := 0; y < n[1]; y++ {
+				rr := rl.row(z, y)
+				if len(rr) == 0 {
+					continue
+				}
+				// The first run for x = 0, the last for x = nx−1.
+				u := rr[0]
+				if x > 0 {
+					u = rr[len(rr)-1]
+				}
+				if u.X0 <= x && x < u.X1 {
+					buf[z*n[1]+y] = u.L
+				}
+			}
+		}
+	}
+	return buf
+}
+
+func fill(dst []int32, runs []run) {
+	for _, u := range runs {
+		for x := u.X0; x < u.X1; x++ {
+			dst[x] = u.L
+		}
+	}
 }
