@@ -23,6 +23,7 @@ package cluster
 
 import (
 	"fmt"
+	"sync"
 
 	"sluice/pkg/phase"
 	"sluice/pkg/volume"
@@ -225,6 +226,7 @@ func Label(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options
 			}
 		}
 	}
+	rl.release()
 	return t
 }
 
@@ -250,6 +252,23 @@ type runLabels struct {
 	N     [3]int
 	Runs  []run
 	Start []int32
+	// parent and final are scratch kept for release.
+	parent, final []int32
+}
+
+// scratch holds the buffers of one labelling, reused through scratchPool
+// so that a worker labelling tile after tile does not regrow them.
+type scratch struct {
+	runs          []run
+	start, parent []int32
+	final         []int32
+}
+
+var scratchPool = sync.Pool{New: func() any { return new(scratch) }}
+
+// release returns the buffers of rl to the pool; rl must not be used after.
+func (rl *runLabels) release() {
+	scratchPool.Put(&scratch{runs: rl.Runs[:0], start: rl.Start[:0], parent: rl.parent[:0], final: rl.final[:0]})
 }
 
 // row returns the runs of core-local row (z, y).
@@ -273,12 +292,13 @@ func (rl *runLabels) row(z, y int) []run {
 func labelRuns(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) (*runLabels, []int64) {
 	n := core.Size()
 	nz, ny, nx := n[0], n[1], n[2]
-	rl := &runLabels{N: n, Start: make([]int32, nz*ny+1)}
+	sc := scratchPool.Get().(*scratch)
+	rl := &runLabels{N: n, Start: grow(sc.start, nz*ny+1)}
 	// Provisional label forest; parent[0] is unused. Roots are the smallest
 	// label of their class; a class's smallest label is that of its first
 	// run in raster order (a run with a backward neighbour in its class
 	// takes an existing label), so classes are numbered by first voxel.
-	parent := []int32{0}
+	parent := append(sc.parent[:0], 0)
 	find := func(l int32) int32 {
 		for parent[l] != l {
 			parent[l] = parent[parent[l]] // path halving
@@ -293,7 +313,7 @@ func labelRuns(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) (*ru
 		reach = 0
 	}
 	var nbRows [4][]run
-	runs := make([]run, 0, 1024)
+	runs := sc.runs[:0]
 	for z := 0; z < nz; z++ {
 		for y := 0; y < ny; y++ {
 			r := z*ny + y
@@ -370,7 +390,7 @@ func labelRuns(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) (*ru
 		}
 	}
 	// Number classes by first appearance: label l's root is <= l.
-	final := make([]int32, len(parent))
+	final := grow(sc.final, len(parent))
 	next := int32(0)
 	for l := 1; l < len(parent); l++ {
 		r := find(int32(l))
@@ -387,7 +407,7 @@ func labelRuns(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) (*ru
 		runs[i].L = f
 		sizes[f-1] += int64(runs[i].X1 - runs[i].X0)
 	}
-	rl.Runs = runs
+	rl.Runs, rl.parent, rl.final = runs, parent, final
 	return rl, sizes
 }
 
@@ -405,7 +425,19 @@ func components(lab *volume.Labels, s *phase.Set, core volume.Box, conn int) ([]
 			}
 		}
 	}
+	rl.release()
 	return ids, sizes
+}
+
+// grow returns buf resized to n zeroed elements, reallocating only when
+// its capacity is short.
+func grow(buf []int32, n int) []int32 {
+	if cap(buf) < n {
+		return make([]int32, n)
+	}
+	buf = buf[:n]
+	clear(buf)
+	return buf
 }
 
 // facePlane writes into buf the labels of the plane at core-local
