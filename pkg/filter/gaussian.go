@@ -62,8 +62,10 @@ func GaussianKernel(sigma, truncate float64) []float64 {
 // fills one plane (y and x grown by r within in.Box); each core row of that
 // plane then goes through the y pass into a row padded by r clamped values on
 // both sides, and the x pass writes the output row from it. Scratch per
-// goroutine is therefore one plane of float32, one float64 row and one
-// padded row, reused through a sync.Pool.
+// goroutine is therefore one plane, one float64 row and one
+// padded row (plane and padded row in float64 holding float32-rounded
+// values, so that the y and x passes read them without conversion), reused
+// through a sync.Pool.
 func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float64) (*volume.Volume[float32], error) {
 	if err := check(in, core); err != nil {
 		return nil, err
@@ -93,6 +95,7 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 		acc := grow(&sc.acc, max(nx1, ncx))
 		pad := grow(&sc.pad, ncx+2*r)
 		src := make([][]float32, 2*r+1)
+		src64 := make([][]float64, 2*r+1)
 		for z := z0; z < z1; z++ {
 			// Pass 1 (z): plane[y][x] over y1a..y1b, x1a..x1b.
 			for y := y1a; y < y1b; y++ {
@@ -107,9 +110,9 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 				// into the padded row.
 				for k := -r; k <= r; k++ {
 					yy := clamp(y+k, y1a, y1b) - y1a
-					src[k+r] = plane[yy*nx1:][:nx1]
+					src64[k+r] = plane[yy*nx1:][:nx1]
 				}
-				symmetricRow(pad[off:][:nx1], acc[:nx1], w, src)
+				symmetricRow(pad[off:][:nx1], acc[:nx1], w, src64)
 				lo, hi := pad[off], pad[off+nx1-1]
 				for i := range pad[:off] {
 					pad[i] = lo
@@ -119,9 +122,9 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 				}
 				// Pass 3 (x): the output row from the padded row shifted by k.
 				for k := -r; k <= r; k++ {
-					src[k+r] = pad[r+k:][:ncx]
+					src64[k+r] = pad[r+k:][:ncx]
 				}
-				symmetricRow(out.Pix[out.Index(z, y, core.Min[2]):][:ncx], acc[:ncx], w, src)
+				symmetricRow(out.Pix[out.Index(z, y, core.Min[2]):][:ncx], acc[:ncx], w, src64)
 			}
 		}
 	})
@@ -130,32 +133,36 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 
 // gaussScratch is the per-goroutine working memory of Gaussian.
 type gaussScratch struct {
-	plane []float32 // one z-pass plane, [y][x] row-major
+	plane []float64 // one z-pass plane, [y][x] row-major, float32 values
 	acc   []float64 // partial sums of one row
-	pad   []float32 // one y-pass row padded by r on both sides
+	pad   []float64 // one y-pass row padded by r on both sides, float32 values
 }
 
 var gaussScratchPool = sync.Pool{New: func() any { return new(gaussScratch) }}
 
 // grow returns (*buf)[:n], reallocating when the capacity is short.
-func grow[T float32 | float64](buf *[]T, n int) []T {
+func grow[T real](buf *[]T, n int) []T {
 	if cap(*buf) < n {
 		*buf = make([]T, n)
 	}
 	return (*buf)[:n]
 }
 
+// real is the storage of a pass's rows: float32, or float64 holding values
+// already rounded to float32 (so that reading them needs no conversion).
+type real interface{ float32 | float64 }
+
 // symmetricRow sets dst[i] = float32(w[0]·c[i] + Σ_{j=1..r} w[j]·(a₋ⱼ[i] +
 // a₊ⱼ[i])) with the sum taken in increasing j, where src[r+k] is the source
 // row shifted by k (k = −r..r; every row at least len(dst) long) and acc is a
 // float64 row of len(dst). Taps are applied two pairs per sweep; the last
 // sweep writes dst.
-func symmetricRow(dst []float32, acc []float64, w []float64, src [][]float32) {
+func symmetricRow[S, D real](dst []D, acc []float64, w []float64, src [][]S) {
 	r := len(w) - 1
 	if r == 0 {
 		c := src[0][:len(dst)]
 		for i := range dst {
-			dst[i] = float32(w[0] * float64(c[i]))
+			dst[i] = D(float32(w[0] * float64(c[i])))
 		}
 		return
 	}
@@ -176,7 +183,7 @@ func symmetricRow(dst []float32, acc []float64, w []float64, src [][]float32) {
 }
 
 // tapsFirst: acc[i] = w0·c[i] + w1·(a[i] + b[i]).
-func tapsFirst(acc []float64, w0 float64, c []float32, w1 float64, a, b []float32) {
+func tapsFirst[S real](acc []float64, w0 float64, c []S, w1 float64, a, b []S) {
 	c, a, b = c[:len(acc)], a[:len(acc)], b[:len(acc)]
 	for i := range acc {
 		s := w0 * float64(c[i])
@@ -186,7 +193,7 @@ func tapsFirst(acc []float64, w0 float64, c []float32, w1 float64, a, b []float3
 }
 
 // tapsTwo: acc[i] += wj·(a[i] + b[i]), then += wk·(c[i] + d[i]).
-func tapsTwo(acc []float64, wj float64, a, b []float32, wk float64, c, d []float32) {
+func tapsTwo[S real](acc []float64, wj float64, a, b []S, wk float64, c, d []S) {
 	a, b, c, d = a[:len(acc)], b[:len(acc)], c[:len(acc)], d[:len(acc)]
 	for i := range acc {
 		s := acc[i]
@@ -197,32 +204,32 @@ func tapsTwo(acc []float64, wj float64, a, b []float32, wk float64, c, d []float
 }
 
 // tapsTwoStore: dst[i] = float32(acc[i] + wj·(a[i] + b[i]) + wk·(c[i] + d[i])).
-func tapsTwoStore(dst []float32, acc []float64, wj float64, a, b []float32, wk float64, c, d []float32) {
+func tapsTwoStore[S, D real](dst []D, acc []float64, wj float64, a, b []S, wk float64, c, d []S) {
 	acc = acc[:len(dst)]
 	a, b, c, d = a[:len(dst)], b[:len(dst)], c[:len(dst)], d[:len(dst)]
 	for i := range dst {
 		s := acc[i]
 		s += wj * (float64(a[i]) + float64(b[i]))
 		s += wk * (float64(c[i]) + float64(d[i]))
-		dst[i] = float32(s)
+		dst[i] = D(float32(s))
 	}
 }
 
 // tapsOneStore: dst[i] = float32(acc[i] + wj·(a[i] + b[i])).
-func tapsOneStore(dst []float32, acc []float64, wj float64, a, b []float32) {
+func tapsOneStore[S, D real](dst []D, acc []float64, wj float64, a, b []S) {
 	acc = acc[:len(dst)]
 	a, b = a[:len(dst)], b[:len(dst)]
 	for i := range dst {
 		s := acc[i]
 		s += wj * (float64(a[i]) + float64(b[i]))
-		dst[i] = float32(s)
+		dst[i] = D(float32(s))
 	}
 }
 
 // store: dst[i] = float32(acc[i]).
-func store(dst []float32, acc []float64) {
+func store[D real](dst []D, acc []float64) {
 	acc = acc[:len(dst)]
 	for i := range dst {
-		dst[i] = float32(acc[i])
+		dst[i] = D(float32(acc[i]))
 	}
 }
