@@ -50,6 +50,7 @@ package mesh
 
 import (
 	"math"
+	"math/bits"
 	"sync"
 
 	"sluice/pkg/phase"
@@ -97,6 +98,18 @@ func buildCases() {
 	mid := func(e int) [3]float64 {
 		p, q := corner(edges[e][0]), corner(edges[e][1])
 		return [3]float64{(p[0] + q[0]) / 2, (p[1] + q[1]) / 2, (p[2] + q[2]) / 2}
+	}
+	for e := range edges {
+		g := &edgeGeo[e]
+		g.a, g.b = edges[e][0], edges[e][1]
+		for (g.a^g.b)>>g.ax != 1 {
+			g.ax++
+		}
+		ca, cb := corner(g.a), corner(g.b)
+		g.ca = ca
+		for j := range g.d {
+			g.d[j] = cb[j] - ca[j]
+		}
 	}
 	for c := 0; c < 256; c++ {
 		in := func(b int) bool { return c>>b&1 == 1 }
@@ -187,8 +200,29 @@ func cubeBox(f *volume.Volume[float32], cubes volume.Box) volume.Box {
 	return cubes.Intersect(avail)
 }
 
+// edgeGeo is the geometry of cube edge e: its end corners a < b, the axis
+// bit ax of b−a (0 = x, 1 = y, 2 = z), the (z, y, x) position ca of corner
+// a and the step d from a to b. Filled by buildCases.
+var edgeGeo [12]struct {
+	a, b  int
+	ax    int64
+	ca, d [3]float64
+}
+
 // walk calls fn for every triangle of the iso-surface in the given cubes,
-// with the global edge keys and the vertex positions.
+// with the global edge keys and the vertex positions, cube by cube in
+// raster order (z, then y, then x) and in the order of the case table
+// within a cube.
+//
+// Cubes with all eight corners on one side carry no surface and are
+// skipped by bit masks: for each z-plane the inside signs of a row of
+// samples are packed 64 to a word, in planes lo (z) and hi (z+1) of
+// (ny+1) rows × words, index r*words + x/64, bit x%64 (r and x relative to
+// the cube box). For the row of cubes (z, y), OR and AND of the four
+// corner rows (z, y), (z, y+1), (z+1, y), (z+1, y+1) tell, per sample x,
+// whether any or all of the four are inside; cube x is mixed when any is
+// set at x or x+1 and all is not set at both. Only mixed cubes load their
+// corner values and do the triangle work.
 func walk(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(key [3]int64, p [3][3]float64)) {
 	tab := table()
 	cb := cubeBox(f, cubes)
@@ -202,55 +236,96 @@ func walk(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(ke
 		off[b] = (b>>2&1)*sz + (b>>1&1)*sy + (b & 1)
 	}
 	lv := float32(level)
+	n := cb.Size()
+	ncx := n[2]   // cubes per row
+	ns := ncx + 1 // samples per row
+	words := (ns + 63) / 64
+	rows := n[1] + 1
+	lo := make([]uint64, rows*words)
+	hi := make([]uint64, rows*words)
+	signs := func(dst []uint64, z int) {
+		clear(dst)
+		for r := 0; r < rows; r++ {
+			src := f.Pix[f.Index(z, cb.Min[1]+r, cb.Min[2]):][:ns]
+			d := dst[r*words:][:words]
+			for x, v := range src {
+				var bit uint64
+				if v > lv {
+					bit = 1
+				}
+				d[x>>6] |= bit << (x & 63)
+			}
+		}
+	}
+	// lastMask keeps the cube bits of the last word (samples beyond the
+	// last cube are not cubes).
+	lastMask := ^uint64(0)
+	if k := ncx - (words-1)*64; k < 64 {
+		lastMask = 1<<k - 1
+	}
 	var val [8]float32
+	signs(lo, cb.Min[0])
 	for z := cb.Min[0]; z < cb.Max[0]; z++ {
+		signs(hi, z+1)
 		for y := cb.Min[1]; y < cb.Max[1]; y++ {
+			r := y - cb.Min[1]
+			a0, a1 := lo[r*words:][:words], lo[(r+1)*words:][:words]
+			b0, b1 := hi[r*words:][:words], hi[(r+1)*words:][:words]
 			i0 := f.Index(z, y, cb.Min[2])
-			for x := cb.Min[2]; x < cb.Max[2]; x++ {
-				i := i0 + x - cb.Min[2]
-				c := 0
-				for b := 0; b < 8; b++ {
-					val[b] = f.Pix[i+off[b]]
-					if val[b] > lv {
-						c |= 1 << b
-					}
+			for w := 0; w < words; w++ {
+				some := a0[w] | a1[w] | b0[w] | b1[w]
+				every := a0[w] & a1[w] & b0[w] & b1[w]
+				var anyN, allN uint64
+				if w+1 < words {
+					anyN = a0[w+1] | a1[w+1] | b0[w+1] | b1[w+1]
+					allN = a0[w+1] & a1[w+1] & b0[w+1] & b1[w+1]
 				}
-				if c == 0 || c == 255 {
-					continue
+				mixed := (some | some>>1 | anyN<<63) &^ (every & (every>>1 | allN<<63))
+				if w == words-1 {
+					mixed &= lastMask
 				}
-				o := [3]float64{float64(z), float64(y), float64(x)}
-				for li, loop := range tab[c] {
-					var keys [12]int64
-					var pts [12][3]float64
-					var mean [3]float64
-					for k, e := range loop {
-						a, b := edges[e][0], edges[e][1]
-						t := (level - float64(val[a])) / (float64(val[b]) - float64(val[a]))
-						ca, cbn := corner(a), corner(b)
-						for j := 0; j < 3; j++ {
-							pts[k][j] = o[j] + ca[j] + t*(cbn[j]-ca[j])
-							mean[j] += pts[k][j] / float64(len(loop))
+				for mixed != 0 {
+					xr := w*64 + bits.TrailingZeros64(mixed)
+					mixed &= mixed - 1
+					x := cb.Min[2] + xr
+					i := i0 + xr
+					c := 0
+					for b := 0; b < 8; b++ {
+						val[b] = f.Pix[i+off[b]]
+						if val[b] > lv {
+							c |= 1 << b
 						}
-						// Edge key: 3 × global sample index of the low end + axis.
-						ax := 0
-						for (a^b)>>ax != 1 {
-							ax++
+					}
+					o := [3]float64{float64(z), float64(y), float64(x)}
+					for li, loop := range tab[c] {
+						var keys [12]int64
+						var pts [12][3]float64
+						var mean [3]float64
+						for k, e := range loop {
+							g := &edgeGeo[e]
+							t := (level - float64(val[g.a])) / (float64(val[g.b]) - float64(val[g.a]))
+							for j := 0; j < 3; j++ {
+								pts[k][j] = o[j] + g.ca[j] + t*g.d[j]
+								mean[j] += pts[k][j] / float64(len(loop))
+							}
+							// Edge key: 3 × global sample index of the low end + axis.
+							keys[k] = int64(i+off[g.a])*3 + g.ax
 						}
-						keys[k] = int64(i+off[a])*3 + int64(ax)
-					}
-					if len(loop) == 3 {
-						fn([3]int64{keys[0], keys[1], keys[2]}, [3][3]float64{pts[0], pts[1], pts[2]})
-						continue
-					}
-					// Fan around the loop's centroid, keyed −(8·cube + loop) − 1.
-					ck := -int64(i)*8 - int64(li) - 1
-					for k := range loop {
-						k2 := (k + 1) % len(loop)
-						fn([3]int64{ck, keys[k], keys[k2]}, [3][3]float64{mean, pts[k], pts[k2]})
+						if len(loop) == 3 {
+							fn([3]int64{keys[0], keys[1], keys[2]}, [3][3]float64{pts[0], pts[1], pts[2]})
+							continue
+						}
+						// Fan around the loop's centroid, keyed −(8·cube + loop) − 1.
+						ck := -int64(i)*8 - int64(li) - 1
+						for k := range loop {
+							k2 := (k + 1) % len(loop)
+							fn([3]int64{ck, keys[k], keys[k2]}, [3][3]float64{mean, pts[k], pts[k2]})
+						}
 					}
 				}
 			}
 		}
+		lo, hi = hi, lo
 	}
 }
 
