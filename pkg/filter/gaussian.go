@@ -91,19 +91,44 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 	slabs(core.Min[0], core.Max[0], func(z0, z1 int) {
 		sc := gaussScratchPool.Get().(*gaussScratch)
 		defer gaussScratchPool.Put(sc)
-		plane := grow(&sc.plane, ny1*nx1)
+		np := ny1 * nx1
+		plane := grow(&sc.plane, np)
 		acc := grow(&sc.acc, max(nx1, ncx))
 		pad := grow(&sc.pad, ncx+2*r)
-		src := make([][]float32, 2*r+1)
+		// The input planes of the z window, converted once to float64:
+		// plane zz (from ib.Min[0]) sits in slot zz mod slots. The window
+		// holds at most slots consecutive planes, so slots never collide.
+		slots := min(2*r+1, s[0])
+		ring := grow(&sc.ring, slots*np)
+		held := sc.held[:0]
+		for range slots {
+			held = append(held, -1)
+		}
+		sc.held = held
 		src64 := make([][]float64, 2*r+1)
 		for z := z0; z < z1; z++ {
 			// Pass 1 (z): plane[y][x] over y1a..y1b, x1a..x1b.
-			for y := y1a; y < y1b; y++ {
+			for k := -r; k <= r; k++ {
+				zz := clamp(z+k, ib.Min[0], ib.Max[0]) - ib.Min[0]
+				slot := zz % slots
+				if held[slot] != zz {
+					dst := ring[slot*np:][:np]
+					for y := y1a; y < y1b; y++ {
+						row := in.Pix[(zz*s[1]+y-ib.Min[1])*s[2]+x1a-ib.Min[2]:][:nx1]
+						d := dst[(y-y1a)*nx1:][:nx1]
+						for i, v := range row {
+							d[i] = float64(v)
+						}
+					}
+					held[slot] = zz
+				}
+			}
+			for y := 0; y < ny1; y++ {
 				for k := -r; k <= r; k++ {
 					zz := clamp(z+k, ib.Min[0], ib.Max[0]) - ib.Min[0]
-					src[k+r] = in.Pix[(zz*s[1]+y-ib.Min[1])*s[2]+x1a-ib.Min[2]:][:nx1]
+					src64[k+r] = ring[(zz%slots)*np+y*nx1:][:nx1]
 				}
-				symmetricRow(plane[(y-y1a)*nx1:][:nx1], acc[:nx1], w, src)
+				symmetricRow(plane[y*nx1:][:nx1], acc[:nx1], w, src64)
 			}
 			for y := core.Min[1]; y < core.Max[1]; y++ {
 				// Pass 2 (y): rows y+k of the plane, clamped to y1a..y1b,
@@ -136,6 +161,8 @@ type gaussScratch struct {
 	plane []float64 // one z-pass plane, [y][x] row-major, float32 values
 	acc   []float64 // partial sums of one row
 	pad   []float64 // one y-pass row padded by r on both sides, float32 values
+	ring  []float64 // min(2r+1, input depth) input planes, like plane
+	held  []int     // input plane (from in.Box.Min[0]) in each ring slot, −1 none
 }
 
 var gaussScratchPool = sync.Pool{New: func() any { return new(gaussScratch) }}
