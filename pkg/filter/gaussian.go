@@ -182,73 +182,107 @@ type real interface{ float32 | float64 }
 // symmetricRow sets dst[i] = float32(w[0]·c[i] + Σ_{j=1..r} w[j]·(a₋ⱼ[i] +
 // a₊ⱼ[i])) with the sum taken in increasing j, where src[r+k] is the source
 // row shifted by k (k = −r..r; every row at least len(dst) long) and acc is a
-// float64 row of len(dst). Taps are applied two pairs per sweep; the last
-// sweep writes dst.
-func symmetricRow[S, D real](dst []D, acc []float64, w []float64, src [][]S) {
+// float64 row of len(dst). A sweep over the row applies up to three tap
+// pairs (for radius 5, the curvature smoothing: two sweeps); the last sweep
+// writes dst.
+func symmetricRow[D real](dst []D, acc []float64, w []float64, src [][]float64) {
 	r := len(w) - 1
-	if r == 0 {
+	switch r {
+	case 0:
 		c := src[0][:len(dst)]
 		for i := range dst {
-			dst[i] = D(float32(w[0] * float64(c[i])))
+			dst[i] = D(float32(w[0] * c[i]))
 		}
 		return
-	}
-	tapsFirst(acc, w[0], src[r], w[1], src[r-1], src[r+1])
-	j := 2
-	for ; j+1 <= r; j += 2 {
-		if j+1 == r {
-			tapsTwoStore(dst, acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1])
-			return
-		}
-		tapsTwo(acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1])
-	}
-	if j == r {
-		tapsOneStore(dst, acc, w[j], src[r-j], src[r+j])
+	case 1:
+		tapsHead1(acc, w[0], src[1], w[1], src[0], src[2])
+		store(dst, acc)
+		return
+	case 2:
+		tapsHead1(acc, w[0], src[2], w[1], src[1], src[3])
+		tapsTail1(dst, acc, w[2], src[0], src[4])
 		return
 	}
-	store(dst, acc)
+	tapsHead2(acc, w[0], src[r], w[1], src[r-1], src[r+1], w[2], src[r-2], src[r+2])
+	j := 3
+	for ; r-j+1 > 3; j += 2 {
+		tapsMid2(acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1])
+	}
+	switch r - j + 1 {
+	case 1:
+		tapsTail1(dst, acc, w[j], src[r-j], src[r+j])
+	case 2:
+		tapsTail2(dst, acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1])
+	case 3:
+		tapsTail3(dst, acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1], w[j+2], src[r-j-2], src[r+j+2])
+	}
 }
 
-// tapsFirst: acc[i] = w0·c[i] + w1·(a[i] + b[i]).
-func tapsFirst[S real](acc []float64, w0 float64, c []S, w1 float64, a, b []S) {
+// tapsHead1: acc[i] = w0·c[i] + w1·(a[i] + b[i]).
+func tapsHead1(acc []float64, w0 float64, c []float64, w1 float64, a, b []float64) {
 	c, a, b = c[:len(acc)], a[:len(acc)], b[:len(acc)]
 	for i := range acc {
-		s := w0 * float64(c[i])
-		s += w1 * (float64(a[i]) + float64(b[i]))
+		s := w0 * c[i]
+		s += w1 * (a[i] + b[i])
 		acc[i] = s
 	}
 }
 
-// tapsTwo: acc[i] += wj·(a[i] + b[i]), then += wk·(c[i] + d[i]).
-func tapsTwo[S real](acc []float64, wj float64, a, b []S, wk float64, c, d []S) {
+// tapsHead2: acc[i] = w0·c[i] + w1·(a[i] + b[i]) + w2·(d[i] + e[i]).
+func tapsHead2(acc []float64, w0 float64, c []float64, w1 float64, a, b []float64, w2 float64, d, e []float64) {
+	c, a, b, d, e = c[:len(acc)], a[:len(acc)], b[:len(acc)], d[:len(acc)], e[:len(acc)]
+	for i := range acc {
+		s := w0 * c[i]
+		s += w1 * (a[i] + b[i])
+		s += w2 * (d[i] + e[i])
+		acc[i] = s
+	}
+}
+
+// tapsMid2: acc[i] += wj·(a[i] + b[i]), then += wk·(c[i] + d[i]).
+func tapsMid2(acc []float64, wj float64, a, b []float64, wk float64, c, d []float64) {
 	a, b, c, d = a[:len(acc)], b[:len(acc)], c[:len(acc)], d[:len(acc)]
 	for i := range acc {
 		s := acc[i]
-		s += wj * (float64(a[i]) + float64(b[i]))
-		s += wk * (float64(c[i]) + float64(d[i]))
+		s += wj * (a[i] + b[i])
+		s += wk * (c[i] + d[i])
 		acc[i] = s
 	}
 }
 
-// tapsTwoStore: dst[i] = float32(acc[i] + wj·(a[i] + b[i]) + wk·(c[i] + d[i])).
-func tapsTwoStore[S, D real](dst []D, acc []float64, wj float64, a, b []S, wk float64, c, d []S) {
-	acc = acc[:len(dst)]
-	a, b, c, d = a[:len(dst)], b[:len(dst)], c[:len(dst)], d[:len(dst)]
-	for i := range dst {
-		s := acc[i]
-		s += wj * (float64(a[i]) + float64(b[i]))
-		s += wk * (float64(c[i]) + float64(d[i]))
-		dst[i] = D(float32(s))
-	}
-}
-
-// tapsOneStore: dst[i] = float32(acc[i] + wj·(a[i] + b[i])).
-func tapsOneStore[S, D real](dst []D, acc []float64, wj float64, a, b []S) {
+// tapsTail1: dst[i] = float32(acc[i] + wj·(a[i] + b[i])).
+func tapsTail1[D real](dst []D, acc []float64, wj float64, a, b []float64) {
 	acc = acc[:len(dst)]
 	a, b = a[:len(dst)], b[:len(dst)]
 	for i := range dst {
 		s := acc[i]
-		s += wj * (float64(a[i]) + float64(b[i]))
+		s += wj * (a[i] + b[i])
+		dst[i] = D(float32(s))
+	}
+}
+
+// tapsTail2: dst[i] = float32(acc[i] + wj·(a[i] + b[i]) + wk·(c[i] + d[i])).
+func tapsTail2[D real](dst []D, acc []float64, wj float64, a, b []float64, wk float64, c, d []float64) {
+	acc = acc[:len(dst)]
+	a, b, c, d = a[:len(dst)], b[:len(dst)], c[:len(dst)], d[:len(dst)]
+	for i := range dst {
+		s := acc[i]
+		s += wj * (a[i] + b[i])
+		s += wk * (c[i] + d[i])
+		dst[i] = D(float32(s))
+	}
+}
+
+// tapsTail3: dst[i] = float32(acc[i] + wj·(a[i] + b[i]) + wk·(c[i] + d[i]) +
+// wl·(e[i] + f[i])).
+func tapsTail3[D real](dst []D, acc []float64, wj float64, a, b []float64, wk float64, c, d []float64, wl float64, e, f []float64) {
+	acc = acc[:len(dst)]
+	a, b, c, d, e, f = a[:len(dst)], b[:len(dst)], c[:len(dst)], d[:len(dst)], e[:len(dst)], f[:len(dst)]
+	for i := range dst {
+		s := acc[i]
+		s += wj * (a[i] + b[i])
+		s += wk * (c[i] + d[i])
+		s += wl * (e[i] + f[i])
 		dst[i] = D(float32(s))
 	}
 }
