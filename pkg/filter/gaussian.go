@@ -105,7 +105,7 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 			held = append(held, -1)
 		}
 		sc.held = held
-		src64 := make([][]float64, 2*r+1)
+		at := make([]int, 2*r+1) // offset of the row shifted by k, at[k+r]
 		for z := z0; z < z1; z++ {
 			// Pass 1 (z): plane[y][x] over y1a..y1b, x1a..x1b.
 			for k := -r; k <= r; k++ {
@@ -126,18 +126,18 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 			for y := 0; y < ny1; y++ {
 				for k := -r; k <= r; k++ {
 					zz := clamp(z+k, ib.Min[0], ib.Max[0]) - ib.Min[0]
-					src64[k+r] = ring[(zz%slots)*np+y*nx1:][:nx1]
+					at[k+r] = (zz%slots)*np + y*nx1
 				}
-				symmetricRow(plane[y*nx1:][:nx1], acc[:nx1], w, src64)
+				symmetricRow(plane[y*nx1:][:nx1], acc[:nx1], w, ring, at)
 			}
 			for y := core.Min[1]; y < core.Max[1]; y++ {
 				// Pass 2 (y): rows y+k of the plane, clamped to y1a..y1b,
 				// into the padded row.
 				for k := -r; k <= r; k++ {
 					yy := clamp(y+k, y1a, y1b) - y1a
-					src64[k+r] = plane[yy*nx1:][:nx1]
+					at[k+r] = yy * nx1
 				}
-				symmetricRow(pad[off:][:nx1], acc[:nx1], w, src64)
+				symmetricRow(pad[off:][:nx1], acc[:nx1], w, plane, at)
 				lo, hi := pad[off], pad[off+nx1-1]
 				for i := range pad[:off] {
 					pad[i] = lo
@@ -147,9 +147,9 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 				}
 				// Pass 3 (x): the output row from the padded row shifted by k.
 				for k := -r; k <= r; k++ {
-					src64[k+r] = pad[r+k:][:ncx]
+					at[k+r] = r + k
 				}
-				symmetricRow(out.Pix[out.Index(z, y, core.Min[2]):][:ncx], acc[:ncx], w, src64)
+				symmetricRow(out.Pix[out.Index(z, y, core.Min[2]):][:ncx], acc[:ncx], w, pad, at)
 			}
 		}
 	})
@@ -180,41 +180,44 @@ func grow[T real](buf *[]T, n int) []T {
 type real interface{ float32 | float64 }
 
 // symmetricRow sets dst[i] = float32(w[0]·c[i] + Σ_{j=1..r} w[j]·(a₋ⱼ[i] +
-// a₊ⱼ[i])) with the sum taken in increasing j, where src[r+k] is the source
-// row shifted by k (k = −r..r; every row at least len(dst) long) and acc is a
-// float64 row of len(dst). A sweep over the row applies up to three tap
+// a₊ⱼ[i])) with the sum taken in increasing j, where the source row shifted
+// by k (k = −r..r) is base[at[k+r]:][:len(dst)], and acc is a float64 row of
+// len(dst). (Offsets rather than a slice of rows: no pointer stores, so no
+// write barriers, per row.) A sweep over the row applies up to three tap
 // pairs (for radius 5, the curvature smoothing: two sweeps); the last sweep
 // writes dst.
-func symmetricRow[D real](dst []D, acc []float64, w []float64, src [][]float64) {
+func symmetricRow[D real](dst []D, acc []float64, w []float64, base []float64, at []int) {
 	r := len(w) - 1
+	n := len(dst)
+	row := func(k int) []float64 { return base[at[r+k]:][:n] }
 	switch r {
 	case 0:
-		c := src[0][:len(dst)]
+		c := row(0)
 		for i := range dst {
 			dst[i] = D(float32(w[0] * c[i]))
 		}
 		return
 	case 1:
-		tapsHead1(acc, w[0], src[1], w[1], src[0], src[2])
+		tapsHead1(acc, w[0], row(0), w[1], row(-1), row(1))
 		store(dst, acc)
 		return
 	case 2:
-		tapsHead1(acc, w[0], src[2], w[1], src[1], src[3])
-		tapsTail1(dst, acc, w[2], src[0], src[4])
+		tapsHead1(acc, w[0], row(0), w[1], row(-1), row(1))
+		tapsTail1(dst, acc, w[2], row(-2), row(2))
 		return
 	}
-	tapsHead2(acc, w[0], src[r], w[1], src[r-1], src[r+1], w[2], src[r-2], src[r+2])
+	tapsHead2(acc, w[0], row(0), w[1], row(-1), row(1), w[2], row(-2), row(2))
 	j := 3
 	for ; r-j+1 > 3; j += 2 {
-		tapsMid2(acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1])
+		tapsMid2(acc, w[j], row(-j), row(j), w[j+1], row(-j-1), row(j+1))
 	}
 	switch r - j + 1 {
 	case 1:
-		tapsTail1(dst, acc, w[j], src[r-j], src[r+j])
+		tapsTail1(dst, acc, w[j], row(-j), row(j))
 	case 2:
-		tapsTail2(dst, acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1])
+		tapsTail2(dst, acc, w[j], row(-j), row(j), w[j+1], row(-j-1), row(j+1))
 	case 3:
-		tapsTail3(dst, acc, w[j], src[r-j], src[r+j], w[j+1], src[r-j-1], src[r+j+1], w[j+2], src[r-j-2], src[r+j+2])
+		tapsTail3(dst, acc, w[j], row(-j), row(j), w[j+1], row(-j-1), row(j+1), w[j+2], row(-j-2), row(j+2))
 	}
 }
 
