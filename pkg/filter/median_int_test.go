@@ -6,6 +6,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"sync/atomic"
 	"testing"
 
 	"sluice/pkg/volume"
@@ -163,9 +164,9 @@ func TestMedianLevelsMatchesMedian(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			seen := 0
+			var seen atomic.Int64 // rows come out on the filter's goroutines
 			err = Median3Levels(v, core, cuts, func(z, y int, above []uint8) {
-				seen++
+				seen.Add(1)
 				for i, a := range above {
 					m := int(med.At(z, y, core.Min[2]+i))
 					want := 0
@@ -182,8 +183,8 @@ func TestMedianLevelsMatchesMedian(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			if s := core.Size(); seen != s[0]*s[1] {
-				t.Fatalf("%d rows emitted, want %d", seen, s[0]*s[1])
+			if s := core.Size(); seen.Load() != int64(s[0]*s[1]) {
+				t.Fatalf("%d rows emitted, want %d", seen.Load(), s[0]*s[1])
 			}
 		}
 	}
