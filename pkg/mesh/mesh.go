@@ -224,6 +224,13 @@ var edgeGeo [12]struct {
 // set at x or x+1 and all is not set at both. Only mixed cubes load their
 // corner values and do the triangle work.
 func walk(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(key [3]int64, p [3][3]float64)) {
+	march(f, level, cubes, fn, nil)
+}
+
+// march is walk with an inline area sum: when fn is nil it adds the area
+// of every triangle to *area instead, in the same order and by the same
+// arithmetic as triArea, without building keys or calling back.
+func march(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(key [3]int64, p [3][3]float64), area *float64) {
 	tab := table()
 	cb := cubeBox(f, cubes)
 	if cb.Empty() {
@@ -264,6 +271,7 @@ func walk(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(ke
 		lastMask = 1<<k - 1
 	}
 	var val [8]float32
+	var sum float64 // area so far when fn is nil
 	signs(lo, cb.Min[0])
 	for z := cb.Min[0]; z < cb.Max[0]; z++ {
 		signs(hi, z+1)
@@ -309,7 +317,23 @@ func walk(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(ke
 								mean[j] += pts[k][j] / float64(len(loop))
 							}
 							// Edge key: 3 × global sample index of the low end + axis.
-							keys[k] = int64(i+off[g.a])*3 + g.ax
+							if fn != nil {
+								keys[k] = int64(i+off[g.a])*3 + g.ax
+							}
+						}
+						if fn == nil {
+							if len(loop) == 3 {
+								sum += triArea3(&pts[0], &pts[1], &pts[2])
+								continue
+							}
+							for k := range loop {
+								k2 := k + 1
+								if k2 == len(loop) {
+									k2 = 0
+								}
+								sum += triArea3(&mean, &pts[k], &pts[k2])
+							}
+							continue
 						}
 						if len(loop) == 3 {
 							fn([3]int64{keys[0], keys[1], keys[2]}, [3][3]float64{pts[0], pts[1], pts[2]})
@@ -327,6 +351,9 @@ func walk(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(ke
 		}
 		lo, hi = hi, lo
 	}
+	if fn == nil {
+		*area += sum
+	}
 }
 
 func triArea(p [3][3]float64) float64 {
@@ -334,11 +361,22 @@ func triArea(p [3][3]float64) float64 {
 	return math.Sqrt(dot(n, n)) / 2
 }
 
+// triArea3 is triArea on three vertices in place, the same operations in
+// the same order, so the same result to the last bit.
+func triArea3(p0, p1, p2 *[3]float64) float64 {
+	u0, u1, u2 := p1[0]-p0[0], p1[1]-p0[1], p1[2]-p0[2]
+	v0, v1, v2 := p2[0]-p0[0], p2[1]-p0[1], p2[2]-p0[2]
+	n0 := u1*v2 - u2*v1
+	n1 := u2*v0 - u0*v2
+	n2 := u0*v1 - u1*v0
+	return math.Sqrt(n0*n0+n1*n1+n2*n2) / 2
+}
+
 // Area returns the area of the iso-surface {f = level} over the cubes whose
 // lowest corner lies in cubes, without storing the mesh.
 func Area(f *volume.Volume[float32], level float64, cubes volume.Box) float64 {
 	var a float64
-	walk(f, level, cubes, func(_ [3]int64, p [3][3]float64) { a += triArea(p) })
+	march(f, level, cubes, nil, &a)
 	return a
 }
 
