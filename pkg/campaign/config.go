@@ -14,6 +14,7 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"reflect"
 	"strings"
 
 	"gopkg.in/yaml.v3"
@@ -211,10 +212,38 @@ func Parse(name string, data []byte) (Config, error) {
 	if err := dec.Decode(&c); err != nil && err.Error() != "EOF" {
 		return c, fmt.Errorf("campaign: %s: %v", name, oneLine(err))
 	}
+	positiveZeros(reflect.ValueOf(&c).Elem())
 	if err := c.Validate(); err != nil {
 		return c, fmt.Errorf("%s: %w", name, err)
 	}
 	return c, nil
+}
+
+// positiveZeros turns every −0 float in v into +0. YAML reads "-0." as −0
+// but the JSON that campaign.json stores writes "-0", which reads back as
+// +0: without this the parameter hash of a config would change on its way
+// through the store.
+func positiveZeros(v reflect.Value) {
+	switch v.Kind() {
+	case reflect.Float32, reflect.Float64:
+		if v.CanSet() && v.Float() == 0 {
+			v.SetFloat(0)
+		}
+	case reflect.Struct:
+		for i := 0; i < v.NumField(); i++ {
+			if v.Type().Field(i).IsExported() {
+				positiveZeros(v.Field(i))
+			}
+		}
+	case reflect.Slice, reflect.Array:
+		for i := 0; i < v.Len(); i++ {
+			positiveZeros(v.Index(i))
+		}
+	case reflect.Pointer:
+		if !v.IsNil() {
+			positiveZeros(v.Elem())
+		}
+	}
 }
 
 // Load reads a configuration file.
