@@ -251,16 +251,21 @@ func march(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(k
 	lo := make([]uint64, rows*words)
 	hi := make([]uint64, rows*words)
 	signs := func(dst []uint64, z int) {
-		clear(dst)
 		for r := 0; r < rows; r++ {
 			src := f.Pix[f.Index(z, cb.Min[1]+r, cb.Min[2]):][:ns]
 			d := dst[r*words:][:words]
-			for x, v := range src {
-				var bit uint64
-				if v > lv {
-					bit = 1
+			for w := range d {
+				chunk := src[w*64:]
+				if len(chunk) > 64 {
+					chunk = chunk[:64]
 				}
-				d[x>>6] |= bit << (x & 63)
+				var m uint64
+				for x, v := range chunk {
+					if v > lv {
+						m |= 1 << x
+					}
+				}
+				d[w] = m
 			}
 		}
 	}
@@ -314,7 +319,11 @@ func march(f *volume.Volume[float32], level float64, cubes volume.Box, fn func(k
 							t := (level - float64(val[g.a])) / (float64(val[g.b]) - float64(val[g.a]))
 							for j := 0; j < 3; j++ {
 								pts[k][j] = o[j] + g.ca[j] + t*g.d[j]
-								mean[j] += pts[k][j] / float64(len(loop))
+							}
+							if len(loop) > 3 { // the fan centre
+								for j := 0; j < 3; j++ {
+									mean[j] += pts[k][j] / float64(len(loop))
+								}
 							}
 							// Edge key: 3 × global sample index of the low end + axis.
 							if fn != nil {
