@@ -512,14 +512,19 @@ func Indicator(lab *volume.Labels, s *phase.Set, box volume.Box) *volume.Volume[
 	if in.Empty() {
 		return out
 	}
+	// One lookup per voxel, no branch on the label.
+	var value [256]float32
+	for l, in := range s {
+		if in {
+			value[l] = 1
+		}
+	}
 	for z := in.Min[0]; z < in.Max[0]; z++ {
 		for y := in.Min[1]; y < in.Max[1]; y++ {
 			src := lab.Pix[lab.Index(z, y, in.Min[2]):][:in.Max[2]-in.Min[2]]
 			dst := out.Pix[out.Index(z, y, in.Min[2]):][:len(src)]
 			for i, v := range src {
-				if s[v] {
-					dst[i] = 1
-				}
+				dst[i] = value[v]
 			}
 		}
 	}

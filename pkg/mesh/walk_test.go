@@ -5,6 +5,7 @@ import (
 	"math/rand/v2"
 	"testing"
 
+	"sluice/pkg/phase"
 	"sluice/pkg/volume"
 )
 
@@ -77,4 +78,36 @@ func TestMaskWalkEqualsCellWalk(t *testing.T) {
 		t.Fatalf("only %d triangles compared", total)
 	}
 	t.Logf("%d triangles identical", total)
+}
+
+// Indicator is 1 exactly on the voxels whose label is in the set and 0
+// elsewhere, including the part of the box outside the label volume.
+// Source: definition (Indicator doc).
+func TestIndicatorValues(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 5))
+	lab := volume.New[uint8](volume.Box{Min: [3]int{1, -2, 3}, Max: [3]int{7, 5, 12}}, 1)
+	for i := range lab.Pix {
+		lab.Pix[i] = uint8(rng.IntN(4))
+	}
+	set := phase.Of(1, 3)
+	box := lab.Box.Grow(1)
+	f := Indicator(lab, set, box)
+	ones := 0
+	for z := box.Min[0]; z < box.Max[0]; z++ {
+		for y := box.Min[1]; y < box.Max[1]; y++ {
+			for x := box.Min[2]; x < box.Max[2]; x++ {
+				want := float32(0)
+				if lab.Box.Contains(z, y, x) && set[lab.At(z, y, x)] {
+					want = 1
+					ones++
+				}
+				if got := f.At(z, y, x); got != want {
+					t.Fatalf("(%d, %d, %d): %v, want %v", z, y, x, got, want)
+				}
+			}
+		}
+	}
+	if ones == 0 {
+		t.Fatal("no voxel in the set")
+	}
 }
