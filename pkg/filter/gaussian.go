@@ -91,44 +91,19 @@ func Gaussian(in *volume.Volume[float32], core volume.Box, sigma, truncate float
 	slabs(core.Min[0], core.Max[0], func(z0, z1 int) {
 		sc := gaussScratchPool.Get().(*gaussScratch)
 		defer gaussScratchPool.Put(sc)
-		np := ny1 * nx1
-		plane := grow(&sc.plane, np)
+		plane := grow(&sc.plane, ny1*nx1)
 		acc := grow(&sc.acc, max(nx1, ncx))
 		pad := grow(&sc.pad, ncx+2*r)
-		// The input planes of the z window, converted once to float64:
-		// plane zz (from ib.Min[0]) sits in slot zz mod slots. The window
-		// holds at most slots consecutive planes, so slots never collide.
-		slots := min(2*r+1, s[0])
-		ring := grow(&sc.ring, slots*np)
-		held := sc.held[:0]
-		for range slots {
-			held = append(held, -1)
-		}
-		sc.held = held
 		at := make([]int, 2*r+1) // offset of the row shifted by k, at[k+r]
 		for z := z0; z < z1; z++ {
-			// Pass 1 (z): plane[y][x] over y1a..y1b, x1a..x1b.
-			for k := -r; k <= r; k++ {
-				zz := clamp(z+k, ib.Min[0], ib.Max[0]) - ib.Min[0]
-				slot := zz % slots
-				if held[slot] != zz {
-					dst := ring[slot*np:][:np]
-					for y := y1a; y < y1b; y++ {
-						row := in.Pix[(zz*s[1]+y-ib.Min[1])*s[2]+x1a-ib.Min[2]:][:nx1]
-						d := dst[(y-y1a)*nx1:][:nx1]
-						for i, v := range row {
-							d[i] = float64(v)
-						}
-					}
-					held[slot] = zz
-				}
-			}
-			for y := 0; y < ny1; y++ {
+			// Pass 1 (z): plane[y][x] over y1a..y1b, x1a..x1b, straight
+			// from the input rows.
+			for y := y1a; y < y1b; y++ {
 				for k := -r; k <= r; k++ {
 					zz := clamp(z+k, ib.Min[0], ib.Max[0]) - ib.Min[0]
-					at[k+r] = (zz%slots)*np + y*nx1
+					at[k+r] = (zz*s[1]+y-ib.Min[1])*s[2] + x1a - ib.Min[2]
 				}
-				symmetricRow(plane[y*nx1:][:nx1], acc[:nx1], w, ring, at)
+				symmetricRow(plane[(y-y1a)*nx1:][:nx1], acc[:nx1], w, in.Pix, at)
 			}
 			for y := core.Min[1]; y < core.Max[1]; y++ {
 				// Pass 2 (y): rows y+k of the plane, clamped to y1a..y1b,
@@ -161,8 +136,6 @@ type gaussScratch struct {
 	plane []float64 // one z-pass plane, [y][x] row-major, float32 values
 	acc   []float64 // partial sums of one row
 	pad   []float64 // one y-pass row padded by r on both sides, float32 values
-	ring  []float64 // min(2r+1, input depth) input planes, like plane
-	held  []int     // input plane (from in.Box.Min[0]) in each ring slot, −1 none
 }
 
 var gaussScratchPool = sync.Pool{New: func() any { return new(gaussScratch) }}
@@ -186,15 +159,15 @@ type real interface{ float32 | float64 }
 // write barriers, per row.) A sweep over the row applies up to three tap
 // pairs (for radius 5, the curvature smoothing: two sweeps); the last sweep
 // writes dst.
-func symmetricRow[D real](dst []D, acc []float64, w []float64, base []float64, at []int) {
+func symmetricRow[S, D real](dst []D, acc []float64, w []float64, base []S, at []int) {
 	r := len(w) - 1
 	n := len(dst)
-	row := func(k int) []float64 { return base[at[r+k]:][:n] }
+	row := func(k int) []S { return base[at[r+k]:][:n] }
 	switch r {
 	case 0:
 		c := row(0)
 		for i := range dst {
-			dst[i] = D(float32(w[0] * c[i]))
+			dst[i] = D(float32(w[0] * float64(c[i])))
 		}
 		return
 	case 1:
@@ -222,70 +195,70 @@ func symmetricRow[D real](dst []D, acc []float64, w []float64, base []float64, a
 }
 
 // tapsHead1: acc[i] = w0·c[i] + w1·(a[i] + b[i]).
-func tapsHead1(acc []float64, w0 float64, c []float64, w1 float64, a, b []float64) {
+func tapsHead1[S real](acc []float64, w0 float64, c []S, w1 float64, a, b []S) {
 	c, a, b = c[:len(acc)], a[:len(acc)], b[:len(acc)]
 	for i := range acc {
-		s := w0 * c[i]
-		s += w1 * (a[i] + b[i])
+		s := w0 * float64(c[i])
+		s += w1 * (float64(a[i]) + float64(b[i]))
 		acc[i] = s
 	}
 }
 
 // tapsHead2: acc[i] = w0·c[i] + w1·(a[i] + b[i]) + w2·(d[i] + e[i]).
-func tapsHead2(acc []float64, w0 float64, c []float64, w1 float64, a, b []float64, w2 float64, d, e []float64) {
+func tapsHead2[S real](acc []float64, w0 float64, c []S, w1 float64, a, b []S, w2 float64, d, e []S) {
 	c, a, b, d, e = c[:len(acc)], a[:len(acc)], b[:len(acc)], d[:len(acc)], e[:len(acc)]
 	for i := range acc {
-		s := w0 * c[i]
-		s += w1 * (a[i] + b[i])
-		s += w2 * (d[i] + e[i])
+		s := w0 * float64(c[i])
+		s += w1 * (float64(a[i]) + float64(b[i]))
+		s += w2 * (float64(d[i]) + float64(e[i]))
 		acc[i] = s
 	}
 }
 
 // tapsMid2: acc[i] += wj·(a[i] + b[i]), then += wk·(c[i] + d[i]).
-func tapsMid2(acc []float64, wj float64, a, b []float64, wk float64, c, d []float64) {
+func tapsMid2[S real](acc []float64, wj float64, a, b []S, wk float64, c, d []S) {
 	a, b, c, d = a[:len(acc)], b[:len(acc)], c[:len(acc)], d[:len(acc)]
 	for i := range acc {
 		s := acc[i]
-		s += wj * (a[i] + b[i])
-		s += wk * (c[i] + d[i])
+		s += wj * (float64(a[i]) + float64(b[i]))
+		s += wk * (float64(c[i]) + float64(d[i]))
 		acc[i] = s
 	}
 }
 
 // tapsTail1: dst[i] = float32(acc[i] + wj·(a[i] + b[i])).
-func tapsTail1[D real](dst []D, acc []float64, wj float64, a, b []float64) {
+func tapsTail1[S, D real](dst []D, acc []float64, wj float64, a, b []S) {
 	acc = acc[:len(dst)]
 	a, b = a[:len(dst)], b[:len(dst)]
 	for i := range dst {
 		s := acc[i]
-		s += wj * (a[i] + b[i])
+		s += wj * (float64(a[i]) + float64(b[i]))
 		dst[i] = D(float32(s))
 	}
 }
 
 // tapsTail2: dst[i] = float32(acc[i] + wj·(a[i] + b[i]) + wk·(c[i] + d[i])).
-func tapsTail2[D real](dst []D, acc []float64, wj float64, a, b []float64, wk float64, c, d []float64) {
+func tapsTail2[S, D real](dst []D, acc []float64, wj float64, a, b []S, wk float64, c, d []S) {
 	acc = acc[:len(dst)]
 	a, b, c, d = a[:len(dst)], b[:len(dst)], c[:len(dst)], d[:len(dst)]
 	for i := range dst {
 		s := acc[i]
-		s += wj * (a[i] + b[i])
-		s += wk * (c[i] + d[i])
+		s += wj * (float64(a[i]) + float64(b[i]))
+		s += wk * (float64(c[i]) + float64(d[i]))
 		dst[i] = D(float32(s))
 	}
 }
 
 // tapsTail3: dst[i] = float32(acc[i] + wj·(a[i] + b[i]) + wk·(c[i] + d[i]) +
 // wl·(e[i] + f[i])).
-func tapsTail3[D real](dst []D, acc []float64, wj float64, a, b []float64, wk float64, c, d []float64, wl float64, e, f []float64) {
+func tapsTail3[S, D real](dst []D, acc []float64, wj float64, a, b []S, wk float64, c, d []S, wl float64, e, f []S) {
 	acc = acc[:len(dst)]
 	a, b, c, d, e, f = a[:len(dst)], b[:len(dst)], c[:len(dst)], d[:len(dst)], e[:len(dst)], f[:len(dst)]
 	for i := range dst {
 		s := acc[i]
-		s += wj * (a[i] + b[i])
-		s += wk * (c[i] + d[i])
-		s += wl * (e[i] + f[i])
+		s += wj * (float64(a[i]) + float64(b[i]))
+		s += wk * (float64(c[i]) + float64(d[i]))
+		s += wl * (float64(e[i]) + float64(f[i]))
 		dst[i] = D(float32(s))
 	}
 }
