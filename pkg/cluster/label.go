@@ -2,11 +2,14 @@
 // tile, and merges the tiles' partial results into the whole-volume result.
 //
 // Labelling within a tile is the classical two-pass connected-component
-// algorithm (Rosenfeld & Pfaltz 1966, J. ACM 13:471): a raster scan gives
-// each set voxel the provisional label of an already visited neighbour and
-// records label equivalences in a union-find forest; a second pass replaces
-// every provisional label by its class, numbered in raster order of first
+// algorithm (Rosenfeld & Pfaltz 1966, J. ACM 13:471) applied to runs, the
+// maximal stretches of set voxels along x: a raster scan gives each run the
+// provisional label of an already visited run it touches and records label
+// equivalences in a union-find forest; a second pass replaces every
+// provisional label by its class, numbered in raster order of first
 // appearance. Connectivity is 26 (faces, edges and corners) or 6 (faces).
+// The face planes a tile reports are read from the runs; no label array of
+// the tile is built.
 //
 // Tiles are merged with a disjoint-set forest (union by size, path
 // compression; Tarjan 1975, J. ACM 22:215). Each tile keeps the labels on
@@ -186,7 +189,9 @@ func offsets(conn int) [][3]int {
 // programming errors.
 //
 // Memory: the runs of the set along x (12 bytes each, see labelRuns) and
-// one face plane of int32, freed on return; no per-voxel label array.
+// one face plane of int32; the run buffers go back to a sync.Pool for the
+// next call (dropped by the garbage collector when unused). No per-voxel
+// label array.
 func Label(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options) *Tile {
 	opt, err := opt.normalized()
 	if err != nil {

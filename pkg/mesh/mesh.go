@@ -31,6 +31,14 @@
 // components, points out of the inside region (toward lower values), the
 // same direction as Normals.
 //
+// # Speed
+//
+// Cubes with all eight corners on one side carry no surface; the walk finds
+// the others 64 at a time from bit masks of corner signs (see walk), so the
+// per-cube work is done only at the surface. Area sums the triangle areas
+// inline. Results are those of a plain cube-by-cube walk to the last bit:
+// same triangles, same order, same arithmetic.
+//
 // # Binary indicators
 //
 // Meshing a 0/1 indicator at level 0.5 puts every vertex at an edge
