@@ -49,9 +49,11 @@ func GaussianKernel(sigma, truncate float64) []float64 {
 //
 // Arithmetic. Each pass stores float32; each output voxel of a pass is the
 // float64 sum w[0]·c + Σ_{j=1..r} w[j]·(float64(a₋ⱼ) + float64(a₊ⱼ)), taken
-// in increasing j (the symmetric pairing is our own order; scipy's
-// correlate1d sums the taps one by one, so the two differ in the last float32
-// bit now and then). Any change of this order changes bits:
+// in increasing j. scipy's correlate1d also pairs the taps of a symmetric
+// kernel (from memory of its C source; the order of the pairs may differ);
+// float64 sums rounded to float32 hide such differences almost always, and
+// TestGaussianMatchesScipy logs how many voxels are not bit-identical (none
+// on its data). Any change of this order may change bits:
 // TestGaussianBitIdentical pins it against a whole-box reference.
 //
 // Loop order. The sums run "row at a time": for one group of taps, the
