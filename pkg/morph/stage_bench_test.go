@@ -1,32 +1,17 @@
 package morph_test
 
 import (
+	"sluice/internal/benchtile"
 	"testing"
 
 	"sluice/pkg/morph"
-	"sluice/pkg/phase"
-	"sluice/pkg/scenario"
-	"sluice/pkg/volume"
 )
 
-// drainageTile returns the labels of step 6 of a 160³ drainage campaign
-// (fixed seed) and the 128³ core a worker measures in it; the labels
-// reach 16 voxels past the core, more than any measurement halo.
-func drainageTile(b *testing.B) (*volume.Labels, volume.Box, [3]*phase.Set) {
-	b.Helper()
-	sc := &scenario.Campaign{Shape: [3]int{160, 160, 160}, Steps: 10, Seed: 1}
-	if err := sc.Prepare(); err != nil {
-		b.Fatal(err)
-	}
-	lab, _, _ := sc.Step(6)
-	s, w, n := phase.Default().Sets()
-	return lab, volume.Box{Min: [3]int{16, 16, 16}, Max: [3]int{144, 144, 144}}, [3]*phase.Set{s, w, n}
-}
-
-// mvox reports the throughput of b.N operations on n voxels each.
-func mvox(b *testing.B, n int) {
-	b.ReportMetric(float64(n)*float64(b.N)/b.Elapsed().Seconds()/1e6, "MVox/s")
-}
+// The shared tile and throughput report of every stage benchmark.
+var (
+	drainageTile = benchtile.Drainage
+	mvox         = benchtile.ReportMVox
+)
 
 // BenchmarkCellsTile: the six 2×2×2 configuration histograms (padded and
 // interior, three phases) of a 128³ tile core, as measure.MeasureTile
