@@ -9,15 +9,8 @@ package integration
 // neither the S3 secret and access key nor the NATS password appear.
 
 import (
-	"crypto/ecdsa"
-	"crypto/elliptic"
-	"crypto/rand"
-	"crypto/x509"
-	"crypto/x509/pkix"
 	"encoding/json"
-	"encoding/pem"
 	"fmt"
-	"math/big"
 	"net"
 	"net/http"
 	"os"
@@ -35,54 +28,10 @@ import (
 	pb "sluice/proto/sluicepb"
 )
 
-// certFiles is a CA made for one test with a server certificate for
-// 127.0.0.1 and a client certificate, as PEM files.
-type certFiles struct{ CA, ServerCert, ServerKey, ClientCert, ClientKey string }
+// certFiles is a CA made for one test (testenv.NewPKI).
+type certFiles = testenv.PKI
 
-func makeCerts(t *testing.T) certFiles {
-	t.Helper()
-	dir := t.TempDir()
-	write := func(name, kind string, der []byte) string {
-		p := filepath.Join(dir, name)
-		if err := os.WriteFile(p, pem.EncodeToMemory(&pem.Block{Type: kind, Bytes: der}), 0o600); err != nil {
-			t.Fatal(err)
-		}
-		return p
-	}
-	newKey := func() *ecdsa.PrivateKey {
-		k, err := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
-		if err != nil {
-			t.Fatal(err)
-		}
-		return k
-	}
-	now := time.Now()
-	caKey := newKey()
-	caTmpl := &x509.Certificate{SerialNumber: big.NewInt(1), Subject: pkix.Name{CommonName: "sluice integration CA"},
-		NotBefore: now.Add(-time.Hour), NotAfter: now.Add(2 * time.Hour), IsCA: true, BasicConstraintsValid: true,
-		KeyUsage: x509.KeyUsageCertSign | x509.KeyUsageDigitalSignature}
-	caDER, err := x509.CreateCertificate(rand.Reader, caTmpl, caTmpl, &caKey.PublicKey, caKey)
-	if err != nil {
-		t.Fatal(err)
-	}
-	ca, _ := x509.ParseCertificate(caDER)
-	leaf := func(serial int64, cn string, usage x509.ExtKeyUsage) (string, string) {
-		k := newKey()
-		tmpl := &x509.Certificate{SerialNumber: big.NewInt(serial), Subject: pkix.Name{CommonName: cn},
-			NotBefore: now.Add(-time.Hour), NotAfter: now.Add(2 * time.Hour), KeyUsage: x509.KeyUsageDigitalSignature,
-			ExtKeyUsage: []x509.ExtKeyUsage{usage}, IPAddresses: []net.IP{net.ParseIP("127.0.0.1")}}
-		der, err := x509.CreateCertificate(rand.Reader, tmpl, ca, &k.PublicKey, caKey)
-		if err != nil {
-			t.Fatal(err)
-		}
-		kder, _ := x509.MarshalECPrivateKey(k)
-		return write(cn+".pem", "CERTIFICATE", der), write(cn+"-key.pem", "EC PRIVATE KEY", kder)
-	}
-	c := certFiles{CA: write("ca.pem", "CERTIFICATE", caDER)}
-	c.ServerCert, c.ServerKey = leaf(2, "server", x509.ExtKeyUsageServerAuth)
-	c.ClientCert, c.ClientKey = leaf(3, "client", x509.ExtKeyUsageClientAuth)
-	return c
-}
+func makeCerts(t *testing.T) certFiles { return testenv.NewPKI(t) }
 
 func TestSecuredDistributed(t *testing.T) {
 	if testing.Short() {
