@@ -104,7 +104,7 @@ func TestLiveCampaign(t *testing.T) {
 	waitRows(t, st, "live", sc.Steps-1, 4*time.Minute)
 
 	t.Run("browser", func(t *testing.T) {
-		nodeBin := need(t, "node")
+		need(t, "node")
 		need(t, "chromium")
 		dir, _ := filepath.Abs("../../tests/browser")
 		if _, err := os.Stat(filepath.Join(dir, "node_modules", "playwright-core")); err != nil {
@@ -119,33 +119,12 @@ func TestLiveCampaign(t *testing.T) {
 		}
 		os.MkdirAll(out, 0o755)
 		shot := filepath.Join(out, "live-page.png")
-		cmd := exec.Command(nodeBin, filepath.Join(dir, "live.mjs"), base+"/", shot)
-		cmd.Dir = dir
-		cmd.Stderr = os.Stderr
-		stdout, _ := cmd.StdoutPipe()
-		if err := cmd.Start(); err != nil {
-			t.Fatal(err)
-		}
-		defer cmd.Process.Kill()
-		lines := bufio.NewScanner(stdout)
-		var before, after int
-		for lines.Scan() {
-			l := lines.Text()
-			t.Log("browser:", l)
-			switch {
-			case strings.HasPrefix(l, "loaded"):
-				fmt.Sscanf(l, "loaded %d", &before)
-				// The next scan arrives while the page is open.
-				if err := writeScan(f.watch, sc, sc.Steps-1, cyl); err != nil {
-					t.Fatal(err)
-				}
-			case strings.HasPrefix(l, "ok"):
-				fmt.Sscanf(l, "ok %d %d", &before, &after)
-			case strings.HasPrefix(l, "fail"):
-				t.Errorf("live page: %s", l)
+		// The next scan arrives while the page is open.
+		before, after := browseLivePage(t, dir, base+"/", shot, func() {
+			if err := writeScan(f.watch, sc, sc.Steps-1, cyl); err != nil {
+				t.Fatal(err)
 			}
-		}
-		cmd.Wait()
+		})
 		if after <= before {
 			t.Errorf("no new point appeared: %d → %d", before, after)
 		}
@@ -353,4 +332,37 @@ func TestLiveCampaign(t *testing.T) {
 			t.Errorf("Prometheus saturation %s, series %g", v, want)
 		}
 	})
+}
+
+// browseLivePage runs tests/browser/live.mjs (headless Chromium) on url,
+// writing a screenshot to shot. The script reports "loaded N" when the
+// page shows N points, then onLoaded is called (to make a new step arrive),
+// and "ok N M" when the count grew without a reload; "fail …" lines are
+// test errors. It returns the counts before and after.
+func browseLivePage(t *testing.T, dir, url, shot string, onLoaded func()) (before, after int) {
+	t.Helper()
+	cmd := exec.Command(need(t, "node"), filepath.Join(dir, "live.mjs"), url, shot)
+	cmd.Dir = dir
+	cmd.Stderr = os.Stderr
+	stdout, _ := cmd.StdoutPipe()
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	defer cmd.Process.Kill()
+	lines := bufio.NewScanner(stdout)
+	for lines.Scan() {
+		l := lines.Text()
+		t.Log("browser:", l)
+		switch {
+		case strings.HasPrefix(l, "loaded"):
+			fmt.Sscanf(l, "loaded %d", &before)
+			onLoaded()
+		case strings.HasPrefix(l, "ok"):
+			fmt.Sscanf(l, "ok %d %d", &before, &after)
+		case strings.HasPrefix(l, "fail"):
+			t.Errorf("live page %s: %s", url, l)
+		}
+	}
+	cmd.Wait()
+	return before, after
 }

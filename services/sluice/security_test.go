@@ -1,7 +1,6 @@
 package main
 
 import (
-	"bufio"
 	"context"
 	"encoding/json"
 	"fmt"
@@ -299,7 +298,7 @@ func TestLivePageWithToken(t *testing.T) {
 	if testing.Short() {
 		t.Skip("live campaign")
 	}
-	nodeBin := need(t, "node")
+	need(t, "node")
 	need(t, "chromium")
 	bdir, _ := filepath.Abs("../../tests/browser")
 	if _, err := os.Stat(filepath.Join(bdir, "node_modules", "playwright-core")); err != nil {
@@ -351,32 +350,11 @@ func TestLivePageWithToken(t *testing.T) {
 	}
 	waitRows(t, st, "tok", sc.Steps-1, 3*time.Minute)
 	shot := filepath.Join(t.TempDir(), "page.png")
-	cmd := exec.Command(nodeBin, filepath.Join(bdir, "live.mjs"), base+"/?token="+tok, shot)
-	cmd.Dir = bdir
-	cmd.Stderr = os.Stderr
-	out, _ := cmd.StdoutPipe()
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	defer cmd.Process.Kill()
-	lines := bufio.NewScanner(out)
-	var before, after int
-	for lines.Scan() {
-		l := lines.Text()
-		t.Log("browser:", l)
-		switch {
-		case strings.HasPrefix(l, "loaded"):
-			fmt.Sscanf(l, "loaded %d", &before)
-			if err := writeScan(f.watch, sc, sc.Steps-1, cyl); err != nil {
-				t.Fatal(err)
-			}
-		case strings.HasPrefix(l, "ok"):
-			fmt.Sscanf(l, "ok %d %d", &before, &after)
-		case strings.HasPrefix(l, "fail"):
-			t.Errorf("live page with token: %s", l)
+	before, after := browseLivePage(t, bdir, base+"/?token="+tok, shot, func() {
+		if err := writeScan(f.watch, sc, sc.Steps-1, cyl); err != nil {
+			t.Fatal(err)
 		}
-	}
-	cmd.Wait()
+	})
 	if after <= before {
 		t.Errorf("no new point appeared through the guarded event stream: %d → %d", before, after)
 	}
