@@ -195,6 +195,7 @@ func (c Config) MeasureOptions() (measure.Options, error) {
 func (c Config) Hash() string {
 	c.Tile = 0
 	c.Events = Events{}
+	positiveZeros(reflect.ValueOf(&c).Elem())
 	b, err := json.Marshal(c)
 	if err != nil {
 		panic(err) // plain data; cannot fail
@@ -212,21 +213,21 @@ func Parse(name string, data []byte) (Config, error) {
 	if err := dec.Decode(&c); err != nil && err.Error() != "EOF" {
 		return c, fmt.Errorf("campaign: %s: %v", name, oneLine(err))
 	}
-	positiveZeros(reflect.ValueOf(&c).Elem())
 	if err := c.Validate(); err != nil {
 		return c, fmt.Errorf("%s: %w", name, err)
 	}
 	return c, nil
 }
 
-// positiveZeros turns every −0 float in v into +0. YAML reads "-0." as −0
-// but the JSON that campaign.json stores writes "-0", which reads back as
-// +0: without this the parameter hash of a config would change on its way
-// through the store.
+// positiveZeros turns every −0 float in v into +0, the same value: YAML
+// reads "-0." as −0, JSON writes it "-0" and YAML reads that back as +0, so
+// a hash of the raw bits would change on a config's way through
+// campaign.json. Slices are shared with the caller's value; only −0
+// elements change, to the equal +0.
 func positiveZeros(v reflect.Value) {
 	switch v.Kind() {
 	case reflect.Float32, reflect.Float64:
-		if v.CanSet() && v.Float() == 0 {
+		if v.CanSet() && v.Float() == 0 && math.Signbit(v.Float()) {
 			v.SetFloat(0)
 		}
 	case reflect.Struct:
