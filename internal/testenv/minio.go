@@ -4,6 +4,7 @@ import (
 	"crypto/rand"
 	"encoding/hex"
 	"fmt"
+	"net/http"
 	"strings"
 	"testing"
 	"time"
@@ -71,7 +72,11 @@ func (m *MinIO) URL(bucket string) string {
 
 func (m *MinIO) launch() error {
 	m.p = start(m.t, "minio", m.bin, m.env, m.args...)
-	return m.p.waitReady(func() bool { return httpOK("http://" + m.Endpoint + "/minio/health/ready") })
+	// /minio/health/ready can answer before the object layer is up; a
+	// bucket request answers 503 until it is.
+	return m.p.waitReady(func() bool {
+		return httpOK("http://"+m.Endpoint+"/minio/health/ready") && httpStatus("http://"+m.Endpoint+"/") != http.StatusServiceUnavailable
+	})
 }
 
 // Stop stops the server (SIGTERM, then SIGKILL after 10 s).

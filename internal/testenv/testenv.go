@@ -205,17 +205,21 @@ func tail(s string) string {
 	return s
 }
 
-func httpOK(url string) bool {
+func httpOK(url string) bool { return httpStatus(url) == http.StatusOK }
+
+// httpStatus returns the status of a GET of url, or 0 when there is no
+// answer within 2 s.
+func httpStatus(url string) int {
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
 	defer cancel()
 	req, err := http.NewRequestWithContext(ctx, http.MethodGet, url, nil)
 	if err != nil {
-		return false
+		return 0
 	}
 	resp, err := http.DefaultClient.Do(req)
 	if err != nil {
-		return false
+		return 0
 	}
 	resp.Body.Close()
-	return resp.StatusCode == http.StatusOK
+	return resp.StatusCode
 }

@@ -10,6 +10,7 @@ import (
 	"net/http"
 	"sort"
 	"strings"
+	"time"
 
 	"github.com/minio/minio-go/v7"
 	"github.com/minio/minio-go/v7/pkg/credentials"
@@ -107,7 +108,7 @@ func NewS3(ctx context.Context, cfg S3Config) (*S3, error) {
 		return nil, fmt.Errorf("store: s3 endpoint %s: %s", cfg.Endpoint, creds.scrub(err.Error()))
 	}
 	s := &S3{client: client, bucket: cfg.Bucket, prefix: prefix, where: "s3://" + cfg.Bucket + "/" + prefix, creds: creds}
-	ok, err := client.BucketExists(ctx, cfg.Bucket)
+	ok, err := bucketExists(ctx, client, cfg.Bucket)
 	if err != nil {
 		return nil, fmt.Errorf("store: s3 bucket %s at %s: %s", cfg.Bucket, cfg.Endpoint, creds.scrub(err.Error()))
 	}
@@ -124,6 +125,28 @@ func NewS3(ctx context.Context, cfg S3Config) (*S3, error) {
 		}
 	}
 	return s, nil
+}
+
+// bucketExists asks whether the bucket exists. A server that is up but
+// still initialising answers 503 (MinIO: "Server not initialized yet");
+// that answer is retried with a growing pause for up to 30 s, as a process
+// started together with its object store would want. Other errors
+// (refused connections, wrong keys) return at once.
+func bucketExists(ctx context.Context, client *minio.Client, bucket string) (bool, error) {
+	deadline := time.Now().Add(30 * time.Second)
+	wait := 100 * time.Millisecond
+	for {
+		ok, err := client.BucketExists(ctx, bucket)
+		if err == nil || minio.ToErrorResponse(err).StatusCode != http.StatusServiceUnavailable || time.Now().Add(wait).After(deadline) {
+			return ok, err
+		}
+		select {
+		case <-ctx.Done():
+			return false, err
+		case <-time.After(wait):
+		}
+		wait = min(2*wait, 2*time.Second)
+	}
 }
 
 func (s *S3) String() string { return s.where }
