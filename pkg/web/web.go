@@ -13,7 +13,9 @@ package web
 
 import (
 	"context"
+	"crypto/rand"
 	"embed"
+	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -126,36 +128,37 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 	if log == nil {
 		log = slog.Default()
 	}
+	rp := replier{log: log}
 	mux := http.NewServeMux()
 	sub, _ := fs.Sub(static, "static")
 	files := http.FileServerFS(sub)
 	mux.Handle("GET /", files)
 	mux.HandleFunc("GET /api/campaigns", func(w http.ResponseWriter, r *http.Request) {
 		v, err := src.Campaigns(r.Context())
-		writeJSON(w, v, err)
+		rp.json(w, r, v, err)
 	})
 	mux.HandleFunc("GET /api/campaigns/{c}/steps", checked(func(w http.ResponseWriter, r *http.Request) {
 		v, err := src.Steps(r.Context(), r.PathValue("c"))
-		writeJSON(w, v, err)
+		rp.json(w, r, v, err)
 	}))
 	mux.HandleFunc("GET /api/campaigns/{c}/series.json", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.SeriesJSON(r.Context(), r.PathValue("c"))
-		writeBytes(w, "application/json", b, err)
+		rp.bytes(w, r, "application/json", b, err)
 	}))
 	mux.HandleFunc("GET /api/campaigns/{c}/series.csv", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.SeriesCSV(r.Context(), r.PathValue("c"))
 		if err == nil {
 			w.Header().Set("Content-Disposition", fmt.Sprintf("attachment; filename=%q", r.PathValue("c")+"-series.csv"))
 		}
-		writeBytes(w, "text/csv; charset=utf-8", b, err)
+		rp.bytes(w, r, "text/csv; charset=utf-8", b, err)
 	}))
 	mux.HandleFunc("GET /api/campaigns/{c}/events", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.Events(r.Context(), r.PathValue("c"))
-		writeBytes(w, "application/json", b, err)
+		rp.bytes(w, r, "application/json", b, err)
 	}))
 	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/result", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.Result(r.Context(), r.PathValue("c"), r.PathValue("s"))
-		writeBytes(w, "application/json", b, err)
+		rp.bytes(w, r, "application/json", b, err)
 	}))
 	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/preview.png", checked(func(w http.ResponseWriter, r *http.Request) {
 		p := [3]int{-1, -1, -1}
@@ -173,10 +176,10 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 		if err == nil {
 			w.Header().Set("Cache-Control", "max-age=60")
 		}
-		writeBytes(w, "image/png", b, err)
+		rp.bytes(w, r, "image/png", b, err)
 	}))
 	mux.HandleFunc("GET /api/health", func(w http.ResponseWriter, r *http.Request) {
-		writeJSON(w, src.Health(r.Context()), nil)
+		rp.json(w, r, src.Health(r.Context()), nil)
 	})
 	mux.HandleFunc("GET /api/stream", func(w http.ResponseWriter, r *http.Request) {
 		fl, ok := w.(http.Flusher)
@@ -231,35 +234,53 @@ func checked(h http.HandlerFunc) http.HandlerFunc {
 	}
 }
 
-func status(err error) int {
-	switch {
-	case errors.Is(err, fs.ErrNotExist):
-		return http.StatusNotFound
-	case errors.Is(err, ErrBadRequest):
-		return http.StatusBadRequest
-	}
-	return http.StatusInternalServerError
-}
-
 // ErrBadRequest marks errors caused by the request (bad names, points).
 var ErrBadRequest = errors.New("bad request")
 
-func writeJSON(w http.ResponseWriter, v any, err error) {
+// replier answers API requests. A failed request is answered with what the
+// client needs to know and nothing more: 400 with the reason (it is about
+// the request), 404 "not found", and for anything else 500 with a generic
+// message and a request id; the error itself, which may hold store paths,
+// endpoints or other internals, goes only to the server log under that id.
+type replier struct{ log *slog.Logger }
+
+func (rp replier) fail(w http.ResponseWriter, r *http.Request, err error) {
+	switch {
+	case errors.Is(err, ErrBadRequest):
+		http.Error(w, oneLine(err), http.StatusBadRequest)
+	case errors.Is(err, fs.ErrNotExist):
+		http.Error(w, "not found", http.StatusNotFound)
+	default:
+		id := requestID()
+		rp.log.Error("web: request failed", "request_id", id, "method", r.Method, "path", r.URL.Path, "err", oneLine(err))
+		w.Header().Set("X-Request-Id", id)
+		http.Error(w, "internal error (request id "+id+"; the server log has the detail)", http.StatusInternalServerError)
+	}
+}
+
+func (rp replier) json(w http.ResponseWriter, r *http.Request, v any, err error) {
 	if err != nil {
-		http.Error(w, oneLine(err), status(err))
+		rp.fail(w, r, err)
 		return
 	}
 	w.Header().Set("Content-Type", "application/json")
 	json.NewEncoder(w).Encode(v)
 }
 
-func writeBytes(w http.ResponseWriter, ctype string, b []byte, err error) {
+func (rp replier) bytes(w http.ResponseWriter, r *http.Request, ctype string, b []byte, err error) {
 	if err != nil {
-		http.Error(w, oneLine(err), status(err))
+		rp.fail(w, r, err)
 		return
 	}
 	w.Header().Set("Content-Type", ctype)
 	w.Write(b)
+}
+
+// requestID returns 16 random hex digits that tie an answer to its log line.
+func requestID() string {
+	var b [8]byte
+	rand.Read(b[:])
+	return hex.EncodeToString(b[:])
 }
 
 func oneLine(err error) string { return strings.ReplaceAll(err.Error(), "\n", " ") }

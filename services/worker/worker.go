@@ -10,7 +10,9 @@ package worker
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
+	"io/fs"
 	"log/slog"
 	"strings"
 	"sync"
@@ -211,9 +213,15 @@ func checkKeys(step layout.Step, t *sluicepb.TileTask) error {
 
 // writeLabels writes the tile's label chunk, creating the label array on
 // first use (every worker writes the same metadata, so the race is benign).
+// Only a missing .zarray is created: any other error (an unreadable or
+// corrupt .zarray, a store failure) fails the tile, so metadata another
+// writer left behind is never silently replaced.
 func writeLabels(ctx context.Context, st Store, key string, p planned, lab *volume.Labels) error {
 	prefix := strings.TrimSuffix(key, "/")
 	z, err := volio.OpenZarr(ctx, st, prefix)
+	if err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return fmt.Errorf("worker: tile labels: %w", err)
+	}
 	if err != nil {
 		s := p.man.Shape
 		z, err = volio.CreateZarr(ctx, st, prefix, volio.ZarrMeta{Shape: s,
