@@ -3,6 +3,7 @@ package mesh
 import (
 	"fmt"
 	"math"
+	"math/rand/v2"
 	"testing"
 
 	"sluice/pkg/morph"
@@ -11,109 +12,116 @@ import (
 	"sluice/pkg/volume"
 )
 
-// planeAreaInCube returns the area of {p: u·p = t} ∩ [0,L]³ for a unit
-// normal u with no zero component: A = dV/dt with
-// V(t) = Σ_v (−1)^{k(v)} max(0, t − u·v)³ / (6 u0 u1 u2) over the cube
-// vertices v (k = number of coordinates equal to L). Source: inclusion–
-// exclusion for the volume of a cube cut by a half-space (derived).
-func planeAreaInCube(u [3]float64, t, L float64) float64 {
-	a := [3]float64{math.Abs(u[0]), math.Abs(u[1]), math.Abs(u[2])}
-	var s float64
-	for v := 0; v < 8; v++ {
-		k := 0
-		var d float64
-		for j := 0; j < 3; j++ {
-			if v>>j&1 == 1 {
-				k++
-				d += a[j] * L
+// randomFrame returns a random orthonormal frame (Gram–Schmidt on Gaussian
+// vectors, so the first axis is uniform on the sphere).
+func randomFrame(rng *rand.Rand) [3][3]float64 {
+	var e [3][3]float64
+	for i := 0; i < 3; i++ {
+		for {
+			v := [3]float64{rng.NormFloat64(), rng.NormFloat64(), rng.NormFloat64()}
+			for j := 0; j < i; j++ {
+				d := dot(v, e[j])
+				for k := range v {
+					v[k] -= d * e[j][k]
+				}
+			}
+			if l := math.Sqrt(dot(v, v)); l > 1e-3 {
+				e[i] = [3]float64{v[0] / l, v[1] / l, v[2] / l}
+				break
 			}
 		}
-		if e := t - d; e > 0 {
-			s += math.Pow(-1, float64(k)) * e * e
-		}
 	}
-	return s / (2 * a[0] * a[1] * a[2])
+	return e
 }
 
-// binaryPlaneBias returns the orientation average of (binary mesh area) /
-// (true area) for digitised planes: the response of marching cubes at level
-// 0.5 on a binary indicator, averaged over normals from a Fibonacci lattice
-// on the sphere (cubic symmetry folds them into the first octant).
-func binaryPlaneBias(t *testing.T, ndir int) float64 {
-	const n = 36
-	L := float64(n - 1)
-	golden := math.Pi * (3 - math.Sqrt(5))
-	var sum float64
-	var cnt int
-	for i := 0; i < ndir; i++ {
-		z := 1 - (2*float64(i)+1)/float64(ndir)
-		r := math.Sqrt(1 - z*z)
-		ph := golden * float64(i)
-		u := [3]float64{math.Abs(z), math.Abs(r * math.Cos(ph)), math.Abs(r * math.Sin(ph))}
-		if u[0] < 1e-3 || u[1] < 1e-3 || u[2] < 1e-3 {
-			continue
-		}
-		t0 := (u[0]+u[1]+u[2])*L/2 + 0.37
-		f := field(volume.BoxOf(n, n, n), func(z, y, x float64) float64 {
-			if u[0]*z+u[1]*y+u[2]*x < t0 {
-				return 1
+// croftonSurface is the 13-direction Crofton surface area of phase 1 over
+// the interior cells of lab (package morph).
+func croftonSurface(lab *volume.Labels) float64 {
+	_, inner := morph.TileOrigins(lab.Box, lab.Box)
+	h := morph.Cells(lab, phase.Of(1), inner)
+	return morph.FromHistogram(&h).Surface
+}
+
+// The Crofton surface area (package morph, 13 directions, Legland, Kiêu &
+// Devaux 2007) of digitised convex bodies at random orientations and
+// centre offsets (fixed seed), against their analytic areas:
+//
+//   - capsules (all points within r of a segment of length h; a cylinder
+//     with hemispherical ends): S = 2πrh + 4πr². Smooth, every normal
+//     direction present. Measured over 40 orientations each (2026-12-04):
+//     r = 6, h = 30: −1.43…+0.40 %; r = 10, h = 40: −0.56…+0.36 %;
+//     r = 16, h = 48: −0.68…+0.35 %. Bands twice the largest |error|:
+//     2.9 %, 1.2 %, 1.4 %.
+//   - rectangular boxes a×b×c: S = 2(ab + bc + ca). Flat faces carry the
+//     estimator's orientation response (−7.3 % for axis normals to +2.2 %,
+//     science.md, Legland et al. 2007) and the digitised edges lose area,
+//     so the error is biased low and shrinks with size: measured over 40
+//     orientations 8×12×20: −8.6…−2.9 %; 16×24×30: −5.2…−0.9 %;
+//     30×40×50: −5.0…+0.1 %. Bands twice the largest |error|: 17 %,
+//     10.5 %, 10 %; the mean over the 6 orientations tested must lie
+//     within twice the mean measured over 40 (−4.4 %, −2.5 %, −1.5 %):
+//     8.8 %, 5 %, 3 %.
+//
+// Planes at many orientations are checked in package morph
+// (TestTiltedPlanes), balls and a torus there too (TestBalls,
+// TestTorusAndShell).
+//
+// Source: analytic geometry (areas of capsules and boxes).
+func TestCroftonAnalyticAreas(t *testing.T) {
+	rng := rand.New(rand.NewPCG(21, 22))
+	for _, c := range []struct{ r, h, tol float64 }{{6, 30, 0.029}, {10, 40, 0.012}, {16, 48, 0.014}} {
+		for k := 0; k < 6; k++ {
+			u := randomFrame(rng)[0]
+			n := int(c.h+2*c.r) + 8
+			lab := volume.NewShape[uint8](n, n, n, 1)
+			o := [3]float64{float64(n-1)/2 + rng.Float64(), float64(n-1)/2 + rng.Float64(), float64(n-1)/2 + rng.Float64()}
+			synth.Fill(lab, 1, func(z, y, x float64) bool {
+				p := [3]float64{z - o[0], y - o[1], x - o[2]}
+				s := math.Max(-c.h/2, math.Min(c.h/2, dot(p, u)))
+				q := [3]float64{p[0] - s*u[0], p[1] - s*u[1], p[2] - s*u[2]}
+				return dot(q, q) <= c.r*c.r
+			})
+			want := 2*math.Pi*c.r*c.h + 4*math.Pi*c.r*c.r
+			got := croftonSurface(lab)
+			rel := got/want - 1
+			t.Logf("capsule r=%g h=%g axis %.3f: Crofton %.1f, analytic %.1f (%+.2f%%)", c.r, c.h, u, got, want, 100*rel)
+			if math.Abs(rel) > c.tol {
+				t.Errorf("capsule r=%g h=%g axis %.3f: Crofton %.1f vs analytic %.1f (%+.2f%%, tolerance %.1f%%)", c.r, c.h, u, got, want, 100*rel, 100*c.tol)
 			}
-			return 0
-		})
-		cubes := volume.BoxOf(n-1, n-1, n-1)
-		sum += Area(f, 0.5, cubes) / planeAreaInCube(u, t0, L)
-		cnt++
-	}
-	return sum / float64(cnt)
-}
-
-// Crofton surface (package morph: 13-direction line-intersection counts)
-// against marching-cubes area of the same binary images (polygonal surface),
-// two independent estimators.
-//
-// The binary mesh (vertices at edge midpoints) overestimates digital
-// surfaces: on digitised planes its response, averaged over orientations
-// here from 200 planes, is measured at about +7 % (the same order as
-// reported for binary marching cubes in the literature, e.g. Lindblad 2005,
-// Image Vis. Comput. 23:111, from memory). After dividing by that plane
-// average — calibrated on planes only, not on the test objects — the two
-// estimators must agree within 1 % on balls (R = 8…32), a torus and Boolean
-// models (η = 2, 3.5, r = 12), all isotropic on average.
-//
-// Gaussian smoothing before meshing is no fix (measured during development:
-// σ = 1 gives −3 % on a ball of R = 8 and −15 % on the η = 2 Boolean model;
-// it fills the narrow gaps and rounds the creases). Measured agreement:
-// within 0.5 % on all objects; tolerance 1 %.
-func TestCroftonAgreesWithMesh(t *testing.T) {
-	bias := binaryPlaneBias(t, 200)
-	t.Logf("binary marching cubes, orientation-averaged plane response: %+.2f%%", 100*(bias-1))
-	if bias < 1.03 || bias > 1.12 {
-		t.Fatalf("plane response %.4f outside the expected +3…+12 %%", bias)
-	}
-	s := phase.Of(1)
-	check := func(name string, lab *volume.Labels) {
-		_, inner := morph.TileOrigins(lab.Box, lab.Box)
-		h := morph.Cells(lab, s, inner)
-		c := morph.FromHistogram(&h).Surface
-		m := Area(Indicator(lab, s, lab.Box), 0.5, inner) / bias
-		rel := c/m - 1
-		t.Logf("%s: Crofton %.1f, mesh/plane response %.1f (Crofton %+.2f%%)", name, c, m, 100*rel)
-		if math.Abs(rel) > 0.01 {
-			t.Errorf("%s: Crofton %.1f vs calibrated mesh %.1f (%.2f%% > 1%%)", name, c, m, 100*rel)
 		}
 	}
-	for _, R := range []float64{8, 16, 32} {
-		n := int(2*R) + 6
-		lab := volume.NewShape[uint8](n, n, n, 1)
-		synth.Ball(lab, [3]float64{float64(n)/2 + 0.3, float64(n)/2 - 0.2, float64(n)/2 + 0.1}, R, 1)
-		check(fmt.Sprintf("ball R=%g", R), lab)
-	}
-	lab := volume.NewShape[uint8](24, 64, 64, 1)
-	synth.Torus(lab, [3]float64{11.6, 31.7, 31.2}, 20, 7, 1)
-	check("torus R=20 r=7", lab)
-	for _, eta := range []float64{2, 3.5} {
-		lab := volume.NewShape[uint8](128, 128, 128, 1)
-		synth.Boolean(lab, synth.BooleanIntensity(eta, 12), 12, 1, 77)
-		check(fmt.Sprintf("Boolean η=%g r=12", eta), lab)
+	for _, c := range []struct {
+		side         [3]float64
+		tol, tolMean float64
+	}{{[3]float64{8, 12, 20}, 0.17, 0.088}, {[3]float64{16, 24, 30}, 0.105, 0.05}, {[3]float64{30, 40, 50}, 0.10, 0.03}} {
+		a := c.side
+		var mean float64
+		for k := 0; k < 6; k++ {
+			e := randomFrame(rng)
+			n := int(math.Sqrt(dot(a, a))) + 6
+			lab := volume.NewShape[uint8](n, n, n, 1)
+			o := [3]float64{float64(n-1)/2 + rng.Float64(), float64(n-1)/2 + rng.Float64(), float64(n-1)/2 + rng.Float64()}
+			synth.Fill(lab, 1, func(z, y, x float64) bool {
+				p := [3]float64{z - o[0], y - o[1], x - o[2]}
+				for i := 0; i < 3; i++ {
+					if math.Abs(dot(p, e[i])) > a[i]/2 {
+						return false
+					}
+				}
+				return true
+			})
+			want := 2 * (a[0]*a[1] + a[1]*a[2] + a[2]*a[0])
+			got := croftonSurface(lab)
+			rel := got/want - 1
+			name := fmt.Sprintf("box %g×%g×%g, orientation %d", a[0], a[1], a[2], k)
+			t.Logf("%s: Crofton %.1f, analytic %.1f (%+.2f%%)", name, got, want, 100*rel)
+			if math.Abs(rel) > c.tol {
+				t.Errorf("%s: Crofton %.1f vs analytic %.1f (%+.2f%%, tolerance %.1f%%)", name, got, want, 100*rel, 100*c.tol)
+			}
+			mean += rel / 6
+		}
+		if math.Abs(mean) > c.tolMean {
+			t.Errorf("box %g×%g×%g: mean error over 6 orientations %+.2f%%, tolerance %.1f%%", a[0], a[1], a[2], 100*mean, 100*c.tolMean)
+		}
 	}
 }

@@ -71,9 +71,9 @@ func booleanDensities(n int, eta, r float64, reals int, seed uint64) (d [4]float
 //     voxel, removing surface on both sides, ≈ 0.5·η/r of S_V. The exact
 //     area of the continuous union of the same balls (Monte Carlo on the
 //     sphere surfaces) exceeded the digital Crofton estimate by 8.1 % at
-//     η = 2, r = 12 and by 3.9 % at r = 24; the Crofton estimate itself
-//     agrees with an independent mesh estimate of the same digital images
-//     within 0.5 % (mesh.TestCroftonAgreesWithMesh). Check: the error,
+//     η = 2, r = 12 and by 3.9 % at r = 24 (the Crofton estimate of convex
+//     digitised bodies is checked against analytic areas in
+//     mesh.TestCroftonAnalyticAreas and TestBalls). Check: the error,
 //     after adding back the expected loss 0.5·η/r, within ±5 %.
 //   - M_V: the planar sections of a sharp concave crease (where two balls
 //     meet) show spurious one-pixel holes in the lattice planes, which
