@@ -45,6 +45,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"slices"
 	"strings"
 	"time"
 
@@ -99,9 +100,11 @@ func TaskSubject(p pb.Priority, campaign string) string {
 	return subjectLive + Token(campaign)
 }
 
-// Policy is the delivery policy of the task consumers. It is written into
-// the durable consumers when a Queue opens; all processes sharing the
-// consumers should use the same policy (the last one to open wins).
+// Policy is the delivery policy of the task consumers. It belongs to the
+// deployment, not to each process: it is kept in the durable consumers
+// themselves, written when they are created and afterwards only by a
+// process with the PolicyOwner role (see PolicyRole). RetryDelay is not
+// stored on the server; each process uses its own.
 type Policy struct {
 	// AckWait is how long the server waits for an ack or a heartbeat
 	// before redelivering (default 30 s). With BackOff set, the server
@@ -194,14 +197,48 @@ type Config struct {
 	DuplicateWindow time.Duration
 	// Policy is the task delivery policy.
 	Policy Policy
-	// KeepPolicy leaves existing task consumers as they are (their policy
-	// included) and uses Policy only to create missing ones: for processes
-	// that queue or read but do not work tasks (ingest, status), which
-	// would otherwise reset a running deployment's MaxDeliver and AckWait
-	// to their own flags' defaults. The policy in force is read back.
-	KeepPolicy bool
+	// Role says whether this process sets the task delivery policy or
+	// follows the one in force (default: follows).
+	Role PolicyRole
 	// Logger receives warnings (default slog.Default()).
 	Logger *slog.Logger
+}
+
+// PolicyRole says what Open does with the delivery policy of the task
+// consumers when they already exist. Whoever creates them (the first
+// process to open the queue) writes its Policy in any role.
+type PolicyRole int
+
+const (
+	// PolicyFollower keeps the policy in force and works with it. When
+	// Config.Policy differs from it, Open logs one line with both, so a
+	// worker started with other flags does not change the policy for every
+	// worker of the deployment. Workers and aggregators.
+	PolicyFollower PolicyRole = iota
+	// PolicyBystander keeps the policy in force without a word: for
+	// processes that work no tasks (ingest, status), whose flags say
+	// nothing about delivery.
+	PolicyBystander
+	// PolicyOwner writes Config.Policy into the consumers, replacing the
+	// one in force (the change is logged): the process that runs the
+	// deployment's NATS server, or an explicit administrative update.
+	PolicyOwner
+)
+
+// String gives the policy as it is logged: "ack wait 30s, max deliver 5"
+// (and the backoff steps when there are any).
+func (p Policy) String() string {
+	s := fmt.Sprintf("ack wait %v, max deliver %d", p.AckWait, p.MaxDeliver)
+	if len(p.BackOff) > 0 {
+		s += fmt.Sprintf(", backoff %v", p.BackOff)
+	}
+	return s
+}
+
+// sameOnServer reports whether two policies give the consumers the same
+// configuration (RetryDelay is not part of it).
+func (p Policy) sameOnServer(o Policy) bool {
+	return p.AckWait == o.AckWait && p.MaxDeliver == o.MaxDeliver && slices.Equal(p.BackOff, o.BackOff)
 }
 
 // Queue is a connection to JetStream with sluice's streams set up.
@@ -277,35 +314,8 @@ func (q *Queue) setup(ctx context.Context, cfg Config) error {
 			q.tasks = s
 		}
 	}
-	pol := q.policy
-	for _, c := range []struct {
-		name, filter string
-		dst          *jetstream.Consumer
-	}{{ConsumerLive, subjectLive + ">", &q.live}, {ConsumerBatch, subjectBatch + ">", &q.batch}} {
-		if cfg.KeepPolicy {
-			if cons, err := js.Consumer(ctx, StreamTasks, c.name); err == nil {
-				*c.dst = cons
-				if cc := cons.CachedInfo().Config; c.name == ConsumerLive {
-					q.policy.AckWait, q.policy.MaxDeliver, q.policy.BackOff = cc.AckWait, cc.MaxDeliver, cc.BackOff
-				}
-				continue
-			} else if !errors.Is(err, jetstream.ErrConsumerNotFound) {
-				return fmt.Errorf("queue: consumer %s: %v", c.name, err)
-			}
-		}
-		cons, err := js.CreateOrUpdateConsumer(ctx, StreamTasks, jetstream.ConsumerConfig{
-			Durable:       c.name,
-			FilterSubject: c.filter,
-			AckPolicy:     jetstream.AckExplicitPolicy,
-			AckWait:       pol.AckWait,
-			MaxDeliver:    pol.MaxDeliver,
-			BackOff:       pol.BackOff,
-			MaxAckPending: -1,
-		})
-		if err != nil {
-			return fmt.Errorf("queue: consumer %s: %v", c.name, err)
-		}
-		*c.dst = cons
+	if err := q.setupTaskConsumers(ctx, cfg.Role); err != nil {
+		return err
 	}
 	kv, err := js.CreateOrUpdateKeyValue(ctx, jetstream.KeyValueConfig{
 		Bucket:   ProgressBucket,
@@ -317,6 +327,102 @@ func (q *Queue) setup(ctx context.Context, cfg Config) error {
 		return fmt.Errorf("queue: key-value bucket %s: %v", ProgressBucket, err)
 	}
 	q.kv = kv
+	return nil
+}
+
+// taskConsumers are the durable consumers the policy applies to.
+var taskConsumers = [...]struct{ name, filter string }{{ConsumerLive, subjectLive + ">"}, {ConsumerBatch, subjectBatch + ">"}}
+
+func taskConsumerConfig(name, filter string, p Policy) jetstream.ConsumerConfig {
+	return jetstream.ConsumerConfig{
+		Durable:       name,
+		FilterSubject: filter,
+		AckPolicy:     jetstream.AckExplicitPolicy,
+		AckWait:       p.AckWait,
+		MaxDeliver:    p.MaxDeliver,
+		BackOff:       p.BackOff,
+		MaxAckPending: -1,
+	}
+}
+
+// policyOf is the delivery policy a consumer configuration holds, with
+// this process's RetryDelay (which is not stored on the server).
+func (q *Queue) policyOf(cc jetstream.ConsumerConfig) Policy {
+	return Policy{AckWait: cc.AckWait, MaxDeliver: cc.MaxDeliver, BackOff: cc.BackOff, RetryDelay: q.policy.RetryDelay}
+}
+
+// setupTaskConsumers creates the live and batch consumers with q.policy,
+// or finds them; then, as role says (see PolicyRole), writes q.policy into
+// them or takes the policy in force from them. Creation is create-only on
+// the server, so two processes starting together cannot both write their
+// policy: the second finds the first's consumers.
+func (q *Queue) setupTaskConsumers(ctx context.Context, role PolicyRole) error {
+	want := q.policy
+	for _, c := range taskConsumers {
+		cons, err := q.js.Consumer(ctx, StreamTasks, c.name)
+		if errors.Is(err, jetstream.ErrConsumerNotFound) {
+			cons, err = q.js.CreateConsumer(ctx, StreamTasks, taskConsumerConfig(c.name, c.filter, want))
+			if errors.Is(err, jetstream.ErrConsumerExists) { // created meanwhile by another process
+				cons, err = q.js.Consumer(ctx, StreamTasks, c.name)
+			}
+		}
+		if err != nil {
+			return fmt.Errorf("queue: consumer %s: %w", c.name, err)
+		}
+		if c.name == ConsumerLive {
+			q.live = cons
+		} else {
+			q.batch = cons
+		}
+	}
+	if role == PolicyOwner {
+		return q.SetPolicy(ctx, want)
+	}
+	inForce := q.policyOf(q.live.CachedInfo().Config)
+	if inForce.sameOnServer(want) {
+		return nil
+	}
+	q.policy = inForce
+	if role == PolicyFollower {
+		q.log.Warn(fmt.Sprintf("queue: task delivery policy in force is %v; this process asked for %v and keeps the one in force (it is set where the NATS server runs, or by `sluice queue-policy`)", inForce, want))
+	}
+	return nil
+}
+
+// SetPolicy writes p (zero fields: the defaults) into the task consumers,
+// replacing the deployment's policy in force, logs the change, and makes p
+// this queue's policy. The server applies it at once to every delivery;
+// other processes keep the heartbeat interval and last-delivery count they
+// derived from the old policy until they reopen the queue.
+func (q *Queue) SetPolicy(ctx context.Context, p Policy) error {
+	if p.RetryDelay <= 0 {
+		p.RetryDelay = q.policy.RetryDelay
+	}
+	p = p.withDefaults()
+	if err := p.validate(); err != nil {
+		return err
+	}
+	for _, c := range taskConsumers {
+		cons := q.live
+		if c.name == ConsumerBatch {
+			cons = q.batch
+		}
+		had := q.policyOf(cons.CachedInfo().Config)
+		if had.sameOnServer(p) {
+			continue
+		}
+		cons, err := q.js.UpdateConsumer(ctx, StreamTasks, taskConsumerConfig(c.name, c.filter, p))
+		if err != nil {
+			return fmt.Errorf("queue: consumer %s: set delivery policy %v: %w", c.name, p, err)
+		}
+		if c.name == ConsumerLive {
+			q.live = cons
+		} else {
+			q.batch = cons
+		}
+		q.log.Info("queue: task delivery policy changed", "consumer", c.name, "was", had.String(), "now", p.String())
+	}
+	q.policy = p
 	return nil
 }
 

@@ -36,6 +36,7 @@ func commands() []command {
 		{"report", "write a campaign's self-contained HTML report", runReport},
 		{"reprocess", "reprocess a stored campaign (or a directory of volumes) with new parameters as batch work", runReprocess},
 		{"switch", "make a reprocessed run the campaign's current series", runSwitch},
+		{"queue-policy", "show or set the task delivery policy (--ack-wait, --max-deliver) of a deployment's queue", runQueuePolicy},
 		{"status", "show a campaign's runs with done, pending and failed steps", runStatus},
 		{"compare", "compare two runs of a campaign step by step, with overlaid plots", runCompare},
 		{"bench", "time each processing stage on a synthetic scan", runBench},
@@ -63,7 +64,7 @@ func run(args []string) int {
 func usage() {
 	fmt.Fprintln(os.Stderr, "usage: sluice COMMAND [flags] [args]\n\ncommands:")
 	for _, c := range commands() {
-		fmt.Fprintf(os.Stderr, "  %-10s %s\n", c.name, c.summary)
+		fmt.Fprintf(os.Stderr, "  %-12s %s\n", c.name, c.summary)
 	}
 	fmt.Fprintln(os.Stderr, "\nRun `sluice COMMAND -h` for the flags of a command.")
 }

@@ -37,9 +37,11 @@ type nodeFlags struct {
 	httpTokenFile, s3CredsFile                string
 	ackWait                                   time.Duration
 	maxDeliver                                int
-	// keepPolicy: this process works no tasks (ingest, status), so it
-	// leaves the task consumers' delivery policy as the workers set it.
-	keepPolicy bool
+	// policyRole: what this process does with the task consumers'
+	// delivery policy (--ack-wait, --max-deliver) when they exist. Zero:
+	// follow the policy in force, logging a difference. openQueue makes
+	// the process that starts the embedded server its owner.
+	policyRole queue.PolicyRole
 }
 
 // Environment variables holding secrets (files named by flags win).
@@ -166,7 +168,7 @@ func (f *nodeFlags) serverConfig() (queue.ServerConfig, error) {
 // and no URL is given.
 func (f *nodeFlags) openQueue(ctx context.Context, embedded bool, log *slog.Logger) (*queue.Queue, *queue.Server, error) {
 	cfg := queue.Config{URL: f.nats, CredsFile: f.natsCreds, TLSCA: f.tlsCA, TLSCert: f.tlsCert, TLSKey: f.tlsKey,
-		Logger: log, Policy: queue.Policy{AckWait: f.ackWait, MaxDeliver: f.maxDeliver}, KeepPolicy: f.keepPolicy}
+		Logger: log, Policy: queue.Policy{AckWait: f.ackWait, MaxDeliver: f.maxDeliver}, Role: f.policyRole}
 	var srv *queue.Server
 	if f.nats == "" {
 		if !embedded {
@@ -180,6 +182,9 @@ func (f *nodeFlags) openQueue(ctx context.Context, embedded bool, log *slog.Logg
 			return nil, nil, err
 		}
 		cfg.Server = srv // in-process clients use the server's own credentials
+		// The process that runs the deployment's NATS server owns the
+		// task delivery policy: its --ack-wait/--max-deliver are written.
+		cfg.Role = queue.PolicyOwner
 	} else {
 		// Credentials in the URL would sit in shell history, process
 		// lists and logs.

@@ -240,7 +240,7 @@ func runIngest(args []string) int {
 	if (len(pos) == 1) == (f.watch != "") {
 		return fail(exitBadInput, "ingest: give either one FILE or --watch DIR")
 	}
-	nf.keepPolicy = true // ingest queues tasks; the workers set their policy
+	nf.policyRole = queue.PolicyBystander // ingest queues tasks and works none
 	c, code := nf.connect("ingest")
 	if c == nil {
 		return code

@@ -164,7 +164,7 @@ func runStatus(args []string) int {
 	}
 	var q *queue.Queue
 	if nf.nats != "" {
-		nf.keepPolicy = true
+		nf.policyRole = queue.PolicyBystander
 		if q, _, err = nf.openQueue(ctx, false, logger()); err != nil {
 			return fail(exitFailure, "status: %v", err)
 		}
