@@ -85,10 +85,8 @@ type stepState struct {
 }
 
 // Start initialises the aggregator from the store (campaigns, steps and
-// results written before a restart).
+// results written before a restart). It runs before any other method.
 func (a *Aggregator) Start(ctx context.Context) error {
-	a.mu.Lock()
-	defer a.mu.Unlock()
 	if a.Log == nil {
 		a.Log = slog.Default()
 	}
@@ -151,9 +149,16 @@ func mustStep(c, s string) layout.Step {
 }
 
 // campaign returns (loading if needed) a campaign's state; nil if it has no
-// readable campaign.json. Callers hold a.mu.
+// readable campaign.json. Callers must not hold a.mu: campaign.json is read
+// without it, because the web API takes a.mu too and a store that is
+// retrying (up to a minute) must not freeze the live page. Two callers may
+// both read a new campaign; the first to insert it wins. The fields of the
+// returned state are guarded by a.mu.
 func (a *Aggregator) campaign(ctx context.Context, name string) *campaignState {
-	if cs, ok := a.campaigns[name]; ok {
+	a.mu.Lock()
+	cs, ok := a.campaigns[name]
+	a.mu.Unlock()
+	if ok {
 		return cs
 	}
 	c, err := layout.NewCampaign(name)
@@ -164,10 +169,21 @@ func (a *Aggregator) campaign(ctx context.Context, name string) *campaignState {
 	if err != nil {
 		return nil
 	}
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.insertCampaign(r)
+}
+
+// insertCampaign adds the state of a campaign read from r, unless another
+// caller added it first, and returns the state in the map. Callers hold a.mu.
+func (a *Aggregator) insertCampaign(r campaign.Record) *campaignState {
+	if cs, ok := a.campaigns[r.Name]; ok {
+		return cs
+	}
 	cs := &campaignState{record: r, steps: map[string]*stepState{}}
-	a.campaigns[name] = cs
+	a.campaigns[r.Name] = cs
 	if a.Metrics != nil {
-		a.Metrics.Campaign(name)
+		a.Metrics.Campaign(r.Name)
 	}
 	return cs
 }
@@ -187,12 +203,11 @@ func (a *Aggregator) StepReady(ctx context.Context, r *sluicepb.StepReady) error
 		a.dropInvalid(err)
 		return nil
 	}
-	a.mu.Lock()
 	cs := a.campaign(ctx, r.Campaign)
 	if cs == nil {
-		a.mu.Unlock()
 		return fmt.Errorf("aggregator: step %s/%s of unknown campaign", r.Campaign, r.Step)
 	}
+	a.mu.Lock()
 	st := cs.step(r.Step)
 	if st.Status == "" || st.Status == "ingested" {
 		st.Status = "processing"
@@ -228,12 +243,11 @@ func (a *Aggregator) TileDone(ctx context.Context, d *sluicepb.TileDone) error {
 	if err != nil {
 		return err
 	}
-	a.mu.Lock()
 	cs := a.campaign(ctx, d.Campaign)
 	if cs == nil {
-		a.mu.Unlock()
 		return fmt.Errorf("aggregator: result for unknown campaign %s", d.Campaign)
 	}
+	a.mu.Lock()
 	current := cs.record.Current == d.ParamHash
 	if current {
 		st := cs.step(d.Step)
@@ -413,13 +427,14 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 // process (`sluice switch`) is honoured, and reports whether hash is the
 // campaign's current run.
 func (a *Aggregator) refreshCurrent(ctx context.Context, c layout.Campaign, hash string) (*campaignState, bool) {
-	a.mu.Lock()
-	defer a.mu.Unlock()
 	cs := a.campaign(ctx, c.Name())
 	if cs == nil {
 		return nil, false
 	}
-	if r, err := campaign.LoadRecord(ctx, a.Store, c); err == nil && r.Current != "" {
+	r, err := campaign.LoadRecord(ctx, a.Store, c) // not under a.mu: see campaign
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if err == nil && r.Current != "" {
 		cs.record = r
 	}
 	return cs, cs.record.Current == hash
@@ -557,8 +572,8 @@ func (a *Aggregator) StepFailed(ctx context.Context, dl *sluicepb.DeadLetter) {
 	if dl.Task == nil {
 		return
 	}
-	a.mu.Lock()
 	cs := a.campaign(ctx, dl.Task.Campaign)
+	a.mu.Lock()
 	if cs != nil && cs.record.Current == dl.Task.ParamHash {
 		st := cs.step(dl.Task.Step)
 		if st.Status != "failed" && st.Status != "done" {
