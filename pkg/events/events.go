@@ -37,8 +37,11 @@
 package events
 
 import (
+	"bytes"
+	"encoding/json"
 	"fmt"
 	"math"
+	"strings"
 
 	"sluice/pkg/series"
 )
@@ -62,6 +65,29 @@ type Event struct {
 
 // ID is "kind/step": stable across re-runs, usable as a message id.
 func (e Event) ID() string { return string(e.Kind) + "/" + e.Step }
+
+// Decode reads a list of events as the aggregator records them (the
+// campaign's events.json: a JSON array of events in detection order; null,
+// as an empty list was once written, means none). name is the file's name for the error, which is one line:
+// a record that cannot be read must stop the caller, not be taken for
+// "no events yet" (every event would be announced again) or skipped.
+func Decode(name string, data []byte) ([]Event, error) {
+	var evs []Event
+	dec := json.NewDecoder(bytes.NewReader(data))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&evs); err != nil {
+		return nil, fmt.Errorf("events: %s: not a list of events: %s", name, strings.ReplaceAll(err.Error(), "\n", " "))
+	}
+	if dec.More() {
+		return nil, fmt.Errorf("events: %s: data after the list of events", name)
+	}
+	for i, e := range evs {
+		if (e.Kind != Breakthrough && e.Kind != SteadyState) || e.Step == "" {
+			return nil, fmt.Errorf("events: %s: event %d has kind %q and step %q", name, i, e.Kind, e.Step)
+		}
+	}
+	return evs, nil
+}
 
 // Options are the steady-state tolerances.
 type Options struct {

@@ -4,6 +4,7 @@ import (
 	"math"
 	"math/rand"
 	"reflect"
+	"strings"
 	"testing"
 
 	"sluice/pkg/series"
@@ -253,6 +254,24 @@ func TestOptionsValidate(t *testing.T) {
 	for _, o := range []Options{{K: 0, MaxDeltaSw: 0.1, MaxRelDeltaPc: 0.1}, {K: 2, MaxDeltaSw: -1}, {K: 2, MaxRelDeltaPc: math.NaN()}} {
 		if _, err := Detect(nil, o); err == nil {
 			t.Errorf("options %+v accepted", o)
+		}
+	}
+}
+
+// Decode reads what the aggregator records and refuses anything else with
+// one line naming the file.
+func TestDecode(t *testing.T) {
+	const name = "campaigns/c/events.json"
+	for _, ok := range []string{`null`, `[]`, `[{"kind":"breakthrough","step":"s2","time_s":20,"detail":"d"}]`} {
+		if _, err := Decode(name, []byte(ok)); err != nil {
+			t.Errorf("Decode(%s): %v", ok, err)
+		}
+	}
+	for _, bad := range []string{``, `[{"kind":"breakthrough","step":"s2"`, `{}`, `[] []`,
+		`[{"kind":"flood","step":"s2"}]`, `[{"kind":"steady_state","step":""}]`, `[{"kind":"breakthrough","step":"s2","extra":1}]`} {
+		_, err := Decode(name, []byte(bad))
+		if err == nil || !strings.Contains(err.Error(), name) || strings.Contains(err.Error(), "\n") {
+			t.Errorf("Decode(%q) = %v, want one line naming %s", bad, err, name)
 		}
 	}
 }

@@ -14,7 +14,10 @@
 //
 // Every task is published with the message id campaign/step/tile/param-hash
 // (layout.Step.TileID), so a task published twice within the stream's
-// duplicate window is stored once. Results carry the same id.
+// duplicate window is stored once. Results carry the same id; step
+// announcements campaign/step/param-hash; events the id their publisher
+// gives (the aggregator's: campaign/completed/step/param-hash and
+// campaign/kind/step), so an event published again is stored once too.
 //
 // Workers pull with two durable consumers, one on live and one on batch
 // subjects, one message per pull, explicit acknowledgement. While a handler
@@ -527,15 +530,22 @@ func (q *Queue) PublishStepReady(ctx context.Context, r *pb.StepReady) (duplicat
 	return q.publish(ctx, subjectReady+Token(r.Campaign), r.Campaign+"/"+r.Step+"/"+r.ParamHash, r)
 }
 
-// PublishEvent publishes a step event (not deduplicated).
-func (q *Queue) PublishEvent(ctx context.Context, e *pb.StepEvent) error {
+// PublishEvent publishes a step event with the message id id (required),
+// so an event announced again within the duplicate window — its publisher
+// crashed or failed after the publish and before recording it — is stored
+// once. The caller records the event as announced only after this returns
+// nil; an error means the event may not be stored and is to be published
+// again with the same id.
+func (q *Queue) PublishEvent(ctx context.Context, id string, e *pb.StepEvent) (duplicate bool, err error) {
 	if err := layout.CheckName("campaign", e.Campaign); err != nil {
-		return fmt.Errorf("queue: event: %w", err)
+		return false, fmt.Errorf("queue: event: %w", err)
+	}
+	if id == "" {
+		return false, fmt.Errorf("queue: event %s/%s/%v has no message id", e.Campaign, e.Step, e.Kind)
 	}
 	if e.At == nil {
 		e = proto.CloneOf(e)
 		e.At = timestamppb.Now()
 	}
-	_, err := q.publish(ctx, subjectEvent+Token(e.Campaign), "", e)
-	return err
+	return q.publish(ctx, subjectEvent+Token(e.Campaign), id, e)
 }

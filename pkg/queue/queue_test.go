@@ -459,11 +459,19 @@ func TestResultsStepsEventsAndProgress(t *testing.T) {
 		t.Errorf("result deliveries %s, want 2 (one failure, one retry)", got)
 	}
 
-	// Events: replay sees events published before subscribing.
-	for _, k := range []pb.StepEvent_Kind{pb.StepEvent_KIND_COMPLETED, pb.StepEvent_KIND_BREAKTHROUGH} {
-		if err := q.PublishEvent(ctx, &pb.StepEvent{Campaign: "c", Step: "0001", Kind: k, Values: map[string]float64{"saturation_nw": 0.41}}); err != nil {
-			t.Fatal(err)
+	// Events: replay sees events published before subscribing; an event
+	// published again with its id is stored once; one without an id is
+	// refused.
+	for _, again := range []bool{false, true} {
+		for _, k := range []pb.StepEvent_Kind{pb.StepEvent_KIND_COMPLETED, pb.StepEvent_KIND_BREAKTHROUGH} {
+			dup, err := q.PublishEvent(ctx, "c/0001/"+k.String(), &pb.StepEvent{Campaign: "c", Step: "0001", Kind: k, Values: map[string]float64{"saturation_nw": 0.41}})
+			if err != nil || dup != again {
+				t.Fatalf("event %v (again %v): duplicate %v, err %v", k, again, dup, err)
+			}
 		}
+	}
+	if _, err := q.PublishEvent(ctx, "", &pb.StepEvent{Campaign: "c", Step: "0001", Kind: pb.StepEvent_KIND_COMPLETED}); err == nil {
+		t.Fatal("an event without a message id was published")
 	}
 	var ev recorder
 	ectx, ecancel := context.WithCancel(ctx)

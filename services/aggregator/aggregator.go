@@ -44,9 +44,11 @@ type Store interface {
 }
 
 // EventPublisher publishes step events (completion, failure, breakthrough,
-// steady state) on the queue's event subject.
+// steady state) on the queue's event subject. id is the message id: an
+// event published twice with one id (within the queue's duplicate window)
+// is stored once. A nil error means the event is stored.
 type EventPublisher interface {
-	PublishEvent(ctx context.Context, e *sluicepb.StepEvent) error
+	PublishEvent(ctx context.Context, id string, e *sluicepb.StepEvent) error
 }
 
 // Aggregator completes steps and serves their state.
@@ -364,11 +366,12 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 		return err
 	}
 	cs, current := a.refreshCurrent(ctx, step.Campaign(), hash)
-	// The run series first, then the contract paths of the current run, and
-	// the run result last: it is the commit marker of the step (reprocess
-	// and the check above skip a step whose run result exists), so a crash
-	// anywhere before it leaves the step to be completed again, and the
-	// upserts it repeats give the same bytes.
+	// The run series first, then the contract paths of the current run,
+	// then the events, and the run result last: it is the commit marker of
+	// the step (reprocess and the check above skip a step whose run result
+	// exists), so a crash or an error anywhere before it leaves the step to
+	// be completed again when its result is redelivered, and what it
+	// repeats gives the same bytes or, for events, the same message ids.
 	runRows, err := a.upsertRun(ctx, step.Campaign(), hash, row)
 	if err != nil {
 		return err
@@ -381,6 +384,9 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 		if rows, err = series.Upsert(ctx, a.Store, step.Campaign().Name(), row); err != nil {
 			return err
 		}
+	}
+	if err := a.announce(ctx, step, hash, man.TimeS, current, rows); err != nil {
+		return err
 	}
 	if err := a.Store.Put(ctx, campaign.RunResultKey(step, hash), b); err != nil {
 		return err
@@ -409,18 +415,69 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 	}
 	a.Log.Info("step complete", "campaign", step.Campaign().Name(), "step", step.Name(), "param_hash", hash,
 		"tiles", plan.Tiles, "saturation_nonwetting", series.F(row.SatNonwetting), "latency_s", fmt.Sprintf("%.2f", latency))
-	if a.Publisher != nil {
-		a.Publisher.PublishEvent(ctx, &sluicepb.StepEvent{Campaign: step.Campaign().Name(), Step: step.Name(),
-			Kind: sluicepb.StepEvent_KIND_COMPLETED, TimeS: man.TimeS, ResultKey: step.Result(),
-			Detail: fmt.Sprintf("step %s measured", step.Name())})
-	}
-	if current {
-		if err := a.detectEvents(ctx, step.Campaign(), rows); err != nil {
-			a.Log.Warn("event detection failed", "campaign", step.Campaign().Name(), "err", err)
-		}
-	}
 	a.publish("step", map[string]any{"campaign": step.Campaign().Name(), "step": step.Name(), "param_hash": hash})
 	return nil
+}
+
+// CompletedEventID is the message id of the completion event of a step
+// under a parameter hash: campaign/completed/step/hash.
+func CompletedEventID(step layout.Step, hash string) string {
+	return step.Campaign().Name() + "/completed/" + step.Name() + "/" + hash
+}
+
+// EventID is the message id of a detected experiment event:
+// campaign/kind/step.
+func EventID(c layout.Campaign, e events.Event) string { return c.Name() + "/" + e.ID() }
+
+// announce publishes the step's completion and, for the campaign's current
+// run, the experiment events not announced before. Events are at least
+// once and, within the queue's duplicate window, exactly once: each is
+// published with its message id before it is recorded (the completion by
+// the run result that complete writes next, experiment events in
+// events.json), and any error is returned, so the step's result is
+// redelivered and the announcement repeated with the same ids.
+func (a *Aggregator) announce(ctx context.Context, step layout.Step, hash string, timeS float64, current bool, rows []series.Row) error {
+	c := step.Campaign()
+	var known []events.Event
+	if current {
+		// Read what was announced before publishing anything: an unreadable
+		// record stops the step here, before the completion goes out.
+		var err error
+		if known, err = a.announced(ctx, c); err != nil {
+			return err
+		}
+	}
+	if a.Publisher != nil {
+		e := &sluicepb.StepEvent{Campaign: c.Name(), Step: step.Name(), Kind: sluicepb.StepEvent_KIND_COMPLETED,
+			TimeS: timeS, ResultKey: step.Result(), Detail: fmt.Sprintf("step %s measured", step.Name())}
+		if err := a.Publisher.PublishEvent(ctx, CompletedEventID(step, hash), e); err != nil {
+			return fmt.Errorf("aggregator: %s: completion event: %w", step.Dir(), err)
+		}
+	}
+	if !current {
+		return nil
+	}
+	return a.detectEvents(ctx, c, rows, known)
+}
+
+// announced returns the experiment events recorded in the campaign's
+// events.json (none when it does not exist). A file that cannot be read or
+// decoded is an error naming it: taking it for "nothing announced" would
+// announce every event again, and ignoring it would lose new ones.
+func (a *Aggregator) announced(ctx context.Context, c layout.Campaign) ([]events.Event, error) {
+	key := campaign.EventsKey(c)
+	b, err := a.Store.Get(ctx, key)
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("aggregator: %w", err)
+	}
+	evs, err := events.Decode(key, b)
+	if err != nil {
+		return nil, fmt.Errorf("aggregator: %w", err)
+	}
+	return evs, nil
 }
 
 // refreshCurrent re-reads campaign.json, so a run switched to by another
@@ -497,27 +554,19 @@ func (a *Aggregator) upsertRun(ctx context.Context, c layout.Campaign, hash stri
 }
 
 // detectEvents runs event detection over the whole series (a pure function
-// of it) and announces events not announced before.
-func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows []series.Row) error {
+// of it), publishes the events not in known (those already announced) and
+// records the detected events in events.json. On a publish error the events
+// published so far are recorded with the known ones and the error is
+// returned; the next attempt publishes the rest.
+func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows []series.Row, known []events.Event) error {
 	opt := a.eventOptions(c.Name())
 	evs, err := events.Detect(rows, opt)
 	if err != nil {
 		return err
 	}
-	var known []events.Event
-	if b, err := a.Store.Get(ctx, campaign.EventsKey(c)); err == nil {
-		json.Unmarshal(b, &known)
-	}
 	seen := map[string]bool{}
 	for _, e := range known {
 		seen[e.ID()] = true
-	}
-	b, err := json.MarshalIndent(evs, "", "  ")
-	if err != nil {
-		return err
-	}
-	if err := a.Store.Put(ctx, campaign.EventsKey(c), b); err != nil {
-		return err
 	}
 	bt, steady := 0.0, 0.0
 	for _, e := range evs {
@@ -534,24 +583,48 @@ func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows [
 		a.Metrics.Breakthrough.WithLabelValues(c.Name()).Set(bt)
 		a.Metrics.SteadyState.WithLabelValues(c.Name()).Set(steady)
 	}
+	var pubErr error
 	for _, e := range evs {
 		if seen[e.ID()] {
 			continue
-		}
-		a.Log.Info("experiment event", "campaign", c.Name(), "kind", e.Kind, "step", e.Step, "detail", e.Detail)
-		if a.Metrics != nil {
-			a.Metrics.Events.WithLabelValues(c.Name(), string(e.Kind)).Inc()
 		}
 		kind := sluicepb.StepEvent_KIND_STEADY_STATE
 		if e.Kind == events.Breakthrough {
 			kind = sluicepb.StepEvent_KIND_BREAKTHROUGH
 		}
 		if a.Publisher != nil {
-			a.Publisher.PublishEvent(ctx, &sluicepb.StepEvent{Campaign: c.Name(), Step: e.Step, Kind: kind, TimeS: e.Time, Detail: e.Detail})
+			err := a.Publisher.PublishEvent(ctx, EventID(c, e), &sluicepb.StepEvent{Campaign: c.Name(), Step: e.Step, Kind: kind, TimeS: e.Time, Detail: e.Detail})
+			if err != nil {
+				pubErr = fmt.Errorf("aggregator: campaign %s: %s event of step %s: %w", c.Name(), e.Kind, e.Step, err)
+				break
+			}
+		}
+		seen[e.ID()] = true
+		a.Log.Info("experiment event", "campaign", c.Name(), "kind", e.Kind, "step", e.Step, "detail", e.Detail)
+		if a.Metrics != nil {
+			a.Metrics.Events.WithLabelValues(c.Name(), string(e.Kind)).Inc()
 		}
 		a.publish("event", map[string]any{"campaign": c.Name(), "kind": e.Kind, "step": e.Step, "time_s": e.Time, "detail": e.Detail})
 	}
-	return nil
+	// Record the detected events that are now announced (all of them
+	// unless a publish failed), in detection order.
+	record := make([]events.Event, 0, len(evs))
+	for _, e := range evs {
+		if seen[e.ID()] {
+			record = append(record, e)
+		}
+	}
+	b, err := json.MarshalIndent(record, "", "  ")
+	if err != nil {
+		return err
+	}
+	if err := a.Store.Put(ctx, campaign.EventsKey(c), b); err != nil {
+		if pubErr != nil {
+			return fmt.Errorf("%w; recording the events before it: %w", pubErr, err)
+		}
+		return err
+	}
+	return pubErr
 }
 
 // eventOptions returns the campaign's configured event tolerances, or the

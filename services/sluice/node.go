@@ -402,8 +402,10 @@ func newAggregator(ctx context.Context, st store.Store, q *queue.Queue, reg *pro
 	return a, m, hub, nil
 }
 
+// eventPublisher adapts the queue to aggregator.EventPublisher.
 type eventPublisher struct{ q *queue.Queue }
 
-func (p eventPublisher) PublishEvent(ctx context.Context, e *sluicepb.StepEvent) error {
-	return p.q.PublishEvent(ctx, e)
+func (p eventPublisher) PublishEvent(ctx context.Context, id string, e *sluicepb.StepEvent) error {
+	_, err := p.q.PublishEvent(ctx, id, e)
+	return err
 }
