@@ -710,6 +710,7 @@ func runReprocess(args []string) int {
 		q = node.q
 		defer func() { nstop(); node.stop() }()
 	} else {
+		nf.policyRole = queue.PolicyBystander // queues tasks, works none
 		if q, _, err = nf.openQueue(ctx, false, log); err != nil {
 			return fail(exitBadInput, "reprocess: %v", err)
 		}
