@@ -1,6 +1,7 @@
 package scan
 
 import (
+	"math"
 	"testing"
 
 	"sluice/pkg/campaign"
@@ -40,23 +41,63 @@ func TestWholeIndependentOfTiling(t *testing.T) {
 	if refPrep.Thresholds.Sample.Radius == 0 {
 		t.Errorf("sample cylinder not detected")
 	}
-	// Sanity against the forward model's truth (the accuracy targets are
-	// asserted in pkg/segment): most pore voxels inside the detected
-	// sample right.
-	var ok, pore int
+	// Against the forward model's truth (the accuracy targets are asserted
+	// on a better resolved scene in pkg/segment): confusion of truth and
+	// segmented labels over the whole volume, the detector's mask included
+	// (true pore voxels it masks count as wrong).
+	var conf [3][4]float64 // truth solid/wetting/nonwetting × seg solid/wetting/nonwetting/outside
+	var inTruth, inSeg, poreSeg, wetSeg float64
 	for i, v := range truth.Pix {
-		if (v == 1 || v == 2) && ref.Pix[i] != phase.Outside {
-			pore++
-			if ref.Pix[i] == v {
-				ok++
+		g := ref.Pix[i]
+		if g != phase.Outside {
+			inSeg++
+			if g == 1 || g == 2 {
+				poreSeg++
+			}
+			if g == 1 {
+				wetSeg++
 			}
 		}
+		if v == phase.Outside {
+			continue
+		}
+		inTruth++
+		if g == phase.Outside {
+			g = 3
+		}
+		conf[v][g]++
 	}
-	// The pores of this small scene are only a few voxels wide, so partial
-	// volume next to the bright grains costs accuracy; the CNR-5 targets
-	// (≥ 98 %) are asserted on a properly resolved scene in pkg/segment.
-	if frac := float64(ok) / float64(pore); frac < 0.75 {
-		t.Errorf("only %.3f of pore voxels right", frac)
+	row := func(v int) float64 { return conf[v][0] + conf[v][1] + conf[v][2] + conf[v][3] }
+	poreAcc := (conf[1][1] + conf[2][2]) / (row(1) + row(2))
+	wetAcc, nonAcc := conf[1][1]/row(1), conf[2][2]/row(2)
+	masked := (conf[0][3] + conf[1][3] + conf[2][3]) / inTruth
+	dS := wetSeg/poreSeg - row(1)/(row(1)+row(2))
+	dPhi := poreSeg/inSeg - (row(1)+row(2))/inTruth
+	t.Logf("truth × segmented (solid, wetting, nonwetting, outside): %v; sample %+v; thresholds %v", conf, refPrep.Thresholds.Sample, refPrep.Thresholds.T)
+	t.Logf("pore voxels right %.4f (wetting %.4f, nonwetting %.4f), sample masked %.4f, ΔS_w %+.4f, Δφ %+.4f", poreAcc, wetAcc, nonAcc, masked, dS, dPhi)
+	// Source: the forward model's truth labels and cylinder. Measured
+	// 2026-12-04 (errors in the table): the pores of this small scene are
+	// only a few voxels wide, and a fifth of the true wetting voxels come
+	// out nonwetting (and 14 % of the nonwetting ones wetting), so the pore
+	// accuracy is 74 % (78 % among the voxels the detector keeps; the old
+	// check, ≥ 75 % there, ignored masking). The detected disc (radius 17.45
+	// for 18) masks 6.4 % of the sample. Bands twice each measured error;
+	// together they catch a lost phase (e.g. all pore wetting: nonwetting
+	// 100 % wrong, ΔS_w +0.46) and an over-eager mask.
+	for _, c := range []struct {
+		name      string
+		err, want float64
+	}{
+		{"pore voxels wrong", 1 - poreAcc, 0.2574},
+		{"wetting voxels wrong", 1 - wetAcc, 0.3049},
+		{"nonwetting voxels wrong", 1 - nonAcc, 0.2014},
+		{"sample masked", masked, 0.0637},
+		{"|ΔS_w|", math.Abs(dS), 0.0130},
+		{"|Δφ|", math.Abs(dPhi), 0.0372},
+	} {
+		if c.err > 2*c.want {
+			t.Errorf("%s: %.4f, more than twice the measured %.4f", c.name, c.err, c.want)
+		}
 	}
 	for _, tile := range []int{22, 15, 17} { // 8 tiles, 27 tiles, uneven edges
 		c.Tile = tile
