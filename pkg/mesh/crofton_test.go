@@ -50,8 +50,9 @@ func croftonSurface(lab *volume.Labels) float64 {
 //     with hemispherical ends): S = 2πrh + 4πr². Smooth, every normal
 //     direction present. Measured over 40 orientations each (2026-12-04):
 //     r = 6, h = 30: −1.43…+0.40 %; r = 10, h = 40: −0.56…+0.36 %;
-//     r = 16, h = 48: −0.68…+0.35 %. Bands twice the largest |error|:
-//     2.9 %, 1.2 %, 1.4 %.
+//     r = 16, h = 48: −0.68…+0.35 %, and over another 60 (morph.TestCapsules)
+//     largest |error| 0.89 %, 1.01 %, 1.01 %. Bands twice the largest
+//     |error|: 2.9 %, 2 %, 2 %.
 //   - rectangular boxes a×b×c: S = 2(ab + bc + ca). Flat faces carry the
 //     estimator's orientation response (−7.3 % for axis normals to +2.2 %,
 //     science.md, Legland et al. 2007) and the digitised edges lose area,
@@ -69,7 +70,7 @@ func croftonSurface(lab *volume.Labels) float64 {
 // Source: analytic geometry (areas of capsules and boxes).
 func TestCroftonAnalyticAreas(t *testing.T) {
 	rng := rand.New(rand.NewPCG(21, 22))
-	for _, c := range []struct{ r, h, tol float64 }{{6, 30, 0.029}, {10, 40, 0.012}, {16, 48, 0.014}} {
+	for _, c := range []struct{ r, h, tol float64 }{{6, 30, 0.029}, {10, 40, 0.02}, {16, 48, 0.02}} {
 		for k := 0; k < 6; k++ {
 			u := randomFrame(rng)[0]
 			n := int(c.h+2*c.r) + 8
