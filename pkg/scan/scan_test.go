@@ -85,8 +85,8 @@ func TestWholeIndependentOfTiling(t *testing.T) {
 	// together they catch a lost phase (e.g. all pore wetting: nonwetting
 	// 100 % wrong, ΔS_w +0.46) and an over-eager mask.
 	for _, c := range []struct {
-		name      string
-		err, want float64
+		name          string
+		err, measured float64
 	}{
 		{"pore voxels wrong", 1 - poreAcc, 0.2574},
 		{"wetting voxels wrong", 1 - wetAcc, 0.3049},
@@ -95,8 +95,8 @@ func TestWholeIndependentOfTiling(t *testing.T) {
 		{"|ΔS_w|", math.Abs(dS), 0.0130},
 		{"|Δφ|", math.Abs(dPhi), 0.0372},
 	} {
-		if c.err > 2*c.want {
-			t.Errorf("%s: %.4f, more than twice the measured %.4f", c.name, c.err, c.want)
+		if c.err > 2*c.measured {
+			t.Errorf("%s: %.4f, more than twice the measured %.4f", c.name, c.err, c.measured)
 		}
 	}
 	for _, tile := range []int{22, 15, 17} { // 8 tiles, 27 tiles, uneven edges
