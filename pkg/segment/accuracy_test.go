@@ -68,12 +68,13 @@ func packScene(n int, seed uint64, step int, cnr float64) (*volume.Volume[uint16
 }
 
 // score compares labels with the truth: fraction of truth pore voxels
-// labelled correctly, wetting saturation error, and relative error of the
-// w–n interfacial area as sluice reports it (pkg/measure: 13-direction
-// Crofton surface areas of the three phases, A_wn = (S_w + S_n − S_s)/2).
+// labelled correctly, wetting saturation error, relative error of the w–n
+// interfacial area as sluice reports it (pkg/measure: 13-direction Crofton
+// surface areas of the three phases, A_wn = (S_w + S_n − S_s)/2) and
+// porosity error.
 type score struct {
-	poreAcc, dS, dA float64
-	sTrue, aTrue    float64
+	poreAcc, dS, dA, dPhi float64
+	sTrue, aTrue, phiTrue float64
 }
 
 func scoreOf(t testing.TB, got, truth *volume.Labels, c phase.Codes) score {
@@ -87,14 +88,15 @@ func scoreOf(t testing.TB, got, truth *volume.Labels, c phase.Codes) score {
 			}
 		}
 	}
-	at, st := croftonWN(t, truth)
-	ag, sg := croftonWN(t, got)
-	return score{poreAcc: ok / pore, dS: sg - st, dA: ag/at - 1, sTrue: st, aTrue: at}
+	at, st, pt := croftonWN(t, truth)
+	ag, sg, pg := croftonWN(t, got)
+	return score{poreAcc: ok / pore, dS: sg - st, dA: ag/at - 1, dPhi: pg - pt, sTrue: st, aTrue: at, phiTrue: pt}
 }
 
-// croftonWN returns the w–n interfacial area in voxel faces and the wetting
-// saturation, measured by pkg/measure (curvature and contact angles off).
-func croftonWN(t testing.TB, l *volume.Labels) (area, sw float64) {
+// croftonWN returns the w–n interfacial area in voxel faces, the wetting
+// saturation and the porosity, measured by pkg/measure (curvature and
+// contact angles off).
+func croftonWN(t testing.TB, l *volume.Labels) (area, sw, phi float64) {
 	t.Helper()
 	o := measure.Defaults()
 	o.SkipCurvature, o.SkipContact = true, true
@@ -102,11 +104,47 @@ func croftonWN(t testing.TB, l *volume.Labels) (area, sw float64) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if r.SatWetting == nil {
+	if r.SatWetting == nil || r.Porosity == nil {
 		t.Fatal("no pore space")
 	}
-	return r.AreaWN / (l.VoxelSize * l.VoxelSize), *r.SatWetting
+	return r.AreaWN / (l.VoxelSize * l.VoxelSize), *r.SatWetting, *r.Porosity
 }
+
+// errs are errors against the forward model's truth: 1 − pore accuracy,
+// ΔS_w, relative ΔA_wn, Δφ.
+type errs struct{ pore, dS, dA, dPhi float64 }
+
+// floors keep a band from collapsing where the measured error happens to
+// be near zero: 0.3 % for ΔS_w and Δφ (about what swapping the scan mask
+// for the ideal one moves them), 0.5 % pore accuracy and 2 % area (about
+// the spread of one variant between CNR 3, 5 and 10).
+var floors = errs{pore: 0.005, dS: 0.003, dA: 0.02, dPhi: 0.003}
+
+// checkTruth holds sc to twice the errors m measured against the forward
+// model's truth (with floors), and, where the issue 3 targets are given,
+// to those when they are tighter. Source: the forward model's truth labels;
+// issue 3 targets (pore accuracy ≥ 98 %, |ΔS_w| ≤ 0.01, |ΔA_wn| ≤ 10 %;
+// common practice for fluid segmentation quality, cf. Schlüter et al. 2014,
+// Water Resour. Res. 50:3615).
+func checkTruth(t *testing.T, name string, sc score, m errs, target *errs) {
+	t.Helper()
+	tol := errs{
+		pore: math.Max(2*math.Abs(m.pore), floors.pore),
+		dS:   math.Max(2*math.Abs(m.dS), floors.dS),
+		dA:   math.Max(2*math.Abs(m.dA), floors.dA),
+		dPhi: math.Max(2*math.Abs(m.dPhi), floors.dPhi),
+	}
+	if target != nil {
+		tol.pore, tol.dS, tol.dA = math.Min(tol.pore, target.pore), math.Min(tol.dS, target.dS), math.Min(tol.dA, target.dA)
+	}
+	if 1-sc.poreAcc > tol.pore || math.Abs(sc.dS) > tol.dS || math.Abs(sc.dA) > tol.dA || math.Abs(sc.dPhi) > tol.dPhi {
+		t.Errorf("%s: pore accuracy %.2f %% (want >= %.2f %%), ΔS_w %+.4f (tol %.4f), ΔA_wn %+.1f %% (tol %.1f %%), Δφ %+.4f (tol %.4f)",
+			name, 100*sc.poreAcc, 100*(1-tol.pore), sc.dS, tol.dS, 100*sc.dA, 100*tol.dA, sc.dPhi, tol.dPhi)
+	}
+}
+
+// issue3 are the CNR 5 targets of issue 3 as errors.
+var issue3 = errs{pore: 0.02, dS: 0.01, dA: 0.10}
 
 // pipeline runs the whole-volume pipeline: histogram, thresholds, segment.
 func pipeline(t testing.TB, grey volume.Any, p Params, solid *volume.Labels) (*volume.Labels, Thresholds) {
@@ -238,10 +276,35 @@ func idealMask(truth *volume.Labels) *volume.Labels {
 	return m
 }
 
+// measuredSeed1 are the errors measured against the truth of the seed-1
+// scene (128³ demo rock, step 5) on 2026-12-04, per CNR and variant:
+// 1 − pore accuracy, ΔS_w, ΔA_wn (relative), Δφ. The checks allow twice
+// each (with floors).
+var measuredSeed1 = map[string]errs{
+	"CNR 3 median 3-class":          {0.0474, +0.0422, +1.145, +0.0093},
+	"CNR 3 nlm 3-class+pv":          {0.0294, +0.0139, +0.816, +0.0065},
+	"CNR 3 nlm ref+pv, scan mask":   {0.0143, -0.0061, -0.025, -0.0011},
+	"CNR 3 nlm ref+pv, ideal mask":  {0.0099, -0.0038, -0.029, 0},
+	"CNR 3 nlm 3-class+pv+lf1":      {0.0296, -0.0003, +0.315, -0.0005},
+	"CNR 3 nlm 3-class+pv+lf2":      {0.0295, -0.0077, +0.063, -0.0022},
+	"CNR 5 median 3-class":          {0.0433, +0.0364, +1.070, +0.0067},
+	"CNR 5 nlm 3-class+pv":          {0.0218, +0.0122, +0.747, +0.0059},
+	"CNR 5 nlm ref+pv, scan mask":   {0.0115, -0.0062, -0.051, -0.0011},
+	"CNR 5 nlm ref+pv, ideal mask":  {0.0071, -0.0039, -0.056, 0},
+	"CNR 5 nlm 3-class+pv+lf1":      {0.0203, -0.0037, +0.161, -0.0007},
+	"CNR 5 nlm 3-class+pv+lf2":      {0.0215, -0.0096, -0.053, -0.0023},
+	"CNR 10 median 3-class":         {0.0423, +0.0334, +1.041, +0.0042},
+	"CNR 10 nlm 3-class+pv":         {0.0165, +0.0121, +0.711, +0.0053},
+	"CNR 10 nlm ref+pv, scan mask":  {0.0093, -0.0060, -0.062, -0.0011},
+	"CNR 10 nlm ref+pv, ideal mask": {0.0049, -0.0037, -0.066, 0},
+	"CNR 10 nlm 3-class+pv+lf1":     {0.0138, -0.0052, +0.058, -0.0010},
+	"CNR 10 nlm 3-class+pv+lf2":     {0.0152, -0.0090, -0.094, -0.0021},
+}
+
 // TestAccuracyForwardModel scores the pipeline on forward-model scans of
-// the 128³ demo rock at CNR 3, 5 and 10 and asserts the targets at CNR 5 in
-// reference mode (mask from a rendered reference scan, NLM on the fast
-// scan); single-scan 3-class mode is only held to sanity bounds.
+// the 128³ demo rock at CNR 3, 5 and 10, every variant held to twice its
+// measured errors against the truth (measuredSeed1), and reference mode at
+// CNR 5 also to the issue 3 targets.
 func TestAccuracyForwardModel(t *testing.T) {
 	const n = 128
 	rows := ""
@@ -265,79 +328,60 @@ func TestAccuracyForwardModel(t *testing.T) {
 			}
 			lab, th := pipeline(t, f, unfiltered(p), m)
 			sc := scoreOf(t, lab, truth, p.Codes)
-			rows += fmt.Sprintf("CNR %3.0f  %-24s pore %6.2f %%  ΔS_w %+7.4f  ΔA_wn %+6.1f %%  thresholds %v  (true S_w %.3f, A_wn %.0f)\n",
-				cnr, v.name, 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T, sc.sTrue, sc.aTrue)
-			switch {
-			case cnr == 5 && v.reference:
-				// Source: issue 3 targets (common practice for fluid segmentation quality).
-				if sc.poreAcc < 0.98 || math.Abs(sc.dS) > 0.01 || math.Abs(sc.dA) > 0.10 {
-					t.Errorf("CNR 5, %s: pore accuracy %.4f (want >= 0.98), ΔS %.4f (want |.| <= 0.01), ΔA %.3f (want |.| <= 0.10)", v.name, sc.poreAcc, sc.dS, sc.dA)
-				}
-			case !v.reference:
-				checkSingleScan(t, cnr, v, sc)
+			key := fmt.Sprintf("CNR %g %s", cnr, v.name)
+			rows += fmt.Sprintf("%-32s pore %6.2f %%  ΔS_w %+7.4f  ΔA_wn %+6.1f %%  Δφ %+7.4f  thresholds %v  (true S_w %.3f, A_wn %.0f, φ %.4f)\n",
+				key, 100*sc.poreAcc, sc.dS, 100*sc.dA, sc.dPhi, th.T, sc.sTrue, sc.aTrue, sc.phiTrue)
+			var target *errs
+			if cnr == 5 && v.reference {
+				target = &issue3
 			}
+			me, ok := measuredSeed1[key]
+			if !ok {
+				t.Fatalf("%s: no measured errors recorded", key)
+			}
+			checkTruth(t, key, sc, me, target)
 		}
 	}
 	t.Logf("accuracy on %d³ forward-model scans (rock seed 1, step 5):\n%s", n, rows)
 }
 
-// TestAccuracyOtherScenes asserts the CNR 5 targets in reference mode with
-// a scan mask on another rock and drainage state (seed 2: more nonwetting,
-// S_w 0.29, hence more w–n interface in corners).
+// TestAccuracyOtherScenes checks reference mode (scan mask) and single-scan
+// 3-class mode with local-fluid passes on another rock and drainage state
+// (seed 2: more nonwetting, S_w 0.29, hence more w–n interface in corners),
+// at CNR 5, each held to twice its errors measured against the truth on
+// 2026-12-04, reference mode also to the issue 3 targets.
 func TestAccuracyOtherScenes(t *testing.T) {
+	measured := map[string]errs{
+		"nlm ref+pv, scan mask": {0.0187, -0.0082, -0.083, -0.0012},
+		"nlm 3-class+pv+lf1":    {0.0297, -0.0019, +0.183, +0.0005},
+		"nlm 3-class+pv+lf2":    {0.0310, -0.0143, -0.089, -0.0023},
+	}
 	grey, truth, fp := packScene(128, 2, 5, 5)
 	p := variants[2].params(fp)
 	f := prefiltered(t, grey, p)
 	lab, th := pipeline(t, f, unfiltered(p), referenceMask(t, truth, fp))
 	sc := scoreOf(t, lab, truth, p.Codes)
-	t.Logf("seed 2, ref+pv scan mask: true S_w %.3f, pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, threshold %v", sc.sTrue, 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
-	// Source: issue 3 targets.
-	if sc.poreAcc < 0.98 || math.Abs(sc.dS) > 0.01 || math.Abs(sc.dA) > 0.10 {
-		t.Errorf("seed 2 misses the CNR 5 targets: pore %.4f, ΔS %.4f, ΔA %.3f", sc.poreAcc, sc.dS, sc.dA)
-	}
+	t.Logf("seed 2, ref+pv scan mask: true S_w %.3f φ %.4f, pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, Δφ %+.4f, threshold %v", sc.sTrue, sc.phiTrue, 100*sc.poreAcc, sc.dS, 100*sc.dA, sc.dPhi, th.T)
+	checkTruth(t, "seed 2, "+variants[2].name, sc, measured[variants[2].name], &issue3)
 	for _, v := range variants[4:] {
 		p := v.params(fp)
 		lab, th := pipeline(t, f, unfiltered(p), nil)
 		sc := scoreOf(t, lab, truth, p.Codes)
-		t.Logf("seed 2, %s: pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, thresholds %v", v.name, 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
-		checkSingleScan(t, 5, v, sc)
+		t.Logf("seed 2, %s: pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, Δφ %+.4f, thresholds %v", v.name, 100*sc.poreAcc, sc.dS, 100*sc.dA, sc.dPhi, th.T)
+		m, ok := measured[v.name]
+		if !ok {
+			t.Fatalf("seed 2, %s: no measured errors recorded", v.name)
+		}
+		checkTruth(t, "seed 2, "+v.name, sc, m, nil)
 	}
 }
 
-// checkSingleScan holds single-scan 3-class mode to what it meets on both
-// rocks (seeds 1 and 2) at CNR 5: one local-fluid pass meets the saturation
-// target (|ΔS_w| <= 0.01), two passes the area target (|ΔA_wn| <= 10 %);
-// neither meets the pore-voxel target (98 %) on both, nor both of the
-// others at once, so the rest are bounds around the measured values. Other
-// single-scan variants get sanity bounds.
-func checkSingleScan(t *testing.T, cnr float64, v variant, sc score) {
-	t.Helper()
-	if cnr == 5 && v.localFluid == 1 {
-		// Source: issue 3 target |ΔS_w| <= 0.01; pore and area are bounds
-		// (measured 97.0–98.0 %, +16…+18 %).
-		if sc.poreAcc < 0.965 || math.Abs(sc.dS) > 0.01 || math.Abs(sc.dA) > 0.25 {
-			t.Errorf("CNR 5, %s: pore %.4f (want >= 0.965), ΔS %.4f (want |.| <= 0.01), ΔA %.3f (want |.| <= 0.25)", v.name, sc.poreAcc, sc.dS, sc.dA)
-		}
-		return
-	}
-	if cnr == 5 && v.localFluid == 2 {
-		// Source: issue 3 target |ΔA_wn| <= 10 %; pore and saturation are
-		// bounds (measured 96.9–97.9 %, −0.010…−0.014).
-		if sc.poreAcc < 0.965 || math.Abs(sc.dS) > 0.02 || math.Abs(sc.dA) > 0.10 {
-			t.Errorf("CNR 5, %s: pore %.4f (want >= 0.965), ΔS %.4f (want |.| <= 0.02), ΔA %.3f (want |.| <= 0.10)", v.name, sc.poreAcc, sc.dS, sc.dA)
-		}
-		return
-	}
-	// Sanity bounds (common practice: no target, but a broken stage would
-	// fall far below).
-	if sc.poreAcc < 0.90 || math.Abs(sc.dS) > 0.08 || sc.dA < -0.5 || sc.dA > 1.5 {
-		t.Errorf("CNR %g, %s: pore %.4f, ΔS %.4f, ΔA %.3f outside sanity bounds", cnr, v.name, sc.poreAcc, sc.dS, sc.dA)
-	}
-}
-
-// TestAccuracyWithArtefacts reports reference mode (scan mask) on the
-// seed-1 scene with ring streaks (σ 300 grey, 0.15 of the noise) and a 5 %
-// intensity drift along z added to the fast scan.
+// TestAccuracyWithArtefacts checks reference mode (scan mask) on the
+// seed-1 scene (96³) with ring streaks (σ 300 grey, 0.15 of the noise) and
+// a 5 % intensity drift along z added to the fast scan, against the truth
+// at twice the errors measured on 2026-12-04 (pore accuracy 97.93 %,
+// ΔS_w −0.0084, ΔA_wn −6.3 %, Δφ −0.0013). The issue 3 targets are for
+// clean scans and are not applied.
 func TestAccuracyWithArtefacts(t *testing.T) {
 	_, truth, fp := packScene(96, 1, 5, 5)
 	fp.Rings, fp.Drift = 300, 0.05
@@ -349,9 +393,6 @@ func TestAccuracyWithArtefacts(t *testing.T) {
 	p := variants[2].params(fp)
 	seg, th := pipeline(t, grey, p, referenceMask(t, truth, fp))
 	sc := scoreOf(t, seg, truth, p.Codes)
-	t.Logf("96³, rings 300 + drift 5 %%, CNR 5: pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, threshold %v", 100*sc.poreAcc, sc.dS, 100*sc.dA, th.T)
-	// Source: issue 3 targets, relaxed (artefacts are not part of the target); common practice.
-	if sc.poreAcc < 0.95 {
-		t.Errorf("pore accuracy %.4f with artefacts", sc.poreAcc)
-	}
+	t.Logf("96³, rings 300 + drift 5 %%, CNR 5: pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, Δφ %+.4f, threshold %v", 100*sc.poreAcc, sc.dS, 100*sc.dA, sc.dPhi, th.T)
+	checkTruth(t, "rings + drift", sc, errs{0.0207, -0.0084, -0.063, -0.0013}, nil)
 }
