@@ -6,7 +6,7 @@ PKGS      ?= ./...
 TESTFLAGS ?= -timeout 40m -count=1
 export PATH := $(GOBIN):$(PATH)
 
-.PHONY: help build demo test test-go setup bench fuzz fuzz-ci lint proto proto-check clean
+.PHONY: help build demo test test-go test-race setup bench fuzz fuzz-ci lint proto proto-check clean
 
 help: ## list the targets
 	@awk 'BEGIN {FS = ":.*## "} /^[a-zA-Z_-]+:.*## / {printf "  \033[1m%-12s\033[0m %s\n", $$1, $$2}' $(MAKEFILE_LIST)
@@ -20,13 +20,23 @@ demo: build ## run the demo campaign through the whole pipeline (embedded NATS, 
 setup: ## install what the tests need (Debian packages, MinIO, nats-server, playwright-core); idempotent
 	bash scripts/setup-test-env
 
-test: setup proto-check ## set up, then run every test and a short fuzz of every parser (the command CI runs)
+test: setup proto-check ## set up, then run every test, the concurrent packages under -race, and a short fuzz of every parser (the command CI runs)
 	$(GO) vet $(PKGS)
 	$(GO) test $(TESTFLAGS) $(PKGS)
+	$(MAKE) test-race
 	$(MAKE) fuzz-ci
 
 test-go: ## run the Go tests only, without set-up
 	$(GO) test $(TESTFLAGS) $(PKGS)
+
+# Packages whose code runs goroutines against shared state (queue, store,
+# services, pipeline). -short leaves out the longest campaign tests; the
+# pipeline, restart and fault paths they share still run under the detector.
+RACE_PKGS ?= ./pkg/queue/... ./pkg/store/... ./pkg/web/... ./pkg/scan/... ./services/...
+RACEFLAGS ?= -race -short -timeout 30m -count=1
+
+test-race: ## run the packages with concurrency under the race detector
+	$(GO) test $(RACEFLAGS) $(RACE_PKGS)
 
 bench: build ## run the benchmarks (MVox/s and MB/s figures)
 	$(GO) test -run '^$$' -bench . -benchtime 3x $(PKGS)

@@ -49,8 +49,8 @@ func runDemo(args []string) int {
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
-	if *size < 64 || *steps < 2 {
-		return fail(exitBadInput, "demo: --size must be ≥ 64 and --steps ≥ 2")
+	if *size < 64 || *steps < 7 {
+		return fail(exitBadInput, "demo: --size must be ≥ 64 and --steps ≥ 7 (a drainage ramp of at least 2 steps, then 5 steady ones)")
 	}
 	ctx, stop := signalContext()
 	defer stop()
@@ -116,21 +116,27 @@ func runDemo(args []string) int {
 	// marker. Back-pressure keeps at most two scans ahead of the pipeline,
 	// as a beamline's scan interval matched to the processing rate would.
 	cyl := demoCylinder(sc)
-	written := 0
 	printed := 0
-	var genErr error
+	// The generator reports its end on genc (nil when every scan was
+	// written); the loop below is the only reader, so nothing is shared.
+	genc := make(chan error, 1)
 	go func() {
+		written := 0
 		for i := 0; i < *steps && ctx.Err() == nil; i++ {
 			for ctx.Err() == nil && written-len(rowsDone()) >= 2 {
 				time.Sleep(200 * time.Millisecond)
 			}
 			if err := writeScan(incoming, sc, i, cyl); err != nil {
-				genErr = err
+				genc <- err
 				return
 			}
 			written++
 		}
+		genc <- nil
 	}()
+	var genErr error
+	tick := time.NewTicker(500 * time.Millisecond)
+	defer tick.Stop()
 	for ctx.Err() == nil {
 		rows := rowsDone()
 		for ; printed < len(rows); printed++ {
@@ -142,7 +148,12 @@ func runDemo(args []string) int {
 		if len(rows) >= *steps || genErr != nil {
 			break
 		}
-		time.Sleep(500 * time.Millisecond)
+		select {
+		case err := <-genc:
+			genErr = err
+		case <-tick.C:
+		case <-ctx.Done():
+		}
 	}
 	if genErr != nil {
 		nstop()
