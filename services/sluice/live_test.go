@@ -291,7 +291,7 @@ func TestLiveCampaign(t *testing.T) {
 		addr := freePort(t)
 		cmd := exec.Command(prom, "--config.file="+filepath.Join(dir, "prometheus.yml"), "--storage.tsdb.path="+filepath.Join(dir, "tsdb"),
 			"--web.listen-address="+addr)
-		var logb strings.Builder
+		var logb syncBuffer
 		cmd.Stderr = &logb
 		if err := cmd.Start(); err != nil {
 			t.Fatal(err)

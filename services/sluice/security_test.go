@@ -391,7 +391,7 @@ scrape_configs:
 	paddr := freePort(t)
 	cmd := exec.Command(prom, "--config.file="+filepath.Join(dir, "prometheus.yml"), "--storage.tsdb.path="+filepath.Join(dir, "tsdb"),
 		"--web.listen-address="+paddr)
-	var logb strings.Builder
+	var logb syncBuffer
 	cmd.Stderr = &logb
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
