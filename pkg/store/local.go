@@ -204,6 +204,64 @@ func (l *Local) List(ctx context.Context, prefix string) ([]string, error) {
 	return keys, nil
 }
 
+// Dirs reads the directory of prefix and returns its subdirectories that
+// hold at least one key (Delete leaves empty directories behind; S3 has
+// none).
+func (l *Local) Dirs(ctx context.Context, prefix string) ([]string, error) {
+	if err := checkDirPrefix(prefix); err != nil {
+		return nil, err
+	}
+	dir := filepath.Join(l.root, filepath.FromSlash(prefix))
+	entries, err := os.ReadDir(dir)
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("store: list directories %s under %s: %v", prefix, l.root, err)
+	}
+	var out []string
+	for _, e := range entries {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		if !e.IsDir() || strings.Contains(e.Name(), tempMarker) {
+			continue
+		}
+		found, err := holdsKey(filepath.Join(dir, e.Name()))
+		if err != nil {
+			return nil, fmt.Errorf("store: list directories %s under %s: %v", prefix, l.root, err)
+		}
+		if found {
+			out = append(out, e.Name())
+		}
+	}
+	return out, nil // os.ReadDir sorts by name
+}
+
+// errFound ends holdsKey's walk at the first key.
+var errFound = errors.New("found")
+
+// holdsKey reports whether a key lies anywhere below dir; it stops at the
+// first one.
+func holdsKey(dir string) (bool, error) {
+	err := filepath.WalkDir(dir, func(p string, d fs.DirEntry, err error) error {
+		if err != nil {
+			if errors.Is(err, fs.ErrNotExist) {
+				return nil
+			}
+			return err
+		}
+		if d.Type().IsRegular() && !strings.Contains(d.Name(), tempMarker) {
+			return errFound
+		}
+		return nil
+	})
+	if err == errFound {
+		return true, nil
+	}
+	return false, err
+}
+
 func (l *Local) osErr(op, name string, err error) error {
 	if errors.Is(err, fs.ErrNotExist) {
 		return fmt.Errorf("store: %s %s: %w", op, name, fs.ErrNotExist)

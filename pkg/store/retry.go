@@ -107,6 +107,12 @@ func (r *Retrying) List(ctx context.Context, prefix string) (keys []string, err 
 	return keys, err
 }
 
+// Dirs retries s.Dirs.
+func (r *Retrying) Dirs(ctx context.Context, prefix string) (dirs []string, err error) {
+	err = r.do(ctx, "list", checkDirPrefix(prefix), func() error { dirs, err = r.Store.Dirs(ctx, prefix); return err })
+	return dirs, err
+}
+
 // Delete retries s.Delete.
 func (r *Retrying) Delete(ctx context.Context, key string) error {
 	return r.do(ctx, "delete", CheckKey(key), func() error { return r.Store.Delete(ctx, key) })

@@ -244,3 +244,23 @@ func (s *S3) List(ctx context.Context, prefix string) ([]string, error) {
 	sort.Strings(keys)
 	return keys, nil
 }
+
+// Dirs lists the common prefixes one level below prefix (delimiter "/").
+func (s *S3) Dirs(ctx context.Context, prefix string) ([]string, error) {
+	if err := checkDirPrefix(prefix); err != nil {
+		return nil, err
+	}
+	var out []string
+	for oi := range s.client.ListObjects(ctx, s.bucket, minio.ListObjectsOptions{Prefix: s.prefix + prefix, Recursive: false}) {
+		if oi.Err != nil {
+			return nil, fmt.Errorf("store: list directories %s%s: %s", s.where, prefix, s.creds.scrub(oi.Err.Error()))
+		}
+		if rest, ok := strings.CutPrefix(oi.Key, s.prefix+prefix); ok {
+			if name, ok := strings.CutSuffix(rest, "/"); ok && name != "" && !strings.Contains(name, "/") {
+				out = append(out, name)
+			}
+		}
+	}
+	sort.Strings(out)
+	return out, nil
+}

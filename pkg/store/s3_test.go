@@ -39,6 +39,9 @@ func TestS3Conformance(t *testing.T) {
 	if err != nil || len(got) != 1 || got[0] != "campaigns/c/campaign.json" {
 		t.Fatalf("prefixed List = %q, %v", got, err)
 	}
+	if dirs, err := p.Dirs(ctx, "campaigns/"); err != nil || len(dirs) != 1 || dirs[0] != "c" {
+		t.Fatalf("prefixed Dirs = %q, %v", dirs, err)
+	}
 	raw, err := s.Get(ctx, "run-7/campaigns/c/campaign.json")
 	if err != nil || string(raw) != "{}" {
 		t.Fatalf("unprefixed view of a prefixed key: %q, %v", raw, err)

@@ -37,6 +37,12 @@ type Store interface {
 	// List returns, in lexical order, all keys that start with prefix
 	// (a plain string prefix, as in S3; "" lists everything).
 	List(ctx context.Context, prefix string) ([]string, error)
+	// Dirs returns, in lexical order, the distinct key segments that
+	// follow prefix in keys continuing past them ("b" for the key
+	// prefix+"b/c"), as an S3 listing with delimiter "/" reports common
+	// prefixes: one level, without listing what lies below. prefix is ""
+	// or ends with "/".
+	Dirs(ctx context.Context, prefix string) ([]string, error)
 	// Delete removes key; a missing key is not an error.
 	Delete(ctx context.Context, key string) error
 	// Stat describes the value under key; a missing key gives an error
@@ -79,6 +85,15 @@ func CheckKey(key string) error {
 		return fmt.Errorf("store: key %q ends with a slash: %w", key, ErrKey)
 	}
 	return checkPath(key)
+}
+
+// checkDirPrefix validates a Dirs prefix: "" or a valid key followed by a
+// slash.
+func checkDirPrefix(prefix string) error {
+	if prefix != "" && !strings.HasSuffix(prefix, "/") {
+		return fmt.Errorf("store: prefix %q of a directory listing does not end with a slash: %w", prefix, ErrKey)
+	}
+	return checkPrefix(prefix)
 }
 
 // checkPrefix validates a List prefix: "" or a valid key, optionally followed

@@ -125,6 +125,53 @@ func conformance(t *testing.T, s Store) {
 		}
 	})
 
+	t.Run("dirs", func(t *testing.T) {
+		for _, k := range []string{"dirs/a/x", "dirs/b/c/d", "dirs/b-1/y", "dirs/f", "dirs/e/z", "dirsx/q/r"} {
+			if err := s.Put(ctx, k, []byte(k)); err != nil {
+				t.Fatal(err)
+			}
+		}
+		// A directory whose only key is deleted is gone, as on S3.
+		if err := s.Delete(ctx, "dirs/e/z"); err != nil {
+			t.Fatal(err)
+		}
+		for _, c := range []struct {
+			prefix string
+			want   []string
+		}{
+			{"dirs/", []string{"a", "b", "b-1"}},
+			{"dirs/b/", []string{"c"}},
+			{"dirs/b/c/", nil},
+			{"dirs/a/", nil},
+			{"nope/", nil},
+		} {
+			got, err := s.Dirs(ctx, c.prefix)
+			if err != nil {
+				t.Fatalf("Dirs(%q): %v", c.prefix, err)
+			}
+			if len(got) == 0 && len(c.want) == 0 {
+				continue
+			}
+			if !reflect.DeepEqual(got, c.want) {
+				t.Errorf("Dirs(%q) = %q, want %q", c.prefix, got, c.want)
+			}
+		}
+		top, err := s.Dirs(ctx, "")
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, d := range []string{"dirs", "dirsx"} {
+			if !contains(top, d) {
+				t.Errorf("Dirs(\"\") = %q, misses %s", top, d)
+			}
+		}
+		for _, bad := range []string{"dirs", "../", "dirs//"} {
+			if _, err := s.Dirs(ctx, bad); !errors.Is(err, ErrKey) {
+				t.Errorf("Dirs(%q): err = %v, want ErrKey", bad, err)
+			}
+		}
+	})
+
 	t.Run("invalid keys", func(t *testing.T) {
 		for _, k := range badKeys {
 			if err := s.Put(ctx, k, []byte("x")); !errors.Is(err, ErrKey) {

@@ -41,6 +41,8 @@ type Store interface {
 	Get(ctx context.Context, key string) ([]byte, error)
 	Put(ctx context.Context, key string, data []byte) error
 	List(ctx context.Context, prefix string) ([]string, error)
+	// Dirs lists one level of key segments below prefix (see store.Store).
+	Dirs(ctx context.Context, prefix string) ([]string, error)
 }
 
 // EventPublisher publishes step events (completion, failure, breakthrough,
@@ -88,6 +90,11 @@ type stepState struct {
 
 // Start initialises the aggregator from the store (campaigns, steps and
 // results written before a restart). It runs before any other method.
+//
+// It lists one level at a time — the campaigns, each campaign's steps —
+// and then, per step, only the tile results of the campaign's current
+// parameter hash, never the Zarr chunks below the steps. TilesDone counts
+// the current hash's tiles only.
 func (a *Aggregator) Start(ctx context.Context) error {
 	if a.Log == nil {
 		a.Log = slog.Default()
@@ -97,57 +104,139 @@ func (a *Aggregator) Start(ctx context.Context) error {
 	}
 	a.started = time.Now()
 	a.campaigns = map[string]*campaignState{}
-	keys, err := a.Store.List(ctx, layout.Root+"/")
+	names, err := a.Store.Dirs(ctx, layout.Root+"/")
 	if err != nil {
 		return fmt.Errorf("aggregator: listing campaigns: %w", err)
 	}
-	for _, k := range keys {
-		c, s, ok := layout.ParseKey(k)
-		if !ok {
+	for _, name := range names {
+		c, err := layout.NewCampaign(name)
+		if err != nil {
+			continue // not a campaign directory
+		}
+		r, err := campaign.LoadRecord(ctx, a.Store, c)
+		if err != nil {
+			a.Log.Warn("aggregator: campaign skipped at start-up", "campaign", name, "err", err)
 			continue
 		}
-		cs := a.campaign(ctx, c)
-		if cs == nil || s == "" {
-			continue
+		steps, err := a.loadSteps(ctx, c, r.Current)
+		if err != nil {
+			return err
 		}
-		st := cs.step(s)
-		switch {
-		case strings.HasSuffix(k, "/manifest.json") && st.Status == "":
-			st.Status = "ingested"
-		case strings.Contains(k, "/tiles/") && strings.HasSuffix(k, ".json"):
-			if st.Status != "done" {
-				st.Status = "processing"
-			}
-			st.TilesDone++
-		case strings.HasSuffix(k, "/plans/"+cs.record.Current+".json"):
-			var p campaign.Plan
-			if b, err := a.Store.Get(ctx, k); err == nil && json.Unmarshal(b, &p) == nil {
-				st.TilesTotal = p.Tiles
-				_ = p
-			}
-		case k == campaign.RunResultKey(mustStep(c, s), cs.record.Current):
-			st.Status = "done"
+		cs := a.insertCampaign(r)
+		for _, st := range steps {
+			cs.steps[st.Step] = st
 		}
-	}
-	for _, cs := range a.campaigns {
-		for _, st := range cs.steps {
-			if st.Status == "done" {
-				st.TilesDone = st.TilesTotal
+		if rows, err := series.Load(ctx, a.Store, r.Name); err == nil {
+			for _, row := range rows {
+				cs.step(row.Step).TimeS = row.Time
 			}
-		}
-		if rows, err := series.Load(ctx, a.Store, cs.record.Name); err == nil {
-			for _, r := range rows {
-				cs.step(r.Step).TimeS = r.Time
-			}
-			a.updateGauges(cs.record.Name, rows)
+			a.updateGauges(r.Name, rows)
 		}
 	}
 	return nil
 }
 
-func mustStep(c, s string) layout.Step {
-	st, _ := layout.NewStep(c, s)
-	return st
+// startWorkers bounds the store reads in flight while Start reads steps.
+const startWorkers = 8
+
+// loadSteps reads the state of every step of campaign c under hash.
+func (a *Aggregator) loadSteps(ctx context.Context, c layout.Campaign, hash string) ([]*stepState, error) {
+	names, err := a.Store.Dirs(ctx, c.Steps())
+	if err != nil {
+		return nil, fmt.Errorf("aggregator: listing the steps of campaign %s: %w", c.Name(), err)
+	}
+	out := make([]*stepState, len(names))
+	errs := make([]error, len(names))
+	sem := make(chan struct{}, startWorkers)
+	var wg sync.WaitGroup
+	for i, name := range names {
+		step, err := c.Step(name)
+		if err != nil {
+			continue // not a step directory
+		}
+		wg.Add(1)
+		sem <- struct{}{}
+		go func() {
+			defer func() { <-sem; wg.Done() }()
+			out[i], errs[i] = a.loadStep(ctx, step, hash)
+		}()
+	}
+	wg.Wait()
+	if err := errors.Join(errs...); err != nil {
+		return nil, err
+	}
+	var steps []*stepState
+	for _, st := range out {
+		if st != nil {
+			steps = append(steps, st)
+		}
+	}
+	return steps, nil
+}
+
+// loadStep reads one step's state under hash: done when its run result
+// (the step's commit marker) exists, else processing when tile results of
+// hash exist, else ingested when its manifest exists.
+func (a *Aggregator) loadStep(ctx context.Context, step layout.Step, hash string) (*stepState, error) {
+	st := &stepState{StepStatus: web.StepStatus{Step: step.Name()}, tiles: map[int32]bool{}}
+	fail := func(err error) (*stepState, error) {
+		return nil, fmt.Errorf("aggregator: reading step %s: %w", step.Dir(), err)
+	}
+	exists := func(key string) (bool, error) {
+		_, err := a.Store.Get(ctx, key)
+		if errors.Is(err, fs.ErrNotExist) {
+			return false, nil
+		}
+		return err == nil, err
+	}
+	if hash != "" {
+		b, err := a.Store.Get(ctx, campaign.PlanKey(step, hash))
+		if err != nil && !errors.Is(err, fs.ErrNotExist) {
+			return fail(err)
+		}
+		if err == nil {
+			// An undecodable plan fails its step's completion with its own
+			// message; here it only leaves the tile total unknown.
+			var plan campaign.Plan
+			if err := json.Unmarshal(b, &plan); err != nil {
+				a.Log.Warn("aggregator: undecodable plan", "key", campaign.PlanKey(step, hash), "err", err)
+			}
+			st.TilesTotal = plan.Tiles
+		}
+		done, err := exists(campaign.RunResultKey(step, hash))
+		if err != nil {
+			return fail(err)
+		}
+		if done {
+			st.Status, st.TilesDone = "done", st.TilesTotal
+			return st, nil
+		}
+		prefix, err := step.Tiles(hash)
+		if err != nil {
+			return fail(err)
+		}
+		keys, err := a.Store.List(ctx, prefix)
+		if err != nil {
+			return fail(err)
+		}
+		for _, k := range keys {
+			if strings.HasSuffix(k, ".json") {
+				st.TilesDone++
+			}
+		}
+		if st.TilesDone > 0 {
+			st.Status = "processing"
+			return st, nil
+		}
+	}
+	ingested, err := exists(step.Manifest())
+	if err != nil {
+		return fail(err)
+	}
+	if ingested {
+		st.Status = "ingested"
+	}
+	return st, nil
 }
 
 // campaign returns (loading if needed) a campaign's state; nil if it has no
