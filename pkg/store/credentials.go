@@ -3,7 +3,6 @@ package store
 import (
 	"bufio"
 	"bytes"
-	"errors"
 	"fmt"
 	"os"
 	"regexp"
@@ -73,7 +72,7 @@ func ParseCredentials(name string, data []byte) (Credentials, error) {
 		}
 	}
 	if err := sc.Err(); err != nil {
-		return Credentials{}, fmt.Errorf("store: credentials file %s line %d: %v", name, line+1, err)
+		return Credentials{}, fmt.Errorf("store: credentials file %s line %d: %w", name, line+1, err)
 	}
 	if c.AccessKey == "" || c.SecretKey == "" {
 		return Credentials{}, fmt.Errorf("store: credentials file %s: needs both access_key and secret_key", name)
@@ -85,11 +84,7 @@ func ParseCredentials(name string, data []byte) (Credentials, error) {
 func LoadCredentials(path string) (Credentials, error) {
 	data, err := os.ReadFile(path)
 	if err != nil {
-		var pe *os.PathError
-		if errors.As(err, &pe) {
-			err = pe.Err
-		}
-		return Credentials{}, fmt.Errorf("store: credentials file %s: %v", path, err)
+		return Credentials{}, fmt.Errorf("store: credentials file %s: %w", path, pathErr(err))
 	}
 	return ParseCredentials(path, data)
 }

@@ -9,6 +9,7 @@ import (
 	"path/filepath"
 	"sort"
 	"strings"
+	"syscall"
 )
 
 // Local is a Store on a local directory: key "a/b/c" is the file <Root>/a/b/c.
@@ -28,10 +29,10 @@ func NewLocal(dir string) (*Local, error) {
 	}
 	abs, err := filepath.Abs(dir)
 	if err != nil {
-		return nil, fmt.Errorf("store: local directory %s: %v", dir, err)
+		return nil, fmt.Errorf("store: local directory %s: %w", dir, err)
 	}
 	if err := os.MkdirAll(abs, 0o755); err != nil {
-		return nil, fmt.Errorf("store: local directory %s: %v", abs, err)
+		return nil, fmt.Errorf("store: local directory %s: %w", abs, pathErr(err))
 	}
 	return &Local{root: abs}, nil
 }
@@ -94,11 +95,11 @@ func (l *Local) Put(ctx context.Context, key string, data []byte) error {
 	}
 	dir := filepath.Dir(name)
 	if err := os.MkdirAll(dir, 0o755); err != nil {
-		return fmt.Errorf("store: put %s: %v", name, err)
+		return l.osErr("put", name, err)
 	}
 	f, err := os.CreateTemp(dir, tempMarker+"*")
 	if err != nil {
-		return fmt.Errorf("store: put %s: %v", name, err)
+		return l.osErr("put", name, err)
 	}
 	tmp := f.Name()
 	_, err = f.Write(data)
@@ -116,10 +117,10 @@ func (l *Local) Put(ctx context.Context, key string, data []byte) error {
 	}
 	if err != nil {
 		os.Remove(tmp)
-		return fmt.Errorf("store: put %s: %v", name, err)
+		return l.osErr("put", name, err)
 	}
 	if err := syncDir(dir); err != nil {
-		return fmt.Errorf("store: put %s: sync directory: %v", name, err)
+		return fmt.Errorf("store: put %s: sync directory: %w", name, pathErr(err))
 	}
 	return nil
 }
@@ -150,10 +151,10 @@ func (l *Local) Delete(ctx context.Context, key string) error {
 		return nil
 	}
 	if err == nil && fi.IsDir() {
-		return fmt.Errorf("store: delete %s: is a directory, not a value", name)
+		return fmt.Errorf("store: delete %s: a directory, not a value: %w", name, syscall.EISDIR)
 	}
 	if err := os.Remove(name); err != nil && !errors.Is(err, fs.ErrNotExist) {
-		return fmt.Errorf("store: delete %s: %v", name, err)
+		return l.osErr("delete", name, err)
 	}
 	return nil
 }
@@ -198,7 +199,7 @@ func (l *Local) List(ctx context.Context, prefix string) ([]string, error) {
 		return nil
 	})
 	if err != nil {
-		return nil, fmt.Errorf("store: list %s under %s: %v", prefix, l.root, err)
+		return nil, fmt.Errorf("store: list %s under %s: %w", prefix, l.root, err)
 	}
 	sort.Strings(keys)
 	return keys, nil
@@ -217,7 +218,7 @@ func (l *Local) Dirs(ctx context.Context, prefix string) ([]string, error) {
 		return nil, nil
 	}
 	if err != nil {
-		return nil, fmt.Errorf("store: list directories %s under %s: %v", prefix, l.root, err)
+		return nil, fmt.Errorf("store: list directories %s under %s: %w", prefix, l.root, pathErr(err))
 	}
 	var out []string
 	for _, e := range entries {
@@ -229,7 +230,7 @@ func (l *Local) Dirs(ctx context.Context, prefix string) ([]string, error) {
 		}
 		found, err := holdsKey(filepath.Join(dir, e.Name()))
 		if err != nil {
-			return nil, fmt.Errorf("store: list directories %s under %s: %v", prefix, l.root, err)
+			return nil, fmt.Errorf("store: list directories %s under %s: %w", prefix, l.root, pathErr(err))
 		}
 		if found {
 			out = append(out, e.Name())
@@ -262,13 +263,25 @@ func holdsKey(dir string) (bool, error) {
 	return false, err
 }
 
+// osErr names the operation and the file of a failed system call. The
+// *fs.PathError (or *os.LinkError) is dropped, as it repeats a path (often a
+// temporary file's); its errno stays in the chain for IsPermanent.
 func (l *Local) osErr(op, name string, err error) error {
 	if errors.Is(err, fs.ErrNotExist) {
 		return fmt.Errorf("store: %s %s: %w", op, name, fs.ErrNotExist)
 	}
+	return fmt.Errorf("store: %s %s: %w", op, name, pathErr(err))
+}
+
+// pathErr returns the error inside an *fs.PathError or *os.LinkError.
+func pathErr(err error) error {
 	var pe *fs.PathError
 	if errors.As(err, &pe) {
-		err = pe.Err
+		return pe.Err
 	}
-	return fmt.Errorf("store: %s %s: %w", op, name, err)
+	var le *os.LinkError
+	if errors.As(err, &le) {
+		return le.Err
+	}
+	return err
 }

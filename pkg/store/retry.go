@@ -3,6 +3,7 @@ package store
 import (
 	"context"
 	"errors"
+	"fmt"
 	"io/fs"
 	"math/rand/v2"
 	"time"
@@ -20,12 +21,16 @@ type RetryPolicy struct {
 // DefaultRetry rides out an object-store restart of up to a minute.
 var DefaultRetry = RetryPolicy{First: 100 * time.Millisecond, Max: 5 * time.Second, Budget: time.Minute}
 
-// Retrying is a Store that retries operations failing for reasons a retry
-// can cure (connection refused, timeouts, server errors). A missing key
-// (fs.ErrNotExist), an invalid key and a cancelled context are answers, not
-// faults: they are returned at once. Every retried operation is idempotent
-// (Put replaces the whole value), so a retry after a lost reply is
-// harmless.
+// Retrying is a Store that retries operations failing with a transient
+// error (connection refused, timeouts, server errors; see IsTransient). A
+// permanent error (see IsPermanent) is returned at once: a missing key, an
+// invalid key and a cancelled context are answers, not faults, and are
+// returned as they are; a refusal (access denied, wrong keys, a missing
+// bucket, a full or read-only disk) is reported once to OnError and
+// returned marked as not retried, since a minute of retries would only
+// delay the one line that says what to fix. Every retried operation is
+// idempotent (Put replaces the whole value), so a retry after a lost reply
+// is harmless.
 type Retrying struct {
 	Store
 	Policy RetryPolicy
@@ -60,7 +65,7 @@ func (r *Retrying) String() string {
 // Unwrap returns the wrapped store.
 func (r *Retrying) Unwrap() Store { return r.Store }
 
-// do runs op until it succeeds, gives an answer, or the budget is spent.
+// do runs op until it succeeds, fails permanently, or the budget is spent.
 // bad is the validation error of the key or prefix, if any.
 func (r *Retrying) do(ctx context.Context, name string, bad error, op func() error) error {
 	if bad != nil {
@@ -68,10 +73,16 @@ func (r *Retrying) do(ctx context.Context, name string, bad error, op func() err
 	}
 	start := time.Now()
 	delay := r.Policy.First
-	for {
+	for attempt := 1; ; attempt++ {
 		err := op()
-		if err == nil || errors.Is(err, fs.ErrNotExist) || ctx.Err() != nil {
+		if err == nil || ctx.Err() != nil || isAnswer(err) {
 			return err
+		}
+		if IsPermanent(err) {
+			if r.OnError != nil {
+				r.OnError(name, err, false)
+			}
+			return fmt.Errorf("%w (permanent; not retried)", err)
 		}
 		wait := time.Duration(float64(delay) * (0.75 + 0.5*rand.Float64()))
 		retrying := time.Since(start)+wait <= r.Policy.Budget
@@ -79,7 +90,7 @@ func (r *Retrying) do(ctx context.Context, name string, bad error, op func() err
 			r.OnError(name, err, retrying)
 		}
 		if !retrying {
-			return err
+			return fmt.Errorf("%w (gave up after %d attempts in %s)", err, attempt, time.Since(start).Round(time.Millisecond))
 		}
 		select {
 		case <-ctx.Done():
@@ -88,6 +99,13 @@ func (r *Retrying) do(ctx context.Context, name string, bad error, op func() err
 		}
 		delay = min(2*delay, r.Policy.Max)
 	}
+}
+
+// isAnswer reports whether err is the store's answer to a question (no
+// such key, no such valid key) or the caller's own cancellation: not a
+// fault of the store.
+func isAnswer(err error) bool {
+	return errors.Is(err, fs.ErrNotExist) || errors.Is(err, ErrKey) || errors.Is(err, context.Canceled)
 }
 
 // Get retries s.Get.

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"io/fs"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -15,13 +16,15 @@ import (
 type failures struct {
 	mu    sync.Mutex
 	ops   []string
+	errs  []error
 	final int // calls with retrying == false
 }
 
-func (f *failures) record(op string, _ error, retrying bool) {
+func (f *failures) record(op string, err error, retrying bool) {
 	f.mu.Lock()
 	defer f.mu.Unlock()
 	f.ops = append(f.ops, op)
+	f.errs = append(f.errs, err)
 	if !retrying {
 		f.final++
 	}
@@ -91,14 +94,24 @@ func TestRetryingRidesOutRestart(t *testing.T) {
 	if final != 0 {
 		t.Errorf("%d failures reported as final", final)
 	}
+	for _, err := range f.errs {
+		if !IsTransient(err) {
+			t.Errorf("stopped server classified permanent: %v", err)
+		}
+	}
 
 	// A server that stays down: the operation fails when the budget is spent.
 	m.Stop()
 	var g failures
 	short := WithRetry(s3, RetryPolicy{First: 10 * time.Millisecond, Max: 50 * time.Millisecond, Budget: 300 * time.Millisecond}, g.record)
-	if err := short.Put(ctx, "campaigns/c/x.json", []byte("x")); err == nil {
+	err = short.Put(ctx, "campaigns/c/x.json", []byte("x"))
+	if err == nil {
 		t.Fatal("Put to a stopped server succeeded")
 	}
+	if !IsTransient(err) || !strings.Contains(err.Error(), "gave up after") {
+		t.Errorf("stopped server: %v; want a transient error that says it gave up", err)
+	}
+	t.Logf("stopped server: %v", err)
 	// (minio-go retries inside one attempt too, so an attempt can outlast
 	// the whole budget.)
 	if n, final := g.count(); n < 1 || final != 1 {

@@ -74,12 +74,25 @@ type S3 struct {
 	bucket string
 	prefix string      // "" or ending with "/"
 	where  string      // "s3://bucket/prefix/" for messages; holds no credentials
+	host   string      // the endpoint, for messages
 	creds  Credentials // only to scrub them from client errors
 }
 
 // NewS3 connects to the object store, checks that the bucket exists (making
 // it when cfg.CreateBucket is set) and returns the store.
 func NewS3(ctx context.Context, cfg S3Config) (*S3, error) {
+	s, err := newS3Client(cfg)
+	if err != nil {
+		return nil, err
+	}
+	if err := s.checkBucket(ctx, cfg); err != nil {
+		return nil, err
+	}
+	return s, nil
+}
+
+// newS3Client makes the store's client without asking the server anything.
+func newS3Client(cfg S3Config) (*S3, error) {
 	if cfg.Bucket == "" {
 		return nil, errors.New("store: s3 store needs a bucket")
 	}
@@ -105,26 +118,32 @@ func NewS3(ctx context.Context, cfg S3Config) (*S3, error) {
 		Transport: cfg.Transport,
 	})
 	if err != nil {
-		return nil, fmt.Errorf("store: s3 endpoint %s: %s", cfg.Endpoint, creds.scrub(err.Error()))
+		return nil, fmt.Errorf("store: s3 endpoint %s: %w", cfg.Endpoint, creds.scrubErr(err))
 	}
-	s := &S3{client: client, bucket: cfg.Bucket, prefix: prefix, where: "s3://" + cfg.Bucket + "/" + prefix, creds: creds}
+	return &S3{client: client, bucket: cfg.Bucket, prefix: prefix, where: "s3://" + cfg.Bucket + "/" + prefix, host: cfg.Endpoint, creds: creds}, nil
+}
+
+// checkBucket checks that the bucket exists, making it when
+// cfg.CreateBucket is set.
+func (s *S3) checkBucket(ctx context.Context, cfg S3Config) error {
+	client, creds := s.client, s.creds
 	ok, err := bucketExists(ctx, client, cfg.Bucket)
 	if err != nil {
-		return nil, fmt.Errorf("store: s3 bucket %s at %s: %s", cfg.Bucket, cfg.Endpoint, creds.scrub(err.Error()))
+		return fmt.Errorf("store: s3 bucket %s at %s: %w", cfg.Bucket, s.host, creds.scrubErr(err))
 	}
 	if !ok {
 		if !cfg.CreateBucket {
-			return nil, fmt.Errorf("store: s3 bucket %s at %s does not exist (bucket creation disabled)", cfg.Bucket, cfg.Endpoint)
+			return fmt.Errorf("store: s3 bucket %s at %s does not exist (bucket creation disabled)", cfg.Bucket, s.host)
 		}
 		err := client.MakeBucket(ctx, cfg.Bucket, minio.MakeBucketOptions{Region: cfg.Region})
 		if err != nil {
 			// Another process may have made it in between.
 			if c := minio.ToErrorResponse(err).Code; c != "BucketAlreadyOwnedByYou" && c != "BucketAlreadyExists" {
-				return nil, fmt.Errorf("store: make s3 bucket %s at %s: %s", cfg.Bucket, cfg.Endpoint, creds.scrub(err.Error()))
+				return fmt.Errorf("store: make s3 bucket %s at %s: %w", cfg.Bucket, s.host, creds.scrubErr(err))
 			}
 		}
 	}
-	return s, nil
+	return nil
 }
 
 // bucketExists asks whether the bucket exists. A server that is up but
@@ -167,7 +186,7 @@ func (s *S3) err(op, key string, err error) error {
 	if isMissing(err) {
 		return notFound(op, s.where, key)
 	}
-	return fmt.Errorf("store: %s %s%s: %s", op, s.where, key, s.creds.scrub(err.Error()))
+	return fmt.Errorf("store: %s %s%s: %w", op, s.where, key, s.creds.scrubErr(err))
 }
 
 // Get downloads the object of key.
@@ -235,7 +254,7 @@ func (s *S3) List(ctx context.Context, prefix string) ([]string, error) {
 	var keys []string
 	for oi := range s.client.ListObjects(ctx, s.bucket, minio.ListObjectsOptions{Prefix: s.prefix + prefix, Recursive: true}) {
 		if oi.Err != nil {
-			return nil, fmt.Errorf("store: list %s%s: %s", s.where, prefix, s.creds.scrub(oi.Err.Error()))
+			return nil, fmt.Errorf("store: list %s%s: %w", s.where, prefix, s.creds.scrubErr(oi.Err))
 		}
 		if k, ok := strings.CutPrefix(oi.Key, s.prefix); ok && !strings.HasSuffix(k, "/") {
 			keys = append(keys, k)

@@ -10,7 +10,7 @@ import (
 type Store struct {
 	Errors  *prometheus.CounterVec // failed attempts, by operation
 	Retries *prometheus.CounterVec // attempts repeated after a failure, by operation
-	GaveUp  *prometheus.CounterVec // operations failed after the retry budget, by operation
+	GaveUp  *prometheus.CounterVec // operations failed for good (permanent error or budget spent), by operation
 }
 
 // StoreOps are the operation labels of the store metrics.
@@ -25,7 +25,7 @@ func NewStore(reg prometheus.Registerer) *Store {
 		Retries: f.NewCounterVec(prometheus.CounterOpts{Name: "sluice_store_retries_total",
 			Help: "Object-store operations attempted again after a failure, by operation."}, []string{"op"}),
 		GaveUp: f.NewCounterVec(prometheus.CounterOpts{Name: "sluice_store_gave_up_total",
-			Help: "Object-store operations that still failed when their retry budget ran out, by operation."}, []string{"op"}),
+			Help: "Object-store operations that failed for good (a permanent error, or still failing when the retry budget ran out), by operation."}, []string{"op"}),
 	}
 	for _, op := range StoreOps {
 		s.Errors.WithLabelValues(op)
