@@ -49,7 +49,7 @@ func StartNATS(t testing.TB, extra ...string) *NATS {
 func (n *NATS) launch(port int, extra []string) error {
 	portsDir, err := os.MkdirTemp(n.Dir, "ports-")
 	if err != nil {
-		return fmt.Errorf("testenv: %v", err)
+		return fmt.Errorf("testenv: %w", err)
 	}
 	defer os.RemoveAll(portsDir)
 	args := append([]string{

@@ -187,7 +187,7 @@ func (p *process) waitReady(ready func() bool) error {
 			return nil
 		}
 		if p.exited() {
-			return fmt.Errorf("testenv: %s exited before it was ready (%v); log:\n%s", p.name, p.err, tail(p.log.String()))
+			return fmt.Errorf("testenv: %s exited before it was ready (%w); log:\n%s", p.name, p.err, tail(p.log.String()))
 		}
 		if time.Now().After(deadline) {
 			p.kill()

@@ -211,7 +211,7 @@ func Parse(name string, data []byte) (Config, error) {
 	dec := yaml.NewDecoder(bytes.NewReader(data))
 	dec.KnownFields(true)
 	if err := dec.Decode(&c); err != nil && err.Error() != "EOF" {
-		return c, fmt.Errorf("campaign: %s: %v", name, oneLine(err))
+		return c, fmt.Errorf("campaign: %s: %w", name, oneLine(err))
 	}
 	if err := c.Validate(); err != nil {
 		return c, fmt.Errorf("%s: %w", name, err)
@@ -257,18 +257,29 @@ func Load(path string) (Config, error) {
 }
 
 // oneLine turns a (possibly multi-line) decoder error into one line; the
-// list of a yaml.TypeError becomes "line 3: …; line 7: …".
-func oneLine(err error) string {
+// list of a yaml.TypeError becomes "line 3: …; line 7: …". The result
+// still unwraps to err.
+func oneLine(err error) error {
 	var te *yaml.TypeError
 	if errors.As(err, &te) {
 		parts := make([]string, len(te.Errors))
 		for i, e := range te.Errors {
 			parts[i] = flatLine(e)
 		}
-		return strings.Join(parts, "; ")
+		return &lineError{strings.Join(parts, "; "), err}
 	}
-	return flatLine(err.Error())
+	return &lineError{flatLine(err.Error()), err}
 }
+
+// lineError is an error with its text put on one line; Unwrap returns
+// the original.
+type lineError struct {
+	msg string
+	err error
+}
+
+func (e *lineError) Error() string { return e.msg }
+func (e *lineError) Unwrap() error { return e.err }
 
 // flatLine writes line breaks inside s (from a quoted value, say) as "; "
 // and collapses runs of white space.

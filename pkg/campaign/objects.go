@@ -29,7 +29,7 @@ func GetJSON(ctx context.Context, st Getter, key string, v any) error {
 		return err
 	}
 	if err := json.Unmarshal(b, v); err != nil {
-		return fmt.Errorf("%s: %v", key, err)
+		return fmt.Errorf("%s: %w", key, err)
 	}
 	return nil
 }

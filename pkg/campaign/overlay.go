@@ -29,21 +29,21 @@ func (c Config) Set(assignments []string) (Config, error) {
 		}
 		var v any
 		if err := yaml.Unmarshal([]byte(val), &v); err != nil {
-			return c, fmt.Errorf("campaign: --set %q: value %q: %v", key, val, oneLine(err))
+			return c, fmt.Errorf("campaign: --set %q: value %q: %w", key, val, oneLine(err))
 		}
 		if err := put(doc, strings.Split(key, "."), v); err != nil {
-			return c, fmt.Errorf("campaign: --set %q: %v", key, err)
+			return c, fmt.Errorf("campaign: --set %q: %w", key, err)
 		}
 	}
 	b, err := yaml.Marshal(doc)
 	if err != nil {
-		return c, fmt.Errorf("campaign: --set: %v", err)
+		return c, fmt.Errorf("campaign: --set: %w", err)
 	}
 	out := c
 	dec := yaml.NewDecoder(bytes.NewReader(b))
 	dec.KnownFields(true)
 	if err := dec.Decode(&out); err != nil {
-		return c, fmt.Errorf("campaign: --set: %v", oneLine(err))
+		return c, fmt.Errorf("campaign: --set: %w", oneLine(err))
 	}
 	if err := out.Validate(); err != nil {
 		return c, fmt.Errorf("--set: %w", err)

@@ -85,7 +85,7 @@ func (f *Figure) WriteSVG(w io.Writer) error {
 	c := vgsvg.New(Width, Height)
 	f.draw(draw.New(c))
 	if _, err := c.WriteTo(w); err != nil {
-		return fmt.Errorf("plots: %s: write SVG: %v", f.Name, err)
+		return fmt.Errorf("plots: %s: write SVG: %w", f.Name, err)
 	}
 	return nil
 }
@@ -95,7 +95,7 @@ func (f *Figure) WritePNG(w io.Writer) error {
 	c := vgimg.NewWith(vgimg.UseWH(Width, Height), vgimg.UseDPI(DPI))
 	f.draw(draw.New(c))
 	if _, err := (vgimg.PngCanvas{Canvas: c}).WriteTo(w); err != nil {
-		return fmt.Errorf("plots: %s: write PNG: %v", f.Name, err)
+		return fmt.Errorf("plots: %s: write PNG: %w", f.Name, err)
 	}
 	return nil
 }
@@ -104,7 +104,7 @@ func (f *Figure) WritePNG(w io.Writer) error {
 // returns the paths written.
 func WriteFiles(dir string, rows []series.Row, evs []events.Event) ([]string, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
-		return nil, fmt.Errorf("plots: %v", err)
+		return nil, fmt.Errorf("plots: %w", err)
 	}
 	var paths []string
 	for _, f := range Build(rows, evs) {
@@ -122,7 +122,7 @@ func WriteFiles(dir string, rows []series.Row, evs []events.Event) ([]string, er
 func writeFile(p string, f *Figure, ext string) error {
 	out, err := os.Create(p)
 	if err != nil {
-		return fmt.Errorf("plots: %v", err)
+		return fmt.Errorf("plots: %w", err)
 	}
 	if ext == ".png" {
 		err = f.WritePNG(out)
@@ -130,7 +130,7 @@ func writeFile(p string, f *Figure, ext string) error {
 		err = f.WriteSVG(out)
 	}
 	if cerr := out.Close(); err == nil && cerr != nil {
-		err = fmt.Errorf("plots: %s: %v", p, cerr)
+		err = fmt.Errorf("plots: %s: %w", p, cerr)
 	}
 	return err
 }

@@ -208,7 +208,7 @@ func render(box volume.Box, at func(z, y, x int) float64, label func(z, y, x int
 		return nil, fmt.Errorf("preview: alpha %v, want 0…1", o.Alpha)
 	}
 	if err := o.Codes.Validate(); err != nil {
-		return nil, fmt.Errorf("preview: %v", err)
+		return nil, fmt.Errorf("preview: %w", err)
 	}
 	var pt [3]int
 	if o.Point != nil {
@@ -353,7 +353,7 @@ func WritePNG(w io.Writer, grey volume.Any, labels *volume.Labels, o Options) er
 		return err
 	}
 	if err := png.Encode(w, img); err != nil {
-		return fmt.Errorf("preview: encode PNG: %v", err)
+		return fmt.Errorf("preview: encode PNG: %w", err)
 	}
 	return nil
 }

@@ -48,7 +48,7 @@ func connectOptions(cfg Config) ([]nats.Option, string, string, error) {
 	if cfg.CredsFile != "" {
 		data, err := os.ReadFile(cfg.CredsFile)
 		if err != nil {
-			return nil, "", "", fmt.Errorf("queue: NATS credentials file %s: %v", cfg.CredsFile, pathErr(err))
+			return nil, "", "", fmt.Errorf("queue: NATS credentials file %s: %w", cfg.CredsFile, pathErr(err))
 		}
 		switch {
 		case bytes.Contains(data, []byte("BEGIN NATS USER JWT")):
@@ -74,7 +74,7 @@ func connectOptions(cfg Config) ([]nats.Option, string, string, error) {
 			continue
 		}
 		if _, err := os.Stat(f); err != nil {
-			return nil, "", "", fmt.Errorf("queue: NATS TLS file %s: %v", f, pathErr(err))
+			return nil, "", "", fmt.Errorf("queue: NATS TLS file %s: %w", f, pathErr(err))
 		}
 	}
 	if cfg.TLSCA != "" {
@@ -90,6 +90,22 @@ func connectOptions(cfg Config) ([]nats.Option, string, string, error) {
 }
 
 // redactURL drops user information from each URL of a NATS URL list.
+// connectSecrets lists what an error of the NATS client must not show:
+// the password, the token and the user info of each server URL.
+func connectSecrets(cfg Config) []string {
+	s := []string{cfg.Password, cfg.Token}
+	for _, u := range bytes.Split([]byte(cfg.URL), []byte(",")) {
+		if at := bytes.LastIndexByte(u, '@'); at >= 0 {
+			from := 0
+			if i := bytes.Index(u, []byte("://")); i >= 0 && i+3 <= at {
+				from = i + 3
+			}
+			s = append(s, string(u[from:at]))
+		}
+	}
+	return s
+}
+
 func redactURL(list string) string {
 	out := []byte(nil)
 	for i, u := range bytes.Split([]byte(list), []byte(",")) {

@@ -16,7 +16,8 @@ import (
 // consume runs a durable pull consumer on stream, decoding each message into
 // a fresh T and calling handler one message at a time, until ctx is
 // cancelled, with heartbeats while it runs. A nil error acks; an error naks with a growing delay (results
-// must never be lost, so there is no delivery limit); an undecodable
+// must never be lost, so there is no delivery limit); a Permanent error
+// naks the message and stops the consumer with that error; an undecodable
 // message is dead-lettered and terminated.
 func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, filter string, fresh func() T, handler func(context.Context, T) error) error {
 	cons, err := q.js.CreateOrUpdateConsumer(ctx, stream, jetstream.ConsumerConfig{
@@ -27,7 +28,7 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 		MaxDeliver:    -1,
 	})
 	if err != nil {
-		return fmt.Errorf("queue: consumer %s: %v", durable, err)
+		return fmt.Errorf("queue: consumer %s: %w", durable, err)
 	}
 	pause := pullBackoff{first: time.Second}
 	for ctx.Err() == nil {
@@ -62,6 +63,13 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 			stop := q.keepAlive(m, q.policy.AckWait/3, fmt.Sprintf("%s#%d", stream, seq))
 			err := handler(ctx, v)
 			stop()
+			if err != nil && IsPermanent(err) {
+				// No retry can help (the handler's store refuses it, say):
+				// hand the message back and stop, so the process exits
+				// with this one line.
+				_ = m.Nak()
+				return fmt.Errorf("queue: consumer %s stopped: %w", durable, err)
+			}
 			if err != nil {
 				q.log.Warn("queue: handler failed, will retry", "consumer", durable, "seq", seq, "attempt", n, "err", err)
 				_ = m.NakWithDelay(min(time.Duration(n)*time.Second, time.Minute))
@@ -104,7 +112,7 @@ func (q *Queue) Events(ctx context.Context, campaign string, replay bool, handle
 	}
 	cons, err := q.js.OrderedConsumer(ctx, StreamEvents, cfg)
 	if err != nil {
-		return fmt.Errorf("queue: events consumer: %v", err)
+		return fmt.Errorf("queue: events consumer: %w", err)
 	}
 	cc, err := cons.Consume(func(m jetstream.Msg) {
 		e := new(pb.StepEvent)
@@ -113,7 +121,7 @@ func (q *Queue) Events(ctx context.Context, campaign string, replay bool, handle
 		}
 	})
 	if err != nil {
-		return fmt.Errorf("queue: events consumer: %v", err)
+		return fmt.Errorf("queue: events consumer: %w", err)
 	}
 	<-ctx.Done()
 	cc.Drain()
@@ -135,30 +143,30 @@ func (q *Queue) DeadLetters(ctx context.Context, campaign string) ([]*pb.DeadLet
 func readAll[T proto.Message](ctx context.Context, q *Queue, stream, filter string, fresh func() T) ([]T, error) {
 	cons, err := q.js.OrderedConsumer(ctx, stream, jetstream.OrderedConsumerConfig{FilterSubjects: []string{filter}})
 	if err != nil {
-		return nil, fmt.Errorf("queue: read %s: %v", stream, err)
+		return nil, fmt.Errorf("queue: read %s: %w", stream, err)
 	}
 	info, err := cons.Info(ctx)
 	if err != nil {
-		return nil, fmt.Errorf("queue: read %s: %v", stream, err)
+		return nil, fmt.Errorf("queue: read %s: %w", stream, err)
 	}
 	pending := info.NumPending
 	var out []T
 	for uint64(len(out)) < pending {
 		b, err := cons.Fetch(int(min(pending-uint64(len(out)), 256)), jetstream.FetchMaxWait(5*time.Second))
 		if err != nil {
-			return nil, fmt.Errorf("queue: read %s: %v", stream, err)
+			return nil, fmt.Errorf("queue: read %s: %w", stream, err)
 		}
 		n := 0
 		for m := range b.Messages() {
 			n++
 			v := fresh()
 			if err := proto.Unmarshal(m.Data(), v); err != nil {
-				return nil, fmt.Errorf("queue: read %s seq: undecodable message on %s: %v", stream, m.Subject(), err)
+				return nil, fmt.Errorf("queue: read %s seq: undecodable message on %s: %w", stream, m.Subject(), err)
 			}
 			out = append(out, v)
 		}
 		if err := b.Error(); err != nil && n == 0 {
-			return nil, fmt.Errorf("queue: read %s: %v", stream, err)
+			return nil, fmt.Errorf("queue: read %s: %w", stream, err)
 		}
 		if n == 0 {
 			break
@@ -181,7 +189,7 @@ func (q *Queue) Lag(ctx context.Context) (Lag, error) {
 	var l Lag
 	si, err := q.tasks.Info(ctx, jetstream.WithSubjectFilter("sluice.task.>"))
 	if err != nil {
-		return Lag{}, fmt.Errorf("queue: stream %s: %v", StreamTasks, err)
+		return Lag{}, fmt.Errorf("queue: stream %s: %w", StreamTasks, err)
 	}
 	for subj, n := range si.State.Subjects {
 		if strings.HasPrefix(subj, subjectLive) {
@@ -192,11 +200,11 @@ func (q *Queue) Lag(ctx context.Context) (Lag, error) {
 	}
 	li, err := q.live.Info(ctx)
 	if err != nil {
-		return Lag{}, fmt.Errorf("queue: consumer %s: %v", ConsumerLive, err)
+		return Lag{}, fmt.Errorf("queue: consumer %s: %w", ConsumerLive, err)
 	}
 	bi, err := q.batch.Info(ctx)
 	if err != nil {
-		return Lag{}, fmt.Errorf("queue: consumer %s: %v", ConsumerBatch, err)
+		return Lag{}, fmt.Errorf("queue: consumer %s: %w", ConsumerBatch, err)
 	}
 	l.LiveInFlight, l.BatchInFlight = uint64(li.NumAckPending), uint64(bi.NumAckPending)
 	return l, nil
@@ -221,7 +229,7 @@ func (q *Queue) GetProgress(ctx context.Context, key string) ([]byte, uint64, er
 		return nil, 0, fmt.Errorf("queue: progress %s: %w", key, ErrNoProgress)
 	}
 	if err != nil {
-		return nil, 0, fmt.Errorf("queue: progress %s: %v", key, err)
+		return nil, 0, fmt.Errorf("queue: progress %s: %w", key, err)
 	}
 	return e.Value(), e.Revision(), nil
 }
@@ -230,7 +238,7 @@ func (q *Queue) GetProgress(ctx context.Context, key string) ([]byte, uint64, er
 func (q *Queue) PutProgress(ctx context.Context, key string, value []byte) (uint64, error) {
 	rev, err := q.kv.Put(ctx, key, value)
 	if err != nil {
-		return 0, fmt.Errorf("queue: progress %s: %v", key, err)
+		return 0, fmt.Errorf("queue: progress %s: %w", key, err)
 	}
 	return rev, nil
 }
@@ -250,7 +258,7 @@ func (q *Queue) UpdateProgress(ctx context.Context, key string, value []byte, re
 		return 0, fmt.Errorf("queue: progress %s at revision %d: %w", key, rev, ErrConflict)
 	}
 	if err != nil {
-		return 0, fmt.Errorf("queue: progress %s: %v", key, err)
+		return 0, fmt.Errorf("queue: progress %s: %w", key, err)
 	}
 	return n, nil
 }
@@ -263,7 +271,7 @@ func isWrongSequence(err error) bool {
 // DeleteProgress removes key.
 func (q *Queue) DeleteProgress(ctx context.Context, key string) error {
 	if err := q.kv.Delete(ctx, key); err != nil {
-		return fmt.Errorf("queue: progress %s: %v", key, err)
+		return fmt.Errorf("queue: progress %s: %w", key, err)
 	}
 	return nil
 }

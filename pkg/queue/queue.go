@@ -281,7 +281,7 @@ func Open(ctx context.Context, cfg Config) (*Queue, error) {
 	}
 	nc, err := nats.Connect(url, opts...)
 	if err != nil {
-		return nil, fmt.Errorf("queue: connect to %s: %v", where, oneLine(err))
+		return nil, fmt.Errorf("queue: connect to %s: %w", where, oneLine(err, connectSecrets(cfg)...))
 	}
 	q := &Queue{nc: nc, policy: pol, log: cfg.Logger}
 	if err := q.setup(ctx, cfg); err != nil {
@@ -294,7 +294,7 @@ func Open(ctx context.Context, cfg Config) (*Queue, error) {
 func (q *Queue) setup(ctx context.Context, cfg Config) error {
 	js, err := jetstream.New(q.nc)
 	if err != nil {
-		return fmt.Errorf("queue: jetstream: %v", err)
+		return fmt.Errorf("queue: jetstream: %w", err)
 	}
 	q.js = js
 	streams := []jetstream.StreamConfig{
@@ -311,7 +311,7 @@ func (q *Queue) setup(ctx context.Context, cfg Config) error {
 		sc.MaxMsgSize = MaxMessage
 		s, err := js.CreateOrUpdateStream(ctx, sc)
 		if err != nil {
-			return fmt.Errorf("queue: stream %s: %v", sc.Name, err)
+			return fmt.Errorf("queue: stream %s: %w", sc.Name, err)
 		}
 		if sc.Name == StreamTasks {
 			q.tasks = s
@@ -327,7 +327,7 @@ func (q *Queue) setup(ctx context.Context, cfg Config) error {
 		Replicas: cfg.Replicas,
 	})
 	if err != nil {
-		return fmt.Errorf("queue: key-value bucket %s: %v", ProgressBucket, err)
+		return fmt.Errorf("queue: key-value bucket %s: %w", ProgressBucket, err)
 	}
 	q.kv = kv
 	return nil
@@ -439,7 +439,7 @@ func (q *Queue) Close() error {
 	q.nc.SetClosedHandler(func(*nats.Conn) { close(closed) })
 	if err := q.nc.Drain(); err != nil {
 		q.nc.Close()
-		return fmt.Errorf("queue: drain: %v", err)
+		return fmt.Errorf("queue: drain: %w", err)
 	}
 	select {
 	case <-closed:
@@ -495,7 +495,7 @@ func (q *Queue) PublishTask(ctx context.Context, t *pb.TileTask) (duplicate bool
 func (q *Queue) publish(ctx context.Context, subject, id string, m proto.Message) (bool, error) {
 	data, err := proto.Marshal(m)
 	if err != nil {
-		return false, fmt.Errorf("queue: encode %s: %v", id, err)
+		return false, fmt.Errorf("queue: encode %s: %w", id, err)
 	}
 	if len(data) > MaxMessage {
 		return false, fmt.Errorf("queue: message %s is %d bytes, over the %d byte limit", id, len(data), MaxMessage)
@@ -506,7 +506,7 @@ func (q *Queue) publish(ctx context.Context, subject, id string, m proto.Message
 	}
 	ack, err := q.js.Publish(ctx, subject, data, opts...)
 	if err != nil {
-		return false, fmt.Errorf("queue: publish %s on %s: %v", id, subject, err)
+		return false, fmt.Errorf("queue: publish %s on %s: %w", id, subject, err)
 	}
 	return ack.Duplicate, nil
 }

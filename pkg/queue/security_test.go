@@ -3,6 +3,7 @@ package queue
 import (
 	"bufio"
 	"context"
+	"errors"
 	"net"
 	"os"
 	"path/filepath"
@@ -10,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nkeys"
 	"golang.org/x/crypto/bcrypt"
 
@@ -250,4 +252,39 @@ func TestRedactURL(t *testing.T) {
 			t.Errorf("redactURL(%q) = %q, want %q", in, got, want)
 		}
 	}
+}
+
+// A refused connection is reported without the credentials it used, yet
+// the NATS client's error stays in the chain: errors.Is finds
+// nats.ErrAuthorization (wrong password in the URL) and nats.ErrNoServers
+// (nothing listening), so a caller can tell a refusal from an outage.
+func TestConnectErrorScrubbedButUnwraps(t *testing.T) {
+	srv, err := StartServer(ServerConfig{StoreDir: t.TempDir(), Listen: "127.0.0.1:-1", Users: []User{{"alice", "pw-of-alice"}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(srv.Shutdown)
+	hostPort := strings.TrimPrefix(srv.ClientURL(), "nats://")
+	const inURL, inCfg = "wrong-pw-in-url-8731", "wrong-pw-in-config-5520"
+
+	err = mustRefuse(t, "wrong password in the URL", Config{URL: "nats://alice:" + inURL + "@" + hostPort})
+	if !errors.Is(err, nats.ErrAuthorization) || strings.Contains(err.Error(), inURL) {
+		t.Errorf("wrong password in the URL: %v; want nats.ErrAuthorization in the chain and no password", err)
+	}
+	err = mustRefuse(t, "wrong password in the config", Config{URL: srv.ClientURL(), User: "alice", Password: inCfg})
+	if !errors.Is(err, nats.ErrAuthorization) || strings.Contains(err.Error(), inCfg) {
+		t.Errorf("wrong password in the config: %v; want nats.ErrAuthorization in the chain and no password", err)
+	}
+
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	closed := ln.Addr().String()
+	ln.Close()
+	err = mustRefuse(t, "nothing listening", Config{URL: "nats://alice:" + inURL + "@" + closed})
+	if !errors.Is(err, nats.ErrNoServers) || strings.Contains(err.Error(), inURL) {
+		t.Errorf("nothing listening: %v; want nats.ErrNoServers in the chain and no password", err)
+	}
+	t.Logf("refusal: %v", err)
 }

@@ -101,7 +101,7 @@ func StartServer(cfg ServerConfig) (*Server, error) {
 	}
 	dir, err := filepath.Abs(cfg.StoreDir)
 	if err != nil {
-		return nil, fmt.Errorf("queue: store directory %s: %v", cfg.StoreDir, err)
+		return nil, fmt.Errorf("queue: store directory %s: %w", cfg.StoreDir, err)
 	}
 	if cfg.Name == "" {
 		cfg.Name = "sluice"
@@ -127,7 +127,7 @@ func StartServer(cfg ServerConfig) (*Server, error) {
 	} else {
 		host, port, err := net.SplitHostPort(cfg.Listen)
 		if err != nil {
-			return nil, fmt.Errorf("queue: listen address %q: %v", cfg.Listen, err)
+			return nil, fmt.Errorf("queue: listen address %q: %w", cfg.Listen, err)
 		}
 		p, err := strconv.Atoi(port)
 		if err != nil || p < -1 || p > 65535 {
@@ -143,7 +143,7 @@ func StartServer(cfg ServerConfig) (*Server, error) {
 	}
 	ns, err := server.NewServer(opts)
 	if err != nil {
-		return nil, fmt.Errorf("queue: embedded server: %v", oneLine(err))
+		return nil, fmt.Errorf("queue: embedded server: %w", oneLine(err))
 	}
 	if cfg.Log {
 		ns.ConfigureLogger()
@@ -189,7 +189,7 @@ func (s *Server) configureAuth(opts *server.Options) error {
 	}
 	b := make([]byte, 24)
 	if _, err := rand.Read(b); err != nil {
-		return fmt.Errorf("queue: in-process password: %v", err)
+		return fmt.Errorf("queue: in-process password: %w", err)
 	}
 	s.localUser, s.localPassword = inProcessUser, hex.EncodeToString(b)
 	opts.Users = append(opts.Users, &server.User{Username: s.localUser, Password: s.localPassword,
@@ -212,7 +212,7 @@ func configureTLS(opts *server.Options, cfg ServerConfig) error {
 		CertFile: cfg.TLSCert, KeyFile: cfg.TLSKey, CaFile: cfg.TLSClientCA, Verify: cfg.TLSClientCA != "",
 	})
 	if err != nil {
-		return fmt.Errorf("queue: embedded server TLS (%s, %s): %v", cfg.TLSCert, cfg.TLSKey, oneLine(err))
+		return fmt.Errorf("queue: embedded server TLS (%s, %s): %w", cfg.TLSCert, cfg.TLSKey, oneLine(err))
 	}
 	opts.TLSConfig, opts.TLS, opts.TLSTimeout = tc, true, 2
 	opts.TLSVerify = cfg.TLSClientCA != ""
@@ -258,7 +258,7 @@ func ParseUsers(name string, data []byte) ([]User, []string, error) {
 		}
 	}
 	if err := sc.Err(); err != nil {
-		return nil, nil, fmt.Errorf("queue: users file %s line %d: %v", name, line+1, err)
+		return nil, nil, fmt.Errorf("queue: users file %s line %d: %w", name, line+1, err)
 	}
 	if len(users)+len(keys) == 0 {
 		return nil, nil, fmt.Errorf("queue: users file %s lists no users", name)
@@ -270,7 +270,7 @@ func ParseUsers(name string, data []byte) ([]User, []string, error) {
 func LoadUsers(path string) ([]User, []string, error) {
 	data, err := os.ReadFile(path)
 	if err != nil {
-		return nil, nil, fmt.Errorf("queue: users file %s: %v", path, pathErr(err))
+		return nil, nil, fmt.Errorf("queue: users file %s: %w", path, pathErr(err))
 	}
 	return ParseUsers(path, data)
 }
@@ -293,7 +293,28 @@ func (s *Server) Shutdown() {
 	s.ns.WaitForShutdown()
 }
 
-func oneLine(err error) string { return strings.ReplaceAll(err.Error(), "\n", " ") }
+// scrubbedError is an error whose text is rewritten (on one line, secrets
+// hidden) while Unwrap still returns the original, so that callers can
+// classify it with errors.Is/As.
+type scrubbedError struct {
+	msg string
+	err error
+}
+
+func (e *scrubbedError) Error() string { return e.msg }
+func (e *scrubbedError) Unwrap() error { return e.err }
+
+// oneLine returns err with its text on one line and every non-empty secret
+// replaced by "[redacted]".
+func oneLine(err error, secrets ...string) error {
+	msg := strings.ReplaceAll(err.Error(), "\n", " ")
+	for _, s := range secrets {
+		if s != "" {
+			msg = strings.ReplaceAll(msg, s, "[redacted]")
+		}
+	}
+	return &scrubbedError{msg: msg, err: err}
+}
 
 // pathErr drops the path an *os.PathError repeats.
 func pathErr(err error) error {

@@ -127,7 +127,7 @@ func (q *Queue) workLoop(ctx, hctx context.Context, handler Handler, opts WorkOp
 		m, err := q.next(opts.IdleWait)
 		if err != nil {
 			if q.nc.IsClosed() {
-				return fmt.Errorf("queue: connection closed: %v", err)
+				return fmt.Errorf("queue: connection closed: %w", err)
 			}
 			d := pause.next()
 			q.log.Warn("queue: pull failed; retrying", "err", err, "in", d, "connected", q.nc.IsConnected())
@@ -304,7 +304,7 @@ func (q *Queue) RecordMaxDeliveries(who string) (stop func(), err error) {
 		q.onMaxDeliveries(m.Data, who)
 	})
 	if err != nil {
-		return nil, fmt.Errorf("queue: subscribe to max-deliveries advisories: %v", err)
+		return nil, fmt.Errorf("queue: subscribe to max-deliveries advisories: %w", err)
 	}
 	return func() { _ = sub.Unsubscribe() }, nil
 }

@@ -162,7 +162,7 @@ func Write(w io.Writer, in Input) error {
 	for _, f := range plots.Build(rows, in.Events) {
 		var buf bytes.Buffer
 		if err := f.WriteSVG(&buf); err != nil {
-			return fmt.Errorf("report: %v", err)
+			return fmt.Errorf("report: %w", err)
 		}
 		svg := xmlComment.ReplaceAll(xmlProlog.ReplaceAll(buf.Bytes(), nil), nil)
 		fg := figure{ID: "fig-" + f.Name, Title: f.Title,
@@ -177,7 +177,7 @@ func Write(w io.Writer, in Input) error {
 		}
 	}
 	if err := tmpl.Execute(w, pg); err != nil {
-		return fmt.Errorf("report: %v", err)
+		return fmt.Errorf("report: %w", err)
 	}
 	return nil
 }

@@ -138,7 +138,7 @@ func (r Row) MarshalJSON() ([]byte, error) {
 		kb, _ := json.Marshal(k)
 		var v bytes.Buffer
 		if err := json.Compact(&v, r.Extra[k]); err != nil {
-			return nil, fmt.Errorf("series: step %q: key %q holds invalid JSON: %v", r.Step, k, err)
+			return nil, fmt.Errorf("series: step %q: key %q holds invalid JSON: %w", r.Step, k, err)
 		}
 		buf.WriteByte(',')
 		buf.Write(kb)
@@ -169,7 +169,7 @@ func (r *Row) checkFinite() error {
 func FromResult(step string, timeS float64, result []byte) (Row, error) {
 	var r Row
 	if err := json.Unmarshal(result, &r); err != nil {
-		return Row{}, fmt.Errorf("series: step %q: result is not a JSON object: %v", step, err)
+		return Row{}, fmt.Errorf("series: step %q: result is not a JSON object: %w", step, err)
 	}
 	r.Step, r.Time = step, timeS
 	if err := r.Validate(); err != nil {

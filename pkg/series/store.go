@@ -38,11 +38,11 @@ func Decode(b []byte) ([]Row, error) {
 	}
 	var rows []Row
 	if err := json.Unmarshal(b, &rows); err != nil {
-		return nil, fmt.Errorf("series: series.json: %v", err)
+		return nil, fmt.Errorf("series: series.json: %w", err)
 	}
 	for i := range rows {
 		if err := rows[i].Validate(); err != nil {
-			return nil, fmt.Errorf("series: series.json row %d: %v", i, strings.TrimPrefix(err.Error(), "series: "))
+			return nil, fmt.Errorf("series: series.json row %d: %w", i, unprefixed(err))
 		}
 	}
 	return rows, nil
@@ -56,7 +56,7 @@ func EncodeJSON(rows []Row) ([]byte, error) {
 	}
 	b, err := json.MarshalIndent(rows, "", " ")
 	if err != nil {
-		return nil, fmt.Errorf("series: encode series.json: %v", err)
+		return nil, fmt.Errorf("series: encode series.json: %w", err)
 	}
 	return append(b, '\n'), nil
 }
@@ -102,7 +102,7 @@ func Load(ctx context.Context, s Store, campaign string) ([]Row, error) {
 	}
 	rows, err := Decode(b)
 	if err != nil {
-		return nil, fmt.Errorf("series: %s: %v", jk, strings.TrimPrefix(err.Error(), "series: "))
+		return nil, fmt.Errorf("series: %s: %w", jk, unprefixed(err))
 	}
 	return rows, nil
 }
@@ -210,3 +210,17 @@ func (d Dir) path(key string) (string, error) {
 	}
 	return filepath.Join(string(d), filepath.FromSlash(key)), nil
 }
+
+// unprefixed returns err without the "series: " its text starts with (the
+// caller adds its own), still unwrapping to err.
+func unprefixed(err error) error {
+	return &prefixError{strings.TrimPrefix(err.Error(), "series: "), err}
+}
+
+type prefixError struct {
+	msg string
+	err error
+}
+
+func (e *prefixError) Error() string { return e.msg }
+func (e *prefixError) Unwrap() error { return e.err }

@@ -285,14 +285,14 @@ func decodeTIFF(r io.ReaderAt, size int64, t tiffInfo, v volume.Any, z int) erro
 	// it allocates.
 	cfg, err := xtiff.DecodeConfig(io.NewSectionReader(r, 0, size))
 	if err != nil {
-		return fmt.Errorf("%w: %v", ErrFormat, err)
+		return fmt.Errorf("%w: %w", ErrFormat, err)
 	}
 	if cfg.Width != t.width || cfg.Height != t.height {
 		return fmt.Errorf("%w: image is %d×%d or %d×%d", ErrFormat, t.width, t.height, cfg.Width, cfg.Height)
 	}
 	img, err := xtiff.Decode(io.NewSectionReader(r, 0, size))
 	if err != nil {
-		return fmt.Errorf("%w: %v", ErrFormat, err)
+		return fmt.Errorf("%w: %w", ErrFormat, err)
 	}
 	b := img.Bounds()
 	if b.Dx() != t.width || b.Dy() != t.height {
@@ -347,17 +347,17 @@ func decodeStrips(r io.ReaderAt, t tiffInfo, v volume.Any, z int) error {
 				return fmt.Errorf("%w: strip %d has %d bytes, want %d", ErrTruncated, k, t.stripCounts[k], want)
 			}
 			if _, err := io.ReadFull(sr, buf); err != nil {
-				return fmt.Errorf("%w: strip %d: %v", ErrTruncated, k, err)
+				return fmt.Errorf("%w: strip %d: %w", ErrTruncated, k, err)
 			}
 		} else {
 			zr, err := zlib.NewReader(sr)
 			if err != nil {
-				return fmt.Errorf("%w: strip %d: %v", ErrFormat, k, err)
+				return fmt.Errorf("%w: strip %d: %w", ErrFormat, k, err)
 			}
 			_, err = io.ReadFull(zr, buf)
 			zr.Close()
 			if err != nil {
-				return fmt.Errorf("%w: strip %d inflates to fewer than %d bytes: %v", ErrTruncated, k, want, err)
+				return fmt.Errorf("%w: strip %d inflates to fewer than %d bytes: %w", ErrTruncated, k, want, err)
 			}
 		}
 		if t.predictor == 2 {
@@ -405,7 +405,7 @@ func invert(v volume.Any, off, n int) {
 // (SampleFormat 3).
 func EncodeTIFF(w io.Writer, v volume.Any, z int) error {
 	if err := checkVolume(v); err != nil {
-		return fmt.Errorf("volio: %v", err)
+		return fmt.Errorf("volio: %w", err)
 	}
 	b := v.Bounds()
 	if z < b.Min[0] || z >= b.Max[0] {

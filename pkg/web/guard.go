@@ -82,7 +82,7 @@ func isLoopback(host string) bool {
 func CheckBind(addr, token string) error {
 	host, _, err := net.SplitHostPort(addr)
 	if err != nil {
-		return fmt.Errorf("web: listen address %q: %v", addr, err)
+		return fmt.Errorf("web: listen address %q: %w", addr, err)
 	}
 	if !isLoopback(host) && token == "" {
 		return fmt.Errorf("web: refusing to serve HTTP on %s without a bearer token (give --http-token-file or SLUICE_HTTP_TOKEN, or listen on 127.0.0.1)", addr)
@@ -102,7 +102,7 @@ func Serve(ctx context.Context, cfg ServeConfig, h http.Handler) (string, error)
 	}
 	ln, err := net.Listen("tcp", cfg.Addr)
 	if err != nil {
-		return "", fmt.Errorf("web: %v", err)
+		return "", fmt.Errorf("web: %w", err)
 	}
 	srv := &http.Server{
 		Handler:           Guard(h, cfg.Token),

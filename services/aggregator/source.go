@@ -22,7 +22,7 @@ import (
 // The Aggregator is the web view's data source.
 var _ web.Source = (*Aggregator)(nil)
 
-func badName(err error) error { return fmt.Errorf("%w: %v", web.ErrBadRequest, err) }
+func badName(err error) error { return fmt.Errorf("%w: %w", web.ErrBadRequest, err) }
 
 // Campaigns lists the campaigns the aggregator knows.
 func (a *Aggregator) Campaigns(ctx context.Context) ([]web.CampaignInfo, error) {

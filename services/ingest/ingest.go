@@ -82,7 +82,7 @@ func EnsureCampaign(ctx context.Context, st Store, name string, cfg campaign.Con
 	if err == nil {
 		var r campaign.Record
 		if err := json.Unmarshal(b, &r); err != nil {
-			return r, fmt.Errorf("ingest: %s: %v", c.Config(), err)
+			return r, fmt.Errorf("ingest: %s: %w", c.Config(), err)
 		}
 		if r.Current != cfg.Hash() {
 			return r, fmt.Errorf("ingest: campaign %s exists with parameter hash %s, not %s (use the same config, or reprocess)", name, r.Current, cfg.Hash())
@@ -136,7 +136,7 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 	resumed := false
 	if b, err := in.Store.Get(ctx, step.Manifest()); err == nil {
 		if err := json.Unmarshal(b, &man); err != nil {
-			return nil, fmt.Errorf("ingest: %s: %v", step.Manifest(), err)
+			return nil, fmt.Errorf("ingest: %s: %w", step.Manifest(), err)
 		}
 		if man.Source != req.Path {
 			return nil, fmt.Errorf("ingest: %s: step %s of campaign %s already holds %s; give this scan another step name", req.Path, step.Name(), step.Campaign().Name(), man.Source)

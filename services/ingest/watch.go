@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"sluice/pkg/layout"
+	"sluice/pkg/store"
 	"sluice/pkg/volio"
 )
 
@@ -79,7 +80,8 @@ type sizeSeen struct {
 // Run calls found for every complete scan, in name order within a poll,
 // until ctx ends. An error from found is logged and the scan offered again
 // up to Attempts times with a doubling delay, then given up (bad input must
-// not stop the campaign).
+// not stop the campaign). A store refusal (store.IsRefused) ends Run with
+// that error at once.
 func (w *Watcher) Run(ctx context.Context, found func(Arrival) error) error {
 	if w.Poll <= 0 {
 		w.Poll = time.Second
@@ -96,6 +98,13 @@ func (w *Watcher) Run(ctx context.Context, found func(Arrival) error) error {
 		}
 		for _, a := range arr {
 			if err := found(a); err != nil {
+				if store.IsRefused(err) {
+					// The store refuses ingest itself (wrong keys, a full or
+					// read-only disk): every scan would fail alike, and giving
+					// them up one by one would lose them. Stop with the cause;
+					// a restarted watcher offers them again.
+					return fmt.Errorf("ingest: %s: %w", a.Path, err)
+				}
 				w.retry(a, err)
 			}
 		}

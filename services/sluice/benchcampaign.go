@@ -588,7 +588,7 @@ func scrapeStageSums(url, metric string) (map[string][2]float64, error) {
 			stage, _, _ = strings.Cut(stage, `"`)
 			v, err := strconv.ParseFloat(strings.TrimSpace(value), 64)
 			if err != nil {
-				return nil, fmt.Errorf("%s: %q: %v", url, l, err)
+				return nil, fmt.Errorf("%s: %q: %w", url, l, err)
 			}
 			e := out[stage]
 			e[k] = v

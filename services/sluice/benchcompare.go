@@ -214,7 +214,7 @@ func runBenchCompare(args []string) int {
 	if prof != nil {
 		pprof.StopCPUProfile()
 		if cerr := prof.Close(); cerr != nil && err == nil {
-			err = fmt.Errorf("%s: %v", *cpuProfile, cerr)
+			err = fmt.Errorf("%s: %w", *cpuProfile, cerr)
 		}
 	}
 	if err != nil {
@@ -461,15 +461,15 @@ func runReferenceChain(python string, args []string) (referenceRun, error) {
 		}
 		var ee *exec.ExitError
 		if !errors.As(err, &ee) {
-			return ref, fmt.Errorf("reference interpreter %s: %v", python, err)
+			return ref, fmt.Errorf("reference interpreter %s: %w", python, err)
 		}
 		if msg == "" {
-			return ref, fmt.Errorf("reference script %s: %v", args[0], err)
+			return ref, fmt.Errorf("reference script %s: %w", args[0], err)
 		}
-		return ref, fmt.Errorf("reference script %s: %v: %s", args[0], err, msg)
+		return ref, fmt.Errorf("reference script %s: %w: %s", args[0], err, msg)
 	}
 	if err := json.Unmarshal(out.Bytes(), &ref); err != nil {
-		return ref, fmt.Errorf("reference script %s: bad JSON output: %v", args[0], err)
+		return ref, fmt.Errorf("reference script %s: bad JSON output: %w", args[0], err)
 	}
 	for _, st := range compareStages {
 		if f, ok := ref.Stages[st.key]; !ok || !(f.Seconds > 0) {

@@ -183,7 +183,7 @@ func printCompare(w io.Writer, name, ha, hb string, both []stepDiff, onlyA, only
 // one figure, as dir/<quantity>.png and .svg, and returns the paths.
 func writeComparePlots(dir, ha, hb string, a, b []series.Row) ([]string, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
-		return nil, fmt.Errorf("compare: %v", err)
+		return nil, fmt.Errorf("compare: %w", err)
 	}
 	var paths []string
 	for _, q := range compared {
@@ -212,7 +212,7 @@ func writeComparePlots(dir, ha, hb string, a, b []series.Row) ([]string, error) 
 			col := []color.NRGBA{plots.Palette.Ink, plots.Palette.Amber}[i]
 			l, err := plotter.NewLine(pts)
 			if err != nil {
-				return paths, fmt.Errorf("compare: %s: %v", q.name, err)
+				return paths, fmt.Errorf("compare: %s: %w", q.name, err)
 			}
 			l.Color, l.Width = col, vg.Points(1.5)
 			if i == 1 {
@@ -226,7 +226,7 @@ func writeComparePlots(dir, ha, hb string, a, b []series.Row) ([]string, error) 
 		for _, ext := range []string{".png", ".svg"} {
 			path := filepath.Join(dir, q.name+ext)
 			if err := p.Save(plots.Width, plots.Height, path); err != nil {
-				return paths, fmt.Errorf("compare: %s: %v", path, err)
+				return paths, fmt.Errorf("compare: %s: %w", path, err)
 			}
 			paths = append(paths, path)
 		}

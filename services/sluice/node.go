@@ -90,7 +90,7 @@ func secret(flagName, file, env string) (string, error) {
 		if errors.As(err, &pe) {
 			err = pe.Err
 		}
-		return "", fmt.Errorf("--%s %s: %v", flagName, file, err)
+		return "", fmt.Errorf("--%s %s: %w", flagName, file, err)
 	}
 	v := strings.TrimRight(string(b), "\r\n\t ")
 	if v == "" {
@@ -216,7 +216,7 @@ func (f *nodeFlags) checkHTTP() error {
 	}
 	hc, err := f.httpServe()
 	if err != nil {
-		return fmt.Errorf("http: %v", err)
+		return fmt.Errorf("http: %w", err)
 	}
 	return web.CheckBind(hc.Addr, hc.Token)
 }
@@ -254,7 +254,7 @@ func serveHTTP(ctx context.Context, nf nodeFlags, mux *http.ServeMux, reg *prome
 	}
 	hc, err := nf.httpServe()
 	if err != nil {
-		return "", fmt.Errorf("http: %v", err)
+		return "", fmt.Errorf("http: %w", err)
 	}
 	if mux == nil {
 		mux = http.NewServeMux()
@@ -271,7 +271,7 @@ func serveHTTP(ctx context.Context, nf nodeFlags, mux *http.ServeMux, reg *prome
 	hc.Log = log
 	addr, err := web.Serve(ctx, hc, mux)
 	if err != nil {
-		return "", fmt.Errorf("http: %v", err)
+		return "", fmt.Errorf("http: %w", err)
 	}
 	return addr, nil
 }
@@ -285,9 +285,16 @@ func (p taskPublisher) PublishTask(ctx context.Context, t *sluicepb.TileTask) er
 }
 
 // runWorkers pulls tile tasks until ctx ends, then drains.
+//
+// A store that refuses this worker (store.IsRefused: wrong keys, a full or
+// read-only disk) would fail every tile here, so the worker stops taking
+// tiles, hands the tile back (nacked with delay, for a worker that can) and
+// returns that error: the process exits with one line saying what to fix.
 func runWorkers(ctx context.Context, q *queue.Queue, st store.Store, m *telemetry.Worker, id string, concurrency int, log *slog.Logger) error {
+	ctx, refused := context.WithCancelCause(ctx)
+	defer refused(nil)
 	w := &worker.Worker{Store: st, ID: id, Metrics: m, Log: log}
-	return q.Work(ctx, func(ctx context.Context, t *sluicepb.TileTask) error {
+	err := q.Work(ctx, func(ctx context.Context, t *sluicepb.TileTask) error {
 		if t.Attempt > 1 {
 			m.TilesRedelivered.Inc()
 		}
@@ -299,8 +306,11 @@ func runWorkers(ctx context.Context, q *queue.Queue, st store.Store, m *telemetr
 		if err != nil {
 			m.TilesFailed.WithLabelValues("process").Inc()
 			log.Warn("tile failed", "campaign", t.Campaign, "step", t.Step, "tile", t.Tile, "attempt", t.Attempt, "err", err)
-			if t.Attempt >= uint32(q.Policy().MaxDeliver) {
+			if t.Attempt >= uint32(q.Policy().MaxDeliver) || queue.IsPermanent(err) {
 				m.TilesDeadLetter.Inc()
+			}
+			if store.IsRefused(err) {
+				refused(err)
 			}
 			return err
 		}
@@ -311,6 +321,10 @@ func runWorkers(ctx context.Context, q *queue.Queue, st store.Store, m *telemetr
 		m.TilesProcessed.WithLabelValues(prio).Inc()
 		return nil
 	}, queue.WorkOptions{Concurrency: concurrency, WorkerID: id})
+	if cause := context.Cause(ctx); err == nil && store.IsRefused(cause) {
+		return fmt.Errorf("worker %s stopped: the object store refuses it: %w", id, cause)
+	}
+	return err
 }
 
 // publishResult publishes a finished tile's result, retrying with a
@@ -348,8 +362,8 @@ func runAggregator(ctx context.Context, q *queue.Queue, a *aggregator.Aggregator
 	}
 	defer stopDead()
 	errc := make(chan error, 3)
-	go func() { errc <- q.StepsReady(ctx, a.StepReady) }()
-	go func() { errc <- q.Results(ctx, a.TileDone) }()
+	go func() { errc <- q.StepsReady(ctx, aggregator.StopOnRefusal(a.StepReady)) }()
+	go func() { errc <- q.Results(ctx, aggregator.StopOnRefusal(a.TileDone)) }()
 	go func() {
 		t := time.NewTicker(2 * time.Second)
 		defer t.Stop()

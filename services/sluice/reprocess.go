@@ -179,7 +179,7 @@ func (sel stepSelection) has(name string) bool {
 func archiveVolumes(dir string) ([]ingest.Request, error) {
 	ents, err := os.ReadDir(dir)
 	if err != nil {
-		return nil, fmt.Errorf("--from %s: %v", dir, err)
+		return nil, fmt.Errorf("--from %s: %w", dir, err)
 	}
 	var out []ingest.Request
 	for _, e := range ents {

@@ -104,7 +104,22 @@ func (w *Worker) load(ctx context.Context, st Store, step layout.Step, hash stri
 
 // Process runs one task. The returned TileDone is to be published; the
 // caller acknowledges the task after publishing it.
+//
+// A missing input (manifest, plan, grey or mask chunk) is permanent: ingest
+// and reprocess store every one of them before they publish a task, so no
+// redelivery will find it; the error is marked queue.Permanent and the tile
+// dead-lettered at once. A store that refuses the worker (store.IsRefused:
+// wrong keys, a full or read-only disk) is not the tile's fault: that error
+// is returned unmarked, and the caller should stop taking tiles.
 func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.TileDone, error) {
+	done, err := w.process(ctx, t)
+	if err != nil && ctx.Err() == nil && errors.Is(err, fs.ErrNotExist) && !queue.IsPermanent(err) {
+		err = queue.Permanent(err)
+	}
+	return done, err
+}
+
+func (w *Worker) process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.TileDone, error) {
 	if w.Metrics != nil {
 		w.Metrics.Busy.Inc()
 		defer w.Metrics.Busy.Dec()
