@@ -272,7 +272,7 @@ func (s *S3) Dirs(ctx context.Context, prefix string) ([]string, error) {
 	var out []string
 	for oi := range s.client.ListObjects(ctx, s.bucket, minio.ListObjectsOptions{Prefix: s.prefix + prefix, Recursive: false}) {
 		if oi.Err != nil {
-			return nil, fmt.Errorf("store: list directories %s%s: %s", s.where, prefix, s.creds.scrub(oi.Err.Error()))
+			return nil, fmt.Errorf("store: list directories %s%s: %w", s.where, prefix, s.creds.scrubErr(oi.Err))
 		}
 		if rest, ok := strings.CutPrefix(oi.Key, s.prefix+prefix); ok {
 			if name, ok := strings.CutSuffix(rest, "/"); ok && name != "" && !strings.Contains(name, "/") {
