@@ -55,14 +55,40 @@ func IsPermanent(err error) bool {
 	return false
 }
 
-// IsRefused reports whether err is a permanent error that is not an
-// answer: the store refuses work of this kind until someone changes
-// something (access denied, wrong keys, a missing bucket, a full, over-quota
-// or read-only file system). A missing key, an invalid key and a cancelled
-// context are not refusals. A service meeting a refusal stops with that one
-// line rather than blaming the task at hand, which another process may yet
-// complete.
-func IsRefused(err error) bool { return IsPermanent(err) && !isAnswer(err) }
+// IsRefused reports whether err is the store refusing work of every kind
+// until someone changes something: access denied or wrong keys (S3 401/403,
+// EACCES, EPERM), a missing bucket, a full, over-quota or read-only file
+// system (507, ENOSPC, EDQUOT, EROFS). Every refusal is permanent. Other
+// permanent errors (a missing or invalid key, a name too long, a value too
+// large) concern one object, not the store. A service meeting a refusal
+// stops with that one line rather than blaming the task at hand, which
+// another process may yet complete.
+func IsRefused(err error) bool {
+	if err == nil {
+		return false
+	}
+	var r minio.ErrorResponse
+	if errors.As(err, &r) {
+		switch r.Code {
+		case "AccessDenied", "InvalidAccessKeyId", "SignatureDoesNotMatch", "NoSuchBucket",
+			"AllAccessDisabled", "AccountProblem", "XMinioStorageFull":
+			return true
+		}
+		return r.StatusCode == http.StatusUnauthorized || r.StatusCode == http.StatusForbidden ||
+			r.StatusCode == http.StatusInsufficientStorage
+	}
+	if errors.Is(err, fs.ErrPermission) {
+		return true
+	}
+	var errno syscall.Errno
+	if errors.As(err, &errno) {
+		switch errno {
+		case syscall.ENOSPC, syscall.EDQUOT, syscall.EROFS:
+			return true
+		}
+	}
+	return false
+}
 
 // IsTransient reports whether err is a store error that a retry may cure:
 // every non-nil error that is not permanent.

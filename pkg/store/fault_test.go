@@ -96,20 +96,21 @@ func TestClassifySystemErrors(t *testing.T) {
 	cancel()
 
 	for _, c := range []struct {
-		name      string
-		err       error
-		permanent bool
+		name               string
+		err                error
+		permanent, refused bool
 	}{
-		{"ENOSPC from /dev/full", l.osErr("put", "/data/x", werr), true},
-		{"EROFS", l.osErr("put", "/data/x", &fs.PathError{Op: "open", Path: "/data/x", Err: syscall.EROFS}), true},
-		{"EDQUOT", l.osErr("put", "/data/x", &fs.PathError{Op: "write", Path: "/data/x", Err: syscall.EDQUOT}), true},
-		{"EPERM", l.osErr("put", "/data/x", &os.LinkError{Op: "rename", Old: "a", New: "b", Err: syscall.EPERM}), true},
-		{"missing key", notFound("get", "file:///data/", "k"), true},
-		{"invalid key", CheckKey("../k"), true},
-		{"cancelled", fmt.Errorf("store: get k: %w", ctx.Err()), true},
-		{"connection refused", fmt.Errorf("store: get k: %w", &url.Error{Op: "Get", URL: "http://" + addr, Err: refused}), false},
-		{"timeout", fmt.Errorf("store: get k: %w", timeout), false},
-		{"unknown", errors.New("store: get k: something odd"), false},
+		{"ENOSPC from /dev/full", l.osErr("put", "/data/x", werr), true, true},
+		{"EROFS", l.osErr("put", "/data/x", &fs.PathError{Op: "open", Path: "/data/x", Err: syscall.EROFS}), true, true},
+		{"EDQUOT", l.osErr("put", "/data/x", &fs.PathError{Op: "write", Path: "/data/x", Err: syscall.EDQUOT}), true, true},
+		{"EPERM", l.osErr("put", "/data/x", &os.LinkError{Op: "rename", Old: "a", New: "b", Err: syscall.EPERM}), true, true},
+		{"ENOTDIR", l.osErr("put", "/data/x/y", &fs.PathError{Op: "mkdir", Path: "/data/x", Err: syscall.ENOTDIR}), true, false},
+		{"missing key", notFound("get", "file:///data/", "k"), true, false},
+		{"invalid key", CheckKey("../k"), true, false},
+		{"cancelled", fmt.Errorf("store: get k: %w", ctx.Err()), true, false},
+		{"connection refused", fmt.Errorf("store: get k: %w", &url.Error{Op: "Get", URL: "http://" + addr, Err: refused}), false, false},
+		{"timeout", fmt.Errorf("store: get k: %w", timeout), false, false},
+		{"unknown", errors.New("store: get k: something odd"), false, false},
 	} {
 		if got := IsPermanent(c.err); got != c.permanent {
 			t.Errorf("%s: IsPermanent(%v) = %v, want %v", c.name, c.err, got, c.permanent)
@@ -117,9 +118,8 @@ func TestClassifySystemErrors(t *testing.T) {
 		if got := IsTransient(c.err); got == c.permanent {
 			t.Errorf("%s: IsTransient(%v) = %v, want %v", c.name, c.err, got, !c.permanent)
 		}
-		answer := c.name == "missing key" || c.name == "invalid key" || c.name == "cancelled"
-		if got := IsRefused(c.err); got != (c.permanent && !answer) {
-			t.Errorf("%s: IsRefused(%v) = %v, want %v", c.name, c.err, got, c.permanent && !answer)
+		if got := IsRefused(c.err); got != c.refused {
+			t.Errorf("%s: IsRefused(%v) = %v, want %v", c.name, c.err, got, c.refused)
 		}
 	}
 	if IsPermanent(nil) || IsTransient(nil) {
@@ -133,27 +133,30 @@ func TestClassifySystemErrors(t *testing.T) {
 func TestClassifyS3Replies(t *testing.T) {
 	s := &S3{where: "s3://b/", creds: Credentials{AccessKey: "AKIAEXAMPLE", SecretKey: "secret-example"}}
 	for _, c := range []struct {
-		code      string
-		status    int
-		permanent bool
+		code               string
+		status             int
+		permanent, refused bool
 	}{
-		{"AccessDenied", 403, true},
-		{"InvalidAccessKeyId", 403, true},
-		{"SignatureDoesNotMatch", 403, true},
-		{"NoSuchBucket", 404, true},
-		{"XMinioStorageFull", 507, true},
-		{"EntityTooLarge", 400, true},
-		{"InternalError", 500, false},
-		{"SlowDown", 503, false},
-		{"XMinioServerNotInitialized", 503, false},
-		{"ServiceUnavailable", 503, false},
-		{"RequestTimeout", 400, false},
-		{"", 502, false},
-		{"", 429, false},
+		{"AccessDenied", 403, true, true},
+		{"InvalidAccessKeyId", 403, true, true},
+		{"SignatureDoesNotMatch", 403, true, true},
+		{"NoSuchBucket", 404, true, true},
+		{"XMinioStorageFull", 507, true, true},
+		{"EntityTooLarge", 400, true, false},
+		{"InternalError", 500, false, false},
+		{"SlowDown", 503, false, false},
+		{"XMinioServerNotInitialized", 503, false, false},
+		{"ServiceUnavailable", 503, false, false},
+		{"RequestTimeout", 400, false, false},
+		{"", 502, false, false},
+		{"", 429, false, false},
 	} {
 		err := s.err("put", "k", minio.ErrorResponse{Code: c.code, StatusCode: c.status, Message: c.code})
 		if got := IsPermanent(err); got != c.permanent {
 			t.Errorf("%s (%d): IsPermanent = %v, want %v (%v)", c.code, c.status, got, c.permanent, err)
+		}
+		if got := IsRefused(err); got != c.refused {
+			t.Errorf("%s (%d): IsRefused = %v, want %v (%v)", c.code, c.status, got, c.refused, err)
 		}
 	}
 }
@@ -238,4 +241,20 @@ func TestS3WrongSecretFailsAtOnce(t *testing.T) {
 		}
 		t.Logf("%s with a wrong secret: %v", op.name, err)
 	}
+
+	// A bucket that was never made (or was deleted under a running
+	// service) is a refusal, not a missing key.
+	gone, err := newS3Client(S3Config{Endpoint: m.Endpoint, Bucket: "never-made", AccessKey: good.AccessKey, SecretKey: good.SecretKey})
+	if err != nil {
+		t.Fatal(err)
+	}
+	f = failures{}
+	_, err = WithRetry(gone, RetryPolicy{First: time.Millisecond, Max: time.Millisecond, Budget: time.Minute}, f.record).Get(ctx, "campaigns/c/x.json")
+	if errors.Is(err, fs.ErrNotExist) || !IsRefused(err) {
+		t.Errorf("Get from a missing bucket: %v; want a refusal, not a missing key", err)
+	}
+	if n, final := f.count(); n != 1 || final != 1 {
+		t.Errorf("Get from a missing bucket: %d attempts (%d final), want exactly 1, final", n, final)
+	}
+	t.Logf("missing bucket: %v", err)
 }

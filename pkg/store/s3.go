@@ -177,9 +177,11 @@ func (s *S3) object(key string) (string, error) {
 	return s.prefix + key, nil
 }
 
+// isMissing reports whether err says the object is missing; a missing
+// bucket is not a missing key but a refusal (IsRefused).
 func isMissing(err error) bool {
 	r := minio.ToErrorResponse(err)
-	return r.Code == "NoSuchKey" || r.Code == "NoSuchObject" || r.StatusCode == http.StatusNotFound
+	return r.Code == "NoSuchKey" || r.Code == "NoSuchObject" || (r.StatusCode == http.StatusNotFound && r.Code != "NoSuchBucket")
 }
 
 func (s *S3) err(op, key string, err error) error {

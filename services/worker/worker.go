@@ -25,6 +25,7 @@ import (
 	"sluice/pkg/layout"
 	"sluice/pkg/queue"
 	"sluice/pkg/scan"
+	"sluice/pkg/store"
 	"sluice/pkg/telemetry"
 	"sluice/pkg/volio"
 	"sluice/pkg/volume"
@@ -105,15 +106,17 @@ func (w *Worker) load(ctx context.Context, st Store, step layout.Step, hash stri
 // Process runs one task. The returned TileDone is to be published; the
 // caller acknowledges the task after publishing it.
 //
-// A missing input (manifest, plan, grey or mask chunk) is permanent: ingest
-// and reprocess store every one of them before they publish a task, so no
-// redelivery will find it; the error is marked queue.Permanent and the tile
-// dead-lettered at once. A store that refuses the worker (store.IsRefused:
-// wrong keys, a full or read-only disk) is not the tile's fault: that error
-// is returned unmarked, and the caller should stop taking tiles.
+// A permanent store error about this tile's objects (store.IsPermanent:
+// above all a missing input — manifest, plan, grey or mask chunk — which
+// ingest and reprocess store before they publish a task, so no redelivery
+// will find it) is marked queue.Permanent and the tile dead-lettered at
+// once. A store that refuses the worker (store.IsRefused: wrong keys, a full
+// or read-only disk) is not the tile's fault: that error is returned
+// unmarked, and the caller should stop taking tiles.
 func (w *Worker) Process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.TileDone, error) {
 	done, err := w.process(ctx, t)
-	if err != nil && ctx.Err() == nil && errors.Is(err, fs.ErrNotExist) && !queue.IsPermanent(err) {
+	if err != nil && ctx.Err() == nil && !errors.Is(err, context.Canceled) &&
+		store.IsPermanent(err) && !store.IsRefused(err) && !queue.IsPermanent(err) {
 		err = queue.Permanent(err)
 	}
 	return done, err
