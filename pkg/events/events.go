@@ -41,7 +41,6 @@ import (
 	"encoding/json"
 	"fmt"
 	"math"
-	"strings"
 
 	"sluice/pkg/series"
 )
@@ -76,7 +75,7 @@ func Decode(name string, data []byte) ([]Event, error) {
 	dec := json.NewDecoder(bytes.NewReader(data))
 	dec.DisallowUnknownFields()
 	if err := dec.Decode(&evs); err != nil {
-		return nil, fmt.Errorf("events: %s: not a list of events: %s", name, strings.ReplaceAll(err.Error(), "\n", " "))
+		return nil, fmt.Errorf("events: %s: not a list of events: %w", name, err) // encoding/json quotes what it cites: one line
 	}
 	if dec.More() {
 		return nil, fmt.Errorf("events: %s: data after the list of events", name)
