@@ -6,6 +6,7 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
 )
@@ -85,6 +86,16 @@ func (n *NATS) launch(port int, extra []string) error {
 
 // Stop stops the server gracefully (SIGTERM).
 func (n *NATS) Stop() { n.p.stop(10 * time.Second) }
+
+// Reload makes the server re-read its configuration file (SIGHUP), as
+// `nats-server --signal reload` does: changed users take effect at once and
+// clients whose credentials are no longer valid are disconnected.
+func (n *NATS) Reload() {
+	n.t.Helper()
+	if err := n.p.cmd.Process.Signal(syscall.SIGHUP); err != nil {
+		n.t.Fatalf("testenv: reload nats-server: %v", err)
+	}
+}
 
 // Kill kills the server (SIGKILL), as a crash would.
 func (n *NATS) Kill() { n.p.kill() }

@@ -18,6 +18,13 @@ func RunResultKey(s layout.Step, hash string) string {
 	return s.Dir() + "runs/" + hash + "/result.json"
 }
 
+// FailureKey returns the key of the record of a step that failed under a
+// parameter hash (a tile dead-lettered), written by the aggregator so that
+// the failure outlives it.
+func FailureKey(s layout.Step, hash string) string {
+	return s.Dir() + "runs/" + hash + "/failed.json"
+}
+
 // RunLabelsKey returns the label array prefix of a step under a parameter
 // hash.
 func RunLabelsKey(s layout.Step, hash string) string {

@@ -37,7 +37,7 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 		b, err := cons.Fetch(1, jetstream.FetchMaxWait(time.Second))
 		if err != nil {
 			if q.nc.IsClosed() {
-				return fmt.Errorf("queue: consumer %s: connection closed", durable)
+				return fmt.Errorf("queue: consumer %s: %w", durable, q.LostErr())
 			}
 			d := pause.next()
 			q.log.Warn("queue: pull failed; retrying", "consumer", durable, "err", err, "in", d)
@@ -127,6 +127,16 @@ func (q *Queue) Events(ctx context.Context, campaign string, replay bool, handle
 	cc.Drain()
 	<-cc.Closed()
 	return nil
+}
+
+// FollowDeadLetters runs handler on every dead-letter record, oldest first,
+// until ctx is cancelled, as Results does: a durable consumer remembers
+// the last record acknowledged, so a restarted caller resumes after it and
+// a record whose handler failed or never returned comes again. handler
+// must be idempotent and should make what it learns durable before
+// returning nil: a record acknowledged is not delivered again.
+func (q *Queue) FollowDeadLetters(ctx context.Context, handler func(context.Context, *pb.DeadLetter) error) error {
+	return consume(ctx, q, StreamDead, ConsumerDead, subjectDead+">", func() *pb.DeadLetter { return new(pb.DeadLetter) }, handler)
 }
 
 // DeadLetters returns the dead-letter records of one campaign ("" for all)

@@ -77,6 +77,7 @@ const (
 	ConsumerBatch   = "workers-batch"
 	ConsumerResults = "aggregator-results"
 	ConsumerSteps   = "aggregator-steps"
+	ConsumerDead    = "aggregator-dead-letters"
 
 	ProgressBucket = "sluice_progress"
 
@@ -254,6 +255,7 @@ type Queue struct {
 	tasks  jetstream.Stream
 	policy Policy
 	log    *slog.Logger
+	closed chan struct{} // closed when the connection is closed for good
 }
 
 // Open connects, creates or updates the streams, consumers and KV bucket,
@@ -279,11 +281,13 @@ func Open(ctx context.Context, cfg Config) (*Queue, error) {
 	if err != nil {
 		return nil, err
 	}
+	closed := make(chan struct{})
+	opts = append(opts, nats.ClosedHandler(func(*nats.Conn) { close(closed) }))
 	nc, err := nats.Connect(url, opts...)
 	if err != nil {
 		return nil, fmt.Errorf("queue: connect to %s: %w", where, oneLine(err, connectSecrets(cfg)...))
 	}
-	q := &Queue{nc: nc, policy: pol, log: cfg.Logger}
+	q := &Queue{nc: nc, policy: pol, log: cfg.Logger, closed: closed}
 	if err := q.setup(ctx, cfg); err != nil {
 		nc.Close()
 		return nil, err
@@ -435,18 +439,32 @@ func (q *Queue) Close() error {
 	if q.nc.IsClosed() {
 		return nil
 	}
-	closed := make(chan struct{})
-	q.nc.SetClosedHandler(func(*nats.Conn) { close(closed) })
 	if err := q.nc.Drain(); err != nil {
 		q.nc.Close()
 		return fmt.Errorf("queue: drain: %w", err)
 	}
 	select {
-	case <-closed:
+	case <-q.closed:
 	case <-time.After(30 * time.Second):
 		q.nc.Close()
 	}
 	return nil
+}
+
+// Lost returns a channel that is closed when the connection is closed for
+// good: by Close, or by the client giving up, which it does only on errors
+// that reconnecting cannot cure (the server refusing the credentials twice
+// in a row, a protocol error), never on a server that is merely down.
+// LostErr then says why.
+func (q *Queue) Lost() <-chan struct{} { return q.closed }
+
+// LostErr describes why the connection closed: the last error the client
+// saw, or a plain statement when it saw none.
+func (q *Queue) LostErr() error {
+	if err := q.nc.LastError(); err != nil {
+		return fmt.Errorf("queue: NATS connection closed for good: %w", err)
+	}
+	return errors.New("queue: NATS connection closed for good")
 }
 
 // Conn returns the underlying NATS connection (for health checks).

@@ -601,3 +601,63 @@ func TestGracefulDrainFinishesInFlightTile(t *testing.T) {
 		t.Fatalf("Lag after drain = %+v, %v; want 2 unfinished, none in flight", lag, err)
 	}
 }
+
+// TestFollowDeadLettersResumes: the aggregator's dead-letter consumer
+// delivers each record once per acknowledgement: a record whose handler
+// fails comes again, and a follower started again resumes after the last
+// record it acknowledged instead of re-reading the stream.
+func TestFollowDeadLettersResumes(t *testing.T) {
+	_, q := newQueue(t, Policy{})
+	ctx := context.Background()
+	record := func(tile int32) {
+		q.deadLetter(ctx, &pb.DeadLetter{Task: task("c", "0001", tile, pb.Priority_PRIORITY_LIVE), StreamSeq: uint64(100 + tile), Reason: "test"})
+	}
+	follow := func(handler func(*pb.DeadLetter) error) (stop func()) {
+		fctx, cancel := context.WithCancel(ctx)
+		done := make(chan error, 1)
+		go func() {
+			done <- q.FollowDeadLetters(fctx, func(_ context.Context, d *pb.DeadLetter) error { return handler(d) })
+		}()
+		return func() {
+			cancel()
+			if err := <-done; err != nil {
+				t.Errorf("FollowDeadLetters: %v", err)
+			}
+		}
+	}
+	settled := func() bool {
+		ci, err := q.js.Consumer(ctx, StreamDead, ConsumerDead)
+		if err != nil {
+			return false
+		}
+		info, err := ci.Info(ctx)
+		return err == nil && info.NumPending == 0 && info.NumAckPending == 0 && info.NumRedelivered == 0
+	}
+
+	record(1)
+	record(2)
+	var first recorder
+	failed := false
+	stop := follow(func(d *pb.DeadLetter) error {
+		first.add(fmt.Sprint(d.Task.Tile))
+		if d.Task.Tile == 2 && !failed {
+			failed = true
+			return errors.New("store unavailable")
+		}
+		return nil
+	})
+	waitFor(t, "both records handled, the failed one again", func() bool { return len(first.list()) == 3 && settled() })
+	stop()
+	if got := strings.Join(first.list(), ","); got != "1,2,2" {
+		t.Fatalf("first follower handled tiles %s, want 1,2,2", got)
+	}
+
+	record(3)
+	var second recorder
+	stop = follow(func(d *pb.DeadLetter) error { second.add(fmt.Sprint(d.Task.Tile)); return nil })
+	waitFor(t, "the new record handled and nothing pending", func() bool { return len(second.list()) > 0 && settled() })
+	stop()
+	if got := strings.Join(second.list(), ","); got != "3" {
+		t.Fatalf("restarted follower handled tiles %s, want only the new 3", got)
+	}
+}

@@ -127,7 +127,7 @@ func (q *Queue) workLoop(ctx, hctx context.Context, handler Handler, opts WorkOp
 		m, err := q.next(opts.IdleWait)
 		if err != nil {
 			if q.nc.IsClosed() {
-				return fmt.Errorf("queue: connection closed: %w", err)
+				return q.LostErr()
 			}
 			d := pause.next()
 			q.log.Warn("queue: pull failed; retrying", "err", err, "in", d, "connected", q.nc.IsConnected())

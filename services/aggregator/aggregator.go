@@ -7,7 +7,8 @@
 // the live page.
 //
 // Its state is the object store itself — which tile results exist, which
-// step results exist — so a restarted aggregator loses nothing: redelivered
+// step results exist, which steps failed (a record written before the dead
+// letter is acknowledged) — so a restarted aggregator loses nothing: redelivered
 // or repeated tile results simply re-check completion. One aggregator runs
 // per deployment (it is the only writer of the series files).
 package aggregator
@@ -175,8 +176,9 @@ func (a *Aggregator) loadSteps(ctx context.Context, c layout.Campaign, hash stri
 }
 
 // loadStep reads one step's state under hash: done when its run result
-// (the step's commit marker) exists, else processing when tile results of
-// hash exist, else ingested when its manifest exists.
+// (the step's commit marker) exists, else failed when a failure record
+// exists, else processing when tile results of hash exist, else ingested
+// when its manifest exists.
 func (a *Aggregator) loadStep(ctx context.Context, step layout.Step, hash string) (*stepState, error) {
 	st := &stepState{StepStatus: web.StepStatus{Step: step.Name()}, tiles: map[int32]bool{}}
 	fail := func(err error) (*stepState, error) {
@@ -223,6 +225,18 @@ func (a *Aggregator) loadStep(ctx context.Context, step layout.Step, hash string
 			if strings.HasSuffix(k, ".json") {
 				st.TilesDone++
 			}
+		}
+		b, err = a.Store.Get(ctx, campaign.FailureKey(step, hash))
+		if err != nil && !errors.Is(err, fs.ErrNotExist) {
+			return fail(err)
+		}
+		if err == nil {
+			var f Failure
+			if err := json.Unmarshal(b, &f); err != nil {
+				return fail(fmt.Errorf("%s: %w", campaign.FailureKey(step, hash), err))
+			}
+			st.Status, st.Reason = "failed", f.reason()
+			return st, nil
 		}
 		if st.TilesDone > 0 {
 			st.Status = "processing"
@@ -729,25 +743,53 @@ func (a *Aggregator) eventOptions(name string) events.Options {
 	return a.EventOptions
 }
 
-// StepFailed marks a step failed (a tile exhausted its retries).
-func (a *Aggregator) StepFailed(ctx context.Context, dl *sluicepb.DeadLetter) {
-	if dl.Task == nil {
-		return
+// Failure is the record of a failed step (campaign.FailureKey): the tile
+// whose task was dead-lettered and why.
+type Failure struct {
+	Tile       int32     `json:"tile"`
+	Reason     string    `json:"reason"`
+	Deliveries uint64    `json:"deliveries"`
+	Worker     string    `json:"worker,omitempty"`
+	At         time.Time `json:"at"`
+}
+
+func (f Failure) reason() string { return fmt.Sprintf("tile %d: %s", f.Tile, f.Reason) }
+
+// StepFailed records a step failed under the dead letter's parameter hash (a
+// tile exhausted its retries) in the store, then marks it failed when that
+// hash is the campaign's current run and the step is not done. The record
+// is what a restarted aggregator reads (Start), so a dead letter handled
+// once is not needed again; an error leaves the dead letter to be retried.
+// A record that names no task (undecodable) is ignored.
+func (a *Aggregator) StepFailed(ctx context.Context, dl *sluicepb.DeadLetter) error {
+	t := dl.GetTask()
+	if t == nil {
+		return nil
 	}
-	cs := a.campaign(ctx, dl.Task.Campaign)
+	step, err := layout.NewStep(t.Campaign, t.Step)
+	if err != nil || !layout.ValidParamHash(t.ParamHash) {
+		a.dropInvalid(fmt.Errorf("aggregator: dead letter of task %s/%s hash %q: %v", t.Campaign, t.Step, t.ParamHash, err))
+		return nil
+	}
+	f := Failure{Tile: t.Tile, Reason: dl.Reason, Deliveries: dl.Deliveries, Worker: dl.WorkerId, At: dl.At.AsTime()}
+	if err := campaign.PutJSON(ctx, a.Store, campaign.FailureKey(step, t.ParamHash), f); err != nil {
+		return fmt.Errorf("aggregator: recording the failure of %s: %w", step.Dir(), err)
+	}
+	cs := a.campaign(ctx, t.Campaign)
 	a.mu.Lock()
-	if cs != nil && cs.record.Current == dl.Task.ParamHash {
-		st := cs.step(dl.Task.Step)
+	if cs != nil && cs.record.Current == t.ParamHash {
+		st := cs.step(t.Step)
 		if st.Status != "failed" && st.Status != "done" {
 			st.Status = "failed"
-			st.Reason = fmt.Sprintf("tile %d: %s", dl.Task.Tile, dl.Reason)
+			st.Reason = f.reason()
 			if a.Metrics != nil {
-				a.Metrics.StepsFailed.WithLabelValues(dl.Task.Campaign).Inc()
+				a.Metrics.StepsFailed.WithLabelValues(t.Campaign).Inc()
 			}
 		}
 	}
 	a.mu.Unlock()
-	a.publish("progress", map[string]any{"campaign": dl.Task.Campaign, "step": dl.Task.Step, "failed": true})
+	a.publish("progress", map[string]any{"campaign": t.Campaign, "step": t.Step, "failed": true})
+	return nil
 }
 
 func (a *Aggregator) updateGauges(c string, rows []series.Row) {

@@ -153,6 +153,12 @@ func runDemo(args []string) int {
 			genErr = err
 		case <-tick.C:
 		case <-ctx.Done():
+		case <-node.stopping:
+		}
+		if ctx.Err() == nil && isDone(node.stopping) { // a part of the node failed
+			nstop()
+			node.wg.Wait()
+			return fail(exitFailure, "demo: %v", node.err)
 		}
 	}
 	if genErr != nil {

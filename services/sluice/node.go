@@ -350,8 +350,10 @@ func publishResult(ctx context.Context, q *queue.Queue, done *sluicepb.TileDone,
 	}
 }
 
-// runAggregator consumes step announcements and tile results and watches
-// the dead-letter records and the queue backlog until ctx ends.
+// runAggregator consumes step announcements, tile results and dead-letter
+// records and keeps the queue-backlog gauges until ctx ends. The first of
+// them to fail stops the others and its error is returned, so the process
+// exits instead of staying up with a dead consumer.
 func runAggregator(ctx context.Context, q *queue.Queue, a *aggregator.Aggregator, m *telemetry.Aggregator, log *slog.Logger) error {
 	// The aggregator outlives crashing workers: it too records tiles that
 	// ran out of deliveries.
@@ -361,44 +363,50 @@ func runAggregator(ctx context.Context, q *queue.Queue, a *aggregator.Aggregator
 		return err
 	}
 	defer stopDead()
-	errc := make(chan error, 3)
-	go func() { errc <- q.StepsReady(ctx, aggregator.StopOnRefusal(a.StepReady)) }()
-	go func() { errc <- q.Results(ctx, aggregator.StopOnRefusal(a.TileDone)) }()
-	go func() {
+	g := newRunGroup(ctx)
+	g.Go("step announcements", func(ctx context.Context) error {
+		return q.StepsReady(ctx, aggregator.StopOnRefusal(a.StepReady))
+	})
+	g.Go("tile results", func(ctx context.Context) error { return q.Results(ctx, aggregator.StopOnRefusal(a.TileDone)) })
+	// One durable consumer: each dead letter is handled once, and one not
+	// yet handled when the aggregator stopped comes after a restart
+	// (StepFailed stores the failure before the record is acknowledged).
+	g.Go("dead letters", func(ctx context.Context) error {
+		return q.FollowDeadLetters(ctx, aggregator.StopOnRefusal(a.StepFailed))
+	})
+	g.Go("queue lag", func(ctx context.Context) error {
 		t := time.NewTicker(2 * time.Second)
 		defer t.Stop()
-		seen := map[string]bool{}
 		for {
 			select {
 			case <-ctx.Done():
-				errc <- nil
-				return
+				return nil
 			case <-t.C:
 			}
 			if lag, err := q.Lag(ctx); err == nil {
 				m.QueueLag.WithLabelValues("live").Set(float64(lag.Live + lag.LiveInFlight))
 				m.QueueLag.WithLabelValues("batch").Set(float64(lag.Batch + lag.BatchInFlight))
 			}
-			dls, err := q.DeadLetters(ctx, "")
-			if err != nil {
-				continue
-			}
-			for _, dl := range dls {
-				id := dl.MsgId + "/" + fmt.Sprint(dl.StreamSeq)
-				if !seen[id] {
-					seen[id] = true
-					a.StepFailed(ctx, dl)
-				}
-			}
 		}
-	}()
-	var first error
-	for i := 0; i < 3; i++ {
-		if err := <-errc; err != nil && first == nil && ctx.Err() == nil {
-			first = err
+	})
+	g.Go("", func(ctx context.Context) error { return watchConn(ctx, q) })
+	return g.Wait()
+}
+
+// watchConn returns an error when the queue's connection closes for good
+// while ctx lives (the client gave up: credentials refused, protocol
+// error), and nil when ctx ends. A server that is down is not "for good":
+// the client reconnects for ever.
+func watchConn(ctx context.Context, q *queue.Queue) error {
+	select {
+	case <-ctx.Done():
+		return nil
+	case <-q.Lost():
+		if ctx.Err() != nil {
+			return nil
 		}
+		return q.LostErr()
 	}
-	return first
 }
 
 // newAggregator builds an aggregator with its metrics and hub.

@@ -568,25 +568,37 @@ func startReprocessNode(ctx context.Context, nf nodeFlags, st store.Store, worke
 	if _, err := serveHTTP(ctx, nf, nil, reg, nil, log); err != nil {
 		return nil, err
 	}
+	g := newRunGroup(ctx)
 	n := &reprocessNode{q: q, agg: agg}
-	n.wg.Add(2)
+	n.stopping = g.Context().Done()
+	g.Go("aggregator", func(ctx context.Context) error { return runAggregator(ctx, q, agg, am, log) })
+	host, _ := os.Hostname()
+	id := fmt.Sprintf("%s:%d/reprocess", host, os.Getpid())
+	g.Go("tile workers", func(ctx context.Context) error {
+		return runWorkers(ctx, q, st, telemetry.NewWorker(reg), id, workers, log)
+	})
+	n.wg.Add(1)
 	go func() {
 		defer n.wg.Done()
-		n.fail(runAggregator(ctx, q, agg, am, log))
-	}()
-	go func() {
-		defer n.wg.Done()
-		host, _ := os.Hostname()
-		n.fail(runWorkers(ctx, q, st, telemetry.NewWorker(reg), fmt.Sprintf("%s:%d/reprocess", host, os.Getpid()), workers, log))
-	}()
-	n.stop = func() {
-		n.wg.Wait()
+		n.err = g.Wait()
 		q.Close()
 		if srv != nil {
 			srv.Shutdown()
 		}
-	}
+	}()
 	return n, nil
+}
+
+// failure returns the error that stopped the node, or nil while it runs or
+// after an orderly stop.
+func (n *reprocessNode) failure() error {
+	select {
+	case <-n.stopping:
+		n.wg.Wait()
+		return n.err
+	default:
+		return nil
+	}
 }
 
 // waitRun follows a run until every selected step is done or failed, and
@@ -708,7 +720,7 @@ func runReprocess(args []string) int {
 			return fail(exitBadInput, "reprocess: %v", err)
 		}
 		q = node.q
-		defer func() { nstop(); node.stop() }()
+		defer func() { nstop(); node.wg.Wait() }()
 	} else {
 		nf.policyRole = queue.PolicyBystander // queues tasks, works none
 		if q, _, err = nf.openQueue(ctx, false, log); err != nil {
@@ -757,11 +769,7 @@ func runReprocess(args []string) int {
 	bar := newProgressBar(os.Stderr, "reprocess "+req.Campaign+" "+sum.Hash[:8])
 	var nodeErr func() error
 	if node != nil {
-		nodeErr = func() error {
-			node.mu.Lock()
-			defer node.mu.Unlock()
-			return errors.Join(node.errs...)
-		}
+		nodeErr = node.failure
 	}
 	failed, err := waitRun(ctx, st, q, c, sum, t0, bar, nodeErr)
 	bar.done()

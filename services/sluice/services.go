@@ -123,7 +123,10 @@ func runWorker(args []string) int {
 		wid = fmt.Sprintf("%s:%d", host, os.Getpid())
 	}
 	log.Info("worker started", "id", wid, "concurrency", *conc, "store", fmt.Sprint(st), "http", addr)
-	if err := runWorkers(ctx, q, st, m, wid, *conc, log); err != nil {
+	g := newRunGroup(ctx)
+	g.Go("tile workers", func(ctx context.Context) error { return runWorkers(ctx, q, st, m, wid, *conc, log) })
+	g.Go("", func(ctx context.Context) error { return watchConn(ctx, q) })
+	if err := g.Wait(); err != nil {
 		return fail(exitFailure, "worker: %v", err)
 	}
 	log.Info("worker drained and stopped", "id", wid)
@@ -254,8 +257,16 @@ func runIngest(args []string) int {
 		return fail(exitBadInput, "ingest: %v", err)
 	}
 	if f.watch != "" {
-		serveHTTP(ctx, nf, nil, reg, nil, log)
-		if err := watchAndIngest(ctx, ing, f, log); err != nil {
+		if _, err := serveHTTP(ctx, nf, nil, reg, nil, log); err != nil {
+			return fail(exitFailure, "ingest: %v", err)
+		}
+		// A watcher whose queue connection is gone would give up every
+		// scan after its retries: stop instead, and be restarted.
+		log.Info("watching for scans", "dir", f.watch, "campaign", f.campaign)
+		g := newRunGroup(ctx)
+		g.Go("watcher", func(ctx context.Context) error { return watchAndIngest(ctx, ing, f, log) })
+		g.Go("", func(ctx context.Context) error { return watchConn(ctx, q) })
+		if err := g.Wait(); err != nil {
 			return fail(exitFailure, "ingest: %v", err)
 		}
 		return exitOK
@@ -287,19 +298,14 @@ func runIngest(args []string) int {
 type allInOne struct {
 	url  string
 	nats string // client URL of the embedded NATS server when exposed
-	stop func()
-	wg   sync.WaitGroup
-	errs []error
-	mu   sync.Mutex
-}
-
-func (a *allInOne) fail(err error) {
-	if err == nil {
-		return
-	}
-	a.mu.Lock()
-	a.errs = append(a.errs, err)
-	a.mu.Unlock()
+	// stopping is closed when the node begins to stop: its context ended,
+	// or one of its parts ended (failed) and stopped the others.
+	stopping <-chan struct{}
+	// wg is done when every part has stopped and the queue is closed.
+	wg sync.WaitGroup
+	// err is the failure that stopped the node (nil after an orderly
+	// stop); read it after wg.Wait.
+	err error
 }
 
 // runAll is `sluice run`.
@@ -323,17 +329,21 @@ func runAll(args []string) int {
 		return fail(exitBadInput, "run: %v", err)
 	}
 	fmt.Fprintf(stdout, "sluice running: live page http://%s/  metrics http://%s/metrics\n", node.url, node.url)
-	<-ctx.Done()
-	log.Info("shutting down: draining workers")
+	select {
+	case <-ctx.Done():
+		log.Info("shutting down: draining workers")
+	case <-node.stopping:
+		log.Error("a part of the node failed; stopping the others")
+	}
 	node.wg.Wait()
-	if len(node.errs) > 0 {
-		return fail(exitFailure, "run: %v", errors.Join(node.errs...))
+	if node.err != nil {
+		return fail(exitFailure, "run: %v", node.err)
 	}
 	return exitOK
 }
 
-// startAll starts the all-in-one node; it stops when ctx ends (wait on
-// node.wg).
+// startAll starts the all-in-one node; it stops when ctx ends or one of its
+// parts fails (wait on node.wg, then read node.err).
 func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, workers int, log *slog.Logger) (*allInOne, error) {
 	if err := nf.checkHTTP(); err != nil {
 		return nil, err
@@ -357,47 +367,41 @@ func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, w
 	if err != nil {
 		return nil, err
 	}
-	addr, err := serveHTTP(ctx, nf, web.Handler(agg, hub, log), reg, nil, log)
-	if err != nil {
-		return nil, err
-	}
-	node := &allInOne{url: addr}
-	if srv != nil && srv.ClientURL() != "" {
-		node.nats = srv.ClientURL()
-		log.Info("NATS exposed for extra workers", "url", srv.ClientURL())
-	}
-	node.wg.Add(1)
-	go func() {
-		defer node.wg.Done()
-		node.fail(runAggregator(ctx, q, agg, am, log))
-	}()
-	// workers = 0: no tile workers in this process (separate `sluice
-	// worker` processes join through --expose-nats).
-	if workers > 0 {
-		node.wg.Add(1)
-		go func() {
-			defer node.wg.Done()
-			host, _ := os.Hostname()
-			node.fail(runWorkers(ctx, q, st, wm, fmt.Sprintf("%s:%d/run", host, os.Getpid()), workers, log))
-		}()
-	}
+	var ing *ingest.Ingester
 	if f.watch != "" {
 		if err := os.MkdirAll(f.watch, 0o755); err != nil {
 			return nil, err
 		}
 		ready := func(r *sluicepb.StepReady) { q.PublishStepReady(ctx, r) }
-		ing, err := startIngest(ctx, f, in, st, taskPublisher{q}, ready, im, log)
-		if err != nil {
+		if ing, err = startIngest(ctx, f, in, st, taskPublisher{q}, ready, im, log); err != nil {
 			return nil, err
 		}
-		node.wg.Add(1)
-		go func() {
-			defer node.wg.Done()
-			node.fail(watchAndIngest(ctx, ing, f, log))
-		}()
 	}
+	g := newRunGroup(ctx)
+	addr, err := serveHTTP(g.Context(), nf, web.Handler(agg, hub, log), reg, nil, log)
+	if err != nil {
+		return nil, err
+	}
+	node := &allInOne{url: addr, stopping: g.Context().Done()}
+	if srv != nil && srv.ClientURL() != "" {
+		node.nats = srv.ClientURL()
+		log.Info("NATS exposed for extra workers", "url", srv.ClientURL())
+	}
+	g.Go("aggregator", func(ctx context.Context) error { return runAggregator(ctx, q, agg, am, log) })
+	// workers = 0: no tile workers in this process (separate `sluice
+	// worker` processes join through --expose-nats).
+	if workers > 0 {
+		host, _ := os.Hostname()
+		id := fmt.Sprintf("%s:%d/run", host, os.Getpid())
+		g.Go("tile workers", func(ctx context.Context) error { return runWorkers(ctx, q, st, wm, id, workers, log) })
+	}
+	if ing != nil {
+		g.Go("watcher", func(ctx context.Context) error { return watchAndIngest(ctx, ing, f, log) })
+	}
+	node.wg.Add(1)
 	go func() {
-		node.wg.Wait()
+		defer node.wg.Done()
+		node.err = g.Wait()
 		q.Close()
 		if srv != nil {
 			srv.Shutdown()
