@@ -39,6 +39,9 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 			if q.nc.IsClosed() {
 				return fmt.Errorf("queue: consumer %s: %w", durable, q.LostErr())
 			}
+			if isConsumerGone(err) {
+				return fmt.Errorf("queue: consumer %s is gone from the server: %w", durable, err)
+			}
 			d := pause.next()
 			q.log.Warn("queue: pull failed; retrying", "consumer", durable, "err", err, "in", d)
 			select {
@@ -81,8 +84,20 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 			}
 			cancel()
 		}
+		if err := b.Error(); isConsumerGone(err) {
+			// Deleted on the server: pulls would come back empty for
+			// ever. Stop, so the process exits and its restart creates
+			// the consumer again.
+			return fmt.Errorf("queue: consumer %s is gone from the server: %w", durable, err)
+		}
 	}
 	return nil
+}
+
+// isConsumerGone reports whether a pull failed because its durable consumer
+// no longer exists.
+func isConsumerGone(err error) bool {
+	return errors.Is(err, jetstream.ErrConsumerDeleted) || errors.Is(err, jetstream.ErrConsumerNotFound)
 }
 
 // Results runs handler on every tile result, in arrival order, until ctx is

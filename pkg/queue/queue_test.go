@@ -661,3 +661,48 @@ func TestFollowDeadLettersResumes(t *testing.T) {
 		t.Fatalf("restarted follower handled tiles %s, want only the new 3", got)
 	}
 }
+
+// TestConsumersStopWhenDeleted: a durable consumer deleted on the server
+// (by an operator, say) leaves pulls that come back empty for ever; the
+// aggregator's consumers and the workers stop with an error naming it
+// instead of idling without a word, so their process exits and its restart
+// creates the consumer again.
+func TestConsumersStopWhenDeleted(t *testing.T) {
+	_, q := newQueue(t, Policy{})
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	results := make(chan error, 1)
+	go func() {
+		results <- q.Results(ctx, func(context.Context, *pb.TileDone) error { return nil })
+	}()
+	work := make(chan error, 1)
+	go func() {
+		work <- q.Work(ctx, func(context.Context, *pb.TileTask) error { return nil }, WorkOptions{IdleWait: 100 * time.Millisecond})
+	}()
+	waitFor(t, "the results consumer", func() bool {
+		_, err := q.js.Consumer(ctx, StreamResults, ConsumerResults)
+		return err == nil
+	})
+	for _, c := range []struct{ stream, name string }{{StreamResults, ConsumerResults}, {StreamTasks, ConsumerLive}} {
+		if err := q.js.DeleteConsumer(ctx, c.stream, c.name); err != nil {
+			t.Fatal(err)
+		}
+	}
+	for _, c := range []struct {
+		what string
+		errc chan error
+		want string
+	}{
+		{"Results", results, "queue: consumer aggregator-results is gone from the server"},
+		{"Work", work, "queue: task consumer is gone from the server"},
+	} {
+		select {
+		case err := <-c.errc:
+			if err == nil || !strings.HasPrefix(err.Error(), c.want) {
+				t.Errorf("%s returned %v, want %q…", c.what, err, c.want)
+			}
+		case <-time.After(patience): // a liveness guard
+			t.Errorf("%s still runs after its consumer was deleted", c.what)
+		}
+	}
+}

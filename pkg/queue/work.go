@@ -129,6 +129,11 @@ func (q *Queue) workLoop(ctx, hctx context.Context, handler Handler, opts WorkOp
 			if q.nc.IsClosed() {
 				return q.LostErr()
 			}
+			if isConsumerGone(err) {
+				// Deleted on the server: stop, so the process exits and
+				// its restart finds or creates the consumer again.
+				return fmt.Errorf("queue: task consumer is gone from the server: %w", err)
+			}
 			d := pause.next()
 			q.log.Warn("queue: pull failed; retrying", "err", err, "in", d, "connected", q.nc.IsConnected())
 			select {

@@ -180,3 +180,53 @@ func TestDeadLettersSurviveAggregatorRestart(t *testing.T) {
 		t.Fatalf("the first aggregator recorded failures %q, want step 0001's once", got)
 	}
 }
+
+// TestAggregatorStopsWhenAConsumerDies: the tile-results consumer of a
+// running aggregator is deleted on the (embedded) server, so it can never
+// deliver again. runAggregator stops its other consumers and returns an
+// error naming the dead one, which `sluice aggregate` turns into exit 1.
+// (It used to wait for all its goroutines, and the backlog loop never
+// ended: the process stayed up doing nothing.)
+func TestAggregatorStopsWhenAConsumerDies(t *testing.T) {
+	ctx := context.Background()
+	srv, err := queue.StartServer(queue.ServerConfig{StoreDir: t.TempDir()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer srv.Shutdown()
+	q, err := queue.Open(ctx, queue.Config{Server: srv, Logger: quietLog()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer q.Close()
+	local, err := store.NewLocal(t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
+	a := &aggregator.Aggregator{Store: local, Log: quietLog()}
+	if err := a.Start(ctx); err != nil {
+		t.Fatal(err)
+	}
+	done := make(chan error, 1)
+	go func() { done <- runAggregator(ctx, q, a, telemetry.NewAggregator(registry()), quietLog()) }()
+	js, err := jetstream.New(q.Conn())
+	if err != nil {
+		t.Fatal(err)
+	}
+	waitUntil(t, "the results consumer", func() bool {
+		_, err := js.Consumer(ctx, queue.StreamResults, queue.ConsumerResults)
+		return err == nil
+	})
+	if err := js.DeleteConsumer(ctx, queue.StreamResults, queue.ConsumerResults); err != nil {
+		t.Fatal(err)
+	}
+	select {
+	case err := <-done:
+		const want = "tile results: queue: consumer aggregator-results is gone from the server"
+		if err == nil || !strings.HasPrefix(err.Error(), want) {
+			t.Fatalf("runAggregator returned %v, want %q…", err, want)
+		}
+	case <-time.After(time.Minute): // a liveness guard
+		t.Fatal("runAggregator still runs a minute after its results consumer was deleted")
+	}
+}
