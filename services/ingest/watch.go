@@ -1,11 +1,13 @@
 package ingest
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"log/slog"
+	"math"
 	"os"
 	"path/filepath"
 	"sort"
@@ -34,8 +36,10 @@ type Arrival struct {
 
 // Marker is the suffix of the file a reconstruction pipeline writes last,
 // next to a finished volume: "scan_0042.raw" is complete once
-// "scan_0042.raw.done" exists. The marker may be empty or hold JSON
-// {"time_s": 1234.5}.
+// "scan_0042.raw.done" or "scan_0042.done" exists (the marker is named
+// after the scan with or without its extension; see MarkerFor). The
+// marker may be empty or hold JSON {"time_s": 1234.5}; anything else is
+// refused (ReadMarker), never read as time 0.
 //
 // Why a marker: beamline reconstruction writes large volumes slice by slice
 // or in chunks over tens of seconds, and a file whose size has stopped
@@ -46,6 +50,102 @@ type Arrival struct {
 // writers that cannot make one, Watcher.Settle falls back to "size and
 // modification time unchanged for this long".
 const Marker = ".done"
+
+// ErrMarker marks a marker file that cannot be used: content that is not
+// the documented JSON, or a short-form marker two scans could claim.
+var ErrMarker = errors.New("bad marker file")
+
+// scanStem is a scan's name without its extension ("scan_0042.raw" →
+// "scan_0042"), or "" when it has none.
+func scanStem(name string) string {
+	ext := filepath.Ext(name)
+	if ext == "" || ext == name {
+		return ""
+	}
+	return strings.TrimSuffix(name, ext)
+}
+
+// isScanName reports whether a directory entry may be a scan: not a dot
+// file, a marker or a header side file.
+func isScanName(name string) bool {
+	return !strings.HasPrefix(name, ".") && !strings.HasSuffix(name, Marker) && !strings.HasSuffix(name, ".sluice.json")
+}
+
+// MarkerFor finds the marker of scan among the entry names of its
+// directory: "<scan>.done" first, else "<scan without extension>.done".
+// The short form is refused (ErrMarker) when another scan of the directory
+// has the same stem ("scan_0000.raw" and "scan_0000.tif" for
+// "scan_0000.done"): the marker cannot say which one is complete. It
+// returns "" when there is no marker.
+func MarkerFor(names map[string]bool, scan string) (string, error) {
+	if names[scan+Marker] {
+		return scan + Marker, nil
+	}
+	stem := scanStem(scan)
+	if stem == "" || !names[stem+Marker] {
+		return "", nil
+	}
+	for other := range names {
+		if other != scan && isScanName(other) && (other == stem || scanStem(other) == stem) {
+			a, b := min(scan, other), max(scan, other)
+			return "", fmt.Errorf("%w: %s: ambiguous, it could mark %s or %s (name it %s.done or %s.done)", ErrMarker, stem+Marker, a, b, a, b)
+		}
+	}
+	return stem + Marker, nil
+}
+
+// orphanMarkers returns the markers among names that name no scan, in
+// either form.
+func orphanMarkers(names map[string]bool) []string {
+	claimed := map[string]bool{}
+	for n := range names {
+		if isScanName(n) {
+			claimed[n+Marker] = true
+			if s := scanStem(n); s != "" {
+				claimed[s+Marker] = true
+			}
+		}
+	}
+	var out []string
+	for n := range names {
+		if strings.HasSuffix(n, Marker) && !strings.HasPrefix(n, ".") && !claimed[n] {
+			out = append(out, n)
+		}
+	}
+	sort.Strings(out)
+	return out
+}
+
+// ReadMarker reads a marker file: empty (or blank) means "complete, no
+// time"; otherwise it must be a JSON object whose time_s is a finite,
+// non-negative number of seconds. Anything else (`time 405`, a time in a
+// string, a missing time_s) is an ErrMarker naming the file: a step must
+// not silently get t = 0.
+func ReadMarker(path string) (timeS float64, hasTime bool, err error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return 0, false, fmt.Errorf("%w: %s: %w", ErrMarker, path, err)
+	}
+	if len(bytes.TrimSpace(b)) == 0 {
+		return 0, false, nil
+	}
+	var m map[string]json.RawMessage
+	if err := json.Unmarshal(b, &m); err != nil || m == nil {
+		return 0, false, fmt.Errorf("%w: %s: not empty and not a JSON object such as {\"time_s\": 405}", ErrMarker, path)
+	}
+	raw, ok := m["time_s"]
+	if !ok {
+		return 0, false, fmt.Errorf("%w: %s: JSON without time_s (the step's time in seconds, e.g. {\"time_s\": 405})", ErrMarker, path)
+	}
+	var t float64
+	if err := json.Unmarshal(raw, &t); err != nil || string(bytes.TrimSpace(raw)) == "null" {
+		return 0, false, fmt.Errorf("%w: %s: time_s is %s, not a number of seconds", ErrMarker, path, raw)
+	}
+	if t < 0 || math.IsInf(t, 0) || math.IsNaN(t) {
+		return 0, false, fmt.Errorf("%w: %s: time_s %g is not a finite time ≥ 0 s", ErrMarker, path, t)
+	}
+	return t, true, nil
+}
 
 // Watcher finds complete scans in a directory, each once.
 type Watcher struct {
@@ -69,6 +169,7 @@ type Watcher struct {
 	failed map[string]bool
 	tries  map[string]int       // failed ingests per scan name
 	after  map[string]time.Time // no new attempt before
+	said   map[string]bool      // markers already reported as unusable or orphaned
 }
 
 type sizeSeen struct {
@@ -146,7 +247,7 @@ func (w *Watcher) retry(a Arrival, err error) {
 func (w *Watcher) Scan() ([]Arrival, error) {
 	if w.seen == nil {
 		w.seen, w.sizes, w.failed = map[string]bool{}, map[string]sizeSeen{}, map[string]bool{}
-		w.tries, w.after = map[string]int{}, map[string]time.Time{}
+		w.tries, w.after, w.said = map[string]int{}, map[string]time.Time{}, map[string]bool{}
 	}
 	ents, err := os.ReadDir(w.Dir)
 	if err != nil {
@@ -163,25 +264,39 @@ func (w *Watcher) Scan() ([]Arrival, error) {
 	}
 	sort.Strings(keys)
 	now := time.Now()
+	for _, m := range orphanMarkers(names) {
+		if !w.said[m] {
+			w.said[m] = true
+			w.Log.Warn("watch: marker names no scan; ignored", "marker", filepath.Join(w.Dir, m))
+		}
+	}
 	for _, name := range keys {
-		if w.seen[name] || strings.HasSuffix(name, Marker) || strings.HasSuffix(name, ".sluice.json") || strings.HasPrefix(name, ".") {
+		if w.seen[name] || !isScanName(name) {
 			continue
 		}
 		if now.Before(w.after[name]) {
 			continue
 		}
 		path := filepath.Join(w.Dir, name)
-		marker := path + Marker
 		var timeS float64
 		hasTime := false
-		if names[name+Marker] {
-			if b, err := os.ReadFile(marker); err == nil && len(strings.TrimSpace(string(b))) > 0 {
-				var m struct {
-					TimeS *float64 `json:"time_s"`
-				}
-				if json.Unmarshal(b, &m) == nil && m.TimeS != nil {
-					timeS, hasTime = *m.TimeS, true
-				}
+		marker, err := MarkerFor(names, name)
+		if err != nil {
+			// The short marker fits two scans: neither is taken on its
+			// word (each can still get its own <scan>.done).
+			if !w.said[err.Error()] {
+				w.said[err.Error()] = true
+				w.Log.Error("watch: marker refused", "err", err)
+			}
+			continue
+		}
+		if marker != "" {
+			if timeS, hasTime, err = ReadMarker(filepath.Join(w.Dir, marker)); err != nil {
+				// The step is rejected, not given time 0; the campaign
+				// goes on with the next scan.
+				w.seen[name] = true
+				w.Log.Error("watch: scan not ingested", "path", path, "err", err)
+				continue
 			}
 		} else if w.Settle > 0 {
 			size, mtime, err := treeSize(path)

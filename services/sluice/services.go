@@ -167,19 +167,44 @@ type ingestFlags struct {
 	campaign, config, watch, step string
 	settle                        time.Duration
 	timeS                         float64
-	batch                         bool
+	batch, createWatch            bool
 }
 
 func (f *ingestFlags) register(fs *flag.FlagSet, single bool) {
 	fs.StringVar(&f.campaign, "campaign", "", "campaign name ([a-z0-9][a-z0-9._-]{0,63})")
 	fs.StringVar(&f.config, "config", "", "campaign config file (YAML); used when the campaign is created")
-	fs.StringVar(&f.watch, "watch", "", "watch `DIR` and ingest each scan once its marker file <scan>.done exists")
+	fs.StringVar(&f.watch, "watch", "", "watch `DIR` and ingest each scan once its marker file exists (scan_0042.raw.done or scan_0042.done)")
+	fs.BoolVar(&f.createWatch, "create-watch", false, "create the --watch directory if it does not exist (without it a missing directory is an error)")
 	fs.DurationVar(&f.settle, "settle", 0, "also accept scans without a marker once unchanged for this long (e.g. 30s)")
 	if single {
 		fs.StringVar(&f.step, "step", "", "step name for a single FILE (default: from the file name)")
 		fs.Float64Var(&f.timeS, "time", -1, "experiment time of the step in seconds (default: from the file, else 0)")
 		fs.BoolVar(&f.batch, "batch", false, "queue the tiles as batch work (archives) instead of live")
 	}
+}
+
+// checkWatch makes sure the --watch directory is there before anything
+// starts: a mistyped path must not become a new empty folder watched for
+// ever. It is created only when --create-watch asks for it.
+func (f ingestFlags) checkWatch() error {
+	if f.watch == "" {
+		if f.createWatch {
+			return errors.New("--create-watch needs --watch DIR")
+		}
+		return nil
+	}
+	fi, err := os.Stat(f.watch)
+	switch {
+	case err == nil && !fi.IsDir():
+		return fmt.Errorf("--watch %s is not a directory", f.watch)
+	case err == nil:
+		return nil
+	case errors.Is(err, os.ErrNotExist) && f.createWatch:
+		return os.MkdirAll(f.watch, 0o755)
+	case errors.Is(err, os.ErrNotExist):
+		return fmt.Errorf("--watch %s: no such directory (check the path, or add --create-watch to create it)", f.watch)
+	}
+	return fmt.Errorf("--watch %w", err)
 }
 
 // startIngest ensures the campaign exists and returns an ingester.
@@ -242,6 +267,9 @@ func runIngest(args []string) int {
 	}
 	if (len(pos) == 1) == (f.watch != "") {
 		return fail(exitBadInput, "ingest: give either one FILE or --watch DIR")
+	}
+	if err := f.checkWatch(); err != nil {
+		return fail(exitBadInput, "ingest: %v", err)
 	}
 	nf.policyRole = queue.PolicyBystander // ingest queues tasks and works none
 	c, code := nf.connect("ingest")
@@ -348,6 +376,9 @@ func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, w
 	if err := nf.checkHTTP(); err != nil {
 		return nil, err
 	}
+	if err := f.checkWatch(); err != nil {
+		return nil, err
+	}
 	if err := os.MkdirAll(nf.data, 0o755); err != nil {
 		return nil, err
 	}
@@ -369,9 +400,6 @@ func startAll(ctx context.Context, nf nodeFlags, in inputFlags, f ingestFlags, w
 	}
 	var ing *ingest.Ingester
 	if f.watch != "" {
-		if err := os.MkdirAll(f.watch, 0o755); err != nil {
-			return nil, err
-		}
 		ready := func(r *sluicepb.StepReady) { q.PublishStepReady(ctx, r) }
 		if ing, err = startIngest(ctx, f, in, st, taskPublisher{q}, ready, im, log); err != nil {
 			return nil, err
