@@ -369,6 +369,8 @@ func summarizeDemo(ctx context.Context, w io.Writer, data, name string, sc *scen
 	fmt.Fprintf(w, "plots:    %s (%d files, PNG and SVG)\n", plotDir, len(files))
 	fmt.Fprintf(w, "report:   %s\n", report)
 	fmt.Fprintf(w, "metrics:  http://%s/metrics (while running; `sluice demo --serve` keeps it up)\n", url)
+	fmt.Fprintf(w, "\nThe demo's data are in %s, not in the default --data %s: pass it to the other commands, e.g.\n", data, defaultData)
+	fmt.Fprintf(w, "  sluice report --data %s %s\n  sluice status --data %s %s\n", data, name, data, name)
 	fmt.Fprintln(w, "\nCaution: image-derived capillary pressure and contact angles are estimates; their error grows as radii")
 	fmt.Fprintln(w, "of curvature approach a few voxels. Real flow experiments involve pressurised cells, CO2 and radiation:")
 	fmt.Fprintln(w, "follow the facility's safety rules.")

@@ -22,6 +22,11 @@ func TestDemoSmall(t *testing.T) {
 	if code != exitOK {
 		t.Fatalf("sluice demo: exit %d\nstdout:\n%s\nstderr:\n%s", code, out, errs)
 	}
+	// The demo keeps its own directory; its summary must say which --data
+	// the other commands need (their default is sluice-data).
+	if want := "sluice report --data " + dir + " demo-drainage"; !strings.Contains(out, want) {
+		t.Errorf("demo summary does not tell the user %q:\n%s", want, out)
+	}
 	if n := strings.Count(out, "\nstep "); n != steps {
 		t.Errorf("demo printed %d step lines, want %d:\n%s", n, steps, out)
 	}

@@ -9,6 +9,13 @@ import (
 	"os"
 )
 
+// defaultData is the data directory of every command that reads or writes
+// a campaign's store (run, reprocess, status, plot, report, switch,
+// compare, reference): one default, so the commands find each other's
+// campaigns without --data. The demo keeps its own directory, which it
+// resets, and prints the --data to pass.
+const defaultData = "sluice-data"
+
 // stdout receives command output (tests replace it).
 var stdout io.Writer = os.Stdout
 

@@ -6,6 +6,7 @@ import (
 	"log/slog"
 	"os"
 	"path/filepath"
+	"regexp"
 	"strings"
 	"testing"
 	"time"
@@ -60,5 +61,26 @@ func TestRunRefusesMissingWatchDir(t *testing.T) {
 	}
 	if fi, err := os.Stat(missing); err != nil || !fi.IsDir() {
 		t.Errorf("--create-watch did not create %s: %v", missing, err)
+	}
+}
+
+// dataDefault finds the default of --data in a command's flag listing.
+var dataDefault = regexp.MustCompile(`(?m)^\s+--?data\b.*\n?.*\(default "([^"]*)"\)`)
+
+// Every command that opens a campaign's store defaults to the same --data
+// (plot, report, switch, compare and reference used to look in
+// sluice-demo while run, reprocess and status wrote to sluice-data, so
+// `sluice report` after `sluice run` found no campaign).
+func TestDataDefaultIsShared(t *testing.T) {
+	for _, cmd := range []string{"run", "reprocess", "status", "plot", "report", "switch", "compare", "reference"} {
+		_, out, errs := runCLI(t, cmd, "-h")
+		m := dataDefault.FindStringSubmatch(out + errs)
+		if m == nil {
+			t.Errorf("sluice %s -h shows no --data flag with a default:\n%s", cmd, out+errs)
+			continue
+		}
+		if m[1] != "sluice-data" {
+			t.Errorf("sluice %s: --data defaults to %q; want \"sluice-data\" like every other command", cmd, m[1])
+		}
 	}
 }

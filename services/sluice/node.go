@@ -54,7 +54,7 @@ const (
 
 func (f *nodeFlags) register(fs *flag.FlagSet, httpDefault string, embedded bool) {
 	if embedded {
-		fs.StringVar(&f.data, "data", "sluice-data", "data directory: local store in DATA/store, embedded NATS in DATA/nats")
+		fs.StringVar(&f.data, "data", defaultData, "data directory: local store in DATA/store, embedded NATS in DATA/nats")
 		fs.StringVar(&f.exposeNATS, "expose-nats", "", "also listen for NATS clients on `host:port`, so workers on other machines can join (beyond loopback only with --nats-users-file, --nats-user or a NATS token)")
 		fs.StringVar(&f.natsUsersFile, "nats-users-file", "", "users of the exposed NATS server: `FILE` with lines \"NAME PASSWORD\" (password may be a bcrypt hash) or a public user nkey")
 		fs.StringVar(&f.exposeTLSCert, "expose-nats-tls-cert", "", "certificate `FILE` (PEM): the exposed NATS listener requires TLS")

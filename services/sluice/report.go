@@ -28,7 +28,7 @@ func storeAt(loc string) (store.Store, error) {
 type campaignFlags struct{ data, store string }
 
 func (c *campaignFlags) register(fs *flag.FlagSet) {
-	fs.StringVar(&c.data, "data", "sluice-demo", "data directory whose store/ holds the campaign (as written by sluice run or demo)")
+	fs.StringVar(&c.data, "data", defaultData, "data directory whose store/ holds the campaign (as written by sluice run; the demo prints its own)")
 	fs.StringVar(&c.store, "store", "", "object store location instead of DATA/store (directory, file:// or s3://)")
 }
 

@@ -148,7 +148,7 @@ func runStatus(args []string) int {
 	fs := flag.NewFlagSet("status", flag.ContinueOnError)
 	var nf nodeFlags
 	nf.register(fs, "", false)
-	fs.StringVar(&nf.data, "data", "sluice-data", "data directory whose store/ holds the campaign (when --store is not given)")
+	fs.StringVar(&nf.data, "data", defaultData, "data directory whose store/ holds the campaign (when --store is not given)")
 	pos, code, ok := parseOrUsage(fs, args)
 	if !ok {
 		return code
