@@ -139,7 +139,7 @@ func TestPipelineTilingInvariance(t *testing.T) {
 			}
 			ctx, cancel := context.WithCancel(context.Background())
 			nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
-			f := ingestFlags{campaign: "tiling", config: cfgPath, watch: filepath.Join(data, "incoming")}
+			f := ingestFlags{campaign: "tiling", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true}
 			node, err := startAll(ctx, nf, inputFlags{}, f, 2, quietLog())
 			if err != nil {
 				cancel()
@@ -186,7 +186,7 @@ func TestBadScanDoesNotStopCampaign(t *testing.T) {
 	log := slog.New(slog.NewTextHandler(&logBuf, nil))
 	ctx, cancel := context.WithCancel(context.Background())
 	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
-	f := ingestFlags{campaign: "bad", config: cfgPath, watch: filepath.Join(data, "incoming")}
+	f := ingestFlags{campaign: "bad", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true}
 	node, err := startAll(ctx, nf, inputFlags{}, f, 2, log)
 	if err != nil {
 		cancel()
@@ -261,7 +261,7 @@ func TestRestartOverSameDirectory(t *testing.T) {
 		t.Fatal(err)
 	}
 	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
-	f := ingestFlags{campaign: "restart", config: cfgPath, watch: filepath.Join(data, "incoming")}
+	f := ingestFlags{campaign: "restart", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true}
 	run := func() (func(), *syncBuffer) {
 		var logBuf syncBuffer
 		ctx, cancel := context.WithCancel(context.Background())

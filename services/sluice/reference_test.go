@@ -69,7 +69,7 @@ func TestReferenceScanMode(t *testing.T) {
 
 	ctx, cancel := context.WithCancel(context.Background())
 	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
-	f := ingestFlags{campaign: "refmode", config: cfgPath, watch: filepath.Join(data, "incoming")}
+	f := ingestFlags{campaign: "refmode", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true}
 	node, err := startAll(ctx, nf, inputFlags{}, f, 2, quietLog())
 	if err != nil {
 		cancel()

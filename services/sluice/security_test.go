@@ -320,7 +320,7 @@ func TestLivePageWithToken(t *testing.T) {
 	}
 	ctx, cancel := context.WithCancel(context.Background())
 	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
-	f := ingestFlags{campaign: "tok", config: cfgPath, watch: filepath.Join(data, "incoming")}
+	f := ingestFlags{campaign: "tok", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true}
 	if st, err := nf.openStore(ctx); err != nil {
 		t.Fatal(err)
 	} else if err := prepareDemoCampaign(ctx, st, "tok", sc, demoConfig(sc, 32)); err != nil {
