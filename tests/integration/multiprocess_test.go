@@ -268,15 +268,14 @@ func TestMultiProcess(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer q.Close()
-	kinds := map[pb.StepEvent_Kind]int{}
-	var mu sync.Mutex
-	ectx, ecancel := context.WithTimeout(ctx, 3*time.Second)
-	q.Events(ectx, "mp", true, func(e *pb.StepEvent) {
-		mu.Lock()
-		kinds[e.Kind]++
-		mu.Unlock()
+	var kinds map[pb.StepEvent_Kind]int
+	waitFor(t, time.Minute, "a completion event per step and a breakthrough", func() bool {
+		kinds = map[pb.StepEvent_Kind]int{}
+		for _, e := range storedEvents(t, q, "mp") {
+			kinds[e.Kind]++
+		}
+		return kinds[pb.StepEvent_KIND_COMPLETED] >= steps && kinds[pb.StepEvent_KIND_BREAKTHROUGH] >= 1
 	})
-	ecancel()
 	if kinds[pb.StepEvent_KIND_COMPLETED] != steps || kinds[pb.StepEvent_KIND_BREAKTHROUGH] != 1 {
 		t.Errorf("events on NATS: %v; want %d completions and one breakthrough", kinds, steps)
 	}
