@@ -23,6 +23,7 @@ import (
 	"context"
 
 	"sluice/internal/testenv"
+	"sluice/pkg/layout"
 	"sluice/pkg/queue"
 	"sluice/pkg/store"
 	pb "sluice/proto/sluicepb"
@@ -193,18 +194,29 @@ tls {
 		t.Fatal(err)
 	}
 	defer q.Close()
-	if _, err := q.PublishTask(context.Background(), &pb.TileTask{Campaign: "sec", Step: "scan-0099", Tile: 0, TileCount: 1,
-		ParamHash: "5ec", Priority: pb.Priority_PRIORITY_LIVE}); err != nil {
+	// The task carries the keys the layout gives its step, or the worker
+	// refuses it before touching the store (a forged-task check) and the
+	// store failure this part is about never happens.
+	step, err := layout.NewStep("sec", "scan-0099")
+	if err != nil {
 		t.Fatal(err)
 	}
-	deadline := time.Now().Add(60 * time.Second)
-	for time.Now().Before(deadline) && !strings.Contains(wrk.String(), "scan-0099") {
-		time.Sleep(200 * time.Millisecond)
+	resultKey, err := step.TileResult(0, "5ec")
+	if err != nil {
+		t.Fatal(err)
 	}
-	if !strings.Contains(wrk.String(), "scan-0099") {
-		t.Errorf("the worker logged nothing about the task it could not run with MinIO stopped")
+	if _, err := q.PublishTask(context.Background(), &pb.TileTask{Campaign: "sec", Step: "scan-0099", Tile: 0, TileCount: 1,
+		ParamHash: "5ec", Priority: pb.Priority_PRIORITY_LIVE, Core: &pb.Box{MaxZ: 8, MaxY: 8, MaxX: 8},
+		InputKey: step.Volume(), ResultKey: resultKey, LabelKey: step.Labels()}); err != nil {
+		t.Fatal(err)
 	}
-	time.Sleep(2 * time.Second) // let the running services log what they see
+	// The search below proves nothing about the running worker until it
+	// has logged the failure that could carry a secret: wait for the store
+	// errors of that task (each attempt, then the tile given up after the
+	// store's retry budget) to be in its log.
+	waitFor(t, 3*time.Minute, "the worker to log the store failures of the task it cannot run with MinIO stopped", func() bool {
+		return logged(wrk, "scan-0099", "store operation failed") && logged(wrk, "scan-0099", "tile failed")
+	})
 	outputs = append(outputs, "aggregate:\n"+agg.String(), "worker:\n"+wrk.String())
 
 	for _, s := range []struct{ what, v string }{
@@ -224,7 +236,7 @@ tls {
 	}
 	t.Logf("searched %d outputs (%d bytes) for 4 secrets", len(outputs), total)
 	for _, l := range strings.Split(wrk.String(), "\n") {
-		if strings.Contains(l, "scan-0099") {
+		if strings.Contains(l, "scan-0099") && strings.Contains(l, "tile failed") {
 			t.Logf("worker: %s", l)
 			break
 		}
