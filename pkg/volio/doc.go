@@ -44,10 +44,16 @@
 // baseline reader, which checks every offset against the file size; other
 // 8/16-bit encodings (LZW, PackBits, tiles) go through golang.org/x/image/tiff;
 // any other compression (JPEG, CCITT, …) is refused when the slice is opened.
+// A single .tif/.tiff file is a z-stack of its pages (IFDs), one page per
+// z slice in file order; every page must have the first page's size, bit
+// depth and sample format, and the whole chain of IFDs is read and checked
+// against the voxel limit before any voxel is (a loop in the chain is an
+// error). A slice of a stack directory must hold one page.
 // Voxel size and time, which TIFF tags do not carry, come from an optional
 // stack.sluice.json inside the directory ({"shape", "dtype", "voxel_size",
 // "time_s"}, all optional; shape and dtype must agree with the slices) or
-// from Options. EncodeTIFF and WriteTIFFStack write uncompressed,
+// from Options. EncodeTIFF, EncodeTIFFPages (one file, one page per slice)
+// and WriteTIFFStack write uncompressed,
 // little-endian, single-strip baseline TIFF.
 //
 // # Zarr v2

@@ -115,6 +115,8 @@ func FuzzZarrMeta(f *testing.F) {
 	})
 }
 
+// FuzzTIFF decodes single- and multi-page TIFF (the multi-page seeds
+// include pages in LZW and Deflate and one page of the wrong size).
 func FuzzTIFF(f *testing.F) {
 	seedFiles(f, "*.tif")
 	f.Fuzz(func(t *testing.T, data []byte) {
@@ -128,17 +130,18 @@ func FuzzTIFF(f *testing.F) {
 		if n := v.Bounds().Voxels(); n > fuzzLimit || n < 1 {
 			t.Fatalf("decoded %d voxels", n)
 		}
-		// What we decoded re-encodes and decodes to the same voxels.
+		// What we decoded re-encodes, one page per slice, and decodes to
+		// the same voxels.
 		var buf bytes.Buffer
-		if err := EncodeTIFF(&buf, v, 0); err != nil {
+		if err := EncodeTIFFPages(&buf, v); err != nil {
 			t.Fatal(err)
 		}
 		w, err := decodeTIFFBytes(buf.Bytes(), fuzzLimit)
 		if err != nil {
 			t.Fatal(err)
 		}
-		if !bytes.Equal(leBytes(v), leBytes(w)) || v.DType() != w.DType() {
-			t.Fatalf("re-encoding changed the slice")
+		if !bytes.Equal(leBytes(v), leBytes(w)) || v.DType() != w.DType() || v.Bounds() != w.Bounds() {
+			t.Fatalf("re-encoding changed the volume")
 		}
 	})
 }

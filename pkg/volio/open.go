@@ -81,7 +81,7 @@ type BandReader interface {
 // Open reads a whole volume from path, detecting the format:
 //   - a directory containing .zarray: a Zarr v2 array;
 //   - any other directory: a stack of 2-D TIFF slices;
-//   - a file ending in .tif or .tiff: a single slice (nz = 1);
+//   - a file ending in .tif or .tiff: its pages, one per z slice;
 //   - any other file: raw voxels, described by <path>.sluice.json or opt
 //     (a path ending in .sluice.json names the raw file beside it).
 func Open(path string, opt Options) (volume.Any, error) {

@@ -84,9 +84,12 @@ func sortNatural(names []string) {
 	})
 }
 
+// stackStream reads a directory of single-page TIFF slices (files[z]) or
+// one multi-page TIFF file (files[0], page z at IFD offset pages[z]).
 type stackStream struct {
 	dir   string
 	files []string
+	pages []int64 // IFD offsets of a multi-page file; nil for a directory
 	h     Header
 	info  tiffInfo
 	limit int64
@@ -121,6 +124,9 @@ func openStack(dir string, opt Options) (Stream, error) {
 }
 
 func openStackFiles(name string, files []string, isDir bool, opt Options) (Stream, error) {
+	if !isDir {
+		return openMultiPage(name, opt)
+	}
 	info, err := tiffInfoOf(files[0], opt.limit())
 	if err != nil {
 		return nil, err
@@ -131,22 +137,65 @@ func openStackFiles(name string, files []string, isDir bool, opt Options) (Strea
 	}
 	// Every slice must match the first before anything is read or stored:
 	// a stack that fails half-way through would leave half a step behind.
-	for _, f := range files[1:] {
-		t, err := tiffInfoOf(f, opt.limit())
-		if err != nil {
-			return nil, err
+	for i, f := range files {
+		t := info
+		if i > 0 {
+			if t, err = tiffInfoOf(f, opt.limit()); err != nil {
+				return nil, err
+			}
+		}
+		// A slice with more pages is a stack of its own; taking its first
+		// page would drop the others without a word.
+		if t.next != 0 {
+			return nil, onePageErr(f, opt.limit())
 		}
 		if t.width != info.width || t.height != info.height || t.dtype() != info.dtype() {
 			return nil, fileErr(f, ErrFormat, "slice is %d×%d %v, the stack is %d×%d %v (from %s)", t.width, t.height, t.dtype(),
 				info.width, info.height, info.dtype(), filepath.Base(files[0]))
 		}
 	}
-	if isDir {
-		if err := applyStackHeader(filepath.Join(name, stackHeaderName), &h); err != nil {
-			return nil, err
-		}
+	if err := applyStackHeader(filepath.Join(name, stackHeaderName), &h); err != nil {
+		return nil, err
 	}
 	return &stackStream{dir: name, files: files, h: h, info: info, limit: opt.limit()}, nil
+}
+
+// onePageErr refuses a slice of a stack directory that holds several pages.
+func onePageErr(name string, limit int64) error {
+	n := "several"
+	if f, err := os.Open(name); err == nil {
+		if fi, err := f.Stat(); err == nil {
+			if t, err := readTIFFInfo(f, fi.Size(), limit); err == nil {
+				n = fmt.Sprint(countPages(f, fi.Size(), t.order, t.next, 2))
+			}
+		}
+		f.Close()
+	}
+	return fileErr(name, ErrFormat, "TIFF: %s pages in a slice of a stack directory, which takes one page per file; open a multi-page TIFF on its own", n)
+}
+
+// openMultiPage opens one TIFF file whose pages are the z slices (a single
+// page is a volume of one slice). Every page's IFD is read and checked
+// against the first before any voxel is.
+func openMultiPage(name string, opt Options) (Stream, error) {
+	f, err := os.Open(name)
+	if err != nil {
+		return nil, osErr(name, err)
+	}
+	defer f.Close()
+	fi, err := f.Stat()
+	if err != nil {
+		return nil, osErr(name, err)
+	}
+	info, pages, err := readTIFFPages(f, fi.Size(), opt.limit())
+	if err != nil {
+		return nil, tiffErr(name, err)
+	}
+	h := Header{Format: "tiff", Shape: [3]int{len(pages), info.height, info.width}, DType: info.dtype(), VoxelSize: opt.VoxelSize}
+	if _, ok := mulLimit(h.Shape, opt.limit()); !ok {
+		return nil, fileErr(name, ErrTooLarge, "TIFF of %d pages of %d×%d exceeds the limit of %d voxels", h.Shape[0], h.Shape[2], h.Shape[1], opt.limit())
+	}
+	return &stackStream{dir: name, files: []string{name}, pages: pages, h: h, info: info, limit: opt.limit()}, nil
 }
 
 // checkNumbering finds a missing slice in a stack whose file names differ
@@ -277,12 +326,47 @@ func (s *stackStream) ReadSlab(z0, z1 int) (volume.Any, error) {
 		return nil, fileErr(s.dir, ErrTooLarge, "slab %d:%d of %d×%d voxels per slice exceeds the limit of %d", z0, z1, sh[1], sh[2], s.limit)
 	}
 	v := newVolume(s.h.DType, volume.Box{Min: [3]int{z0, 0, 0}, Max: [3]int{z1, sh[1], sh[2]}}, s.h.VoxelSize)
+	if s.pages != nil {
+		return v, s.readPages(v, z0, z1)
+	}
 	for z := z0; z < z1; z++ {
 		if err := s.readSlice(s.files[z], v, z); err != nil {
 			return nil, err
 		}
 	}
 	return v, nil
+}
+
+// readPages decodes pages z0 <= z < z1 of a multi-page file into v.
+func (s *stackStream) readPages(v volume.Any, z0, z1 int) error {
+	name := s.files[0]
+	f, err := os.Open(name)
+	if err != nil {
+		return osErr(name, err)
+	}
+	defer f.Close()
+	fi, err := f.Stat()
+	if err != nil {
+		return osErr(name, err)
+	}
+	for z := z0; z < z1; z++ {
+		// The file may have changed since it was opened: read the page's
+		// IFD again and check it against the header.
+		t, err := readIFD(f, fi.Size(), s.limit, s.info.order, s.pages[z])
+		if err == nil && (t.width != s.h.Shape[2] || t.height != s.h.Shape[1] || t.dtype() != s.h.DType) {
+			err = fmt.Errorf("%w: page is %d×%d %v, page 1 is %d×%d %v", ErrFormat, t.width, t.height, t.dtype(), s.h.Shape[2], s.h.Shape[1], s.h.DType)
+		}
+		if err == nil {
+			err = decodeTIFF(f, fi.Size(), t, v, z)
+		}
+		if err != nil {
+			if len(s.pages) > 1 {
+				err = pageErr(z+1, err)
+			}
+			return tiffErr(name, err)
+		}
+	}
+	return nil
 }
 
 func (s *stackStream) readSlice(name string, v volume.Any, z int) error {

@@ -9,6 +9,7 @@ import (
 	"image"
 	"io"
 	"math"
+	"strings"
 
 	xtiff "golang.org/x/image/tiff"
 
@@ -18,6 +19,7 @@ import (
 // TIFF tag numbers and values used here (TIFF 6.0, Adobe 1992; SampleFormat
 // from the same specification, section 19).
 const (
+	tagNewSubfileType  = 254
 	tagImageWidth      = 256
 	tagImageLength     = 257
 	tagBitsPerSample   = 258
@@ -46,7 +48,7 @@ const (
 	typeLong  = 4
 )
 
-// tiffInfo is what we need from the first image file directory.
+// tiffInfo is what we need from one image file directory (one page).
 type tiffInfo struct {
 	order         binary.ByteOrder
 	width, height int
@@ -58,6 +60,8 @@ type tiffInfo struct {
 	predictor     int
 	rowsPerStrip  int
 	tiled         bool
+	subfile       int   // NewSubfileType; bit 0 marks a reduced-resolution copy
+	ifd, next     int64 // offsets of this IFD and of the next one (0: none)
 	stripOffsets  []uint64
 	stripCounts   []uint64
 }
@@ -102,25 +106,41 @@ var errTIFFShort = errors.New("short")
 // given size. It checks every offset against size and the image against
 // limit voxels before anything proportional to the image is allocated.
 func readTIFFInfo(r io.ReaderAt, size int64, limit int64) (tiffInfo, error) {
-	var t tiffInfo
+	order, ifd, err := readTIFFHeader(r, size)
+	if err != nil {
+		return tiffInfo{}, err
+	}
+	return readIFD(r, size, limit, order, ifd)
+}
+
+// readTIFFHeader reads the byte order and the offset of the first IFD.
+func readTIFFHeader(r io.ReaderAt, size int64) (binary.ByteOrder, int64, error) {
 	var hdr [8]byte
 	if size < 8 {
-		return t, fmt.Errorf("%w: file of %d bytes is shorter than a TIFF header", ErrTruncated, size)
+		return nil, 0, fmt.Errorf("%w: file of %d bytes is shorter than a TIFF header", ErrTruncated, size)
 	}
 	if _, err := r.ReadAt(hdr[:], 0); err != nil {
-		return t, err
+		return nil, 0, err
 	}
+	var order binary.ByteOrder
 	switch string(hdr[:4]) {
 	case "II*\x00":
-		t.order = binary.LittleEndian
+		order = binary.LittleEndian
 	case "MM\x00*":
-		t.order = binary.BigEndian
+		order = binary.BigEndian
 	case "II+\x00", "MM\x00+":
-		return t, fmt.Errorf("%w: BigTIFF is not supported", ErrFormat)
+		return nil, 0, fmt.Errorf("%w: BigTIFF is not supported", ErrFormat)
 	default:
-		return t, fmt.Errorf("%w: not a TIFF file (magic % x)", ErrFormat, hdr[:4])
+		return nil, 0, fmt.Errorf("%w: not a TIFF file (magic % x)", ErrFormat, hdr[:4])
 	}
-	ifd := int64(t.order.Uint32(hdr[4:]))
+	return order, int64(order.Uint32(hdr[4:])), nil
+}
+
+// readIFD parses the image file directory at offset ifd (TIFF 6.0 section
+// 2) and validates its image as readTIFFInfo does; the result's next is the
+// offset of the following IFD, 0 at the end of the chain.
+func readIFD(r io.ReaderAt, size int64, limit int64, order binary.ByteOrder, ifd int64) (tiffInfo, error) {
+	t := tiffInfo{order: order, ifd: ifd}
 	if ifd < 8 || ifd+2 > size {
 		return t, fmt.Errorf("%w: IFD offset %d outside the file of %d bytes", ErrTruncated, ifd, size)
 	}
@@ -132,9 +152,17 @@ func readTIFFInfo(r io.ReaderAt, size int64, limit int64) (tiffInfo, error) {
 	if n == 0 || ifd+2+12*n > size {
 		return t, fmt.Errorf("%w: IFD of %d entries at %d does not fit in %d bytes", ErrTruncated, n, ifd, size)
 	}
-	entries := make([]byte, 12*n)
+	// The entries and the offset of the next IFD; a file that ends right
+	// after the entries has no next IFD.
+	entries := make([]byte, 12*n+4)
+	if ifd+2+12*n+4 > size {
+		entries = entries[:12*n]
+	}
 	if _, err := r.ReadAt(entries, ifd+2); err != nil {
 		return t, err
+	}
+	if len(entries) > int(12*n) {
+		t.next = int64(t.order.Uint32(entries[12*n:]))
 	}
 	// Defaults of TIFF 6.0; a missing PhotometricInterpretation is read as
 	// black-is-zero, the usual meaning for grey scientific images.
@@ -218,6 +246,8 @@ func readTIFFInfo(r io.ReaderAt, size int64, limit int64) (tiffInfo, error) {
 			t.sampleFormat, err = one()
 		case tagTileWidth:
 			t.tiled = true
+		case tagNewSubfileType:
+			t.subfile, err = one()
 		case tagStripOffsets:
 			// Each strip holds at least one row, so there are at most
 			// size/4 of them in any file that fits (checked again below).
@@ -272,7 +302,111 @@ func readTIFFInfo(r io.ReaderAt, size int64, limit int64) (tiffInfo, error) {
 	return t, nil
 }
 
-// decodeTIFF reads the first image of the TIFF in r (of size bytes) into the
+// readTIFFPages walks the IFD chain of a multi-page TIFF: each page is one
+// z slice and must have the first page's size, bit depth and sample format.
+// It returns the first page and every page's IFD offset, checking the
+// running voxel count against limit page by page, so neither a long chain
+// nor a loop in it can make it allocate more than the file's size allows.
+func readTIFFPages(r io.ReaderAt, size int64, limit int64) (tiffInfo, []int64, error) {
+	first, err := readTIFFInfo(r, size, limit)
+	if err != nil {
+		return first, nil, err
+	}
+	ifds := []int64{first.ifd}
+	seen := map[int64]int{first.ifd: 1}
+	for next := first.next; next != 0; {
+		page := len(ifds) + 1
+		if p, ok := seen[next]; ok {
+			return first, nil, fmt.Errorf("%w: page %d links back to page %d (a loop in the IFD chain)", ErrFormat, page-1, p)
+		}
+		if _, ok := mulLimit([3]int{page, first.height, first.width}, limit); !ok {
+			return first, nil, fmt.Errorf("%w: %d or more pages of %d×%d pixels exceed the limit of %d voxels", ErrTooLarge, page, first.width, first.height, limit)
+		}
+		t, err := readIFD(r, size, limit, first.order, next)
+		if err != nil {
+			return first, nil, pageErr(page, err)
+		}
+		if t.width != first.width || t.height != first.height || t.bits != first.bits || t.sampleFormat != first.sampleFormat {
+			what := ""
+			if t.subfile&1 != 0 {
+				what = " (a reduced-resolution copy)"
+			}
+			return first, nil, fmt.Errorf("%w: page %d of %d is %d×%d %v%s, page 1 is %d×%d %v; every page is one z slice and must match the first",
+				ErrFormat, page, countPages(r, size, first.order, next, page), t.width, t.height, t.dtype(), what, first.width, first.height, first.dtype())
+		}
+		seen[next] = page
+		ifds = append(ifds, next)
+		next = t.next
+	}
+	return first, ifds, nil
+}
+
+// countPages counts the pages of the chain from the IFD at off (page
+// number page) for an error message, stopping at a loop, a bad offset or
+// 1<<20 pages.
+func countPages(r io.ReaderAt, size int64, order binary.ByteOrder, off int64, page int) int {
+	seen := map[int64]bool{}
+	for off >= 8 && off+2 <= size && !seen[off] && page < 1<<20 {
+		seen[off] = true
+		var nb [2]byte
+		if _, err := r.ReadAt(nb[:], off); err != nil {
+			break
+		}
+		at := off + 2 + 12*int64(order.Uint16(nb[:]))
+		var b [4]byte
+		if at+4 > size {
+			break
+		}
+		if _, err := r.ReadAt(b[:], at); err != nil {
+			break
+		}
+		off = int64(order.Uint32(b[:]))
+		if off == 0 {
+			break
+		}
+		page++
+	}
+	return page
+}
+
+// pageErr puts the page number into an error of readIFD, keeping its kind.
+func pageErr(page int, err error) error {
+	for _, s := range []error{ErrTruncated, ErrFormat, ErrTooLarge} {
+		if errors.Is(err, s) {
+			return fmt.Errorf("%w: page %d: %s", s, page, strings.TrimPrefix(err.Error(), s.Error()+": "))
+		}
+	}
+	return fmt.Errorf("page %d: %w", page, err)
+}
+
+// pageView shows one page of a multi-page TIFF as the first image of the
+// file: golang.org/x/image/tiff decodes the first IFD only, so the header's
+// IFD offset (bytes 4 to 8) reads as the page's.
+type pageView struct {
+	r    io.ReaderAt
+	head [8]byte
+}
+
+func newPageView(r io.ReaderAt, t tiffInfo) pageView {
+	p := pageView{r: r}
+	if t.order == binary.BigEndian {
+		copy(p.head[:], "MM\x00*")
+	} else {
+		copy(p.head[:], "II*\x00")
+	}
+	t.order.PutUint32(p.head[4:], uint32(t.ifd))
+	return p
+}
+
+func (p pageView) ReadAt(b []byte, off int64) (int, error) {
+	n, err := p.r.ReadAt(b, off)
+	for i := off; i < 8 && i < off+int64(n); i++ {
+		b[i-off] = p.head[i]
+	}
+	return n, err
+}
+
+// decodeTIFF reads the page t of the TIFF in r (of size bytes) into the
 // z-slice z of v, whose y and x extents must equal the image's.
 func decodeTIFF(r io.ReaderAt, size int64, t tiffInfo, v volume.Any, z int) error {
 	if t.ownPath() {
@@ -283,6 +417,7 @@ func decodeTIFF(r io.ReaderAt, size int64, t tiffInfo, v volume.Any, z int) erro
 	}
 	// x/image/tiff parses the IFD again; check its idea of the size before
 	// it allocates.
+	r = newPageView(r, t)
 	cfg, err := xtiff.DecodeConfig(io.NewSectionReader(r, 0, size))
 	if err != nil {
 		return fmt.Errorf("%w: %w", ErrFormat, err)
@@ -411,13 +546,29 @@ func EncodeTIFF(w io.Writer, v volume.Any, z int) error {
 	if z < b.Min[0] || z >= b.Max[0] {
 		return fmt.Errorf("volio: slice %d outside %v", z, b)
 	}
+	return encodePages(w, v, z, z+1)
+}
+
+// EncodeTIFFPages writes every z slice of v as one page of a single
+// multi-page TIFF (pages in z order, each as EncodeTIFF writes a slice),
+// the layout OpenStream reads back as a z-stack.
+func EncodeTIFFPages(w io.Writer, v volume.Any) error {
+	if err := checkVolume(v); err != nil {
+		return fmt.Errorf("volio: %w", err)
+	}
+	b := v.Bounds()
+	return encodePages(w, v, b.Min[0], b.Max[0])
+}
+
+// encodePages writes slices z0 <= z < z1 of v as consecutive pages: each
+// IFD followed by its strip, padded to an even offset (TIFF 6.0 wants IFDs
+// on word boundaries), the last IFD ending the chain with offset 0.
+func encodePages(w io.Writer, v volume.Any, z0, z1 int) error {
+	b := v.Bounds()
 	s := b.Size()
 	height, width := s[1], s[2]
 	bps := v.DType().Size()
 	data := int64(width) * int64(height) * int64(bps)
-	if data > math.MaxUint32-1024 {
-		return fmt.Errorf("volio: slice of %d bytes is too big for a classic TIFF", data)
-	}
 	format := sampleUint
 	if v.DType() == volume.Float32 {
 		format = sampleFloat
@@ -429,59 +580,87 @@ func EncodeTIFF(w io.Writer, v volume.Any, z int) error {
 		{tagBitsPerSample, typeShort, uint32(8 * bps)},
 		{tagCompression, typeShort, compNone},
 		{tagPhotometric, typeShort, photoBlackIsZero},
-		{tagStripOffsets, typeLong, 0}, // patched below
+		{tagStripOffsets, typeLong, 0}, // set per page below
 		{tagSamplesPerPixel, typeShort, 1},
 		{tagRowsPerStrip, typeLong, uint32(height)},
 		{tagStripByteCounts, typeLong, uint32(data)},
 		{tagPlanarConfig, typeShort, 1},
 		{tagSampleFormat, typeShort, uint32(format)},
 	}
+	ifdLen := int64(2 + 12*len(entries) + 4)
+	pageLen := ifdLen + data + data%2
+	if 8+int64(z1-z0)*pageLen > math.MaxUint32-1024 {
+		return fmt.Errorf("volio: %d pages of %d bytes are too big for a classic TIFF", z1-z0, data)
+	}
 	le := binary.LittleEndian
-	ifdLen := 2 + 12*len(entries) + 4
-	pixOff := 8 + ifdLen
-	head := make([]byte, pixOff)
+	head := make([]byte, 8)
 	copy(head, "II*\x00")
 	le.PutUint32(head[4:], 8)
-	le.PutUint16(head[8:], uint16(len(entries)))
-	for i, e := range entries {
-		p := head[10+12*i:]
-		le.PutUint16(p, uint16(e.tag))
-		le.PutUint16(p[2:], uint16(e.typ))
-		le.PutUint32(p[4:], 1)
-		if e.tag == tagStripOffsets {
-			e.val = uint32(pixOff)
-		}
-		if e.typ == typeShort {
-			le.PutUint16(p[8:], uint16(e.val))
-		} else {
-			le.PutUint32(p[8:], e.val)
-		}
-	}
-	// next IFD offset = 0 (already zero)
 	if _, err := w.Write(head); err != nil {
 		return err
 	}
+	ifd := make([]byte, ifdLen)
 	row := make([]byte, width*bps)
-	for y := 0; y < height; y++ {
-		encodeAt(row, v, pixOffset(v, z, b.Min[1]+y, b.Min[2]), le)
-		if _, err := w.Write(row); err != nil {
+	for z := z0; z < z1; z++ {
+		at := 8 + int64(z-z0)*pageLen // this page's IFD
+		le.PutUint16(ifd, uint16(len(entries)))
+		for i, e := range entries {
+			p := ifd[2+12*i:]
+			le.PutUint16(p, uint16(e.tag))
+			le.PutUint16(p[2:], uint16(e.typ))
+			le.PutUint32(p[4:], 1)
+			if e.tag == tagStripOffsets {
+				e.val = uint32(at + ifdLen)
+			}
+			le.PutUint32(p[8:], 0)
+			if e.typ == typeShort {
+				le.PutUint16(p[8:], uint16(e.val))
+			} else {
+				le.PutUint32(p[8:], e.val)
+			}
+		}
+		next := uint32(0)
+		if z+1 < z1 {
+			next = uint32(at + pageLen)
+		}
+		le.PutUint32(ifd[ifdLen-4:], next)
+		if _, err := w.Write(ifd); err != nil {
 			return err
+		}
+		for y := 0; y < height; y++ {
+			encodeAt(row, v, pixOffset(v, z, b.Min[1]+y, b.Min[2]), le)
+			if _, err := w.Write(row); err != nil {
+				return err
+			}
+		}
+		if data%2 == 1 {
+			if _, err := w.Write([]byte{0}); err != nil {
+				return err
+			}
 		}
 	}
 	return nil
 }
 
-// decodeTIFFBytes reads a single-slice TIFF held in memory (used by the
-// fuzz test and handy for small slices).
+// decodeTIFFBytes reads a TIFF held in memory, every page one z slice (used
+// by the fuzz test and handy for small volumes).
 func decodeTIFFBytes(data []byte, limit int64) (volume.Any, error) {
 	r := bytes.NewReader(data)
-	t, err := readTIFFInfo(r, int64(len(data)), limit)
+	size := int64(len(data))
+	t, ifds, err := readTIFFPages(r, size, limit)
 	if err != nil {
 		return nil, err
 	}
-	v := newVolume(t.dtype(), volume.BoxOf(1, t.height, t.width), 0)
-	if err := decodeTIFF(r, int64(len(data)), t, v, 0); err != nil {
-		return nil, err
+	v := newVolume(t.dtype(), volume.BoxOf(len(ifds), t.height, t.width), 0)
+	for z, ifd := range ifds {
+		if z > 0 {
+			if t, err = readIFD(r, size, limit, t.order, ifd); err != nil {
+				return nil, pageErr(z+1, err)
+			}
+		}
+		if err := decodeTIFF(r, size, t, v, z); err != nil {
+			return nil, pageErr(z+1, err)
+		}
 	}
 	return v, nil
 }

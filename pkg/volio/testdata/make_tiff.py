@@ -17,3 +17,16 @@ tifffile.imwrite("tifffile_f4.tif", f4, rowsperstrip=2)
 tifffile.imwrite("tifffile_f4_be_zlib.tif", f4, byteorder=">", compression="zlib")
 Image.fromarray(u8).save("pil_u8_lzw.tif", compression="tiff_lzw")
 Image.fromarray(u16).save("pil_u16_packbits.tif", compression="packbits")
+
+# Multi-page seeds for FuzzTIFF: the same images as pages (page k adds k),
+# plain, Deflate with predictor, LZW, and one whose third page is narrower.
+def stack(a):
+    return np.stack([a + k for k in range(3)]).astype(a.dtype)
+
+tifffile.imwrite("tifffile_u8_pages.tif", stack(u8), photometric="minisblack")
+tifffile.imwrite("tifffile_u16_pages_zlib_pred.tif", stack(u16), photometric="minisblack", compression="zlib", predictor=True)
+pil = [Image.fromarray(p) for p in stack(u8)]
+pil[0].save("pil_u8_pages_lzw.tif", save_all=True, append_images=pil[1:], compression="tiff_lzw")
+with tifffile.TiffWriter("tifffile_pages_narrow.tif") as w:
+    for p in (u8, u8, u8[:, :4]):
+        w.write(p, photometric="minisblack", contiguous=False)
