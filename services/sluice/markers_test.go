@@ -2,6 +2,8 @@ package main
 
 import (
 	"context"
+	"encoding/json"
+	"fmt"
 	"io"
 	"log/slog"
 	"os"
@@ -10,6 +12,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"sluice/pkg/series"
 )
 
 // `sluice run --watch nosuchdir` used to create the folder and wait for
@@ -82,5 +86,119 @@ func TestDataDefaultIsShared(t *testing.T) {
 		if m[1] != "sluice-data" {
 			t.Errorf("sluice %s: --data defaults to %q; want \"sluice-data\" like every other command", cmd, m[1])
 		}
+	}
+}
+
+// timelessArchive is archive without any time: markers removed and
+// time_s dropped from the raw headers.
+func timelessArchive(t *testing.T, dir string, steps int) string {
+	t.Helper()
+	cfgPath, _ := archive(t, dir, steps)
+	for i := 0; i < steps; i++ {
+		p := filepath.Join(dir, fmt.Sprintf("scan-%04d.raw", i))
+		if err := os.Remove(p + ".done"); err != nil {
+			t.Fatal(err)
+		}
+		var h map[string]any
+		b, err := os.ReadFile(p + ".sluice.json")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := json.Unmarshal(b, &h); err != nil {
+			t.Fatal(err)
+		}
+		delete(h, "time_s")
+		if b, err = json.Marshal(h); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(p+".sluice.json", b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return cfgPath
+}
+
+// `reprocess --from` over scans with no time used to put every step at
+// t = 0 (and the report then dated breakthrough "at t = 0 s"). Now a scan
+// without a time is refused before anything is stored; --times supplies
+// the times (its bad rows are one-line errors naming file and line); a
+// marker that is not the documented JSON rejects its scan only.
+func TestReprocessStepTimes(t *testing.T) {
+	if testing.Short() {
+		t.Skip("pipeline test")
+	}
+	dir := t.TempDir()
+	scans := filepath.Join(dir, "scans")
+	cfgPath := timelessArchive(t, scans, 3)
+	data := filepath.Join(dir, "data")
+	oneLine := func(args []string, want ...string) {
+		t.Helper()
+		code, _, errs := runCLI(t, args...)
+		msg := strings.TrimSpace(errs)
+		if code != exitBadInput || strings.Contains(msg, "\n") {
+			t.Errorf("%v: exit %d, stderr %q; want exit 2 and one line", args[len(args)-2:], code, msg)
+		}
+		for _, w := range want {
+			if !strings.Contains(msg, w) {
+				t.Errorf("%v: %q does not say %q", args[len(args)-2:], msg, w)
+			}
+		}
+	}
+	base := []string{"reprocess", "tm", "--from", scans, "--config", cfgPath, "--data", data, "--workers", "2"}
+	oneLine(base, "3 scans have no experiment time", "scan-0000.raw", "--times")
+	if _, err := os.Stat(filepath.Join(data, "store", "campaigns", "tm", "steps")); err == nil {
+		t.Fatalf("steps were stored although their scans have no time")
+	}
+
+	csvFile := func(name, body string) string {
+		p := filepath.Join(dir, name)
+		if err := os.WriteFile(p, []byte(body), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	for _, c := range []struct{ name, body, want string }{
+		{"noheader.csv", "scan-0000,0\nscan-0002,600\n", "noheader.csv:1: the first line must be the header step,time_s"},
+		{"word.csv", "step,time_s\nscan-0000,0\nscan-0002,ten\n", `word.csv:3: time_s "ten" is not a number`},
+		{"dup.csv", "step,time_s\nscan-0000,0\n# a comment\nscan-0000.raw,600\n", "dup.csv:4: step scan-0000 repeated (first on line 2)"},
+		{"neg.csv", "step,time_s\nscan-0000,-300\n", "neg.csv:2: time_s -300 is negative"},
+		{"nan.csv", "step,time_s\nscan-0000,NaN\n", `nan.csv:2: time_s "NaN" is not finite`},
+		{"inf.csv", "step,time_s\nscan-0000,+Inf\n", `inf.csv:2: time_s "+Inf" is not finite`},
+		{"short.csv", "step,time_s\nscan-0000\n", "short.csv:2: want 2 fields"},
+		{"typo.csv", "step,time_s\nscan-0000,0\nscna-0002,600\n", "typo.csv:3: step scna-0002 matches no volume"},
+	} {
+		oneLine(append(base, "--times", csvFile(c.name, c.body)), c.want)
+	}
+
+	// scan-0001's marker is not JSON: that scan alone is rejected, the two
+	// others get the times of the CSV.
+	if err := os.WriteFile(filepath.Join(scans, "scan-0001.done"), []byte("time 405\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	times := csvFile("times.csv", "step,time_s\nscan-0000,0\nscan-0002.raw,912.5\n")
+	code, out, errs := runCLI(t, append(base, "--times", times)...)
+	if code != exitBadInput || !strings.Contains(errs, filepath.Join(scans, "scan-0001.done")+": not empty and not a JSON object") {
+		t.Fatalf("reprocess with a bad marker: exit %d, want 2 naming scan-0001.done\nstdout:\n%s\nstderr:\n%s", code, out, errs)
+	}
+	if n := strings.Count(errs, "scan-0001.done"); n != 1 {
+		t.Errorf("the bad marker is named on %d lines, want 1:\n%s", n, errs)
+	}
+	st, err := storeAt(filepath.Join(data, "store"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	rows, err := series.Load(context.Background(), st, "tm")
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := map[string]float64{}
+	for _, r := range rows {
+		got[r.Step] = r.Time
+	}
+	if len(got) != 2 || got["scan-0002"] != 912.5 {
+		t.Errorf("series steps and times %v; want scan-0000 at 0 s and scan-0002 at 912.5 s (scan-0001 rejected)", got)
+	}
+	if _, ok := got["scan-0000"]; !ok {
+		t.Errorf("series has no scan-0000: %v", got)
 	}
 }

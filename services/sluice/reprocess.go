@@ -14,12 +14,14 @@ package main
 
 import (
 	"context"
-	"encoding/json"
+	"encoding/csv"
 	"errors"
 	"flag"
 	"fmt"
+	"io"
 	"io/fs"
 	"log/slog"
+	"math"
 	"os"
 	"path/filepath"
 	"runtime"
@@ -43,13 +45,15 @@ import (
 
 // reprocessRequest is what `sluice reprocess` was asked to do.
 type reprocessRequest struct {
-	Campaign string
-	Steps    string   // selection such as "10-250,300" (numbers at the end of step names); "" = all
-	Sets     []string // dotted key=value assignments
-	Config   string   // config file replacing the campaign's current config
-	From     string   // directory of volumes to ingest as steps first
-	ReadOpt  volio.Options
-	Workers  int // pass-1 goroutines (0 = all CPUs)
+	Campaign  string
+	Steps     string     // selection such as "10-250,300" (numbers at the end of step names); "" = all
+	Sets      []string   // dotted key=value assignments
+	Config    string     // config file replacing the campaign's current config
+	From      string     // directory of volumes to ingest as steps first
+	Times     string     // CSV file of step,time_s for the volumes of From
+	stepTimes *stepTimes // Times, read
+	ReadOpt   volio.Options
+	Workers   int // pass-1 goroutines (0 = all CPUs)
 }
 
 // runSummary is what startRun found and queued.
@@ -63,6 +67,7 @@ type runSummary struct {
 	Complete []string // steps with every tile stored but no result yet
 	Redone   []string // results of another software version, cleared to be redone
 	Ingested []string // steps ingested from --from
+	Rejected []error  // scans of --from not ingested (an unusable marker)
 }
 
 // runStore is the object storage reprocessing needs.
@@ -174,14 +179,23 @@ func (sel stepSelection) has(name string) bool {
 }
 
 // archiveVolumes lists the volumes of a directory in name order: every entry
-// but dot files, markers (<scan>.done, whose JSON may give the time) and
-// header side files (<scan>.sluice.json).
-func archiveVolumes(dir string) ([]ingest.Request, error) {
+// but dot files, markers (scan_0042.raw.done or scan_0042.done, whose JSON
+// may give the time) and header side files (<scan>.sluice.json). A step's
+// time comes from times (--times) first, else from its marker; a volume
+// whose marker is unusable (not the documented JSON, or ambiguous) is
+// returned in rejected, not given t = 0. A row of times that names no
+// volume of the directory is an error (a typo would otherwise leave a step
+// without the time it was meant to get).
+func archiveVolumes(dir string, times *stepTimes) (vols []ingest.Request, rejected []error, err error) {
 	ents, err := os.ReadDir(dir)
 	if err != nil {
-		return nil, fmt.Errorf("--from %s: %w", dir, err)
+		return nil, nil, fmt.Errorf("--from %s: %w", dir, err)
 	}
-	var out []ingest.Request
+	names := map[string]bool{}
+	for _, e := range ents {
+		names[e.Name()] = true
+	}
+	used := map[string]bool{}
 	for _, e := range ents {
 		name := e.Name()
 		if strings.HasPrefix(name, ".") || strings.HasSuffix(name, ingest.Marker) || strings.HasSuffix(name, ".sluice.json") {
@@ -190,20 +204,138 @@ func archiveVolumes(dir string) ([]ingest.Request, error) {
 		path := filepath.Join(dir, name)
 		step, err := ingest.StepName(name)
 		if err != nil {
-			return nil, err
+			return nil, nil, err
 		}
 		req := ingest.Request{Step: step, Path: path, Priority: sluicepb.Priority_PRIORITY_BATCH}
-		if b, err := os.ReadFile(path + ingest.Marker); err == nil {
-			var m struct {
-				TimeS *float64 `json:"time_s"`
+		if r, ok := times.row(step); ok {
+			req.TimeS, req.HasTime = r.t, true
+			used[step] = true
+		} else {
+			marker, err := ingest.MarkerFor(names, name)
+			if err == nil && marker != "" {
+				req.TimeS, req.HasTime, err = ingest.ReadMarker(filepath.Join(dir, marker))
 			}
-			if json.Unmarshal(b, &m) == nil && m.TimeS != nil {
-				req.TimeS, req.HasTime = *m.TimeS, true
+			if err != nil {
+				rejected = append(rejected, fmt.Errorf("%s: %w", path, err))
+				continue
 			}
 		}
-		out = append(out, req)
+		vols = append(vols, req)
 	}
-	return out, nil
+	if times != nil {
+		for step, r := range times.rows {
+			if !used[step] {
+				return nil, nil, fmt.Errorf("--times %s:%d: step %s matches no volume in --from %s", times.file, r.line, step, dir)
+			}
+		}
+	}
+	return vols, rejected, nil
+}
+
+// stepTimes is a --times file: the experiment time of each step.
+type stepTimes struct {
+	file string
+	rows map[string]timeRow
+}
+
+type timeRow struct {
+	t    float64
+	line int
+}
+
+func (s *stepTimes) row(step string) (timeRow, bool) {
+	if s == nil {
+		return timeRow{}, false
+	}
+	r, ok := s.rows[step]
+	return r, ok
+}
+
+// readStepTimes reads a CSV file with the header step,time_s and one row
+// per step: the step name (or the scan's file name, from which the step
+// name is derived) and its experiment time in seconds, finite and ≥ 0.
+// Lines starting with # are comments. Every error names the file and line.
+func readStepTimes(path string) (*stepTimes, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("--times %w", err)
+	}
+	defer f.Close()
+	r := csv.NewReader(f)
+	r.Comment, r.FieldsPerRecord, r.TrimLeadingSpace = '#', -1, true
+	st := &stepTimes{file: path, rows: map[string]timeRow{}}
+	header := true
+	for {
+		rec, err := r.Read()
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			return nil, fmt.Errorf("--times %w", err) // csv.ParseError carries file position
+		}
+		line, _ := r.FieldPos(0)
+		at := fmt.Sprintf("--times %s:%d", path, line)
+		for i := range rec {
+			rec[i] = strings.TrimSpace(rec[i])
+		}
+		if header {
+			header = false
+			if len(rec) != 2 || !strings.EqualFold(rec[0], "step") || !strings.EqualFold(rec[1], "time_s") {
+				return nil, fmt.Errorf("%s: the first line must be the header step,time_s, got %q", at, strings.Join(rec, ","))
+			}
+			continue
+		}
+		if len(rec) != 2 {
+			return nil, fmt.Errorf("%s: want 2 fields step,time_s, got %d", at, len(rec))
+		}
+		step, err := ingest.StepName(rec[0])
+		if err != nil || rec[0] == "" {
+			return nil, fmt.Errorf("%s: %q is not a step name", at, rec[0])
+		}
+		t, err := strconv.ParseFloat(rec[1], 64)
+		switch {
+		case err != nil:
+			return nil, fmt.Errorf("%s: time_s %q is not a number of seconds", at, rec[1])
+		case math.IsNaN(t) || math.IsInf(t, 0):
+			return nil, fmt.Errorf("%s: time_s %q is not finite", at, rec[1])
+		case t < 0:
+			return nil, fmt.Errorf("%s: time_s %g is negative", at, t)
+		}
+		if prev, dup := st.rows[step]; dup {
+			return nil, fmt.Errorf("%s: step %s repeated (first on line %d)", at, step, prev.line)
+		}
+		st.rows[step] = timeRow{t: t, line: line}
+	}
+	if header {
+		return nil, fmt.Errorf("--times %s: empty; want the header step,time_s and one row per step", path)
+	}
+	return st, nil
+}
+
+// listSome joins the first n names and says how many more there are.
+func listSome(names []string, n int) string {
+	if len(names) <= n {
+		return strings.Join(names, ", ")
+	}
+	return fmt.Sprintf("%s and %d more", strings.Join(names[:n], ", "), len(names)-n)
+}
+
+// noTime lists the volumes that have no experiment time from --times, a
+// marker or their own header. A fabricated t = 0 would put them all at the
+// start of the campaign and date its events wrongly, so startRun refuses
+// them; volumes whose header cannot be read are left to the ingest, which
+// reports them.
+func noTime(vols []ingest.Request, opt volio.Options) []string {
+	var out []string
+	for _, v := range vols {
+		if v.HasTime {
+			continue
+		}
+		if h, err := volio.ReadHeader(v.Path, opt); err == nil && !h.HasTime {
+			out = append(out, filepath.Base(v.Path))
+		}
+	}
+	return out
 }
 
 // runConfig works out the run's configuration: the campaign's current
@@ -263,11 +395,14 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 	}
 
 	if req.From != "" {
-		vols, err := archiveVolumes(req.From)
+		vols, rejected, err := archiveVolumes(req.From, req.stepTimes)
 		if err != nil {
 			return sum, fmt.Errorf("campaign %s: %w", c.Name(), err)
 		}
-		ing := &ingest.Ingester{Store: st, Log: log, Version: Version, ReadOpt: req.ReadOpt}
+		sum.Rejected = rejected
+		// Steps stored before keep their manifest (and time); only the new
+		// ones must each have a time before anything is stored.
+		var todo []ingest.Request
 		for _, v := range vols {
 			step, err := c.Step(v.Step)
 			if err != nil {
@@ -279,6 +414,13 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 				}
 				continue // ingested before: the manifest is written last
 			}
+			todo = append(todo, v)
+		}
+		if missing := noTime(todo, req.ReadOpt); len(missing) > 0 {
+			return sum, fmt.Errorf("--from %s: %d scans have no experiment time (%s): give --times FILE (CSV step,time_s), a marker {\"time_s\": …} beside each scan, or a time in the scan's header", req.From, len(missing), listSome(missing, 3))
+		}
+		ing := &ingest.Ingester{Store: st, Log: log, Version: Version, ReadOpt: req.ReadOpt}
+		for _, v := range todo {
 			v.Campaign = c.Name()
 			if _, err := ing.StoreStep(ctx, v); err != nil {
 				return sum, fmt.Errorf("campaign %s step %s: %s: %w", c.Name(), v.Step, v.Path, err)
@@ -683,6 +825,7 @@ func runReprocess(args []string) int {
 	})
 	fs.StringVar(&req.Config, "config", "", "campaign config `file` to start from instead of the current one (for a new campaign with --from: its config)")
 	fs.StringVar(&req.From, "from", "", "ingest the volumes of `DIR` as steps first (steps already stored are kept)")
+	fs.StringVar(&req.Times, "times", "", "CSV `FILE` with the header step,time_s giving each --from volume's experiment time in seconds (wins over markers and headers)")
 	noWait := fs.Bool("no-wait", false, "queue the work and return (with --nats; the embedded node stops when reprocess returns)")
 	doSwitch := fs.Bool("switch", false, "make the run the campaign's current one when all its steps are done")
 	workers := fs.Int("workers", runtime.GOMAXPROCS(0), "tile workers of the embedded node")
@@ -697,6 +840,14 @@ func runReprocess(args []string) int {
 	ropt, err := in.options()
 	if err != nil {
 		return fail(exitBadInput, "reprocess: %v", err)
+	}
+	if req.Times != "" {
+		if req.From == "" {
+			return fail(exitBadInput, "reprocess: --times gives the times of --from volumes; stored steps keep theirs (give --from DIR)")
+		}
+		if req.stepTimes, err = readStepTimes(req.Times); err != nil {
+			return fail(exitBadInput, "reprocess: %v", err)
+		}
 	}
 	req.ReadOpt = ropt
 	ctx, stop := signalContext()
@@ -742,7 +893,18 @@ func runReprocess(args []string) int {
 	if len(sum.Redone) > 0 {
 		fmt.Fprintf(stdout, ", %d redone (other software version)", len(sum.Redone))
 	}
+	if len(sum.Rejected) > 0 {
+		fmt.Fprintf(stdout, ", %d scans of %s rejected", len(sum.Rejected), req.From)
+	}
 	fmt.Fprintln(stdout)
+	for _, err := range sum.Rejected {
+		fmt.Fprintf(os.Stderr, "sluice: reprocess: scan not ingested: %v\n", err)
+	}
+	// rejectedExit ends a run that went through with the scans it could
+	// take: exit 2, since part of the input was refused.
+	rejectedExit := func() int {
+		return fail(exitBadInput, "reprocess: campaign %s: %d scans of %s rejected (see above); the other steps were processed", req.Campaign, len(sum.Rejected), req.From)
+	}
 	// Steps whose tiles are all stored but whose result is missing (a crash
 	// between the last tile and the step's completion): complete them.
 	for _, s := range sum.Complete {
@@ -764,6 +926,9 @@ func runReprocess(args []string) int {
 		}
 	}
 	if *noWait {
+		if len(sum.Rejected) > 0 {
+			return rejectedExit()
+		}
 		return exitOK
 	}
 	bar := newProgressBar(os.Stderr, "reprocess "+req.Campaign+" "+sum.Hash[:8])
@@ -797,6 +962,9 @@ func runReprocess(args []string) int {
 			return fail(exitFailure, "reprocess: %v", err)
 		}
 		fmt.Fprintf(stdout, "campaign %s now uses run %s (was %s): %d series rows\n", req.Campaign, s.To, s.From, s.Rows)
+	}
+	if len(sum.Rejected) > 0 {
+		return rejectedExit()
 	}
 	return exitOK
 }
