@@ -29,12 +29,15 @@ import (
 
 // Config is a campaign's configuration. Field comments give the defaults.
 type Config struct {
-	// VoxelSize is the voxel edge with unit, e.g. "2.5um"; empty means take
-	// it from each input file (1 µm when the file has none).
+	// VoxelSize is the voxel edge with unit (m, mm, um or µm, nm), e.g.
+	// "2.5um", within 0.05 µm … 1 mm (ParseVoxelSize); empty means take it
+	// from each input file's metadata. A campaign refuses a scan whose
+	// voxel size is known from neither.
 	VoxelSize string `json:"voxel_size,omitempty" yaml:"voxel_size,omitempty"`
 	// IFT is the fluid–fluid interfacial tension σ in N/m (0 = unknown:
-	// capillary pressure is left out). E.g. 0.07275 water–air at 20 °C
-	// (CRC Handbook); about 0.052 n-decane–water.
+	// capillary pressure is left out), within MinIFT … MaxIFT (CheckIFT).
+	// E.g. 0.07275 water–air at 20 °C (CRC Handbook); about 0.052
+	// n-decane–water.
 	IFT float64 `json:"ift_n_per_m" yaml:"ift_n_per_m"`
 	// Tile is the tile core edge in voxels (default 128). It is also the
 	// Zarr chunk edge. Results do not depend on it beyond rounding, so it is
@@ -112,9 +115,12 @@ func Default() Config {
 // Validate reports unusable values.
 func (c Config) Validate() error {
 	if c.VoxelSize != "" {
-		if _, err := volume.ParseLength(c.VoxelSize); err != nil {
+		if _, err := ParseVoxelSize(c.VoxelSize); err != nil {
 			return fmt.Errorf("campaign: voxel_size: %w", err)
 		}
+	}
+	if err := CheckIFT(c.IFT); err != nil {
+		return fmt.Errorf("campaign: ift_n_per_m: %w", err)
 	}
 	if c.Tile < 16 || c.Tile > 1024 {
 		return fmt.Errorf("campaign: tile %d out of range 16..1024", c.Tile)
@@ -156,11 +162,76 @@ func (c Config) Validate() error {
 
 // VoxelSizeM returns the configured voxel size in metres, or 0.
 func (c Config) VoxelSizeM() float64 {
-	v, _ := volume.ParseLength(c.VoxelSize)
-	if c.VoxelSize == "" {
+	v, err := ParseVoxelSize(c.VoxelSize)
+	if c.VoxelSize == "" || err != nil {
 		return 0
 	}
 	return v
+}
+
+// The plausible range of a voxel edge: from nano-tomography (tens of nm)
+// to a coarse laboratory scan of a whole core (≲ 1 mm). A value outside is
+// a unit typed wrong, not a scan.
+const (
+	MinVoxelSize = 0.05e-6 // m
+	MaxVoxelSize = 1e-3    // m
+)
+
+// ParseVoxelSize parses a voxel edge that must carry its unit (m, mm, um
+// or µm, nm) and lie within MinVoxelSize … MaxVoxelSize. A bare number is
+// refused: "4" could be µm, mm or a voxel count, and a guess would scale
+// every area and curvature.
+func ParseVoxelSize(s string) (float64, error) {
+	t := strings.TrimSpace(s)
+	if !strings.HasSuffix(t, "m") { // every accepted unit ends in m
+		return 0, fmt.Errorf("voxel size %q has no unit; write it with m, mm, um (µm) or nm, e.g. 2.5um", s)
+	}
+	v, err := volume.ParseLength(t)
+	if err != nil {
+		return 0, fmt.Errorf("voxel size %q is not a positive length with m, mm, um (µm) or nm", s)
+	}
+	if err := CheckVoxelSize(v); err != nil {
+		return 0, fmt.Errorf("voxel size %q: %w", s, err)
+	}
+	return v, nil
+}
+
+// CheckVoxelSize refuses a voxel edge (metres) outside the plausible range.
+func CheckVoxelSize(m float64) error {
+	if !(m >= MinVoxelSize*(1-1e-12) && m <= MaxVoxelSize*(1+1e-12)) {
+		return fmt.Errorf("%s is outside the plausible 0.05 µm … 1 mm", volume.FormatLength(m))
+	}
+	return nil
+}
+
+// The plausible range of a fluid–fluid interfacial tension in N/m. Values
+// recalled from memory (handbook and common practice, not looked up):
+// water–air 0.072 N/m at 25 °C, oil–brine typically 0.02–0.05, CO2–brine
+// 0.025–0.04 at reservoir conditions; surfactant systems go down to about
+// 1e-3 (ultra-low tensions below that are outside what sluice's curvature
+// method resolves anyway), and nothing but liquid metals exceeds 0.5.
+const (
+	MinIFT = 1e-3 // N/m
+	MaxIFT = 0.5  // N/m
+)
+
+// CheckIFT refuses a σ (N/m) outside MinIFT … MaxIFT; 0 means unknown and
+// passes. A value that reads as mN/m gets the conversion as a hint.
+func CheckIFT(sigma float64) error {
+	switch {
+	case sigma == 0:
+		return nil
+	case math.IsNaN(sigma) || math.IsInf(sigma, 0):
+		return fmt.Errorf("interfacial tension %g must be a finite number in N/m", sigma)
+	case sigma < 0:
+		return fmt.Errorf("interfacial tension must be > 0 N/m, not %g", sigma)
+	case sigma > MaxIFT && sigma <= MaxIFT*1000:
+		return fmt.Errorf("interfacial tension %g N/m is outside %g…%g N/m; the unit is N/m: %g looks like mN/m; did you mean %g?",
+			sigma, MinIFT, MaxIFT, sigma, sigma/1000)
+	case sigma < MinIFT || sigma > MaxIFT:
+		return fmt.Errorf("interfacial tension %g N/m is outside %g…%g N/m; the unit is N/m (water–air 0.072)", sigma, MinIFT, MaxIFT)
+	}
+	return nil
 }
 
 // MeasureOptions returns the measurement options.

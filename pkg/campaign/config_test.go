@@ -88,3 +88,46 @@ measure:
 		t.Errorf("tile 8 accepted")
 	}
 }
+
+// TestUnitsChecked: σ must be in N/m within 1e-3…0.5 and the voxel size
+// must carry a unit and lie within 0.05 µm…1 mm, else Parse refuses the
+// config in one line naming the key (issue 13, item 6).
+func TestUnitsChecked(t *testing.T) {
+	bad := []struct{ yaml, want string }{
+		{"voxel_size: 4um\nift_n_per_m: 35\n", "35 looks like mN/m; did you mean 0.035?"},
+		{"voxel_size: 4um\nift_n_per_m: 72.8\n", "did you mean 0.0728?"},
+		{"voxel_size: 4um\nift_n_per_m: -0.035\n", "must be > 0 N/m"},
+		{"voxel_size: 4um\nift_n_per_m: 0.0002\n", "outside 0.001…0.5 N/m"},
+		{"voxel_size: 4um\nift_n_per_m: 1000\n", "outside 0.001…0.5 N/m"},
+		{"voxel_size: 4\n", `voxel size "4" has no unit`},
+		{"voxel_size: 4 inch\n", `voxel size "4 inch" has no unit`},
+		{"voxel_size: 4m\n", "outside the plausible 0.05 µm … 1 mm"},
+		{"voxel_size: 2mm\n", "outside the plausible 0.05 µm … 1 mm"},
+		{"voxel_size: 20nm\n", "outside the plausible 0.05 µm … 1 mm"},
+	}
+	for _, c := range bad {
+		_, err := Parse("c.yaml", []byte(c.yaml))
+		if err == nil || !strings.Contains(err.Error(), c.want) || strings.Contains(err.Error(), "\n") {
+			t.Errorf("%q: error %v, want one line containing %q", c.yaml, err, c.want)
+		}
+	}
+	// Source: σ water–air 0.072 N/m at 25 °C, oil–brine 0.02–0.05,
+	// CO2–brine 0.025–0.04 at reservoir conditions (handbook values, from
+	// memory); voxel sizes of synchrotron and laboratory micro-CT.
+	good := map[string]float64{"0.05um": 5e-8, "50nm": 5e-8, "2.5µm": 2.5e-6, "2.5μm": 2.5e-6, "4 um": 4e-6, "0.0000025m": 2.5e-6, "1mm": 1e-3}
+	for s, want := range good {
+		c, err := Parse("c.yaml", []byte("voxel_size: "+s+"\nift_n_per_m: 0.072\n"))
+		if err != nil {
+			t.Errorf("voxel_size %s: %v", s, err)
+			continue
+		}
+		if got := c.VoxelSizeM(); math.Abs(got-want) > 1e-12*want {
+			t.Errorf("voxel_size %s: %g m, want %g", s, got, want)
+		}
+	}
+	for _, s := range []float64{0, 0.001, 0.025, 0.04, 0.072, 0.5} {
+		if err := CheckIFT(s); err != nil {
+			t.Errorf("σ %g N/m refused: %v", s, err)
+		}
+	}
+}

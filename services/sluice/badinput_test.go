@@ -101,11 +101,11 @@ func TestBadConfigs(t *testing.T) {
 		want string
 	}{
 		{"config-unknown-key.yaml", "line 3: field treshold not found"},
-		{"config-negative-voxel-size.yaml", `voxel_size: volume: bad length "-2um"`},
+		{"config-negative-voxel-size.yaml", `voxel_size: voxel size "-2um" is not a positive length`},
 		{"config-sigma-zero.yaml", "measure.curvature_sigma 0 out of range"},
 		{"config-tile-zero.yaml", "tile 0 out of range 16..1024"},
 		{"config-thresholds-order.yaml", "fixed thresholds [30000 18000] must be finite and ascending"},
-		{"config-negative-ift.yaml", "interfacial tension must be ≥ 0 N/m, not -0.07"},
+		{"config-negative-ift.yaml", "interfacial tension must be > 0 N/m, not -0.07"},
 	}
 	out := filepath.Join(t.TempDir(), "labels.raw")
 	for _, c := range cases {

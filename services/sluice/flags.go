@@ -25,6 +25,15 @@ func parseInterspersed(fs *flag.FlagSet, args []string) ([]string, error) {
 	}
 }
 
+// givenFlags returns the names of the flags given on the command line (as
+// opposed to those left at their defaults), so that a flag overrides a
+// config value only when the user typed it.
+func givenFlags(fs *flag.FlagSet) map[string]bool {
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	return set
+}
+
 // parseShape parses "Z,Y,X".
 func parseShape(s string) ([3]int, error) {
 	var out [3]int

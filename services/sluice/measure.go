@@ -6,12 +6,13 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"math"
+	"os"
 	"runtime"
 	"text/tabwriter"
 
 	"sluice/pkg/campaign"
 	"sluice/pkg/measure"
-	"sluice/pkg/phase"
 	"sluice/pkg/scan"
 	"sluice/pkg/volio"
 	"sluice/pkg/volume"
@@ -27,7 +28,7 @@ func (f *inputFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.shape, "shape", "", "shape `Z,Y,X` of a raw file without header")
 	fs.StringVar(&f.dtype, "dtype", "", "voxel type of a raw file: uint8, uint16 or float32")
 	fs.StringVar(&f.byteOrder, "byte-order", "little", "byte order of a raw file: little or big")
-	fs.StringVar(&f.voxelSize, "voxel-size", "", "voxel edge with unit (nm, um, mm, m), e.g. 2.5um (default: from the file, else 1um)")
+	fs.StringVar(&f.voxelSize, "voxel-size", "", "voxel edge with its unit (m, mm, um or µm, nm), e.g. 2.5um; a bare number is refused (default: the config's voxel_size, else the file's metadata)")
 	fs.Int64Var(&f.maxVoxels, "max-voxels", 4_000_000_000, "refuse volumes with more voxels than this")
 }
 
@@ -51,13 +52,48 @@ func (f *inputFlags) options() (volio.Options, error) {
 		opt.DType = d
 	}
 	if f.voxelSize != "" {
-		v, err := volume.ParseLength(f.voxelSize)
+		v, err := campaign.ParseVoxelSize(f.voxelSize)
 		if err != nil {
-			return opt, err
+			return opt, fmt.Errorf("--voxel-size: %w", err)
 		}
 		opt.VoxelSize = v
 	}
 	return opt, nil
+}
+
+// resolveVoxelSize sets the voxel edge of v, read from path: --voxel-size
+// when given on the command line, else the config's voxel_size, else the
+// file's metadata (checked for plausibility like the others). It returns
+// 0 when none of them knows it; the caller decides whether to refuse or to
+// assume and say so.
+func resolveVoxelSize(path string, v volume.Any, in inputFlags, set map[string]bool, cfg campaign.Config) (float64, error) {
+	var vs float64
+	from := ""
+	switch {
+	case set["voxel-size"]:
+		from = "--voxel-size"
+		var err error
+		if vs, err = campaign.ParseVoxelSize(in.voxelSize); err != nil {
+			return 0, fmt.Errorf("--voxel-size: %w", err)
+		}
+	case cfg.VoxelSize != "":
+		vs, from = cfg.VoxelSizeM(), "the config's voxel_size"
+	}
+	file := v.EdgeLength()
+	if vs == 0 {
+		if file > 0 {
+			if err := campaign.CheckVoxelSize(file); err != nil {
+				return 0, fmt.Errorf("%s: voxel size in the file's metadata: %w", path, err)
+			}
+		}
+		return file, nil
+	}
+	if file > 0 && math.Abs(file-vs) > 1e-9*vs {
+		fmt.Fprintf(os.Stderr, "sluice: note: %s: %s %s replaces the voxel size %s of the file's metadata\n",
+			path, from, volume.FormatLength(vs), volume.FormatLength(file))
+	}
+	volume.SetVoxelSize(v, vs)
+	return vs, nil
 }
 
 // measureFlags configure the measurement.
@@ -84,40 +120,44 @@ func (m *measureFlags) register(fs *flag.FlagSet) {
 	fs.IntVar(&m.workers, "workers", runtime.GOMAXPROCS(0), "parallel tiles")
 }
 
-// apply copies the measurement flags into a campaign config.
-func (m *measureFlags) apply(c *campaign.Config) {
-	c.IFT = m.ift
-	c.Measure.Connectivity = m.connectivity
-	c.Measure.FlowAxis = m.flowAxis
-	c.Measure.CurvatureExclude = m.exclude
-	c.Measure.CurvatureSigma = m.sigma
-	if m.tile > 0 {
+// apply copies the measurement flags given on the command line (set)
+// into a campaign config; flags left out keep the config's values.
+func (m *measureFlags) apply(c *campaign.Config, set map[string]bool) error {
+	if set["ift"] {
+		if err := campaign.CheckIFT(m.ift); err != nil {
+			return fmt.Errorf("--ift: %w", err)
+		}
+		c.IFT = m.ift
+	}
+	if set["connectivity"] {
+		c.Measure.Connectivity = m.connectivity
+	}
+	if set["flow-axis"] {
+		c.Measure.FlowAxis = m.flowAxis
+	}
+	if set["exclude"] {
+		c.Measure.CurvatureExclude = m.exclude
+	}
+	if set["curvature-sigma"] {
+		c.Measure.CurvatureSigma = m.sigma
+	}
+	if set["tile"] {
 		c.Tile = m.tile
 	}
-	c.Segment.Codes = phase.Codes{Solid: uint8(m.solid), Wetting: uint8(m.wetting), Nonwetting: uint8(m.nonwetting)}
-}
-
-func (m *measureFlags) options() (measure.Options, error) {
-	o := measure.Defaults()
-	if m.solid > 254 || m.wetting > 254 || m.nonwetting > 254 {
-		return o, fmt.Errorf("label codes must be 0…254 (255 marks voxels outside the sample)")
+	for _, f := range []struct {
+		name string
+		v    uint
+		dst  *uint8
+	}{{"solid", m.solid, &c.Segment.Codes.Solid}, {"wetting", m.wetting, &c.Segment.Codes.Wetting}, {"nonwetting", m.nonwetting, &c.Segment.Codes.Nonwetting}} {
+		if !set[f.name] {
+			continue
+		}
+		if f.v > 254 {
+			return fmt.Errorf("--%s %d: label codes must be 0…254 (255 marks voxels outside the sample)", f.name, f.v)
+		}
+		*f.dst = uint8(f.v)
 	}
-	o.Codes = phase.Codes{Solid: uint8(m.solid), Wetting: uint8(m.wetting), Nonwetting: uint8(m.nonwetting)}
-	o.IFT = m.ift
-	o.Connectivity = m.connectivity
-	switch m.flowAxis {
-	case "z":
-		o.FlowAxis = 0
-	case "y":
-		o.FlowAxis = 1
-	case "x":
-		o.FlowAxis = 2
-	default:
-		return o, fmt.Errorf("bad flow axis %q (want z, y or x)", m.flowAxis)
-	}
-	o.Curvature.Exclude = m.exclude
-	o.Curvature.Sigma = m.sigma
-	return o, o.Validate()
+	return nil
 }
 
 func runMeasure(args []string) int {
@@ -145,49 +185,59 @@ func runMeasure(args []string) int {
 		return fail(exitBadInput, "measure: want exactly one FILE, got %d", len(pos))
 	}
 	path := pos[0]
+	set := givenFlags(fs)
 	ropt, err := in.options()
 	if err != nil {
 		return fail(exitBadInput, "measure: %s: %v", path, err)
 	}
-	mopt, err := mf.options()
+	// The config (when --config is given) is read in every mode; flags
+	// given on the command line override it.
+	cfg, err := sf.campaignConfig()
 	if err != nil {
 		return fail(exitBadInput, "measure: %v", err)
 	}
+	if err := mf.apply(&cfg, set); err != nil {
+		return fail(exitBadInput, "measure: %v", err)
+	}
+	if err := cfg.Validate(); err != nil {
+		return fail(exitBadInput, "measure: %v", err)
+	}
+	mopt, err := cfg.MeasureOptions()
+	if err != nil {
+		return fail(exitBadInput, "measure: %v", err)
+	}
+	v, err := volio.Open(path, ropt)
+	if err == nil && !*labels {
+		err = volio.CheckFinite(path, v)
+	}
+	if err != nil {
+		return fail(exitBadInput, "%v", err)
+	}
+	vs, err := resolveVoxelSize(path, v, in, set, cfg)
+	if err != nil {
+		return fail(exitBadInput, "measure: %v", err)
+	}
+	// Without a voxel size, porosity, saturations, Euler characteristics
+	// and contact angles are still right; lengths, areas and curvatures
+	// are in voxel units, shown as if the voxel were 1 µm and flagged on
+	// every output. Pc in pascals cannot be given that way: refuse.
+	assumed := vs == 0
+	if assumed {
+		if cfg.IFT > 0 {
+			return fail(exitBadInput, "measure: %s: capillary pressure needs the voxel size, and neither --voxel-size, the config nor the file gives it; add e.g. --voxel-size 2.5um", path)
+		}
+		volume.SetVoxelSize(v, 1e-6)
+	}
 	var res *measure.Result
 	if *labels {
-		v, err := volio.Open(path, ropt)
-		if err != nil {
-			return fail(exitBadInput, "%v", err)
-		}
 		lab, ok := v.(*volume.Labels)
 		if !ok {
 			return fail(exitBadInput, "measure: %s: --labels wants uint8 phase codes, file holds %s", path, v.DType())
 		}
-		if lab.VoxelSize == 0 {
-			lab.VoxelSize = 1e-6
-		}
-		if res, err = measure.Volume(lab, mopt, mf.tile, mf.workers); err != nil {
+		if res, err = measure.Volume(lab, mopt, cfg.Tile, mf.workers); err != nil {
 			return fail(exitFailure, "measure: %s: %v", path, err)
 		}
 	} else {
-		cfg, err := sf.campaignConfig()
-		if err != nil {
-			return fail(exitBadInput, "measure: %v", err)
-		}
-		mf.apply(&cfg)
-		if err := cfg.Validate(); err != nil {
-			return fail(exitBadInput, "measure: %v", err)
-		}
-		v, err := volio.Open(path, ropt)
-		if err == nil {
-			err = volio.CheckFinite(path, v)
-		}
-		if err != nil {
-			return fail(exitBadInput, "%v", err)
-		}
-		if v.EdgeLength() == 0 {
-			volume.SetVoxelSize(v, 1e-6)
-		}
 		solid, err := sf.loadReference(ropt, v.Bounds())
 		if err != nil {
 			return fail(exitBadInput, "%v", err)
@@ -204,16 +254,24 @@ func runMeasure(args []string) int {
 	if *asJSON {
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
-		if err := enc.Encode(res); err != nil {
+		if err := enc.Encode(measureOutput{res, assumed}); err != nil {
 			return fail(exitFailure, "measure: %v", err)
 		}
 		return exitOK
 	}
-	printTable(stdout, path, res)
+	printTable(stdout, path, res, assumed)
 	return exitOK
 }
 
-func printTable(w io.Writer, path string, r *measure.Result) {
+// measureOutput is the JSON of `sluice measure`: the result keys and
+// whether the voxel size was assumed (1 µm, known from neither flag,
+// config nor file: lengths, areas and curvatures are then in voxel units).
+type measureOutput struct {
+	*measure.Result
+	VoxelSizeAssumed bool `json:"voxel_size_assumed"`
+}
+
+func printTable(w io.Writer, path string, r *measure.Result, voxelAssumed bool) {
 	tw := tabwriter.NewWriter(w, 0, 2, 2, ' ', 0)
 	f := func(p *float64, scale float64, format string) string {
 		if p == nil {
@@ -223,7 +281,11 @@ func printTable(w io.Writer, path string, r *measure.Result) {
 	}
 	fmt.Fprintf(tw, "file\t%s\t\n", path)
 	fmt.Fprintf(tw, "shape (z,y,x)\t%d × %d × %d\tvoxels\n", r.Shape[0], r.Shape[1], r.Shape[2])
-	fmt.Fprintf(tw, "voxel size\t%.4g\tµm\n", r.VoxelSize*1e6)
+	if voxelAssumed {
+		fmt.Fprintf(tw, "voxel size\t%.4g\tµm, assumed: none from --voxel-size, config or file (lengths, areas, curvatures are per voxel edge)\n", r.VoxelSize*1e6)
+	} else {
+		fmt.Fprintf(tw, "voxel size\t%.4g\tµm\n", r.VoxelSize*1e6)
+	}
 	fmt.Fprintf(tw, "porosity\t%s\t\n", f(r.Porosity, 1, "%.4f"))
 	fmt.Fprintf(tw, "saturation wetting / nonwetting\t%s / %s\t\n", f(r.SatWetting, 1, "%.4f"), f(r.SatNonwetting, 1, "%.4f"))
 	fmt.Fprintf(tw, "interfacial area w–n / w–s / n–s\t%.4g / %.4g / %.4g\tmm²\n", r.AreaWN*1e6, r.AreaWS*1e6, r.AreaNS*1e6)

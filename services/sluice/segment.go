@@ -148,7 +148,10 @@ func runSegment(args []string) int {
 	if *tile > 0 {
 		cfg.Tile = *tile
 	}
-	lab, prep, code := segmentFile(path, in, sf, cfg, true)
+	if err := cfg.Validate(); err != nil {
+		return fail(exitBadInput, "segment: %v", err)
+	}
+	lab, prep, code := segmentFile(path, in, givenFlags(fs), sf, cfg, true)
 	if code != exitOK {
 		return code
 	}
@@ -160,12 +163,15 @@ func runSegment(args []string) int {
 		return fail(exitFailure, "segment: %s: %v", out, err)
 	}
 	fmt.Fprintf(stdout, "labels written to %s (0 solid, 1 wetting, 2 nonwetting, 255 outside the sample)\n", out)
+	if lab.VoxelSize == 0 {
+		fmt.Fprintf(stdout, "voxel size unknown (no --voxel-size, config voxel_size or file metadata): none written to %s\n", out)
+	}
 	return exitOK
 }
 
 // segmentFile reads a grey volume and segments it; with measureToo=false
 // the measurement is skipped.
-func segmentFile(path string, in inputFlags, sf segFlags, cfg campaign.Config, labelsOnly bool) (*volume.Labels, scan.Prepared, int) {
+func segmentFile(path string, in inputFlags, set map[string]bool, sf segFlags, cfg campaign.Config, labelsOnly bool) (*volume.Labels, scan.Prepared, int) {
 	ropt, err := in.options()
 	if err != nil {
 		return nil, scan.Prepared{}, fail(exitBadInput, "segment: %s: %v", path, err)
@@ -177,8 +183,10 @@ func segmentFile(path string, in inputFlags, sf segFlags, cfg campaign.Config, l
 	if err != nil {
 		return nil, scan.Prepared{}, fail(exitBadInput, "%v", err)
 	}
-	if v.EdgeLength() == 0 {
-		volume.SetVoxelSize(v, 1e-6)
+	// Segmentation works in voxels; the voxel size only travels to the
+	// label file's metadata, so an unknown one stays unknown there.
+	if _, err := resolveVoxelSize(path, v, in, set, cfg); err != nil {
+		return nil, scan.Prepared{}, fail(exitBadInput, "segment: %v", err)
 	}
 	solid, err := sf.loadReference(ropt, v.Bounds())
 	if err != nil {
