@@ -222,6 +222,14 @@ func (in *Ingester) StoreStep(ctx context.Context, req Request) (campaign.Manife
 // (384³). Smaller chunks also shrink ingest's band buffer (chunk² × nx).
 const MaxChunk = 64
 
+// badScan is a refusal of a scan for what it lacks (not for a fault of
+// its bytes); it counts as a bad scan file (volio.ErrFormat) without
+// adding that error's text to the line.
+type badScan struct{ msg string }
+
+func (e badScan) Error() string        { return e.msg }
+func (e badScan) Is(target error) bool { return target == volio.ErrFormat }
+
 // ChunkEdge returns the chunk edge of grey volumes stored for a tile edge.
 func ChunkEdge(tile int) int { return min(tile, MaxChunk) }
 
@@ -238,17 +246,21 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 	// (TIFF slices decode whole) go slab by slab.
 	bands, _ := st.(volio.BandReader)
 	h := st.Header()
+	// The config's voxel size, else the file's. Neither: refuse the scan
+	// before anything is stored; a guessed size would scale every area,
+	// curvature and Pc of the series.
+	vs := h.VoxelSize
+	if v := cfg.VoxelSizeM(); v > 0 {
+		vs = v
+	} else if vs == 0 {
+		return campaign.Manifest{}, badScan{fmt.Sprintf("ingest: %s: no voxel size: neither the campaign config (voxel_size, e.g. 2.5um), --voxel-size nor the file's metadata gives one", req.Path)}
+	} else if err := campaign.CheckVoxelSize(vs); err != nil {
+		return campaign.Manifest{}, badScan{fmt.Sprintf("ingest: %s: voxel size in the file's metadata: %v", req.Path, err)}
+	}
 	if err := in.checkShape(ctx, step, req.Path, h); err != nil {
 		return campaign.Manifest{}, err
 	}
 	st = finiteSlabs{Stream: st, path: req.Path}
-	vs := h.VoxelSize
-	if v := cfg.VoxelSizeM(); v > 0 {
-		vs = v
-	}
-	if vs == 0 {
-		vs = 1e-6
-	}
 	t := req.TimeS
 	if !req.HasTime && h.HasTime {
 		t = h.TimeS

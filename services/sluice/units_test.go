@@ -256,3 +256,30 @@ func TestVoxelSizeUnknown(t *testing.T) {
 		t.Errorf("segment --voxel-size 3um: header %s", hdr)
 	}
 }
+
+// TestCampaignRefusesUnknownVoxelSize (issue 13, item 6): `reprocess
+// --from` into a new campaign whose config has no voxel_size refuses a
+// scan without one in its metadata, in one line with exit 2, instead of
+// storing it at 1 µm.
+func TestCampaignRefusesUnknownVoxelSize(t *testing.T) {
+	dir := t.TempDir()
+	from := filepath.Join(dir, "scans")
+	if err := os.Mkdir(from, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	v := volume.NewShape[uint16](16, 16, 16, 0)
+	for i := range v.Pix {
+		v.Pix[i] = uint16(1000 + 97*(i%5))
+	}
+	if err := volio.WriteRaw(filepath.Join(from, "scan-0001.raw"), v, volio.WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	cfg := writeFile(t, dir, "camp.yaml", "tile: 16\ndetect_sample: false\n")
+	code, _, errs := runCLI(t, "reprocess", "novs", "--data", filepath.Join(dir, "data"), "--from", from, "--config", cfg)
+	lines := strings.Split(strings.TrimSpace(errs), "\n")
+	last := lines[len(lines)-1]
+	if code != exitBadInput || !strings.Contains(last, "scan-0001.raw") || !strings.Contains(last, "no voxel size") {
+		t.Errorf("reprocess --from without any voxel size: exit %d, last line %q", code, last)
+	}
+	t.Logf("%s", last)
+}
