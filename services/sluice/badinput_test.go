@@ -159,6 +159,7 @@ func TestBadIngest(t *testing.T) {
 	data := t.TempDir()
 	st := filepath.Join(data, "store")
 	cfg := campaign.Default()
+	cfg.VoxelSize = "3um" // pipelineScene's; some files of the bad corpus carry none
 	cfg.DetectSample = false
 	cfg.Tile = 32
 	cfg.Measure.SkipContact = true
