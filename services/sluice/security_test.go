@@ -428,6 +428,8 @@ scrape_configs:
 	if with != "1" || without != "0" {
 		t.Fatalf("up{with-token} = %q, up{without-token} = %q; want 1 and 0; log:\n%s", with, without, logb.String())
 	}
+	// Both scrapes have happened (up is 1 and 0), so the log holds whatever
+	// Prometheus had to say about them.
 	if strings.Contains(logb.String(), tok) {
 		t.Error("Prometheus log shows the token")
 	}

@@ -36,9 +36,12 @@ try {
   console.log(`loaded ${before}`);
   await page.waitForFunction((b) => Number(document.getElementById("plot-sat").dataset.points || 0) > b, before, { timeout: 180000 });
   const after = await points();
-  await page.waitForTimeout(1500); // let the preview image load
-  const preview = await page.evaluate(() => { const i = document.getElementById("preview"); return i.complete && i.naturalWidth; });
-  if (!(preview > 0)) await fail("preview image did not load");
+  // Wait for the preview image to load (the event, not a fixed pause).
+  const preview = await page.waitForFunction(() => {
+    const i = document.getElementById("preview");
+    return i.complete && i.naturalWidth > 0;
+  }, null, { timeout: 60000 }).then(() => true, () => false);
+  if (!preview) await fail("preview image did not load within 60 s");
   await page.screenshot({ path: shot, fullPage: true });
   if (errors.length) await fail("page errors: " + errors.join("; "));
   console.log(`ok ${before} ${after}`);
