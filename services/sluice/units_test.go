@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"os"
 	"path/filepath"
 	"strings"
@@ -34,19 +33,6 @@ func writeFile(t *testing.T, dir, name, text string) string {
 		t.Fatal(err)
 	}
 	return p
-}
-
-func measureJSON(t *testing.T, args ...string) map[string]any {
-	t.Helper()
-	code, out, errs := runCLI(t, append([]string{"measure", "--json"}, args...)...)
-	if code != 0 {
-		t.Fatalf("measure %v: exit %d: %s", args, code, errs)
-	}
-	var m map[string]any
-	if err := json.Unmarshal([]byte(out), &m); err != nil {
-		t.Fatalf("measure %v: not one JSON object: %v\n%s", args, err, out)
-	}
-	return m
 }
 
 // pcWithin checks Pc against Young–Laplace for the cap of radius 22 voxels.
@@ -271,7 +257,7 @@ func TestCampaignRefusesUnknownVoxelSize(t *testing.T) {
 	for i := range v.Pix {
 		v.Pix[i] = uint16(1000 + 97*(i%5))
 	}
-	if err := volio.WriteRaw(filepath.Join(from, "scan-0001.raw"), v, volio.WriteOptions{}); err != nil {
+	if err := volio.WriteRaw(filepath.Join(from, "scan-0001.raw"), v, volio.WriteOptions{TimeS: 10, HasTime: true}); err != nil {
 		t.Fatal(err)
 	}
 	cfg := writeFile(t, dir, "camp.yaml", "tile: 16\ndetect_sample: false\n")
