@@ -234,11 +234,14 @@ func runMeasure(args []string) int {
 		if !ok {
 			return fail(exitBadInput, "measure: %s: --labels wants uint8 phase codes, file holds %s", path, v.DType())
 		}
+		if err := checkLabelCodes(path, lab, mopt.Codes, codesFlagsHint); err != nil {
+			return fail(exitBadInput, "%v", err)
+		}
 		if res, err = measure.Volume(lab, mopt, cfg.Tile, mf.workers); err != nil {
 			return fail(exitFailure, "measure: %s: %v", path, err)
 		}
 	} else {
-		solid, err := sf.loadReference(ropt, v.Bounds())
+		solid, err := sf.loadReference(ropt, v.Bounds(), cfg.Segment.Codes, codesFlagsHint)
 		if err != nil {
 			return fail(exitBadInput, "%v", err)
 		}

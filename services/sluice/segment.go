@@ -10,6 +10,7 @@ import (
 	"strings"
 
 	"sluice/pkg/campaign"
+	"sluice/pkg/phase"
 	"sluice/pkg/scan"
 	"sluice/pkg/volio"
 	"sluice/pkg/volume"
@@ -100,8 +101,9 @@ func (s *segFlags) campaignConfig() (campaign.Config, error) {
 	return c, c.Validate()
 }
 
-// loadReference reads the reference-scan mask, if any.
-func (s *segFlags) loadReference(opt volio.Options, shape volume.Box) (*volume.Labels, error) {
+// loadReference reads the reference-scan mask, if any; a code in it that is
+// none of codes nor outside is refused with hint.
+func (s *segFlags) loadReference(opt volio.Options, shape volume.Box, codes phase.Codes, hint string) (*volume.Labels, error) {
 	if s.reference == "" {
 		return nil, nil
 	}
@@ -115,6 +117,9 @@ func (s *segFlags) loadReference(opt volio.Options, shape volume.Box) (*volume.L
 	}
 	if l.Box != shape {
 		return nil, fmt.Errorf("segment: %s: reference mask covers %v, scan %v", s.reference, l.Box, shape)
+	}
+	if err := checkLabelCodes(s.reference, l, codes, hint); err != nil {
+		return nil, err
 	}
 	return l, nil
 }
@@ -188,7 +193,7 @@ func segmentFile(path string, in inputFlags, set map[string]bool, sf segFlags, c
 	if _, err := resolveVoxelSize(path, v, in, set, cfg); err != nil {
 		return nil, scan.Prepared{}, fail(exitBadInput, "segment: %v", err)
 	}
-	solid, err := sf.loadReference(ropt, v.Bounds())
+	solid, err := sf.loadReference(ropt, v.Bounds(), cfg.Segment.Codes, codesConfigHint)
 	if err != nil {
 		return nil, scan.Prepared{}, fail(exitBadInput, "%v", err)
 	}
