@@ -1,11 +1,17 @@
 package main
 
 import (
+	"context"
+	"encoding/json"
 	"math"
+	"os"
 	"path/filepath"
 	"strconv"
+	"strings"
 	"testing"
 
+	"sluice/pkg/forward"
+	"sluice/pkg/synth"
 	"sluice/pkg/volio"
 	"sluice/pkg/volume"
 )
@@ -99,4 +105,67 @@ func grouped(n int) string {
 		s = s[:i] + " " + s[i:]
 	}
 	return s
+}
+
+// Labels that segment wrote with the campaign's own codes are read back
+// with those codes or refused: segment names the codes it wrote (on
+// stdout and in the Zarr attributes), measure --labels without them exits
+// 2 naming the code, and with the config gives segment's own counts.
+func TestSegmentCodesReRead(t *testing.T) {
+	dir := t.TempDir()
+	lab := volume.NewShape[uint8](30, 40, 40, 2e-6)
+	synth.CapScene{Wall: 8, R: 16, DropAngle: 90, Centre: [2]float64{19.5, 19.5}}.Draw(lab, 0, 2, 1)
+	g, err := forward.Render(lab, forward.Default())
+	if err != nil {
+		t.Fatal(err)
+	}
+	grey := filepath.Join(dir, "grey.raw")
+	if err := volio.WriteRaw(grey, forward.Uint16(g), volio.WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	cfg := writeFile(t, dir, "codes.yaml", "voxel_size: 2um\nsegment:\n  codes: {solid: 10, wetting: 20, nonwetting: 30}\n")
+	out := filepath.Join(dir, "labels.zarr")
+	code, text, errs := runCLI(t, "segment", "--no-sample", "--config", cfg, grey, out)
+	if code != 0 {
+		t.Fatalf("segment: exit %d: %s", code, errs)
+	}
+	if !strings.Contains(text, "(10 solid, 20 wetting, 30 nonwetting, 255 outside the sample)") {
+		t.Errorf("segment does not name the codes it wrote: %q", text)
+	}
+	attrs, err := os.ReadFile(filepath.Join(out, ".zattrs"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var a struct{ Phases map[string]int }
+	if err := json.Unmarshal(attrs, &a); err != nil || a.Phases["solid"] != 10 || a.Phases["wetting"] != 20 || a.Phases["nonwetting"] != 30 || a.Phases["outside"] != 255 {
+		t.Errorf("Zarr attributes %s, want phases solid 10, wetting 20, nonwetting 30, outside 255", attrs)
+	}
+	z, err := volio.OpenZarr(context.Background(), volio.Dir(dir), "labels.zarr")
+	if err != nil {
+		t.Fatal(err)
+	}
+	v, err := z.ReadBox(context.Background(), lab.Box)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var solid, pore int
+	for _, c := range v.(*volume.Labels).Pix {
+		switch c {
+		case 10:
+			solid++
+		case 20, 30:
+			pore++
+		}
+	}
+	code, _, errs = runCLI(t, "measure", "--labels", out)
+	if code != exitBadInput {
+		t.Errorf("re-read with default codes: exit %d, want %d", code, exitBadInput)
+	}
+	oneLineError(t, "re-read with default codes", code, errs, "labels.zarr: label code 10 ("+grouped(solid)+" voxels) is none of solid 0, wetting 1, nonwetting 2")
+	m := measureJSON(t, "--labels", "--config", cfg, out)
+	// Source: voxel counts of the labels segment wrote, read by the
+	// independent Zarr reader above.
+	if p := num(m, "porosity"); math.Abs(p-float64(pore)/float64(pore+solid)) > 1e-12 {
+		t.Errorf("porosity %.6f read with the config's codes, counts give %.6f", p, float64(pore)/float64(pore+solid))
+	}
 }

@@ -164,10 +164,11 @@ func runSegment(args []string) int {
 	if s := prep.Thresholds.Sample; s.Radius > 0 {
 		fmt.Fprintf(stdout, "sample cylinder: centre (y, x) = (%.1f, %.1f), radius %.1f voxels\n", s.Y, s.X, s.Radius)
 	}
-	if err := writeLabels(out, lab); err != nil {
+	cs := cfg.Segment.Codes
+	if err := writeCodedLabels(out, lab, cs); err != nil {
 		return fail(exitFailure, "segment: %s: %v", out, err)
 	}
-	fmt.Fprintf(stdout, "labels written to %s (0 solid, 1 wetting, 2 nonwetting, 255 outside the sample)\n", out)
+	fmt.Fprintf(stdout, "labels written to %s (%d solid, %d wetting, %d nonwetting, %d outside the sample)\n", out, cs.Solid, cs.Wetting, cs.Nonwetting, phase.Outside)
 	if lab.VoxelSize == 0 {
 		fmt.Fprintf(stdout, "voxel size unknown (no --voxel-size, config voxel_size or file metadata): none written to %s\n", out)
 	}
@@ -208,6 +209,12 @@ func segmentFile(path string, in inputFlags, set map[string]bool, sf segFlags, c
 }
 
 func writeLabels(out string, lab *volume.Labels) error {
+	return writeCodedLabels(out, lab, phase.Default())
+}
+
+// writeCodedLabels writes labels made with codes; a Zarr array records
+// them in its "phases" attribute.
+func writeCodedLabels(out string, lab *volume.Labels, codes phase.Codes) error {
 	if strings.HasSuffix(strings.TrimSuffix(out, "/"), ".zarr") {
 		dir, name := filepath.Split(strings.TrimSuffix(out, "/"))
 		if dir == "" {
@@ -217,7 +224,7 @@ func writeLabels(out string, lab *volume.Labels) error {
 		s := lab.Shape()
 		ch := [3]int{min(s[0], 128), min(s[1], 128), min(s[2], 128)}
 		z, err := volio.CreateZarr(ctx, volio.Dir(dir), name, volio.ZarrMeta{Shape: s, Chunks: ch, DType: volume.Uint8, Compressor: "zstd", VoxelSize: lab.VoxelSize,
-			Attrs: map[string]any{"phases": map[string]int{"solid": 0, "wetting": 1, "nonwetting": 2, "outside": 255}}})
+			Attrs: map[string]any{"phases": map[string]int{"solid": int(codes.Solid), "wetting": int(codes.Wetting), "nonwetting": int(codes.Nonwetting), "outside": int(phase.Outside)}}})
 		if err != nil {
 			return err
 		}
