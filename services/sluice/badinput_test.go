@@ -174,7 +174,9 @@ func TestBadIngest(t *testing.T) {
 		}
 	}
 	ingestArgs := func(args ...string) []string {
-		return append([]string{"ingest", "--nats", url, "--store", st, "--http", "off", "--config", cfgPath}, args...)
+		// --time: these scans carry no time, and ingest refuses a scan
+		// without one (TestIngestNeedsTime).
+		return append([]string{"ingest", "--nats", url, "--store", st, "--http", "off", "--config", cfgPath, "--time", "0"}, args...)
 	}
 	code, out, errs := runCLI(t, ingestArgs("--campaign", "bad", filepath.Join(data, "scan-0001.raw"))...)
 	if code != 0 {

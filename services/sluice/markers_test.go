@@ -13,7 +13,9 @@ import (
 	"testing"
 	"time"
 
+	"sluice/pkg/campaign"
 	"sluice/pkg/series"
+	"sluice/pkg/volio"
 )
 
 // `sluice run --watch nosuchdir` used to create the folder and wait for
@@ -200,5 +202,73 @@ func TestReprocessStepTimes(t *testing.T) {
 	}
 	if _, ok := got["scan-0000"]; !ok {
 		t.Errorf("series has no scan-0000: %v", got)
+	}
+}
+
+// `sluice ingest FILE` without --time used to store a scan with no time
+// of its own at t = 0. The time now comes from --time, the scan's marker
+// (either form) or its header; a scan with none is refused in one line,
+// and so is a marker that is not the documented JSON.
+func TestIngestNeedsTime(t *testing.T) {
+	if testing.Short() {
+		t.Skip("starts a NATS server")
+	}
+	_, url := badInputNode(t)
+	data := t.TempDir()
+	st := filepath.Join(data, "store")
+	cfg := campaign.Default()
+	cfg.DetectSample, cfg.Tile, cfg.Measure.SkipContact = false, 32, true
+	cfgPath := filepath.Join(data, "c.json")
+	if err := writeDemoConfig(cfgPath, cfg); err != nil {
+		t.Fatal(err)
+	}
+	grey := pipelineScene(t, [3]int{32, 32, 32}, 11)
+	for _, n := range []string{"scan-0001.raw", "scan-0002.raw", "scan-0003.raw"} {
+		if err := volio.WriteRaw(filepath.Join(data, n), grey, volio.WriteOptions{}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	ingestCmd := func(args ...string) (int, string, string) {
+		return runCLI(t, append([]string{"ingest", "--nats", url, "--store", st, "--http", "off", "--config", cfgPath, "--campaign", "tt"}, args...)...)
+	}
+	manifestTime := func(step string) float64 {
+		t.Helper()
+		var m campaign.Manifest
+		b, err := os.ReadFile(filepath.Join(st, "campaigns", "tt", "steps", step, "manifest.json"))
+		if err == nil {
+			err = json.Unmarshal(b, &m)
+		}
+		if err != nil {
+			t.Fatalf("step %s: %v", step, err)
+		}
+		return m.TimeS
+	}
+
+	code, _, errs := ingestCmd(filepath.Join(data, "scan-0001.raw"))
+	if code != exitBadInput || strings.Count(strings.TrimSpace(errs), "\n") != 0 || !strings.Contains(errs, "scan-0001.raw has no experiment time") {
+		t.Fatalf("ingest of a scan without any time: exit %d, stderr %q; want exit 2 and one line", code, errs)
+	}
+	if _, err := os.Stat(filepath.Join(st, "campaigns", "tt", "steps", "scan-0001", "manifest.json")); err == nil {
+		t.Fatal("the scan without a time was stored")
+	}
+
+	os.WriteFile(filepath.Join(data, "scan-0002.done"), []byte("time 405"), 0o644)
+	code, _, errs = ingestCmd(filepath.Join(data, "scan-0002.raw"))
+	if code != exitBadInput || !strings.Contains(errs, "scan-0002.done: not empty and not a JSON object") {
+		t.Errorf("ingest beside a marker holding 'time 405': exit %d, stderr %q; want exit 2 naming the marker", code, errs)
+	}
+
+	os.WriteFile(filepath.Join(data, "scan-0003.done"), []byte(`{"time_s": 405}`), 0o644)
+	if code, _, errs = ingestCmd(filepath.Join(data, "scan-0003.raw")); code != exitOK {
+		t.Fatalf("ingest with a short-form marker time: exit %d: %s", code, errs)
+	}
+	if got := manifestTime("scan-0003"); got != 405 {
+		t.Errorf("scan-0003 stored at t = %g s, want 405 s from scan-0003.done", got)
+	}
+	if code, _, errs = ingestCmd("--time", "812", filepath.Join(data, "scan-0001.raw")); code != exitOK {
+		t.Fatalf("ingest with --time: exit %d: %s", code, errs)
+	}
+	if got := manifestTime("scan-0001"); got != 812 {
+		t.Errorf("scan-0001 stored at t = %g s, want 812 s from --time", got)
 	}
 }

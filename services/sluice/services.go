@@ -8,6 +8,7 @@ import (
 	"log/slog"
 	"os"
 	"os/signal"
+	"path/filepath"
 	"runtime"
 	"sync"
 	"syscall"
@@ -20,6 +21,7 @@ import (
 	"sluice/pkg/queue"
 	"sluice/pkg/store"
 	"sluice/pkg/telemetry"
+	"sluice/pkg/volio"
 	"sluice/pkg/web"
 	"sluice/proto/sluicepb"
 	"sluice/services/ingest"
@@ -178,7 +180,7 @@ func (f *ingestFlags) register(fs *flag.FlagSet, single bool) {
 	fs.DurationVar(&f.settle, "settle", 0, "also accept scans without a marker once unchanged for this long (e.g. 30s)")
 	if single {
 		fs.StringVar(&f.step, "step", "", "step name for a single FILE (default: from the file name)")
-		fs.Float64Var(&f.timeS, "time", -1, "experiment time of the step in seconds (default: from the file, else 0)")
+		fs.Float64Var(&f.timeS, "time", -1, "experiment time of the step in `seconds` (default: the scan's marker {\"time_s\": …}, else its header; required when neither gives one)")
 		fs.BoolVar(&f.batch, "batch", false, "queue the tiles as batch work (archives) instead of live")
 	}
 }
@@ -306,19 +308,62 @@ func runIngest(args []string) int {
 			return fail(exitBadInput, "%v", err)
 		}
 	}
+	timeS, hasTime := f.timeS, f.timeS >= 0
+	if !hasTime {
+		if timeS, hasTime, err = scanTime(path, ing.ReadOpt); err != nil {
+			return fail(exitBadInput, "ingest: %v", err)
+		}
+	}
 	bar := newProgressBar(os.Stderr, "ingest "+step)
 	ing.Progress = bar.update
 	prio := sluicepb.Priority_PRIORITY_LIVE
 	if f.batch {
 		prio = sluicepb.Priority_PRIORITY_BATCH
 	}
-	r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: step, Path: path, TimeS: max(f.timeS, 0), HasTime: f.timeS >= 0, Priority: prio})
+	r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: step, Path: path, TimeS: timeS, HasTime: hasTime, Priority: prio})
 	bar.done()
 	if err != nil {
 		return fail(exitBadInput, "%v", err)
 	}
 	fmt.Fprintf(stdout, "step %s of campaign %s stored; %d tile tasks queued (parameter hash %s)\n", r.Step, r.Campaign, r.TileCount, r.ParamHash)
 	return exitOK
+}
+
+// scanTime is the experiment time of a single scan given without --time:
+// from its marker (scan_0042.raw.done or scan_0042.done) when that holds
+// one, else from the scan's header. A scan with neither is refused rather
+// than stored at t = 0, which would date the campaign's events wrongly; a
+// header that cannot be read is left to the ingest, which names the
+// problem.
+func scanTime(path string, opt volio.Options) (float64, bool, error) {
+	dir, name := filepath.Split(filepath.Clean(path))
+	if dir == "" {
+		dir = "."
+	}
+	if ents, err := os.ReadDir(dir); err == nil {
+		names := map[string]bool{}
+		for _, e := range ents {
+			names[e.Name()] = true
+		}
+		marker, err := ingest.MarkerFor(names, name)
+		if err != nil {
+			return 0, false, err
+		}
+		if marker != "" {
+			t, ok, err := ingest.ReadMarker(filepath.Join(dir, marker))
+			if err != nil || ok {
+				return t, ok, err
+			}
+		}
+	}
+	h, err := volio.ReadHeader(path, opt)
+	if err != nil {
+		return 0, false, nil
+	}
+	if !h.HasTime {
+		return 0, false, fmt.Errorf("%s has no experiment time (no marker with time_s, none in its header): give --time SECONDS", path)
+	}
+	return h.TimeS, true, nil
 }
 
 // allInOne is the embedded deployment: NATS, store, watcher, workers and
