@@ -228,6 +228,9 @@ func startIngest(ctx context.Context, f ingestFlags, in inputFlags, st ingest.St
 	if err != nil {
 		return nil, err
 	}
+	if cfg.VoxelSize == "" && ropt.VoxelSize == 0 {
+		log.Warn("no voxel_size in the campaign config and no --voxel-size: a scan without one in its own metadata will be refused", "campaign", f.campaign)
+	}
 	return &ingest.Ingester{Store: st, Queue: pub, Metrics: m, Log: log, Version: Version, ReadOpt: ropt, Stepped: ready}, nil
 }
 
