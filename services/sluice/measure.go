@@ -111,7 +111,7 @@ func (m *measureFlags) register(fs *flag.FlagSet) {
 	fs.UintVar(&m.solid, "solid", uint(d.Codes.Solid), "label code of the solid phase")
 	fs.UintVar(&m.wetting, "wetting", uint(d.Codes.Wetting), "label code of the wetting phase")
 	fs.UintVar(&m.nonwetting, "nonwetting", uint(d.Codes.Nonwetting), "label code of the nonwetting phase")
-	fs.Float64Var(&m.ift, "ift", 0, "interfacial tension σ in N/m (e.g. 0.07275 water–air at 20 °C); without it capillary pressure is omitted")
+	fs.Float64Var(&m.ift, "ift", 0, "interfacial tension σ in N/m, within 0.001…0.5 (water–air 0.072 at 25 °C; 35 mN/m is 0.035); default: the config's ift_n_per_m, else none and no capillary pressure")
 	fs.IntVar(&m.connectivity, "connectivity", 26, "connectivity of nonwetting clusters and Euler characteristics: 26 or 6")
 	fs.StringVar(&m.flowAxis, "flow-axis", "z", "axis from inlet to outlet: z, y or x")
 	fs.Float64Var(&m.exclude, "exclude", d.Curvature.Exclude, "ignore interface within this many voxels of the solid for curvature")
