@@ -166,10 +166,22 @@ func (q *Queue) DeadLetters(ctx context.Context, campaign string) ([]*pb.DeadLet
 
 // readAll reads the messages of a stream that match filter, as stored now.
 func readAll[T proto.Message](ctx context.Context, q *Queue, stream, filter string, fresh func() T) ([]T, error) {
-	cons, err := q.js.OrderedConsumer(ctx, stream, jetstream.OrderedConsumerConfig{FilterSubjects: []string{filter}})
+	// The ordered consumer is ephemeral but lives on the server until its
+	// inactivity threshold: delete it when done, or a caller that polls
+	// (status, the web API, a test waiting for a dead letter) piles up
+	// consumers until the server refuses new ones.
+	cons, err := q.js.OrderedConsumer(ctx, stream, jetstream.OrderedConsumerConfig{
+		FilterSubjects: []string{filter}, InactiveThreshold: 30 * time.Second})
 	if err != nil {
 		return nil, fmt.Errorf("queue: read %s: %w", stream, err)
 	}
+	defer func() {
+		if ci := cons.CachedInfo(); ci != nil {
+			dctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 5*time.Second)
+			defer cancel()
+			_ = q.js.DeleteConsumer(dctx, stream, ci.Name) // best effort: the threshold removes it otherwise
+		}
+	}()
 	info, err := cons.Info(ctx)
 	if err != nil {
 		return nil, fmt.Errorf("queue: read %s: %w", stream, err)

@@ -215,6 +215,35 @@ func TestDeadLetterAfterMaxDeliver(t *testing.T) {
 	}
 }
 
+// TestReadingDeadLettersLeavesNoConsumer: each DeadLetters call reads
+// through an ephemeral consumer; polling it (status, the web API, tests
+// waiting for a dead letter) must not leave consumers behind on the server,
+// which refuses new ones once its limit is reached.
+func TestReadingDeadLettersLeavesNoConsumer(t *testing.T) {
+	_, q := newQueue(t, Policy{})
+	ctx := context.Background()
+	count := func() int {
+		s, err := q.js.Stream(ctx, StreamDead)
+		if err != nil {
+			t.Fatal(err)
+		}
+		info, err := s.Info(ctx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return info.State.Consumers
+	}
+	before := count()
+	for i := 0; i < 20; i++ {
+		if _, err := q.DeadLetters(ctx, ""); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if after := count(); after != before {
+		t.Fatalf("20 reads of the dead letters left %d consumers on %s (before: %d)", after, StreamDead, before)
+	}
+}
+
 func TestDeadLetterWhenLastDeliveryIsNeverAcked(t *testing.T) {
 	_, q := newQueue(t, Policy{AckWait: 500 * time.Millisecond, MaxDeliver: 2})
 	ctx := context.Background()
