@@ -170,6 +170,7 @@ type Watcher struct {
 	tries  map[string]int       // failed ingests per scan name
 	after  map[string]time.Time // no new attempt before
 	said   map[string]bool      // markers already reported as unusable or orphaned
+	badMkr map[string]sizeSeen  // scan → its refused marker as it was when read
 }
 
 type sizeSeen struct {
@@ -247,7 +248,7 @@ func (w *Watcher) retry(a Arrival, err error) {
 func (w *Watcher) Scan() ([]Arrival, error) {
 	if w.seen == nil {
 		w.seen, w.sizes, w.failed = map[string]bool{}, map[string]sizeSeen{}, map[string]bool{}
-		w.tries, w.after, w.said = map[string]int{}, map[string]time.Time{}, map[string]bool{}
+		w.tries, w.after, w.said, w.badMkr = map[string]int{}, map[string]time.Time{}, map[string]bool{}, map[string]sizeSeen{}
 	}
 	ents, err := os.ReadDir(w.Dir)
 	if err != nil {
@@ -291,13 +292,23 @@ func (w *Watcher) Scan() ([]Arrival, error) {
 			continue
 		}
 		if marker != "" {
-			if timeS, hasTime, err = ReadMarker(filepath.Join(w.Dir, marker)); err != nil {
+			mpath := filepath.Join(w.Dir, marker)
+			var stamp sizeSeen
+			if fi, err := os.Stat(mpath); err == nil {
+				stamp = sizeSeen{size: fi.Size(), mtime: fi.ModTime()}
+			}
+			if bad, ok := w.badMkr[name]; ok && bad.size == stamp.size && bad.mtime.Equal(stamp.mtime) {
+				continue // refused before and not rewritten since
+			}
+			if timeS, hasTime, err = ReadMarker(mpath); err != nil {
 				// The step is rejected, not given time 0; the campaign
-				// goes on with the next scan.
-				w.seen[name] = true
+				// goes on with the next scan. A corrected marker is read
+				// again.
+				w.badMkr[name] = stamp
 				w.Log.Error("watch: scan not ingested", "path", path, "err", err)
 				continue
 			}
+			delete(w.badMkr, name)
 		} else if w.Settle > 0 {
 			size, mtime, err := treeSize(path)
 			if err != nil {

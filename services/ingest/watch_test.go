@@ -150,4 +150,23 @@ func TestWatcherMarkerForms(t *testing.T) {
 	if m := ll.matching("names no scan"); len(m) != 1 {
 		t.Errorf("orphan-marker lines %q, want only the one for scna_0007.done", m)
 	}
+
+	// A corrected marker is read again (the modification time is set
+	// explicitly: a rewrite within the file system's time resolution
+	// would otherwise look unchanged).
+	fixed := filepath.Join(dir, "scan_0003.done")
+	if err := os.WriteFile(fixed, []byte(`{"time_s": 1215}`), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	later := time.Now().Add(time.Minute)
+	if err := os.Chtimes(fixed, later, later); err != nil {
+		t.Fatal(err)
+	}
+	arr, err := w.Scan()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(arr) != 1 || arr[0].Step != "scan_0003" || !arr[0].HasTime || arr[0].TimeS != 1215 {
+		t.Errorf("after scan_0003.done was corrected the watcher offered %+v; want scan_0003 at t = 1215 s", arr)
+	}
 }
