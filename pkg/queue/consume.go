@@ -7,6 +7,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 	"google.golang.org/protobuf/proto"
 
@@ -39,7 +40,7 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 			if q.nc.IsClosed() {
 				return fmt.Errorf("queue: consumer %s: %w", durable, q.LostErr())
 			}
-			if isConsumerGone(err) {
+			if consumerGone(err, cons) {
 				return fmt.Errorf("queue: consumer %s is gone from the server: %w", durable, err)
 			}
 			d := pause.next()
@@ -84,7 +85,7 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 			}
 			cancel()
 		}
-		if err := b.Error(); isConsumerGone(err) {
+		if err := b.Error(); err != nil && consumerGone(err, cons) {
 			// Deleted on the server: pulls would come back empty for
 			// ever. Stop, so the process exits and its restart creates
 			// the consumer again.
@@ -98,6 +99,27 @@ func consume[T proto.Message](ctx context.Context, q *Queue, stream, durable, fi
 // no longer exists.
 func isConsumerGone(err error) bool {
 	return errors.Is(err, jetstream.ErrConsumerDeleted) || errors.Is(err, jetstream.ErrConsumerNotFound)
+}
+
+// consumerGone is isConsumerGone for a pull on one of cons: a pull on a
+// consumer deleted before the pull was made comes back as "no responders",
+// which a JetStream that is restarting answers too, so then the server is
+// asked whether the consumer is still there.
+func consumerGone(err error, cons ...jetstream.Consumer) bool {
+	if isConsumerGone(err) {
+		return true
+	}
+	if !errors.Is(err, nats.ErrNoResponders) && !errors.Is(err, jetstream.ErrNoStreamResponse) {
+		return false
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	for _, c := range cons {
+		if _, ierr := c.Info(ctx); errors.Is(ierr, jetstream.ErrConsumerNotFound) {
+			return true
+		}
+	}
+	return false
 }
 
 // Results runs handler on every tile result, in arrival order, until ctx is

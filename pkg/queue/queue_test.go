@@ -735,3 +735,43 @@ func TestConsumersStopWhenDeleted(t *testing.T) {
 		}
 	}
 }
+
+// TestPullOnConsumerDeletedBeforehand: a consumer deleted before a pull is
+// made (not while one waits) answers the pull with "no responders", not
+// "consumer deleted"; consumerGone asks the server and sees it is gone, so
+// the loops stop instead of pulling nothing for ever. A consumer that is
+// there is not taken for gone on the same error.
+func TestPullOnConsumerDeletedBeforehand(t *testing.T) {
+	_, q := newQueue(t, Policy{})
+	ctx := context.Background()
+	mk := func(name string) jetstream.Consumer {
+		c, err := q.js.CreateOrUpdateConsumer(ctx, StreamResults, jetstream.ConsumerConfig{Durable: name,
+			FilterSubject: subjectResult + name + ".>", AckPolicy: jetstream.AckExplicitPolicy})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return c
+	}
+	gone, kept := mk("deleted-beforehand"), mk("still-there")
+	if err := q.js.DeleteConsumer(ctx, StreamResults, "deleted-beforehand"); err != nil {
+		t.Fatal(err)
+	}
+	b, err := gone.Fetch(1, jetstream.FetchMaxWait(time.Second))
+	if err == nil {
+		for range b.Messages() {
+		}
+		err = b.Error()
+	}
+	if err == nil {
+		t.Fatal("a pull on a deleted consumer reported no error")
+	}
+	if isConsumerGone(err) {
+		t.Logf("the client now names the deletion itself: %v", err)
+	}
+	if !consumerGone(err, gone) {
+		t.Errorf("pull on a deleted consumer failed with %q and was not taken for gone", err)
+	}
+	if consumerGone(err, kept) {
+		t.Errorf("a consumer that is there was taken for gone on %q", err)
+	}
+}

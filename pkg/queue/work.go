@@ -129,7 +129,7 @@ func (q *Queue) workLoop(ctx, hctx context.Context, handler Handler, opts WorkOp
 			if q.nc.IsClosed() {
 				return q.LostErr()
 			}
-			if isConsumerGone(err) {
+			if consumerGone(err, q.live, q.batch) {
 				// Deleted on the server: stop, so the process exits and
 				// its restart finds or creates the consumer again.
 				return fmt.Errorf("queue: task consumer is gone from the server: %w", err)
