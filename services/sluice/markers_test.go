@@ -218,6 +218,7 @@ func TestIngestNeedsTime(t *testing.T) {
 	st := filepath.Join(data, "store")
 	cfg := campaign.Default()
 	cfg.DetectSample, cfg.Tile, cfg.Measure.SkipContact = false, 32, true
+	cfg.VoxelSize = "3um" // that of pipelineScene
 	cfgPath := filepath.Join(data, "c.json")
 	if err := writeDemoConfig(cfgPath, cfg); err != nil {
 		t.Fatal(err)
