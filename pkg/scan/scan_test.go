@@ -73,7 +73,7 @@ func TestWholeIndependentOfTiling(t *testing.T) {
 	masked := (conf[0][3] + conf[1][3] + conf[2][3]) / inTruth
 	dS := wetSeg/poreSeg - row(1)/(row(1)+row(2))
 	dPhi := poreSeg/inSeg - (row(1)+row(2))/inTruth
-	t.Logf("truth × segmented (solid, wetting, nonwetting, outside): %v; sample %+v; thresholds %v", conf, refPrep.Thresholds.Sample, refPrep.Thresholds.T)
+	t.Logf("truth × segmented (solid, wetting, nonwetting, outside): %v; sample %+v; thresholds %v %+v", conf, refPrep.Thresholds.Sample, refPrep.Thresholds.T, refPrep.Thresholds.Phases)
 	t.Logf("pore voxels right %.4f (wetting %.4f, nonwetting %.4f), sample masked %.4f, ΔS_w %+.4f, Δφ %+.4f", poreAcc, wetAcc, nonAcc, masked, dS, dPhi)
 	// Source: the forward model's truth labels and cylinder. Measured
 	// 2026-12-04 (errors in the table): the pores of this small scene are

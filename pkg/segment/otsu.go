@@ -159,20 +159,45 @@ type Thresholds struct {
 	WettingGrey    float64 `json:"wetting_grey,omitempty"`
 	// Sample is the cylinder used (copied from Params).
 	Sample Sample `json:"sample"`
+	// Phases is the decision on the phases the step holds (see
+	// DecidePhases); T holds one threshold fewer per missing fluid. Plans
+	// written before the decision existed hold the zero value: both fluids.
+	Phases Phases `json:"phases"`
 }
 
-// ComputeThresholds computes the step thresholds from the merged histogram
-// (Threshold "otsu": 3-class Otsu, or 2-class Otsu in reference mode) or
-// takes them from Params (Threshold "fixed"). Otsu thresholds are bin
-// centres, as scikit-image returns them.
+// Fluids returns the fluids of the step: FluidsBoth, FluidsWetting or
+// FluidsNonwetting.
+func (th Thresholds) Fluids() string {
+	if th.Phases.Fluids == "" {
+		return FluidsBoth
+	}
+	return th.Phases.Fluids
+}
+
+// ComputeThresholds decides how many phases the step holds (DecidePhases)
+// and computes the step thresholds from the merged histogram (Threshold
+// "otsu": 3-class Otsu, or 2-class Otsu in reference mode; one class fewer
+// per missing fluid) or takes them from Params (Threshold "fixed"). Otsu
+// thresholds are bin centres, as scikit-image returns them.
 func ComputeThresholds(h Hist, p Params) (Thresholds, error) {
 	if err := p.Validate(); err != nil {
 		return Thresholds{}, err
 	}
-	th := Thresholds{Method: p.Threshold, Sample: p.Sample}
+	ph := DecidePhases(h, p)
+	th := Thresholds{Method: p.Threshold, Sample: p.Sample, Phases: ph}
 	switch {
 	case p.Threshold == "fixed":
 		th.T = append([]float64(nil), p.Fixed...)
+	case ph.OneFluid() && p.Reference:
+		// Every pore voxel holds the one fluid: no threshold.
+		th.T = []float64{}
+	case ph.OneFluid():
+		// Solid and one fluid: Otsu's 2-class threshold.
+		t, err := Otsu(h.Counts)
+		if err != nil {
+			return Thresholds{}, err
+		}
+		th.T = []float64{h.Centre(t)}
 	case p.Threshold == "isodata":
 		t, err := Isodata(h.Counts)
 		if err != nil {
@@ -190,7 +215,18 @@ func ComputeThresholds(h Hist, p Params) (Thresholds, error) {
 		if err != nil {
 			return Thresholds{}, err
 		}
+		if r, ok := nestedThresholds(h.Counts, ph); ok && !between(h.Counts, r, t0, t1) {
+			// 3-class Otsu split a large phase rather than find a small one
+			// (e.g. the rock into halves while the pore space holds a few
+			// per cent of nonwetting fluid): the nested Otsu splits that
+			// found three phases are used instead.
+			t0, t1 = r[0], r[1]
+		}
 		th.T = []float64{h.Centre(t0), h.Centre(t1)}
+	}
+	order := presentOrder(p, ph.Fluids)
+	if len(th.T) != len(order)-1 {
+		return Thresholds{}, fmt.Errorf("segment: %d thresholds for the %d classes %q", len(th.T), len(order), order)
 	}
 	if p.PartialVolume.Blur > 0 {
 		th.SolidGrey = p.PartialVolume.SolidGrey
@@ -200,10 +236,10 @@ func ComputeThresholds(h Hist, p Params) (Thresholds, error) {
 			counts, lo, hi := h.Solid, 0, len(h.Counts)
 			if !p.Reference {
 				counts = h.Counts
-				if p.Order[0] == 's' {
+				if order[0] == 's' {
 					hi = binOf(th.T[0], h.Lo, h.Width, len(h.Counts)) + 1
 				} else {
-					lo = binOf(th.T[1], h.Lo, h.Width, len(h.Counts)) + 1
+					lo = binOf(th.T[len(th.T)-1], h.Lo, h.Width, len(h.Counts)) + 1
 				}
 			}
 			peak := peakBin(counts, lo, hi)
@@ -214,17 +250,26 @@ func ComputeThresholds(h Hist, p Params) (Thresholds, error) {
 		}
 	}
 	if p.PartialVolume.LocalFluid > 0 {
-		// Peaks of the three classes of the 3-class split, in grey order.
-		cut := []int{0, binOf(th.T[0], h.Lo, h.Width, len(h.Counts)) + 1, binOf(th.T[1], h.Lo, h.Width, len(h.Counts)) + 1, len(h.Counts)}
-		for k := 0; k < 3; k++ {
+		// Peaks of the classes of the split, in grey order. With one fluid
+		// both fluid greys are its peak (the local fluid is that fluid).
+		cut := []int{0}
+		for _, t := range th.T {
+			cut = append(cut, binOf(t, h.Lo, h.Width, len(h.Counts))+1)
+		}
+		cut = append(cut, len(h.Counts))
+		for k := 0; k < len(order); k++ {
 			peak := peakBin(h.Counts, cut[k], cut[k+1])
 			if peak < 0 {
-				return Thresholds{}, fmt.Errorf("segment: class %d of the 3-class split is empty; local-fluid passes need the grey of both fluids", k)
+				return Thresholds{}, fmt.Errorf("segment: class %d of the %d-class split is empty; local-fluid passes need the grey of the fluids", k, len(order))
 			}
-			switch p.Order[k] {
-			case 'n':
+			switch {
+			case order[k] == 'n' && ph.OneFluid():
+				th.NonwettingGrey, th.WettingGrey = h.Centre(peak), h.Centre(peak)
+			case order[k] == 'w' && ph.OneFluid():
+				th.NonwettingGrey, th.WettingGrey = h.Centre(peak), h.Centre(peak)
+			case order[k] == 'n':
 				th.NonwettingGrey = h.Centre(peak)
-			case 'w':
+			case order[k] == 'w':
 				th.WettingGrey = h.Centre(peak)
 			}
 		}

@@ -120,6 +120,11 @@ type Params struct {
 	// MinIsland: 26-connected nonwetting components of fewer voxels become
 	// wetting. 0 or 1 = off. MinIsland − 1 is part of the halo.
 	MinIsland int `json:"min_island" yaml:"min_island"`
+	// Fluids states the fluids the scans hold: "auto" (or empty; decided
+	// per step from the merged histogram, see DecidePhases), "both",
+	// "wetting" or "nonwetting" (one fluid only, e.g. the brine-saturated
+	// first scan of a drainage).
+	Fluids string `json:"fluids,omitempty" yaml:"fluids,omitempty"`
 	// Sample is the cylinder; voxels outside are labelled phase.Outside and
 	// left out of the histogram.
 	Sample Sample `json:"sample" yaml:"sample"`
@@ -165,6 +170,11 @@ func (p Params) Validate() error {
 	default:
 		return fmt.Errorf("segment: unknown filter %q (want none, median, gaussian or nlm)", p.Filter.Method)
 	}
+	switch p.Fluids {
+	case "", FluidsAuto, FluidsBoth, FluidsWetting, FluidsNonwetting:
+	default:
+		return fmt.Errorf("segment: fluids %q must be auto, both, wetting or nonwetting", p.Fluids)
+	}
 	switch p.Threshold {
 	case "otsu":
 	case "isodata":
@@ -172,10 +182,7 @@ func (p Params) Validate() error {
 			return fmt.Errorf("segment: isodata thresholds need reference mode (two classes)")
 		}
 	case "fixed":
-		want := 2
-		if p.Reference {
-			want = 1
-		}
+		want := len(presentOrder(p, p.Fluids)) - 1
 		if len(p.Fixed) != want {
 			return fmt.Errorf("segment: fixed thresholds: got %d values, want %d", len(p.Fixed), want)
 		}

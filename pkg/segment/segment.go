@@ -24,10 +24,8 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	if err := p.Validate(); err != nil {
 		return nil, err
 	}
-	want := 2
-	if p.Reference {
-		want = 1
-	}
+	order := presentOrder(p, th.Fluids())
+	want := len(order) - 1
 	if len(th.T) != want {
 		return nil, fmt.Errorf("segment: %d thresholds given, want %d", len(th.T), want)
 	}
@@ -48,6 +46,11 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	steps := 0
 	if p.Hysteresis.Band > 0 {
 		steps = p.Hysteresis.Steps
+	}
+	if th.Fluids() != FluidsBoth {
+		// One fluid: there is no other fluid to grow into or to turn
+		// islands into.
+		isl, steps = 0, 0
 	}
 	l2 := core.Grow(isl).Intersect(gb)
 	l1 := l2.Grow(steps).Intersect(gb)
@@ -276,13 +279,15 @@ func classifier(p Params, th Thresholds) *classes {
 		}
 		return p.Codes.Solid
 	}
-	order := p.Order
-	if p.Reference {
-		order = strings.ReplaceAll(order, "s", "")
-	}
+	order := presentOrder(p, th.Fluids())
 	c := &classes{t: th.T, n: p.Codes.Nonwetting, band: p.Hysteresis.Band, solid: p.Codes.Solid}
 	for i := 0; i < len(order); i++ {
 		c.codes = append(c.codes, code(order[i]))
+	}
+	if f := strings.ReplaceAll(order, "s", ""); len(f) == 1 {
+		// One fluid: every fluid voxel is that fluid; no hysteresis.
+		c.fluidLo, c.fluidHi = code(f[0]), code(f[0])
+		return c
 	}
 	switch {
 	case p.Reference:
