@@ -17,17 +17,23 @@ import (
 // Quantities that cannot be computed (no interface, no contact line, no σ)
 // are null.
 type Result struct {
-	Voxels           int64    `json:"voxels"`
-	VoxelSize        float64  `json:"voxel_size_m"`
-	Shape            [3]int   `json:"shape_zyx"`
-	VoxelsSolid      int64    `json:"voxels_solid"`
-	VoxelsWetting    int64    `json:"voxels_wetting"`
-	VoxelsNonwetting int64    `json:"voxels_nonwetting"`
-	VoxelsOutside    int64    `json:"voxels_outside"`
-	BulkVolume       float64  `json:"bulk_volume_m3"`
-	Porosity         *float64 `json:"porosity"`
-	SatWetting       *float64 `json:"saturation_wetting"`
-	SatNonwetting    *float64 `json:"saturation_nonwetting"`
+	Voxels           int64   `json:"voxels"`
+	VoxelSize        float64 `json:"voxel_size_m"`
+	Shape            [3]int  `json:"shape_zyx"`
+	VoxelsSolid      int64   `json:"voxels_solid"`
+	VoxelsWetting    int64   `json:"voxels_wetting"`
+	VoxelsNonwetting int64   `json:"voxels_nonwetting"`
+	VoxelsOutside    int64   `json:"voxels_outside"`
+	BulkVolume       float64 `json:"bulk_volume_m3"`
+	// PhasesDetected is the number of phases segmentation found in the
+	// sample from the grey histogram (3: rock and both fluids; 2: rock and
+	// one fluid); 0 when the input was labels. PhasesNote says how it was
+	// decided (segment.Phases.Describe).
+	PhasesDetected int      `json:"phases_detected,omitempty"`
+	PhasesNote     string   `json:"phases_note,omitempty"`
+	Porosity       *float64 `json:"porosity"`
+	SatWetting     *float64 `json:"saturation_wetting"`
+	SatNonwetting  *float64 `json:"saturation_nonwetting"`
 
 	AreaWN       float64  `json:"area_wn_m2"`
 	AreaWS       float64  `json:"area_ws_m2"`

@@ -205,6 +205,9 @@ func Whole(grey volume.Any, c campaign.Config, solid *volume.Labels, workers int
 		vs = 1e-6
 	}
 	res, err := measure.Combine(parts, whole, vs, mo)
+	if err == nil {
+		res.PhasesDetected, res.PhasesNote = prep.Thresholds.Phases.InScan(), prep.Thresholds.Phases.Describe()
+	}
 	return labels, res, prep, err
 }
 

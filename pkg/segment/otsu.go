@@ -198,6 +198,9 @@ func ComputeThresholds(h Hist, p Params) (Thresholds, error) {
 			return Thresholds{}, err
 		}
 		th.T = []float64{h.Centre(t)}
+	case p.Reference && len(ph.Splits) == 1 && ph.Splits[0].Valley:
+		// A minority fluid found by the far-side test: split at the valley.
+		th.T = []float64{h.Centre(ph.Splits[0].T)}
 	case p.Threshold == "isodata":
 		t, err := Isodata(h.Counts)
 		if err != nil {

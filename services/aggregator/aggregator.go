@@ -460,6 +460,9 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 	if err != nil {
 		return fmt.Errorf("aggregator: %s: %w", step.Dir(), err)
 	}
+	if ph := plan.Thresholds.Phases; ph.Fluids != "" {
+		res.PhasesDetected, res.PhasesNote = ph.InScan(), ph.Describe()
+	}
 	b, err := json.MarshalIndent(res, "", "  ")
 	if err != nil {
 		return err

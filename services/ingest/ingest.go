@@ -159,6 +159,13 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 			return nil, fmt.Errorf("ingest: %s: pass 1: %w", req.Path, err)
 		}
 		in.stage("pass1", t0)
+		if ph := plan.Thresholds.Phases; ph.OneFluid() || ph.Decided == "undecided" {
+			log := in.Log
+			if log == nil {
+				log = slog.Default()
+			}
+			log.Warn("ingest: pass 1: fewer phases than configured, or undecided", "scan", req.Path, "phases_detected", ph.InScan(), "fluids", ph.Fluids, "note", ph.Describe())
+		}
 		plan.Priority = priorityName(req.Priority)
 		if err := campaign.PutJSON(ctx, in.Store, campaign.PlanKey(step, plan.ParamHash), plan); err != nil {
 			return nil, err

@@ -252,6 +252,7 @@ func runMeasure(args []string) int {
 		}
 		if !*asJSON {
 			fmt.Fprintf(stdout, "segmented first: thresholds (%s) %s\n", prep.Thresholds.Method, fmtFloats(prep.Thresholds.T))
+			fmt.Fprintf(stdout, "phases: %d of 3 (%s)\n", prep.Thresholds.Phases.InScan(), prep.Thresholds.Phases.Describe())
 		}
 	}
 	if *asJSON {
