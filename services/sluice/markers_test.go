@@ -273,3 +273,16 @@ func TestIngestNeedsTime(t *testing.T) {
 		t.Errorf("scan-0001 stored at t = %g s, want 812 s from --time", got)
 	}
 }
+
+// `sluice status` with a mistyped --data used to create DIR/store and
+// report that the campaign is not in it; it only reads, so it refuses.
+func TestStatusRefusesMissingData(t *testing.T) {
+	missing := filepath.Join(t.TempDir(), "sluice-dta")
+	code, _, errs := runCLI(t, "status", "--data", missing, "c1")
+	if code != exitBadInput || strings.Count(strings.TrimSpace(errs), "\n") != 0 || !strings.Contains(errs, "no store at "+filepath.Join(missing, "store")) {
+		t.Errorf("status --data %s: exit %d, stderr %q; want exit 2 and 'no store at'", missing, code, errs)
+	}
+	if _, err := os.Stat(missing); err == nil {
+		t.Errorf("status created %s", missing)
+	}
+}

@@ -5,6 +5,8 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"os"
+	"path/filepath"
 	"sort"
 	"strings"
 
@@ -144,6 +146,12 @@ func printStatus(w io.Writer, rec campaign.Record, steps []string, runs []runSta
 }
 
 // runStatus is `sluice status`.
+// isDir reports whether path is an existing directory.
+func isDir(path string) bool {
+	fi, err := os.Stat(path)
+	return err == nil && fi.IsDir()
+}
+
 func runStatus(args []string) int {
 	fs := flag.NewFlagSet("status", flag.ContinueOnError)
 	var nf nodeFlags
@@ -155,6 +163,13 @@ func runStatus(args []string) int {
 	}
 	if len(pos) != 1 {
 		return fail(exitBadInput, "status: usage: sluice status CAMPAIGN [--data DIR | --store LOC] [--nats URL]")
+	}
+	if nf.store == "" {
+		// status only reads: a mistyped --data must not become a new,
+		// empty store that "has no such campaign".
+		if loc := filepath.Join(nf.data, "store"); !isDir(loc) {
+			return fail(exitBadInput, "status: no store at %s (use --data or --store)", loc)
+		}
 	}
 	ctx, stop := signalContext()
 	defer stop()
