@@ -1,13 +1,17 @@
 package main
 
 import (
+	"context"
 	"encoding/json"
 	"math"
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
+	"sluice/pkg/campaign"
 	"sluice/pkg/forward"
+	"sluice/pkg/measure"
 	"sluice/pkg/phase"
 	"sluice/pkg/scenario"
 	"sluice/pkg/volio"
@@ -100,6 +104,83 @@ func TestMeasureOneFluidGrey(t *testing.T) {
 		// Source: TestPhasesDecided's band for two fluids (0.075).
 		if r.PhasesDetected != 3 || math.Abs(r.SatNonwetting-snwBoth) > 0.075 {
 			t.Errorf("%s both fluids: S_n %.4f phases %d, want %.4f ± 0.075 and 3", mode, r.SatNonwetting, r.PhasesDetected, snwBoth)
+		}
+	}
+}
+
+// TestPipelineOneFluid: through the real pipeline (embedded NATS, local
+// store, watcher, pass 1 in ingest, workers, aggregator) a brine-only scan
+// gives S_n 0 with phases_detected 2 in its result, and a scan with both
+// fluids keeps three phases. Source and bands as TestMeasureOneFluidGrey.
+func TestPipelineOneFluid(t *testing.T) {
+	if testing.Short() {
+		t.Skip("pipeline test")
+	}
+	c := phase.Default()
+	sc := &scenario.Campaign{Shape: [3]int{96, 96, 96}, Steps: 10, Seed: 1, NoCore: true}
+	rock, _ := sc.RockLabels()
+	var pore float64
+	for _, v := range rock.Pix {
+		if v == c.Wetting {
+			pore++
+		}
+	}
+	phi := pore / float64(len(rock.Pix))
+	render := func(lab *volume.Labels) *volume.Volume[uint16] {
+		g, err := forward.Render(lab, forward.Default())
+		if err != nil {
+			t.Fatal(err)
+		}
+		u := forward.Uint16(g)
+		u.VoxelSize = 4e-6
+		return u
+	}
+	mid, _, _ := sc.Step(6)
+	snwBoth := sc.Saturation(mid)
+
+	data := t.TempDir()
+	cfg := campaign.Default()
+	cfg.DetectSample = false
+	cfg.Tile = 48
+	cfg.VoxelSize = "4um"
+	cfg.Measure.SkipContact, cfg.Measure.SkipCurvature = true, true
+	cfgPath := filepath.Join(data, "c.json")
+	if err := writeDemoConfig(cfgPath, cfg); err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
+	f := ingestFlags{campaign: "onefluid", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true}
+	node, err := startAll(ctx, nf, inputFlags{}, f, 2, quietLog())
+	if err != nil {
+		cancel()
+		t.Fatal(err)
+	}
+	defer func() { cancel(); node.wg.Wait() }()
+	writeScanFile(t, f.watch, "scan-0001", render(rock), 45)
+	writeScanFile(t, f.watch, "scan-0002", render(mid), 90)
+	st, _ := nf.openStore(ctx)
+	waitRows(t, st, "onefluid", 2, 3*time.Minute)
+	for _, s := range []struct {
+		step   string
+		snw    float64
+		band   float64
+		phases int
+	}{{"scan-0001", 0, 0, 2}, {"scan-0002", snwBoth, 0.075, 3}} {
+		b, err := st.Get(ctx, "campaigns/onefluid/steps/"+s.step+"/result.json")
+		if err != nil {
+			t.Fatal(err)
+		}
+		var r measure.Result
+		if err := json.Unmarshal(b, &r); err != nil {
+			t.Fatal(err)
+		}
+		t.Logf("%s: S_n %.4f (truth %.4f) porosity %.4f (truth %.4f) phases %d: %s", s.step, *r.SatNonwetting, s.snw, *r.Porosity, phi, r.PhasesDetected, r.PhasesNote)
+		if math.Abs(*r.SatNonwetting-s.snw) > s.band || r.PhasesDetected != s.phases {
+			t.Errorf("%s: S_n %.4f phases %d, want %.4f ± %.3f and %d", s.step, *r.SatNonwetting, r.PhasesDetected, s.snw, s.band, s.phases)
+		}
+		if s.phases == 2 && math.Abs(*r.Porosity-phi) > 0.006 {
+			t.Errorf("%s: porosity %.4f, want %.4f ± 0.006", s.step, *r.Porosity, phi)
 		}
 	}
 }
