@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"fmt"
 	"math"
 	"path/filepath"
 	"strings"
@@ -181,6 +182,90 @@ func TestPipelineOneFluid(t *testing.T) {
 		}
 		if s.phases == 2 && math.Abs(*r.Porosity-phi) > 0.006 {
 			t.Errorf("%s: porosity %.4f, want %.4f ± 0.006", s.step, *r.Porosity, phi)
+		}
+	}
+}
+
+// TestReferencePipelineOneFluid: in reference-scan mode (solid mask from
+// `sluice reference`, per-step 2-class Otsu in the pore space) a
+// brine-only fast scan through the pipeline gives S_n 0 and
+// phases_detected 2; a two-fluid step keeps both (issue 13: 0.74).
+// Source: the scenario's truth; band for two fluids as TestReferenceScanMode
+// (0.02 in S_w).
+func TestReferencePipelineOneFluid(t *testing.T) {
+	if testing.Short() {
+		t.Skip("pipeline test")
+	}
+	sc := &scenario.Campaign{Shape: [3]int{96, 96, 96}, Steps: 8, Seed: 2}
+	if err := sc.Prepare(); err != nil {
+		t.Fatal(err)
+	}
+	data := t.TempDir()
+	cfg := demoConfig(sc, 48)
+	cfg.Segment.Reference = true
+	cfg.Segment.Threshold = "otsu"
+	cfg.Segment.Fixed = nil
+	cfg.Segment.PartialVolume.Blur = forward.Default().Blur
+	cfg.Measure.SkipContact, cfg.Measure.SkipCurvature = true, true
+	cfgPath := filepath.Join(data, "c.json")
+	if err := writeDemoConfig(cfgPath, cfg); err != nil {
+		t.Fatal(err)
+	}
+	rock, _ := sc.RockLabels()
+	render := func(cnr float64, seed uint64) *volume.Volume[uint16] {
+		rp := forward.Default()
+		rp.CNR, rp.Seed, rp.Sample = cnr, seed, demoCylinder(sc)
+		g, err := forward.Render(rock, rp)
+		if err != nil {
+			t.Fatal(err)
+		}
+		u := forward.Uint16(g)
+		u.VoxelSize = sc.VoxelSize
+		return u
+	}
+	refPath := filepath.Join(data, "reference.raw")
+	if err := volio.WriteRaw(refPath, render(20, 99), volio.WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	s := cfg.Segment.Sample
+	if code, _, errs := runCLI(t, "reference", "--campaign", "refone", "--data", data, "--config", cfgPath,
+		"--sample", fmt.Sprintf("%g,%g,%g", s.Y, s.X, s.Radius), refPath); code != 0 {
+		t.Fatalf("sluice reference: exit %d: %s", code, errs)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
+	f := ingestFlags{campaign: "refone", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true}
+	node, err := startAll(ctx, nf, inputFlags{}, f, 2, quietLog())
+	if err != nil {
+		cancel()
+		t.Fatal(err)
+	}
+	defer func() { cancel(); node.wg.Wait() }()
+	// The brine-saturated fast scan (CNR 5) as scan-0000, then step 6.
+	writeScanFile(t, f.watch, "scan-0000", render(5, 1), 0)
+	if err := writeScan(f.watch, sc, 6, demoCylinder(sc)); err != nil {
+		t.Fatal(err)
+	}
+	mid, _, _ := sc.Step(6)
+	st, _ := nf.openStore(ctx)
+	waitRows(t, st, "refone", 2, 3*time.Minute)
+	for _, c := range []struct {
+		step   string
+		snw    float64
+		band   float64
+		phases int
+	}{{"scan-0000", 0, 0, 2}, {"scan-0006", sc.Saturation(mid), 0.02, 3}} {
+		b, err := st.Get(ctx, "campaigns/refone/steps/"+c.step+"/result.json")
+		if err != nil {
+			t.Fatal(err)
+		}
+		var r measure.Result
+		if err := json.Unmarshal(b, &r); err != nil {
+			t.Fatal(err)
+		}
+		t.Logf("%s: S_n %.4f (truth %.4f) porosity %.4f phases %d: %s", c.step, *r.SatNonwetting, c.snw, *r.Porosity, r.PhasesDetected, r.PhasesNote)
+		if math.Abs(*r.SatNonwetting-c.snw) > c.band || r.PhasesDetected != c.phases {
+			t.Errorf("%s: S_n %.4f phases %d, want %.4f ± %.3f and %d", c.step, *r.SatNonwetting, r.PhasesDetected, c.snw, c.band, c.phases)
 		}
 	}
 }
