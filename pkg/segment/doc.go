@@ -15,7 +15,11 @@
 //     Otsu (Otsu 1979, IEEE Trans. SMC 9:62) or the isodata fixed point
 //     (Ridler & Calvard 1978, IEEE Trans. SMC 8:630) on the merged histogram,
 //     or fixed values from the config. (The function is not called Thresholds
-//     because that is the name of its result type.)
+//     because that is the name of its result type.) It first decides how
+//     many phases the step holds (DecidePhases, phases.go: Otsu's split
+//     separation and a far-side excess test on the merged histogram, or
+//     Params.Fluids): a step with one fluid gets one threshold fewer and
+//     is never forced into three phases.
 //  3. Every tile: Segment(grey core+halo, core, th, p, mask) returns the
 //     labels of the core.
 //
