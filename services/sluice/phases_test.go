@@ -63,6 +63,32 @@ func TestMeasureOneFluidGrey(t *testing.T) {
 	mid, _, _ := sc.Step(6)
 	both := write("both.raw", mid)
 	snwBoth := sc.Saturation(mid)
+	oilLab := rock.Crop(rock.Box, 0)
+	for i, v := range oilLab.Pix {
+		if v == c.Wetting {
+			oilLab.Pix[i] = c.Nonwetting
+		}
+	}
+	oil := write("oil.raw", oilLab)
+	// Which fluid a one-fluid scan holds is stated with --fluids.
+	code, js, errs := runCLI(t, "measure", "--no-sample", "--json", "--fluids", "nonwetting", oil)
+	if code != 0 {
+		t.Fatalf("measure --fluids nonwetting: exit %d: %s", code, errs)
+	}
+	var o struct {
+		Porosity      float64 `json:"porosity"`
+		SatNonwetting float64 `json:"saturation_nonwetting"`
+	}
+	if err := json.Unmarshal([]byte(js), &o); err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("nonwetting only, --fluids nonwetting: S_n %.4f porosity %.4f", o.SatNonwetting, o.Porosity)
+	if o.SatNonwetting != 1 || math.Abs(o.Porosity-phi) > 0.006 {
+		t.Errorf("nonwetting only, --fluids nonwetting: S_n %.4f porosity %.4f, want 1 and %.4f ± 0.006", o.SatNonwetting, o.Porosity, phi)
+	}
+	if code, _, _ := runCLI(t, "measure", "--no-sample", "--fluids", "oil", oil); code != 2 {
+		t.Errorf("--fluids oil: exit %d, want 2", code)
+	}
 
 	for _, ref := range [][]string{nil, {"--reference", mask}} {
 		mode := "single-scan"

@@ -20,6 +20,7 @@ import (
 // config file.
 type segFlags struct {
 	config, filter, threshold, fixed, order, sample, reference string
+	fluids                                                     string
 	minIsland                                                  int
 	band, noise                                                float64
 	noDetect                                                   bool
@@ -31,6 +32,7 @@ func (s *segFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&s.threshold, "threshold", "", "otsu (3-class multi-level Otsu on the filtered histogram, default) or fixed")
 	fs.StringVar(&s.fixed, "fixed", "", "fixed grey thresholds `T1,T2` (darkest|middle, middle|brightest); implies --threshold fixed")
 	fs.StringVar(&s.order, "order", "", "phases from darkest to brightest: nws (gas/oil darkest, default) or nsw (doped brine)")
+	fs.StringVar(&s.fluids, "fluids", "", "fluids the scan holds: auto (decided from the histogram, default), both, wetting or nonwetting")
 	fs.Float64Var(&s.noise, "noise-sigma", 0, "noise standard deviation in grey units, for --filter nlm (measure it in a uniform region)")
 	fs.IntVar(&s.minIsland, "min-island", -1, "nonwetting clusters smaller than this many voxels become wetting (0 = off)")
 	fs.Float64Var(&s.band, "hysteresis-band", -1, "half-width (grey units) of the uncertain band grown from nonwetting seeds (0 = off)")
@@ -70,6 +72,9 @@ func (s *segFlags) campaignConfig() (campaign.Config, error) {
 	}
 	if s.order != "" {
 		p.Order = s.order
+	}
+	if s.fluids != "" {
+		p.Fluids = s.fluids
 	}
 	if s.minIsland >= 0 {
 		p.MinIsland = s.minIsland
