@@ -28,6 +28,7 @@ import (
 	"sort"
 	"strconv"
 	"strings"
+	"sync"
 	"time"
 
 	"sluice/pkg/campaign"
@@ -75,48 +76,97 @@ type runStore interface {
 	Get(ctx context.Context, key string) ([]byte, error)
 	Put(ctx context.Context, key string, data []byte) error
 	List(ctx context.Context, prefix string) ([]string, error)
+	Dirs(ctx context.Context, prefix string) ([]string, error)
+	Stat(ctx context.Context, key string) (store.Info, error)
 	Delete(ctx context.Context, key string) error
 }
 
-// stepKeys is what one listing of a campaign's steps says about one step
-// under one parameter hash.
+// stepKeys is what the store holds of one step under one parameter hash.
 type stepKeys struct {
 	manifest, plan, result bool
 	tiles                  map[int]bool
 }
 
-// scanSteps lists the campaign's step keys once and sorts them out per
-// step for the given hash.
+// scanStepWorkers bounds the store requests in flight while scanSteps reads
+// steps (one S3 round trip each).
+const scanStepWorkers = 8
+
+// scanSteps finds the campaign's steps one directory level at a time and
+// reads, per step, only what tells its state under hash: the manifest, the
+// plan and run result of hash, and the tile results of hash. It never lists
+// the chunks of the step's Zarr arrays (a campaign of 1000 steps of 10⁹
+// voxels holds millions of them).
 func scanSteps(ctx context.Context, st runStore, c layout.Campaign, hash string) (map[string]*stepKeys, error) {
-	keys, err := st.List(ctx, c.Steps())
+	names, err := st.Dirs(ctx, c.Steps())
 	if err != nil {
 		return nil, fmt.Errorf("campaign %s: listing steps: %w", c.Name(), err)
 	}
-	out := map[string]*stepKeys{}
-	for _, k := range keys {
-		_, s, ok := layout.ParseKey(k)
-		if !ok || s == "" {
-			continue
-		}
-		sk := out[s]
-		if sk == nil {
-			sk = &stepKeys{tiles: map[int]bool{}}
-			out[s] = sk
-		}
-		rest := strings.TrimPrefix(k, c.Steps()+s+"/")
+	exists := func(key string) (bool, error) {
+		_, err := st.Stat(ctx, key)
 		switch {
-		case rest == "manifest.json":
-			sk.manifest = true
-		case rest == "plans/"+hash+".json":
-			sk.plan = true
-		case rest == "runs/"+hash+"/result.json":
-			sk.result = true
-		case strings.HasPrefix(rest, "tiles/"+hash+"/") && strings.HasSuffix(rest, ".json"):
-			n, err := strconv.Atoi(strings.TrimSuffix(strings.TrimPrefix(rest, "tiles/"+hash+"/"), ".json"))
-			if err == nil {
+		case err == nil:
+			return true, nil
+		case errors.Is(err, fs.ErrNotExist):
+			return false, nil
+		}
+		return false, err
+	}
+	read := func(s string) (*stepKeys, error) {
+		dir := c.Steps() + s + "/"
+		sk := &stepKeys{tiles: map[int]bool{}}
+		var err error
+		if sk.manifest, err = exists(dir + "manifest.json"); err != nil {
+			return nil, err
+		}
+		if sk.plan, err = exists(dir + "plans/" + hash + ".json"); err != nil {
+			return nil, err
+		}
+		if sk.result, err = exists(dir + "runs/" + hash + "/result.json"); err != nil {
+			return nil, err
+		}
+		tiles, err := st.List(ctx, dir+"tiles/"+hash+"/")
+		if err != nil {
+			return nil, err
+		}
+		for _, k := range tiles {
+			rest := strings.TrimPrefix(k, dir+"tiles/"+hash+"/")
+			if !strings.HasSuffix(rest, ".json") || strings.Contains(rest, "/") {
+				continue
+			}
+			if n, err := strconv.Atoi(strings.TrimSuffix(rest, ".json")); err == nil {
 				sk.tiles[n] = true
 			}
 		}
+		return sk, nil
+	}
+	var (
+		mu   sync.Mutex
+		out  = map[string]*stepKeys{}
+		errs []error
+		wg   sync.WaitGroup
+		sem  = make(chan struct{}, scanStepWorkers)
+	)
+	for _, s := range names {
+		if _, err := c.Step(s); err != nil {
+			continue // not a step directory
+		}
+		wg.Add(1)
+		sem <- struct{}{}
+		go func() {
+			defer func() { <-sem; wg.Done() }()
+			sk, err := read(s)
+			mu.Lock()
+			defer mu.Unlock()
+			if err != nil {
+				errs = append(errs, fmt.Errorf("campaign %s: reading step %s: %w", c.Name(), s, err))
+				return
+			}
+			out[s] = sk
+		}()
+	}
+	wg.Wait()
+	if err := errors.Join(errs...); err != nil {
+		return nil, err
 	}
 	return out, nil
 }
