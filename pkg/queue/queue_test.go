@@ -775,3 +775,21 @@ func TestPullOnConsumerDeletedBeforehand(t *testing.T) {
 		t.Errorf("a consumer that is there was taken for gone on %q", err)
 	}
 }
+
+// TestDeadLettersOfTwoStreamsBothKept: sequence numbers are per stream, so a
+// poisoned result and a task of the same sequence are two dead letters, not
+// one record dropped as a duplicate.
+func TestDeadLettersOfTwoStreamsBothKept(t *testing.T) {
+	_, q := newQueue(t, Policy{})
+	ctx := context.Background()
+	q.deadLetter(ctx, &pb.DeadLetter{Task: task("c", "0001", 1, pb.Priority_PRIORITY_LIVE), Subject: subjectLive + "c", StreamSeq: 7, Reason: "task"})
+	q.deadLetter(ctx, &pb.DeadLetter{Subject: subjectResult + "c", StreamSeq: 7, Reason: "poison: result"})
+	q.deadLetter(ctx, &pb.DeadLetter{Subject: subjectReady + "c", StreamSeq: 7, Reason: "poison: ready"})
+	dead, err := q.DeadLetters(ctx, "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(dead) != 3 {
+		t.Fatalf("%d dead letters recorded, want 3 (one per stream)", len(dead))
+	}
+}

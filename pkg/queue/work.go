@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"os"
 	"runtime/debug"
+	"strings"
 	"sync"
 	"time"
 
@@ -287,7 +288,10 @@ func (q *Queue) deadLetter(ctx context.Context, d *pb.DeadLetter) {
 	if d.Task != nil && d.Task.Campaign != "" {
 		campaign = d.Task.Campaign
 	}
-	id := fmt.Sprintf("dead/%s/%d", StreamTasks, d.StreamSeq)
+	// The id names the stream the message came from: sequence numbers are
+	// per stream, so a poisoned result and a task of the same sequence
+	// must not be taken for one record by the duplicate window.
+	id := fmt.Sprintf("dead/%s/%d", streamOf(d.Subject), d.StreamSeq)
 	pctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 10*time.Second)
 	defer cancel()
 	if _, err := q.publish(pctx, subjectDead+Token(campaign), id, d); err != nil {
@@ -295,6 +299,18 @@ func (q *Queue) deadLetter(ctx context.Context, d *pb.DeadLetter) {
 		return
 	}
 	q.log.Warn("queue: dead letter", "msg_id", d.MsgId, "seq", d.StreamSeq, "deliveries", d.Deliveries, "reason", d.Reason)
+}
+
+// streamOf names the stream that holds messages of subject (the task stream
+// when the subject is not known: max-deliveries advisories concern tasks).
+func streamOf(subject string) string {
+	switch {
+	case strings.HasPrefix(subject, subjectResult):
+		return StreamResults
+	case strings.HasPrefix(subject, subjectReady):
+		return StreamSteps
+	}
+	return StreamTasks
 }
 
 // RecordMaxDeliveries records, as dead letters, the tasks whose last
