@@ -1,8 +1,10 @@
 package main
 
 import (
+	"errors"
 	"flag"
 	"fmt"
+	"io"
 	"os"
 	"strconv"
 	"strings"
@@ -64,4 +66,129 @@ func fail(code int, format string, a ...any) int {
 	msg = strings.ReplaceAll(msg, "\n", " ")
 	fmt.Fprintln(os.Stderr, "sluice: "+msg)
 	return code
+}
+
+// parseOrUsage parses a command's flags. With -h or --help it prints the
+// command's help to stdout and returns exitOK; a bad flag gets one line on
+// stderr (an unknown flag with the closest flag name) and exitBadInput.
+// ok is true when the command should go on with the positional arguments.
+func parseOrUsage(fs *flag.FlagSet, args []string) (pos []string, code int, ok bool) {
+	// The flag package would print its own error and the whole flag
+	// list on every mistake; we say it in one line instead.
+	fs.SetOutput(io.Discard)
+	fs.Usage = func() {}
+	pos, err := parseInterspersed(fs, args)
+	if err == nil {
+		return pos, exitOK, true
+	}
+	if errors.Is(err, flag.ErrHelp) {
+		printHelp(stdout, fs)
+		return nil, exitOK, false
+	}
+	fmt.Fprintln(os.Stderr, flagError(fs, err))
+	return nil, exitBadInput, false
+}
+
+// printHelp writes a command's help: the synopsis line, one sentence,
+// notes, and its flags with their defaults.
+func printHelp(w io.Writer, fs *flag.FlagSet) {
+	h, ok := helpFor(fs.Name())
+	if !ok {
+		h = help{synopsis: fs.Name() + " [flags]"}
+	}
+	fmt.Fprintf(w, "usage: sluice %s\n", h.synopsis)
+	if h.sentence != "" {
+		fmt.Fprintf(w, "\n%s\n", h.sentence)
+	}
+	if h.notes != "" {
+		fmt.Fprintf(w, "\n%s\n", h.notes)
+	}
+	n := 0
+	fs.VisitAll(func(*flag.Flag) { n++ })
+	if n > 0 {
+		fmt.Fprintln(w, "\nflags:")
+		fs.SetOutput(w)
+		fs.PrintDefaults()
+		fs.SetOutput(io.Discard)
+	}
+}
+
+// flagError turns an error of the flag package into the one line we
+// print: flags written with two dashes, an unknown flag with the closest
+// defined name, and where to find the list.
+func flagError(fs *flag.FlagSet, err error) string {
+	prefix := "sluice " + fs.Name() + ": "
+	msg := err.Error()
+	if name, ok := strings.CutPrefix(msg, "flag provided but not defined: "); ok {
+		name = strings.TrimLeft(name, "-")
+		if near := closestFlag(fs, name); near != "" {
+			return fmt.Sprintf("%sunknown flag --%s; did you mean --%s?", prefix, name, near)
+		}
+		return fmt.Sprintf("%sunknown flag --%s (sluice help %s lists the flags)", prefix, name, fs.Name())
+	}
+	// "invalid value … for flag -x: …", "flag needs an argument: -x"
+	msg = strings.ReplaceAll(msg, "flag -", "flag --")
+	msg = strings.ReplaceAll(msg, "argument: -", "argument: --")
+	return prefix + flatten(msg)
+}
+
+// flatten puts a message on one line.
+func flatten(s string) string { return strings.Join(strings.Fields(s), " ") }
+
+// closestFlag returns the defined flag nearest to name by edit distance,
+// or "" when none is near enough to be a slip of the keyboard: at most a
+// third of the longer name's letters (and at least 1, at most 3) changed.
+// Dashes and underscores are ignored, so --voxelsize finds --voxel-size.
+func closestFlag(fs *flag.FlagSet, name string) string {
+	var names []string
+	fs.VisitAll(func(f *flag.Flag) { names = append(names, f.Name) })
+	return closest(name, names)
+}
+
+// closest returns the candidate nearest to s (see closestFlag), or "".
+func closest(s string, candidates []string) string {
+	norm := func(x string) string {
+		return strings.ToLower(strings.NewReplacer("-", "", "_", "").Replace(x))
+	}
+	best, bestD := "", 1<<30
+	for _, c := range candidates {
+		d := editDistance(norm(s), norm(c))
+		if d < bestD || (d == bestD && c < best) {
+			best, bestD = c, d
+		}
+	}
+	limit := max(len(s), len(best)) / 3
+	limit = min(max(limit, 1), 3)
+	if best == "" || bestD > limit {
+		return ""
+	}
+	return best
+}
+
+// editDistance is the Levenshtein distance between a and b (insertions,
+// deletions and substitutions of single bytes, each costing 1), with an
+// adjacent transposition also costing 1 (optimal string alignment), the
+// commonest typing slip.
+func editDistance(a, b string) int {
+	d := make([][]int, len(a)+1)
+	for i := range d {
+		d[i] = make([]int, len(b)+1)
+		d[i][0] = i
+	}
+	for j := range d[0] {
+		d[0][j] = j
+	}
+	for i := 1; i <= len(a); i++ {
+		for j := 1; j <= len(b); j++ {
+			cost := 1
+			if a[i-1] == b[j-1] {
+				cost = 0
+			}
+			d[i][j] = min(d[i-1][j]+1, d[i][j-1]+1, d[i-1][j-1]+cost)
+			if i > 1 && j > 1 && a[i-1] == b[j-2] && a[i-2] == b[j-1] {
+				d[i][j] = min(d[i][j], d[i-2][j-2]+1)
+			}
+		}
+	}
+	return d[len(a)][len(b)]
 }

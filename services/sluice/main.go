@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"strings"
 )
 
 // defaultData is the data directory of every command that reads or writes
@@ -47,31 +48,104 @@ func commands() []command {
 		{"status", "show a campaign's runs with done, pending and failed steps", runStatus},
 		{"compare", "compare two runs of a campaign step by step, with overlaid plots", runCompare},
 		{"bench", "time each processing stage on a synthetic scan", runBench},
-		{"version", "print the version", func([]string) int { fmt.Println("sluice", Version); return 0 }},
+		{"version", "print the version", func([]string) int { fmt.Fprintln(stdout, "sluice", Version); return exitOK }},
 	}
 }
 
 func run(args []string) int {
-	if len(args) == 0 || args[0] == "-h" || args[0] == "--help" || args[0] == "help" {
-		usage()
-		if len(args) == 0 {
-			return 2
+	if len(args) == 0 {
+		usage(os.Stderr)
+		return exitBadInput
+	}
+	switch args[0] {
+	case "-h", "-help", "--help":
+		usage(stdout)
+		return exitOK
+	case "-version", "--version":
+		args = []string{"version"}
+	case "help":
+		// `sluice help CMD` is `sluice CMD -h`.
+		if len(args) == 1 {
+			usage(stdout)
+			return exitOK
 		}
-		return 0
+		if args[1] == "bench" && len(args) > 2 {
+			args = []string{"bench", args[2], "-h"}
+		} else {
+			args = []string{args[1], "-h"}
+		}
 	}
 	for _, c := range commands() {
 		if c.name == args[0] {
 			return c.run(args[1:])
 		}
 	}
-	fmt.Fprintf(os.Stderr, "sluice: unknown command %q (run `sluice help`)\n", args[0])
-	return 2
+	names := make([]string, 0, len(commands()))
+	for _, c := range commands() {
+		names = append(names, c.name)
+	}
+	if near := closest(args[0], names); near != "" {
+		return fail(exitBadInput, "unknown command %q; did you mean %s?", args[0], near)
+	}
+	return fail(exitBadInput, "unknown command %q (run `sluice help`)", args[0])
 }
 
-func usage() {
-	fmt.Fprintln(os.Stderr, "usage: sluice COMMAND [flags] [args]\n\ncommands:")
+func usage(w io.Writer) {
+	fmt.Fprintln(w, "usage: sluice COMMAND [flags] [args]\n\ncommands:")
 	for _, c := range commands() {
-		fmt.Fprintf(os.Stderr, "  %-12s %s\n", c.name, c.summary)
+		fmt.Fprintf(w, "  %-12s %s\n", c.name, c.summary)
 	}
-	fmt.Fprintln(os.Stderr, "\nRun `sluice COMMAND -h` for the flags of a command.")
+	fmt.Fprintln(w, "\nRun `sluice help COMMAND` (or `sluice COMMAND -h`) for the flags of a command.")
+}
+
+// help is the text `sluice CMD -h` prints above the flags: a synopsis
+// line (after "sluice "), one sentence saying what the command does, and
+// notes on its arguments.
+type help struct{ synopsis, sentence, notes string }
+
+// helpFor returns the help of the flag set named name (a command, or
+// "bench stages" and the like for the modes of bench).
+func helpFor(name string) (help, bool) {
+	h, ok := helps[name]
+	if !ok {
+		return h, false
+	}
+	if h.sentence == "" {
+		for _, c := range commands() {
+			if c.name == name {
+				h.sentence = strings.ToUpper(c.summary[:1]) + c.summary[1:] + "."
+			}
+		}
+	}
+	return h, true
+}
+
+// helps holds the synopsis and notes of each flag set; the sentence comes
+// from the command's summary unless given here.
+var helps = map[string]help{
+	"measure": {synopsis: "measure [flags] FILE",
+		notes: "FILE is a raw file, a TIFF stack (one multi-page file or a directory of slices) or a Zarr array."},
+	"segment": {synopsis: "segment [flags] FILE OUT",
+		notes: "FILE is a grey volume (raw, TIFF stack or Zarr); OUT is a label volume,\nwritten as Zarr when it ends in .zarr, else as raw uint8 with a .sluice.json header."},
+	"reference": {synopsis: "reference --campaign C [--data DIR | --store LOC] [flags] FILE",
+		notes: "FILE is the reference scan; the solid mask goes to campaigns/C/reference/solid.zarr."},
+	"run":          {synopsis: "run [flags]"},
+	"ingest":       {synopsis: "ingest --campaign C --nats URL --store LOC [flags] (FILE | --watch DIR)"},
+	"worker":       {synopsis: "worker --nats URL --store LOC [flags]"},
+	"aggregate":    {synopsis: "aggregate --nats URL --store LOC [flags]"},
+	"demo":         {synopsis: "demo [flags]"},
+	"plot":         {synopsis: "plot [flags] CAMPAIGN"},
+	"report":       {synopsis: "report [flags] CAMPAIGN"},
+	"reprocess":    {synopsis: "reprocess CAMPAIGN [--steps 10-250] [--set key=value …] [--config FILE] [--from DIR] [--data DIR | --nats URL --store LOC]"},
+	"switch":       {synopsis: "switch [flags] CAMPAIGN --run HASH"},
+	"queue-policy": {synopsis: "queue-policy --nats URL [--ack-wait D --max-deliver N]"},
+	"status":       {synopsis: "status [flags] CAMPAIGN"},
+	"compare":      {synopsis: "compare [flags] CAMPAIGN --runs A,B"},
+	"bench stages": {synopsis: "bench [stages] [flags]",
+		sentence: "Time each processing stage on a synthetic scan on this machine.",
+		notes:    "Other modes: `sluice bench compare -h`, `sluice bench campaign -h`."},
+	"bench compare": {synopsis: "bench compare [flags]",
+		sentence: "Time sluice's processing chain against a SciPy / scikit-image reference script on one synthetic scan, and check that both computed the same values."},
+	"bench campaign": {synopsis: "bench campaign [flags]",
+		sentence: "Run a synthetic campaign through the real pipeline and report throughput, latency percentiles and peak memory."},
 }

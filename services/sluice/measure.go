@@ -2,7 +2,6 @@ package main
 
 import (
 	"encoding/json"
-	"errors"
 	"flag"
 	"fmt"
 	"io"
@@ -162,10 +161,6 @@ func (m *measureFlags) apply(c *campaign.Config, set map[string]bool) error {
 
 func runMeasure(args []string) int {
 	fs := flag.NewFlagSet("measure", flag.ContinueOnError)
-	fs.Usage = func() {
-		fmt.Fprintln(fs.Output(), "usage: sluice measure [flags] FILE\n\nFILE is a raw file, a directory of TIFF slices or a Zarr array.")
-		fs.PrintDefaults()
-	}
 	var in inputFlags
 	var mf measureFlags
 	in.register(fs)
@@ -174,12 +169,9 @@ func runMeasure(args []string) int {
 	sf.register(fs)
 	labels := fs.Bool("labels", false, "FILE holds phase codes (a segmented volume); without it FILE is grey and is segmented first")
 	asJSON := fs.Bool("json", false, "print one JSON object instead of a table")
-	pos, err := parseInterspersed(fs, args)
-	if err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitBadInput
+	pos, code, ok := parseOrUsage(fs, args)
+	if !ok {
+		return code
 	}
 	if len(pos) != 1 {
 		return fail(exitBadInput, "measure: want exactly one FILE, got %d", len(pos))

@@ -23,10 +23,6 @@ import (
 // two fluids inside the pore space.
 func runReference(args []string) int {
 	fs := flag.NewFlagSet("reference", flag.ContinueOnError)
-	fs.Usage = func() {
-		fmt.Fprintln(fs.Output(), "usage: sluice reference --campaign C [--data DIR | --store LOC] [flags] FILE\n\nFILE is the reference scan; the solid mask goes to campaigns/C/reference/solid.zarr.")
-		fs.PrintDefaults()
-	}
 	var in inputFlags
 	var cf campaignFlags
 	in.register(fs)

@@ -859,10 +859,6 @@ func waitRun(ctx context.Context, st runStore, q *queue.Queue, c layout.Campaign
 // runReprocess is `sluice reprocess`.
 func runReprocess(args []string) int {
 	fs := flag.NewFlagSet("reprocess", flag.ContinueOnError)
-	fs.Usage = func() {
-		fmt.Fprintln(fs.Output(), "usage: sluice reprocess CAMPAIGN [--steps 10-250] [--set key=value …] [--config FILE] [--from DIR] [--data DIR | --nats URL --store LOC]")
-		fs.PrintDefaults()
-	}
 	var nf nodeFlags
 	var in inputFlags
 	nf.register(fs, "", true)

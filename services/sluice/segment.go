@@ -2,7 +2,6 @@ package main
 
 import (
 	"context"
-	"errors"
 	"flag"
 	"fmt"
 	"path/filepath"
@@ -131,21 +130,14 @@ func (s *segFlags) loadReference(opt volio.Options, shape volume.Box, codes phas
 
 func runSegment(args []string) int {
 	fs := flag.NewFlagSet("segment", flag.ContinueOnError)
-	fs.Usage = func() {
-		fmt.Fprintln(fs.Output(), "usage: sluice segment [flags] FILE OUT\n\nFILE is a grey volume (raw, TIFF-slice directory or Zarr); OUT is a label volume,\nwritten as Zarr when it ends in .zarr, else as raw uint8 with a .sluice.json header.")
-		fs.PrintDefaults()
-	}
 	var in inputFlags
 	var sf segFlags
 	in.register(fs)
 	sf.register(fs)
 	tile := fs.Int("tile", 0, "tile edge (default from config, 128); results do not depend on it")
-	pos, err := parseInterspersed(fs, args)
-	if err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitBadInput
+	pos, code, ok := parseOrUsage(fs, args)
+	if !ok {
+		return code
 	}
 	if len(pos) != 2 {
 		return fail(exitBadInput, "segment: want FILE and OUT, got %d arguments", len(pos))

@@ -35,17 +35,6 @@ func signalContext() (context.Context, context.CancelFunc) {
 	return signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 }
 
-func parseOrUsage(fs *flag.FlagSet, args []string) ([]string, int, bool) {
-	pos, err := parseInterspersed(fs, args)
-	if err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return nil, exitOK, false
-		}
-		return nil, exitBadInput, false
-	}
-	return pos, 0, true
-}
-
 // loadConfig reads --config or returns the defaults.
 func loadConfig(path string) (campaign.Config, error) {
 	if path == "" {
@@ -256,10 +245,6 @@ func watchAndIngest(ctx context.Context, ing *ingest.Ingester, f ingestFlags, lo
 // runIngest is `sluice ingest`.
 func runIngest(args []string) int {
 	fs := flag.NewFlagSet("ingest", flag.ContinueOnError)
-	fs.Usage = func() {
-		fmt.Fprintln(fs.Output(), "usage: sluice ingest --campaign C --nats URL --store LOC (FILE | --watch DIR)")
-		fs.PrintDefaults()
-	}
 	var nf nodeFlags
 	var in inputFlags
 	var f ingestFlags
