@@ -92,7 +92,7 @@ func NewIngest(reg prometheus.Registerer) *Ingest {
 		Steps: f.NewCounter(prometheus.CounterOpts{Name: "sluice_steps_ingested_total",
 			Help: "Steps stored and queued."}),
 		Rejected: f.NewCounter(prometheus.CounterOpts{Name: "sluice_steps_rejected_total",
-			Help: "Input volumes refused (bad header, truncated, too large)."}),
+			Help: "Scans given up (bad header, truncated, wrong shape …), each counted once however often it was tried."}),
 		BytesWritten: f.NewCounter(prometheus.CounterOpts{Name: "sluice_ingest_written_bytes_total",
 			Help: "Compressed bytes written by ingest."}),
 		Seconds: f.NewHistogram(prometheus.HistogramOpts{Name: "sluice_ingest_duration_seconds",

@@ -42,6 +42,8 @@ type CampaignInfo struct {
 	LatestStep string  `json:"latest_step,omitempty"`
 	LatestTime float64 `json:"latest_time_s"`
 	ParamHash  string  `json:"param_hash,omitempty"`
+	// Rejected counts the scans given up (see RejectedScan).
+	Rejected int `json:"rejected"`
 }
 
 // StepStatus is the state of one step.
@@ -66,11 +68,23 @@ type Health struct {
 	Version      string  `json:"version"`
 }
 
+// RejectedScan is a scan the watcher gave up after its attempts (a
+// truncated file, a wrong shape, a missing header …), with the reason.
+type RejectedScan struct {
+	Step     string `json:"step"`
+	File     string `json:"file"`
+	Reason   string `json:"reason"`
+	Attempts int    `json:"attempts"`
+	At       string `json:"at"`
+}
+
 // Source is what the aggregator provides to the web view. Errors wrapping
 // fs.ErrNotExist become 404.
 type Source interface {
 	Campaigns(ctx context.Context) ([]CampaignInfo, error)
 	Steps(ctx context.Context, campaign string) ([]StepStatus, error)
+	// Rejected lists the campaign's scans given up, in step order.
+	Rejected(ctx context.Context, campaign string) ([]RejectedScan, error)
 	SeriesJSON(ctx context.Context, campaign string) ([]byte, error)
 	SeriesCSV(ctx context.Context, campaign string) ([]byte, error)
 	Result(ctx context.Context, campaign, step string) ([]byte, error)
@@ -139,6 +153,10 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 	})
 	mux.HandleFunc("GET /api/campaigns/{c}/steps", checked(func(w http.ResponseWriter, r *http.Request) {
 		v, err := src.Steps(r.Context(), r.PathValue("c"))
+		rp.json(w, r, v, err)
+	}))
+	mux.HandleFunc("GET /api/campaigns/{c}/rejected", checked(func(w http.ResponseWriter, r *http.Request) {
+		v, err := src.Rejected(r.Context(), r.PathValue("c"))
 		rp.json(w, r, v, err)
 	}))
 	mux.HandleFunc("GET /api/campaigns/{c}/series.json", checked(func(w http.ResponseWriter, r *http.Request) {

@@ -27,7 +27,6 @@ func badName(err error) error { return fmt.Errorf("%w: %w", web.ErrBadRequest, e
 // Campaigns lists the campaigns the aggregator knows.
 func (a *Aggregator) Campaigns(ctx context.Context) ([]web.CampaignInfo, error) {
 	a.mu.Lock()
-	defer a.mu.Unlock()
 	out := []web.CampaignInfo{}
 	for name, cs := range a.campaigns {
 		ci := web.CampaignInfo{Name: name, ParamHash: cs.record.Current}
@@ -43,7 +42,40 @@ func (a *Aggregator) Campaigns(ctx context.Context) ([]web.CampaignInfo, error) 
 		}
 		out = append(out, ci)
 	}
+	a.mu.Unlock()
+	// The rejection records are read without a.mu (see campaign): a slow
+	// store must not freeze the page.
+	for i := range out {
+		if c, err := layout.NewCampaign(out[i].Name); err == nil {
+			rs, err := campaign.Rejections(ctx, a.Store, c)
+			if err != nil {
+				return nil, err
+			}
+			out[i].Rejected = len(rs)
+		}
+	}
 	sort.Slice(out, func(i, j int) bool { return out[i].Name < out[j].Name })
+	return out, nil
+}
+
+// Rejected lists the campaign's scans given up by the watcher, read from
+// their records in the store (campaigns/<c>/rejected/).
+func (a *Aggregator) Rejected(ctx context.Context, c string) ([]web.RejectedScan, error) {
+	cc, err := layout.NewCampaign(c)
+	if err != nil {
+		return nil, badName(err)
+	}
+	if a.campaign(ctx, c) == nil {
+		return nil, fmt.Errorf("campaign %s: %w", c, fs.ErrNotExist)
+	}
+	rs, err := campaign.Rejections(ctx, a.Store, cc)
+	if err != nil {
+		return nil, err
+	}
+	out := []web.RejectedScan{}
+	for _, r := range rs {
+		out = append(out, web.RejectedScan{Step: r.Step, File: r.File, Reason: r.Reason, Attempts: r.Attempts, At: r.At})
+	}
 	return out, nil
 }
 

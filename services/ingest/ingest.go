@@ -105,15 +105,43 @@ func EnsureCampaign(ctx context.Context, st Store, name string, cfg campaign.Con
 func (in *Ingester) Ingest(ctx context.Context, req Request) (*sluicepb.StepReady, error) {
 	start := time.Now()
 	ready, err := in.ingest(ctx, req)
-	if in.Metrics != nil && !errors.Is(err, ErrDone) {
-		if err != nil {
-			in.Metrics.Rejected.Inc()
-		} else {
-			in.Metrics.Steps.Inc()
-			in.Metrics.Seconds.Observe(time.Since(start).Seconds())
+	if err == nil && in.Metrics != nil {
+		in.Metrics.Steps.Inc()
+		in.Metrics.Seconds.Observe(time.Since(start).Seconds())
+	}
+	if err == nil || errors.Is(err, ErrDone) {
+		// A scan rejected earlier and now stored (a fixed copy) leaves
+		// the list of rejected scans.
+		if d, ok := in.Store.(campaign.Deleter); ok {
+			if c, cerr := layout.NewCampaign(req.Campaign); cerr == nil {
+				if derr := campaign.ClearRejection(ctx, d, c, req.Step); derr != nil && err == nil {
+					return ready, fmt.Errorf("ingest: %s: %w", req.Path, derr)
+				}
+			}
 		}
 	}
 	return ready, err
+}
+
+// Reject records that the scan of req was given up after attempts tries
+// with err as the last error: a record in the campaign's store (shown by
+// the live page, the API, `sluice status` and the report) and one count of
+// sluice_steps_rejected_total. It is called once per scan given up, not
+// per attempt, so the metric counts scans.
+func (in *Ingester) Reject(ctx context.Context, req Request, attempts int, err error) error {
+	if in.Metrics != nil {
+		in.Metrics.Rejected.Inc()
+	}
+	c, cerr := layout.NewCampaign(req.Campaign)
+	if cerr != nil {
+		return fmt.Errorf("ingest: %s: %w", req.Path, cerr)
+	}
+	r := campaign.Rejection{Step: req.Step, File: req.Path, Reason: err.Error(), Attempts: attempts,
+		At: time.Now().UTC().Format(time.RFC3339)}
+	if perr := campaign.PutRejection(ctx, in.Store, c, r); perr != nil {
+		return fmt.Errorf("ingest: recording the rejection of %s: %w", req.Path, perr)
+	}
+	return nil
 }
 
 func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepReady, error) {

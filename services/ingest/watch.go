@@ -161,6 +161,12 @@ type Watcher struct {
 	// and bad input must not be retried for ever.
 	Attempts int
 	Log      *slog.Logger
+	// GaveUp, if set, is called once when a scan is given up after
+	// Attempts failures, with the last error: the place to record the
+	// rejection where users look (the campaign's store) and to count it.
+	// A scan given up is offered again only when its file or marker
+	// changes (a fixed copy, a rewritten marker).
+	GaveUp func(a Arrival, attempts int, err error)
 
 	seen   map[string]bool
 	sizes  map[string]sizeSeen
@@ -171,6 +177,30 @@ type Watcher struct {
 	after  map[string]time.Time // no new attempt before
 	said   map[string]bool      // markers already reported as unusable or orphaned
 	badMkr map[string]sizeSeen  // scan → its refused marker as it was when read
+	gaveUp map[string]scanStamp // scan given up → its file and marker then
+}
+
+// scanStamp is a scan's file and marker as they were at a moment: when it
+// differs later, the scan was replaced or its marker rewritten.
+type scanStamp struct{ file, marker sizeSeen }
+
+// stampOf reads the stamp of scan name in the watched directory.
+func (w *Watcher) stampOf(names map[string]bool, name string) scanStamp {
+	var s scanStamp
+	if size, mtime, err := treeSize(filepath.Join(w.Dir, name)); err == nil {
+		s.file = sizeSeen{size: size, mtime: mtime}
+	}
+	if m, err := MarkerFor(names, name); err == nil && m != "" {
+		if fi, err := os.Stat(filepath.Join(w.Dir, m)); err == nil {
+			s.marker = sizeSeen{size: fi.Size(), mtime: fi.ModTime()}
+		}
+	}
+	return s
+}
+
+func (a scanStamp) same(b scanStamp) bool {
+	return a.file.size == b.file.size && a.file.mtime.Equal(b.file.mtime) &&
+		a.marker.size == b.marker.size && a.marker.mtime.Equal(b.marker.mtime)
 }
 
 type sizeSeen struct {
@@ -228,6 +258,10 @@ func (w *Watcher) retry(a Arrival, err error) {
 	w.tries[name]++
 	n := w.tries[name]
 	if n >= w.Attempts {
+		w.gaveUp[name] = w.stampOf(w.names(), name)
+		if w.GaveUp != nil {
+			w.GaveUp(a, n, err) // recorded before it is logged as given up
+		}
 		w.Log.Error("ingest failed; giving the scan up and continuing with the next", "path", a.Path, "attempts", n, "err", err)
 		return
 	}
@@ -244,12 +278,28 @@ func (w *Watcher) retry(a Arrival, err error) {
 	w.after[name] = time.Now().Add(wait)
 }
 
-// Scan returns the scans that became complete since the last call.
-func (w *Watcher) Scan() ([]Arrival, error) {
+// names returns the entry names of the watched directory (none when it
+// cannot be read).
+func (w *Watcher) names() map[string]bool {
+	out := map[string]bool{}
+	ents, _ := os.ReadDir(w.Dir)
+	for _, e := range ents {
+		out[e.Name()] = true
+	}
+	return out
+}
+
+func (w *Watcher) init() {
 	if w.seen == nil {
 		w.seen, w.sizes, w.failed = map[string]bool{}, map[string]sizeSeen{}, map[string]bool{}
 		w.tries, w.after, w.said, w.badMkr = map[string]int{}, map[string]time.Time{}, map[string]bool{}, map[string]sizeSeen{}
+		w.gaveUp = map[string]scanStamp{}
 	}
+}
+
+// Scan returns the scans that became complete since the last call.
+func (w *Watcher) Scan() ([]Arrival, error) {
+	w.init()
 	ents, err := os.ReadDir(w.Dir)
 	if err != nil {
 		return nil, err
@@ -272,6 +322,14 @@ func (w *Watcher) Scan() ([]Arrival, error) {
 		}
 	}
 	for _, name := range keys {
+		if g, ok := w.gaveUp[name]; ok && w.seen[name] && !g.same(w.stampOf(names, name)) {
+			// Given up, then replaced or re-marked: a fresh start.
+			delete(w.gaveUp, name)
+			delete(w.seen, name)
+			delete(w.tries, name)
+			delete(w.after, name)
+			w.Log.Info("watch: rejected scan changed; looking at it again", "path", filepath.Join(w.Dir, name))
+		}
 		if w.seen[name] || !isScanName(name) {
 			continue
 		}

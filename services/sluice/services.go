@@ -159,6 +159,9 @@ type ingestFlags struct {
 	settle                        time.Duration
 	timeS                         float64
 	batch, createWatch            bool
+	// poll is the watcher's scan interval (0: its default, 1 s); tests
+	// shorten it so that a scan's five attempts take milliseconds.
+	poll time.Duration
 }
 
 func (f *ingestFlags) register(fs *flag.FlagSet, single bool) {
@@ -225,7 +228,13 @@ func startIngest(ctx context.Context, f ingestFlags, in inputFlags, st ingest.St
 
 // watchAndIngest runs the directory watcher until ctx ends.
 func watchAndIngest(ctx context.Context, ing *ingest.Ingester, f ingestFlags, log *slog.Logger) error {
-	w := &ingest.Watcher{Dir: f.watch, Settle: f.settle, Log: log}
+	w := &ingest.Watcher{Dir: f.watch, Settle: f.settle, Poll: f.poll, Log: log}
+	w.GaveUp = func(a ingest.Arrival, attempts int, err error) {
+		req := ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path}
+		if rerr := ing.Reject(ctx, req, attempts, err); rerr != nil {
+			log.Error("rejected scan not recorded", "path", a.Path, "err", rerr)
+		}
+	}
 	return w.Run(ctx, func(a ingest.Arrival) error {
 		t0 := time.Now()
 		r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path, TimeS: a.TimeS, HasTime: a.HasTime,

@@ -118,8 +118,9 @@ func campaignStatus(ctx context.Context, st runStore, q *queue.Queue, name strin
 }
 
 // printStatus writes the runs as a short report.
-func printStatus(w io.Writer, rec campaign.Record, steps []string, runs []runState, deadLetters bool) {
-	fmt.Fprintf(w, "campaign %s: %d steps, %d runs\n", rec.Name, len(steps), len(runs))
+// Scans the watcher gave up follow, each with its reason.
+func printStatus(w io.Writer, rec campaign.Record, steps []string, runs []runState, rejected []campaign.Rejection, deadLetters bool) {
+	fmt.Fprintf(w, "campaign %s: %d steps, %d runs, %d scans rejected\n", rec.Name, len(steps), len(runs), len(rejected))
 	for _, r := range runs {
 		mark := ""
 		if r.Current {
@@ -139,6 +140,9 @@ func printStatus(w io.Writer, rec campaign.Record, steps []string, runs []runSta
 			}
 			fmt.Fprintf(w, "    pending: step %s: %s\n", s, r.Reasons[s])
 		}
+	}
+	for _, r := range rejected {
+		fmt.Fprintf(w, "rejected: %s (step %s) after %d attempts at %s: %s\n", r.File, r.Step, r.Attempts, r.At, r.Reason)
 	}
 	if !deadLetters {
 		fmt.Fprintln(w, "(no --nats: dead-lettered tiles are not shown, only missing tiles)")
@@ -189,6 +193,11 @@ func runStatus(args []string) int {
 	if err != nil {
 		return fail(exitFailure, "status: %v", err)
 	}
-	printStatus(stdout, rec, steps, runs, q != nil)
+	c, _ := layout.NewCampaign(rec.Name)
+	rejected, err := campaign.Rejections(ctx, st, c)
+	if err != nil {
+		return fail(exitFailure, "status: %v", err)
+	}
+	printStatus(stdout, rec, steps, runs, rejected, q != nil)
 	return exitOK
 }
