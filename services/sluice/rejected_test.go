@@ -28,8 +28,8 @@ import (
 type logEvents struct{ ch chan [2]string }
 
 func (h *logEvents) Enabled(context.Context, slog.Level) bool { return true }
-func (h *logEvents) WithAttrs([]slog.Attr) slog.Handler        { return h }
-func (h *logEvents) WithGroup(string) slog.Handler             { return h }
+func (h *logEvents) WithAttrs([]slog.Attr) slog.Handler       { return h }
+func (h *logEvents) WithGroup(string) slog.Handler            { return h }
 func (h *logEvents) Handle(_ context.Context, r slog.Record) error {
 	path := ""
 	r.Attrs(func(a slog.Attr) bool {
