@@ -279,6 +279,9 @@ func (c Config) Hash() string {
 // defaults; unknown keys are errors.
 func Parse(name string, data []byte) (Config, error) {
 	c := Default()
+	if e := unknownKey(data, reflect.TypeOf(c)); e != nil {
+		return c, fmt.Errorf("config: %s line %d: %w", name, e.Line, e)
+	}
 	dec := yaml.NewDecoder(bytes.NewReader(data))
 	dec.KnownFields(true)
 	if err := dec.Decode(&c); err != nil && err.Error() != "EOF" {

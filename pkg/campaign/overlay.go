@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/json"
 	"fmt"
+	"reflect"
 	"sort"
 	"strings"
 
@@ -40,6 +41,9 @@ func (c Config) Set(assignments []string) (Config, error) {
 		return c, fmt.Errorf("campaign: --set: %w", err)
 	}
 	out := c
+	if e := unknownKey(b, reflect.TypeOf(c)); e != nil {
+		return c, fmt.Errorf("config: --set: %w", e)
+	}
 	dec := yaml.NewDecoder(bytes.NewReader(b))
 	dec.KnownFields(true)
 	if err := dec.Decode(&out); err != nil {

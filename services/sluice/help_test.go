@@ -1,6 +1,8 @@
 package main
 
 import (
+	"os"
+	"path/filepath"
 	"strings"
 	"testing"
 )
@@ -99,5 +101,19 @@ func TestEditDistance(t *testing.T) {
 		if got := editDistance(c.a, c.b); got != c.d {
 			t.Errorf("editDistance(%q, %q) = %d, want %d", c.a, c.b, got, c.d)
 		}
+	}
+}
+
+// TestConfigUnknownKeyOneLine: a misspelt key in --config reaches the user
+// as one line in the config's own words, exit 2.
+func TestConfigUnknownKeyOneLine(t *testing.T) {
+	cfg := filepath.Join(t.TempDir(), "camp.yaml")
+	if err := os.WriteFile(cfg, []byte("segment:\n  treshold: otsu\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	code, _, errs := runCLI(t, "measure", "--config", cfg, "--voxel-size", "4um", "no-such-file.raw")
+	want := "sluice: measure: config: " + cfg + " line 2: unknown key segment.treshold (did you mean segment.threshold?)"
+	if code != exitBadInput || strings.TrimRight(errs, "\n") != want {
+		t.Errorf("exit %d, stderr %q; want exit 2 and %q", code, errs, want)
 	}
 }
