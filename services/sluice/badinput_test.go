@@ -100,7 +100,7 @@ func TestBadConfigs(t *testing.T) {
 		file string
 		want string
 	}{
-		{"config-unknown-key.yaml", "line 3: field treshold not found"},
+		{"config-unknown-key.yaml", "line 3: unknown key segment.treshold (did you mean segment.threshold?)"},
 		{"config-negative-voxel-size.yaml", `voxel_size: voxel size "-2um" is not a positive length`},
 		{"config-sigma-zero.yaml", "measure.curvature_sigma 0 out of range"},
 		{"config-tile-zero.yaml", "tile 0 out of range 16..1024"},
