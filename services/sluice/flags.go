@@ -5,6 +5,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"strconv"
 	"strings"
@@ -191,4 +192,56 @@ func editDistance(a, b string) int {
 		}
 	}
 	return d[len(a)][len(b)]
+}
+
+// optionalInt is a flag that knows whether it was given, so that leaving
+// it out can mean "from the config" and its help says so instead of
+// showing a sentinel such as -1. Negative values are refused.
+type optionalInt struct {
+	v   int
+	set bool
+}
+
+func (o *optionalInt) String() string {
+	if o == nil || !o.set {
+		return ""
+	}
+	return strconv.Itoa(o.v)
+}
+
+func (o *optionalInt) Set(s string) error {
+	v, err := strconv.Atoi(s)
+	if err != nil {
+		return errors.New("not a whole number")
+	}
+	if v < 0 {
+		return errors.New("must be 0 or more")
+	}
+	o.v, o.set = v, true
+	return nil
+}
+
+// optionalFloat is optionalInt for a non-negative finite number.
+type optionalFloat struct {
+	v   float64
+	set bool
+}
+
+func (o *optionalFloat) String() string {
+	if o == nil || !o.set {
+		return ""
+	}
+	return strconv.FormatFloat(o.v, 'g', -1, 64)
+}
+
+func (o *optionalFloat) Set(s string) error {
+	v, err := strconv.ParseFloat(s, 64)
+	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+		return errors.New("not a finite number")
+	}
+	if v < 0 {
+		return errors.New("must be 0 or more")
+	}
+	o.v, o.set = v, true
+	return nil
 }

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"flag"
 	"os"
 	"path/filepath"
 	"strings"
@@ -115,5 +116,51 @@ func TestConfigUnknownKeyOneLine(t *testing.T) {
 	want := "sluice: measure: config: " + cfg + " line 2: unknown key segment.treshold (did you mean segment.threshold?)"
 	if code != exitBadInput || strings.TrimRight(errs, "\n") != want {
 		t.Errorf("exit %d, stderr %q; want exit 2 and %q", code, errs, want)
+	}
+}
+
+// TestOffDefaultsSayWhatTheyMean: --min-island and --hysteresis-band show
+// what leaving them out means, not the sentinel -1; a negative value is
+// refused (it was silently taken as "not given"); 0 given on the command
+// line turns the step off over a config that sets it.
+func TestOffDefaultsSayWhatTheyMean(t *testing.T) {
+	for _, cmd := range []string{"measure", "segment"} {
+		_, out, _ := runCLI(t, cmd, "-h")
+		if strings.Contains(out, "(default -1)") {
+			t.Errorf("%s -h shows a sentinel default:\n%s", cmd, out)
+		}
+		for _, f := range []string{"min-island", "hysteresis-band"} {
+			if !strings.Contains(out, "-"+f) {
+				t.Errorf("%s -h lacks --%s", cmd, f)
+			}
+		}
+	}
+	code, _, errs := runCLI(t, "measure", "--min-island", "-5", "--voxel-size", "4um", "no-such-file.raw")
+	if want := `sluice measure: invalid value "-5" for flag --min-island: must be 0 or more`; code != exitBadInput || strings.TrimRight(errs, "\n") != want {
+		t.Errorf("--min-island -5: exit %d, stderr %q; want exit 2 and %q", code, errs, want)
+	}
+	cfg := filepath.Join(t.TempDir(), "camp.yaml")
+	if err := os.WriteFile(cfg, []byte("segment:\n  min_island: 50\n  hysteresis:\n    band: 300\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	fs := flag.NewFlagSet("segment", flag.ContinueOnError)
+	var sf segFlags
+	sf.register(fs)
+	if _, code, ok := parseOrUsage(fs, []string{"--config", cfg, "--min-island", "0", "--hysteresis-band", "0"}); !ok {
+		t.Fatalf("parse: exit %d", code)
+	}
+	c, err := sf.campaignConfig()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Segment.MinIsland != 0 || c.Segment.Hysteresis.Band != 0 {
+		t.Errorf("--min-island 0 --hysteresis-band 0 over a config of 50 and 300: got %d and %g, want 0 and 0", c.Segment.MinIsland, c.Segment.Hysteresis.Band)
+	}
+	fs = flag.NewFlagSet("segment", flag.ContinueOnError)
+	sf = segFlags{}
+	sf.register(fs)
+	parseOrUsage(fs, []string{"--config", cfg})
+	if c, err = sf.campaignConfig(); err != nil || c.Segment.MinIsland != 50 || c.Segment.Hysteresis.Band != 300 {
+		t.Errorf("without the flags the config's 50 and 300 should hold: got %d, %g, %v", c.Segment.MinIsland, c.Segment.Hysteresis.Band, err)
 	}
 }

@@ -20,8 +20,9 @@ import (
 type segFlags struct {
 	config, filter, threshold, fixed, order, sample, reference string
 	fluids                                                     string
-	minIsland                                                  int
-	band, noise                                                float64
+	minIsland                                                  optionalInt
+	band                                                       optionalFloat
+	noise                                                      float64
 	noDetect                                                   bool
 }
 
@@ -33,8 +34,9 @@ func (s *segFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&s.order, "order", "", "phases from darkest to brightest: nws (gas/oil darkest, default) or nsw (doped brine)")
 	fs.StringVar(&s.fluids, "fluids", "", "fluids the scan holds: auto (decided from the histogram, default), both, wetting or nonwetting")
 	fs.Float64Var(&s.noise, "noise-sigma", 0, "noise standard deviation in grey units, for --filter nlm (measure it in a uniform region)")
-	fs.IntVar(&s.minIsland, "min-island", -1, "nonwetting clusters smaller than this many voxels become wetting (0 = off)")
-	fs.Float64Var(&s.band, "hysteresis-band", -1, "half-width (grey units) of the uncertain band grown from nonwetting seeds (0 = off)")
+	d := campaign.Default().Segment
+	fs.Var(&s.minIsland, "min-island", fmt.Sprintf("nonwetting clusters smaller than this many `voxels` become wetting; 0 = off (default: the config's segment.min_island, else %d)", d.MinIsland))
+	fs.Var(&s.band, "hysteresis-band", fmt.Sprintf("half-width in `grey` units of the uncertain band grown from nonwetting seeds; 0 = off (default: the config's segment.hysteresis.band, else %g)", d.Hysteresis.Band))
 	fs.StringVar(&s.sample, "sample", "", "sample cylinder `Y,X,R` in voxels (default: detected from the image)")
 	fs.BoolVar(&s.noDetect, "no-sample", false, "do not detect a sample cylinder: every voxel is sample")
 	fs.StringVar(&s.reference, "reference", "", "reference-scan solid mask (labels: solid code = solid, 255 = outside); fluids only are separated")
@@ -75,11 +77,11 @@ func (s *segFlags) campaignConfig() (campaign.Config, error) {
 	if s.fluids != "" {
 		p.Fluids = s.fluids
 	}
-	if s.minIsland >= 0 {
-		p.MinIsland = s.minIsland
+	if s.minIsland.set {
+		p.MinIsland = s.minIsland.v
 	}
-	if s.band >= 0 {
-		p.Hysteresis.Band = s.band
+	if s.band.set {
+		p.Hysteresis.Band = s.band.v
 	}
 	if s.sample != "" {
 		parts := strings.Split(s.sample, ",")
