@@ -135,7 +135,14 @@ func TestOffDefaultsSayWhatTheyMean(t *testing.T) {
 			}
 		}
 	}
-	code, _, errs := runCLI(t, "measure", "--min-island", "-5", "--voxel-size", "4um", "no-such-file.raw")
+	if _, out, _ := runCLI(t, "ingest", "-h"); strings.Contains(out, "(default -1)") || !strings.Contains(out, "-time") {
+		t.Errorf("ingest -h shows a sentinel default for --time or lacks it:\n%s", out)
+	}
+	code, _, errs := runCLI(t, "ingest", "--time", "-3", "--campaign", "c", "no-such-file.raw")
+	if want := `sluice ingest: invalid value "-3" for flag --time: must be 0 or more`; code != exitBadInput || strings.TrimRight(errs, "\n") != want {
+		t.Errorf("ingest --time -3: exit %d, stderr %q; want exit 2 and %q", code, errs, want)
+	}
+	code, _, errs = runCLI(t, "measure", "--min-island", "-5", "--voxel-size", "4um", "no-such-file.raw")
 	if want := `sluice measure: invalid value "-5" for flag --min-island: must be 0 or more`; code != exitBadInput || strings.TrimRight(errs, "\n") != want {
 		t.Errorf("--min-island -5: exit %d, stderr %q; want exit 2 and %q", code, errs, want)
 	}

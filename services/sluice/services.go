@@ -157,7 +157,7 @@ func runAggregate(args []string) int {
 type ingestFlags struct {
 	campaign, config, watch, step string
 	settle                        time.Duration
-	timeS                         float64
+	timeS                         optionalFloat
 	batch, createWatch            bool
 	// poll is the watcher's scan interval (0: its default, 1 s); tests
 	// shorten it so that a scan's five attempts take milliseconds.
@@ -172,7 +172,7 @@ func (f *ingestFlags) register(fs *flag.FlagSet, single bool) {
 	fs.DurationVar(&f.settle, "settle", 0, "also accept scans without a marker once unchanged for this long (e.g. 30s)")
 	if single {
 		fs.StringVar(&f.step, "step", "", "step name for a single FILE (default: from the file name)")
-		fs.Float64Var(&f.timeS, "time", -1, "experiment time of the step in `seconds` (default: the scan's marker {\"time_s\": …}, else its header; required when neither gives one)")
+		fs.Var(&f.timeS, "time", "experiment time of the step in `seconds` (default: the scan's marker {\"time_s\": …}, else its header; required when neither gives one)")
 		fs.BoolVar(&f.batch, "batch", false, "queue the tiles as batch work (archives) instead of live")
 	}
 }
@@ -305,7 +305,7 @@ func runIngest(args []string) int {
 			return fail(exitBadInput, "%v", err)
 		}
 	}
-	timeS, hasTime := f.timeS, f.timeS >= 0
+	timeS, hasTime := f.timeS.v, f.timeS.set
 	if !hasTime {
 		if timeS, hasTime, err = scanTime(path, ing.ReadOpt); err != nil {
 			return fail(exitBadInput, "ingest: %v", err)
