@@ -72,10 +72,20 @@ type Check struct {
 	Detail string
 }
 
+// Rejected is a scan given up at ingest (truncated, wrong shape, no
+// header …): it has no row, and the report says so with the reason.
+type Rejected struct {
+	Step, File, Reason string
+	Attempts           int
+	At                 string
+}
+
 // Input is everything a report shows. Rows need not be sorted.
 type Input struct {
 	Params
 	Rows []series.Row
+	// Rejected lists the scans given up, in step order.
+	Rejected []Rejected
 	// Events as found by events.Detect on Rows.
 	Events    []events.Event
 	Checks    []Check
@@ -266,6 +276,15 @@ dt { font-weight: bold; }
 <dt>{{.Name}}</dt><dd>{{.Value}}</dd>{{end}}
 <dt>Generated</dt><dd>{{.Generated}}</dd>
 </dl>
+</section>
+
+<section id="rejected">
+<h2>Rejected scans</h2>
+{{if .Rejected}}<p class="fail">{{len .Rejected}} scans were given up at ingest and are not in the series.</p>
+<table>
+<tr><th>step</th><th>file</th><th>attempts</th><th>given up at</th><th>reason</th></tr>{{range .Rejected}}
+<tr data-rejected="{{.Step}}"><td class="step">{{.Step}}</td><td class="step">{{.File}}</td><td>{{.Attempts}}</td><td class="step">{{.At}}</td><td class="step">{{.Reason}}</td></tr>{{end}}
+</table>{{else}}<p>None: every scan that arrived was ingested.</p>{{end}}
 </section>
 
 <section id="events">

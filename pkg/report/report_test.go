@@ -214,3 +214,32 @@ func TestEmptyAndInvalid(t *testing.T) {
 		t.Fatal("invalid campaign accepted")
 	}
 }
+
+// TestReportListsRejectedScans: scans given up at ingest appear in the
+// report with their reasons (issue 13 item 8), and a campaign without any
+// says none were.
+func TestReportListsRejectedScans(t *testing.T) {
+	rej := []Rejected{
+		{Step: "scan-0002", File: "in/scan-0002.raw", Reason: "truncated raw volume: got 2000 of 4096 bytes", Attempts: 5, At: "2026-12-04T18:00:00Z"},
+		{Step: "scan-0003", File: "in/scan-0003.raw", Reason: "shape 20×20×20 differs from the campaign's reference 32×32×32", Attempts: 5, At: "2026-12-04T18:00:01Z"},
+		{Step: "scan-0004", File: "in/scan-0004.raw", Reason: "raw volume without scan-0004.raw.sluice.json & <no> shape", Attempts: 5, At: "2026-12-04T18:00:02Z"},
+	}
+	b := string(render(t, Input{Params: Params{Campaign: "c"}, Rows: campaign(5), Rejected: rej}))
+	if !strings.Contains(b, "3 scans were given up at ingest") {
+		t.Errorf("report does not count the 3 rejected scans")
+	}
+	for _, r := range rej {
+		if !strings.Contains(b, `data-rejected="`+r.Step+`"`) {
+			t.Errorf("report has no row for %s", r.Step)
+		}
+	}
+	for _, want := range []string{"truncated raw volume: got 2000 of 4096 bytes", "shape 20×20×20 differs", "without scan-0004.raw.sluice.json &amp; &lt;no&gt; shape"} {
+		if !strings.Contains(b, want) {
+			t.Errorf("report lacks the reason %q (escaped)", want)
+		}
+	}
+	none := string(render(t, Input{Params: Params{Campaign: "c"}, Rows: campaign(5)}))
+	if strings.Contains(none, "data-rejected=") || !strings.Contains(none, "None: every scan that arrived was ingested.") {
+		t.Errorf("a report without rejected scans should say none were")
+	}
+}

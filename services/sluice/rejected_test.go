@@ -4,8 +4,10 @@ import (
 	"context"
 	"encoding/json"
 	"log/slog"
+	"net/http"
 	"net/http/httptest"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -173,7 +175,16 @@ func TestRejectedScans(t *testing.T) {
 	if err := a.Start(ctx); err != nil {
 		t.Fatal(err)
 	}
-	hs := httptest.NewServer(web.Handler(a, nil, quietLog()))
+	api := web.Handler(a, web.NewHub(), quietLog())
+	// The event stream stays open for ever, which would keep headless
+	// Chromium's virtual clock from running out (the page polls as well).
+	hs := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		if r.URL.Path == "/api/stream" {
+			http.Error(w, "no stream in this test", http.StatusServiceUnavailable)
+			return
+		}
+		api.ServeHTTP(w, r)
+	}))
 	defer hs.Close()
 	var rej []web.RejectedScan
 	if err := json.Unmarshal(httpGet(t, hs.URL+"/api/campaigns/rej/rejected"), &rej); err != nil {
@@ -199,6 +210,32 @@ func TestRejectedScans(t *testing.T) {
 	if len(cs) != 1 || cs[0].Rejected != 3 {
 		t.Errorf("/api/campaigns: %+v, want campaign rej with rejected 3", cs)
 	}
+
+	// The live page shows them, each with its reason (headless Chromium
+	// runs the page's own script against this API).
+	t.Run("page", func(t *testing.T) {
+		chrome := need(t, "chromium")
+		cctx, ccancel := context.WithTimeout(ctx, time.Minute)
+		defer ccancel()
+		cmd := exec.CommandContext(cctx, chrome, "--headless", "--no-sandbox", "--disable-gpu", "--user-data-dir="+t.TempDir(),
+			"--virtual-time-budget=15000", "--dump-dom", hs.URL+"/?campaign=rej")
+		dom, err := cmd.Output()
+		if err != nil {
+			t.Fatalf("chromium: %v", err)
+		}
+		page := string(dom)
+		if !strings.Contains(page, "3 scans rejected at ingest") {
+			t.Errorf("page has no banner counting 3 rejected scans")
+		}
+		for step, why := range reasons {
+			if !strings.Contains(page, "<td>"+step+"</td>") || !strings.Contains(page, why) {
+				t.Errorf("page does not list %s with %q", step, why)
+			}
+		}
+		if t.Failed() {
+			t.Logf("page:\n%s", page)
+		}
+	})
 
 	// `sluice status` prints them.
 	code, out, errs := runCLI(t, "status", "--store", root, "rej")

@@ -178,11 +178,20 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 				report.Param{Name: "tile / halo", Value: fmt.Sprintf("%d / %d voxels", plan.Tile, plan.Halo)})
 		}
 	}
+	// Scans given up at ingest have no row; the report lists them.
+	rs, err := campaign.Rejections(ctx, st, c)
+	if err != nil {
+		return err
+	}
+	var rejected []report.Rejected
+	for _, r := range rs {
+		rejected = append(rejected, report.Rejected{Step: r.Step, File: r.File, Reason: r.Reason, Attempts: r.Attempts, At: r.At})
+	}
 	f, err := os.Create(path + ".tmp")
 	if err != nil {
 		return err
 	}
-	err = report.Write(f, report.Input{Params: p, Rows: rows, Events: evs, Checks: validationChecks(rows), Generated: time.Now()})
+	err = report.Write(f, report.Input{Params: p, Rows: rows, Rejected: rejected, Events: evs, Checks: validationChecks(rows), Generated: time.Now()})
 	if cerr := f.Close(); err == nil {
 		err = cerr
 	}

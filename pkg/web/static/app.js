@@ -8,7 +8,11 @@
 // amber, dark magenta, light sky) and every series also has its own marker.
 const C = { a: "#1d3f8f", b: "#d98a00", c: "#8c2d73", d: "#4aa3d8", grid: "#e4e4e4", axis: "#555" };
 
-const state = { campaign: null, series: [], steps: [], events: [], lastStep: null };
+const state = { campaign: null, series: [], steps: [], events: [], rejected: [], lastStep: null };
+
+// esc makes text from the server safe inside innerHTML (a rejection reason
+// quotes file paths, which may hold any character).
+function esc(t) { return String(t).replace(/[&<>"']/g, c => ({ "&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;", "'": "&#39;" })[c]); }
 
 function qs(id) { return document.getElementById(id); }
 function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }
@@ -121,6 +125,7 @@ function draw() {
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], "time (s)", "ingest → series (s)", { ymin: 0 });
   summary(last);
   stepsTable();
+  rejectedTable();
   banners();
 }
 
@@ -141,15 +146,24 @@ function stepsTable() {
     `<tr><td>${s.step}</td><td>${fmt(s.time_s, 0)}</td><td class="${s.status}">${s.status}</td><td>${s.tiles_done}/${s.tiles_total}</td><td>${s.latency_s ? fmt(s.latency_s, 1) : ""}</td><td>${s.reason || ""}</td></tr>`).join("");
 }
 
+function rejectedTable() {
+  const r = state.rejected;
+  qs("rejected-fig").hidden = !r.length;
+  qs("rejected").querySelector("tbody").innerHTML = r.map(x =>
+    `<tr><td>${esc(x.step)}</td><td>${esc(x.file)}</td><td>${x.attempts}</td><td>${esc(x.at)}</td><td class="failed">${esc(x.reason)}</td></tr>`).join("");
+}
+
 function banners() {
   const b = [];
   const failed = state.steps.filter(s => s.status === "failed");
   const inflight = state.steps.filter(s => s.status === "processing" || s.status === "ingested");
   for (const e of state.events) b.push(["banner-event", `${e.kind === "breakthrough" ? "Breakthrough" : "Steady state"} at step ${e.step} (t = ${fmt(e.time_s, 0)} s): ${e.detail || ""}`]);
   for (const f of failed) b.push(["banner-fail", `Step ${f.step} failed: ${f.reason}`]);
+  if (state.rejected.length) b.push(["banner-fail", `${state.rejected.length} scan${state.rejected.length > 1 ? "s" : ""} rejected at ingest (not measured): ` +
+    state.rejected.map(x => esc(x.step)).join(", ") + " — reasons under “Rejected scans”."]);
   if (inflight.length) b.push(["banner-info", `Processing ${inflight.map(s => s.step + " (" + s.tiles_done + "/" + s.tiles_total + " tiles)").join(", ")}`]);
-  else if (state.series.length) b.push(["banner-info", `Up to date: ${state.series.length} steps measured.`]);
-  else b.push(["banner-info", "Waiting for the first scan."]);
+  else if (state.series.length) b.push(["banner-info", `Up to date: ${state.series.length} steps measured` + (state.rejected.length ? `, ${state.rejected.length} scans rejected.` : ".")]);
+  else if (!state.rejected.length) b.push(["banner-info", "Waiting for the first scan."]);
   qs("banners").innerHTML = b.map(([c, t]) => `<div class="${c}">${t}</div>`).join("");
 }
 
@@ -163,11 +177,12 @@ async function health() {
 async function refresh() {
   if (!state.campaign) return;
   const c = encodeURIComponent(state.campaign);
-  const [series, steps, events] = await Promise.all([
+  const [series, steps, events, rejected] = await Promise.all([
     getJSON(`/api/campaigns/${c}/series.json`).catch(() => []),
     getJSON(`/api/campaigns/${c}/steps`).catch(() => []),
-    getJSON(`/api/campaigns/${c}/events`).catch(() => [])]);
-  state.series = series || []; state.steps = steps || []; state.events = events || [];
+    getJSON(`/api/campaigns/${c}/events`).catch(() => []),
+    getJSON(`/api/campaigns/${c}/rejected`).catch(() => [])]);
+  state.series = series || []; state.steps = steps || []; state.events = events || []; state.rejected = rejected || [];
   qs("csv").href = `/api/campaigns/${c}/series.csv`; qs("json").href = `/api/campaigns/${c}/series.json`;
   const last = state.series[state.series.length - 1];
   if (last && last.step !== state.lastStep) {
