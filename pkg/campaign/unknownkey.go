@@ -53,7 +53,7 @@ func walkKeys(n *yaml.Node, t reflect.Type, prefix string) *UnknownKeyError {
 					names = append(names, name)
 				}
 				e := &UnknownKeyError{Key: prefix + k.Value, Line: k.Line}
-				if near := closestKey(k.Value, names); near != "" {
+				if near := Nearest(k.Value, names); near != "" {
 					e.Nearest = prefix + near
 				}
 				return e
@@ -107,12 +107,16 @@ func yamlFields(t reflect.Type) map[string]reflect.Type {
 	return out
 }
 
-// closestKey returns the candidate nearest to s by edit distance when at
-// most a third of the letters (at least 1, at most 3) differ, else "".
-func closestKey(s string, candidates []string) string {
+// Nearest returns the candidate nearest to s by edit distance, ignoring
+// case, dashes and underscores, when at most a third of the letters (at
+// least 1, at most 3) differ; else "". It names the key or flag a user
+// most likely meant (config keys here, command-line flags in the CLI).
+func Nearest(s string, candidates []string) string {
+	norm := strings.NewReplacer("-", "", "_", "")
+	key := func(x string) string { return strings.ToLower(norm.Replace(x)) }
 	best, bestD := "", 1<<30
 	for _, c := range candidates {
-		d := editDistance(s, c)
+		d := EditDistance(key(s), key(c))
 		if d < bestD || (d == bestD && c < best) {
 			best, bestD = c, d
 		}
@@ -124,10 +128,10 @@ func closestKey(s string, candidates []string) string {
 	return best
 }
 
-// editDistance is the optimal string alignment distance: single-byte
+// EditDistance is the optimal string alignment distance: single-byte
 // insertions, deletions, substitutions and adjacent transpositions each
 // cost 1.
-func editDistance(a, b string) int {
+func EditDistance(a, b string) int {
 	d := make([][]int, len(a)+1)
 	for i := range d {
 		d[i] = make([]int, len(b)+1)

@@ -7,6 +7,7 @@ import (
 	"io"
 	"math"
 	"os"
+	"sluice/pkg/campaign"
 	"strconv"
 	"strings"
 )
@@ -143,55 +144,7 @@ func flatten(s string) string { return strings.Join(strings.Fields(s), " ") }
 func closestFlag(fs *flag.FlagSet, name string) string {
 	var names []string
 	fs.VisitAll(func(f *flag.Flag) { names = append(names, f.Name) })
-	return closest(name, names)
-}
-
-// closest returns the candidate nearest to s (see closestFlag), or "".
-func closest(s string, candidates []string) string {
-	norm := func(x string) string {
-		return strings.ToLower(strings.NewReplacer("-", "", "_", "").Replace(x))
-	}
-	best, bestD := "", 1<<30
-	for _, c := range candidates {
-		d := editDistance(norm(s), norm(c))
-		if d < bestD || (d == bestD && c < best) {
-			best, bestD = c, d
-		}
-	}
-	limit := max(len(s), len(best)) / 3
-	limit = min(max(limit, 1), 3)
-	if best == "" || bestD > limit {
-		return ""
-	}
-	return best
-}
-
-// editDistance is the Levenshtein distance between a and b (insertions,
-// deletions and substitutions of single bytes, each costing 1), with an
-// adjacent transposition also costing 1 (optimal string alignment), the
-// commonest typing slip.
-func editDistance(a, b string) int {
-	d := make([][]int, len(a)+1)
-	for i := range d {
-		d[i] = make([]int, len(b)+1)
-		d[i][0] = i
-	}
-	for j := range d[0] {
-		d[0][j] = j
-	}
-	for i := 1; i <= len(a); i++ {
-		for j := 1; j <= len(b); j++ {
-			cost := 1
-			if a[i-1] == b[j-1] {
-				cost = 0
-			}
-			d[i][j] = min(d[i-1][j]+1, d[i][j-1]+1, d[i-1][j-1]+cost)
-			if i > 1 && j > 1 && a[i-1] == b[j-2] && a[i-2] == b[j-1] {
-				d[i][j] = min(d[i][j], d[i-2][j-2]+1)
-			}
-		}
-	}
-	return d[len(a)][len(b)]
+	return campaign.Nearest(name, names)
 }
 
 // optionalInt is a flag that knows whether it was given, so that leaving

@@ -4,6 +4,7 @@ import (
 	"flag"
 	"os"
 	"path/filepath"
+	"sluice/pkg/campaign"
 	"strings"
 	"testing"
 )
@@ -99,7 +100,7 @@ func TestEditDistance(t *testing.T) {
 		a, b string
 		d    int
 	}{{"kitten", "sitting", 3}, {"", "abc", 3}, {"ab", "ba", 1}, {"voxelsize", "voxelsize", 0}, {"flaw", "lawn", 2}} {
-		if got := editDistance(c.a, c.b); got != c.d {
+		if got := campaign.EditDistance(c.a, c.b); got != c.d {
 			t.Errorf("editDistance(%q, %q) = %d, want %d", c.a, c.b, got, c.d)
 		}
 	}

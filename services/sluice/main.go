@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"sluice/pkg/campaign"
 	"strings"
 )
 
@@ -84,7 +85,7 @@ func run(args []string) int {
 	for _, c := range commands() {
 		names = append(names, c.name)
 	}
-	if near := closest(args[0], names); near != "" {
+	if near := campaign.Nearest(args[0], names); near != "" {
 		return fail(exitBadInput, "unknown command %q; did you mean %s?", args[0], near)
 	}
 	return fail(exitBadInput, "unknown command %q (run `sluice help`)", args[0])
