@@ -57,8 +57,11 @@ type Info struct {
 	ModTime time.Time
 }
 
-// Exists reports whether key holds a value in s.
-func Exists(ctx context.Context, s Store, key string) (bool, error) {
+// Exists reports whether key holds a value in s, by its metadata alone
+// (the value is not read).
+func Exists(ctx context.Context, s interface {
+	Stat(ctx context.Context, key string) (Info, error)
+}, key string) (bool, error) {
 	_, err := s.Stat(ctx, key)
 	switch {
 	case err == nil:

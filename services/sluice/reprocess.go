@@ -101,16 +101,7 @@ func scanSteps(ctx context.Context, st runStore, c layout.Campaign, hash string)
 	if err != nil {
 		return nil, fmt.Errorf("campaign %s: listing steps: %w", c.Name(), err)
 	}
-	exists := func(key string) (bool, error) {
-		_, err := st.Stat(ctx, key)
-		switch {
-		case err == nil:
-			return true, nil
-		case errors.Is(err, fs.ErrNotExist):
-			return false, nil
-		}
-		return false, err
-	}
+	exists := func(key string) (bool, error) { return store.Exists(ctx, st, key) }
 	read := func(s string) (*stepKeys, error) {
 		dir := c.Steps() + s + "/"
 		sk := &stepKeys{tiles: map[int]bool{}}
@@ -458,7 +449,7 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 			if err != nil {
 				return sum, err
 			}
-			if ok, err := exists(ctx, st, step.Manifest()); err != nil || ok {
+			if ok, err := store.Exists(ctx, st, step.Manifest()); err != nil || ok {
 				if err != nil {
 					return sum, err
 				}
@@ -563,17 +554,6 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 		sum.Tiles += len(missing)
 	}
 	return sum, nil
-}
-
-func exists(ctx context.Context, st runStore, key string) (bool, error) {
-	_, err := st.Get(ctx, key)
-	switch {
-	case err == nil:
-		return true, nil
-	case errors.Is(err, fs.ErrNotExist):
-		return false, nil
-	}
-	return false, err
 }
 
 // clearRunStep removes a step's tile results and run result under hash.
@@ -817,7 +797,7 @@ func waitRun(ctx context.Context, st runStore, q *queue.Queue, c layout.Campaign
 				}
 				// The run result is the step's commit marker (a row of an
 				// older software version may still be in the series).
-				if ok, _ := exists(ctx, st, campaign.RunResultKey(step, sum.Hash)); ok {
+				if ok, _ := store.Exists(ctx, st, campaign.RunResultKey(step, sum.Hash)); ok {
 					done[r.Step] = true
 				}
 			}

@@ -220,7 +220,7 @@ func waitDone(t *testing.T, st store.Store, c layout.Campaign, hash string, step
 	for _, s := range steps {
 		step, _ := c.Step(s)
 		for {
-			if ok, _ := exists(context.Background(), st, campaign.RunResultKey(step, hash)); ok {
+			if ok, _ := store.Exists(context.Background(), st, campaign.RunResultKey(step, hash)); ok {
 				break
 			}
 			if time.Now().After(deadline) {
