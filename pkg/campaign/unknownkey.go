@@ -3,6 +3,7 @@ package campaign
 import (
 	"fmt"
 	"reflect"
+	"strconv"
 	"strings"
 
 	"gopkg.in/yaml.v3"
@@ -31,10 +32,16 @@ type UnknownKeyError struct {
 }
 
 func (e *UnknownKeyError) Error() string {
-	if e.Nearest != "" {
-		return fmt.Sprintf("unknown key %s (did you mean %s?)", e.Key, e.Nearest)
+	key := e.Key
+	// A key is the user's text: one holding a line break or another
+	// control character is quoted, so the message stays one line.
+	if strings.IndexFunc(key, func(r rune) bool { return r < 0x20 || r == 0x7f }) >= 0 {
+		key = strconv.Quote(key)
 	}
-	return fmt.Sprintf("unknown key %s", e.Key)
+	if e.Nearest != "" {
+		return fmt.Sprintf("unknown key %s (did you mean %s?)", key, e.Nearest)
+	}
+	return fmt.Sprintf("unknown key %s", key)
 }
 
 func walkKeys(n *yaml.Node, t reflect.Type, prefix string) *UnknownKeyError {
