@@ -178,6 +178,15 @@ func runMeasure(args []string) int {
 	}
 	path := pos[0]
 	set := givenFlags(fs)
+	if *labels {
+		// FILE is already segmented: a segmentation flag would be
+		// ignored, and the user would believe it applied.
+		for _, name := range segOnlyFlags {
+			if set[name] {
+				return fail(exitBadInput, "measure: --%s segments grey input; with --labels %s is already segmented (leave --%s out)", name, path, name)
+			}
+		}
+	}
 	ropt, err := in.options()
 	if err != nil {
 		return fail(exitBadInput, "measure: %s: %v", path, err)

@@ -52,7 +52,28 @@ const (
 	envHTTPToken    = "SLUICE_HTTP_TOKEN"
 )
 
-func (f *nodeFlags) register(fs *flag.FlagSet, httpDefault string, embedded bool) {
+// nodeGroup is a group of node flags; each command registers the groups
+// it reads, so that its help lists no flag it would ignore.
+type nodeGroup uint
+
+const (
+	// withStore: --store, --s3-credentials-file.
+	withStore nodeGroup = 1 << iota
+	// withNATS: --nats and its client credentials and TLS.
+	withNATS
+	// withHTTP: --http, --http-token-file (metrics, health, live page).
+	withHTTP
+	// withPolicy: --ack-wait, --max-deliver (the task delivery policy).
+	withPolicy
+	// withEmbedded: --data and the embedded NATS server's --expose-nats
+	// flags (run, reprocess).
+	withEmbedded
+)
+
+// register defines the node flags of the groups in g; httpDefault is the
+// default of --http (withHTTP only).
+func (f *nodeFlags) register(fs *flag.FlagSet, g nodeGroup, httpDefault string) {
+	embedded := g&withEmbedded != 0
 	if embedded {
 		fs.StringVar(&f.data, "data", defaultData, "data directory: local store in DATA/store, embedded NATS in DATA/nats")
 		fs.StringVar(&f.exposeNATS, "expose-nats", "", "also listen for NATS clients on `host:port`, so workers on other machines can join (beyond loopback only with --nats-users-file, --nats-user or a NATS token)")
@@ -61,20 +82,31 @@ func (f *nodeFlags) register(fs *flag.FlagSet, httpDefault string, embedded bool
 		fs.StringVar(&f.exposeTLSKey, "expose-nats-tls-key", "", "key `FILE` (PEM) of --expose-nats-tls-cert")
 		fs.StringVar(&f.exposeTLSCA, "expose-nats-tls-client-ca", "", "CA `FILE`: exposed NATS clients must show a certificate it signed (mutual TLS)")
 	}
-	fs.StringVar(&f.store, "store", "", "object store: a directory, file:///dir or s3://bucket/prefix?endpoint=host:port&tls=false")
-	fs.StringVar(&f.s3CredsFile, "s3-credentials-file", "", "S3 credentials `FILE` (lines access_key=…, secret_key=…; default: $SLUICE_S3_ACCESS_KEY/$SLUICE_S3_SECRET_KEY, then $AWS_ACCESS_KEY_ID/$AWS_SECRET_ACCESS_KEY)")
-	fs.StringVar(&f.nats, "nats", "", "NATS server URL(s), e.g. nats://nats-1:4222"+map[bool]string{true: " (default: embedded server)", false: ""}[embedded])
-	fs.StringVar(&f.natsCreds, "nats-creds", "", "NATS credentials `FILE`: a .creds file (user JWT + seed) or a user nkey seed")
-	fs.StringVar(&f.natsUser, "nats-user", os.Getenv(envNATSUser), "NATS user `NAME` (or $"+envNATSUser+"); password from --nats-password-file or $"+envNATSPassword)
-	fs.StringVar(&f.natsPasswordFile, "nats-password-file", "", "`FILE` holding the NATS password (default: $"+envNATSPassword+")")
-	fs.StringVar(&f.natsTokenFile, "nats-token-file", "", "`FILE` holding the NATS token (default: $"+envNATSToken+")")
-	fs.StringVar(&f.tlsCA, "nats-tls-ca", "", "CA bundle to verify the NATS server")
-	fs.StringVar(&f.tlsCert, "nats-tls-cert", "", "client certificate for NATS mutual TLS")
-	fs.StringVar(&f.tlsKey, "nats-tls-key", "", "client key for NATS mutual TLS")
-	fs.StringVar(&f.http, "http", httpDefault, "serve /metrics, /healthz, /readyz (and the live page on run/aggregate) on `addr`; beyond loopback a token is required")
-	fs.StringVar(&f.httpTokenFile, "http-token-file", "", "`FILE` holding the bearer token HTTP clients must send (default: $"+envHTTPToken+")")
-	fs.DurationVar(&f.ackWait, "ack-wait", 30*time.Second, "redeliver a tile whose worker sent no heartbeat for this long")
-	fs.IntVar(&f.maxDeliver, "max-deliver", 5, "give a tile up (dead letter) after this many deliveries")
+	if g&withStore != 0 {
+		fs.StringVar(&f.store, "store", "", "object store: a directory, file:///dir or s3://bucket/prefix?endpoint=host:port&tls=false")
+		fs.StringVar(&f.s3CredsFile, "s3-credentials-file", "", "S3 credentials `FILE` (lines access_key=…, secret_key=…; default: $SLUICE_S3_ACCESS_KEY/$SLUICE_S3_SECRET_KEY, then $AWS_ACCESS_KEY_ID/$AWS_SECRET_ACCESS_KEY)")
+	}
+	if g&withNATS != 0 {
+		fs.StringVar(&f.nats, "nats", "", "NATS server URL(s), e.g. nats://nats-1:4222"+map[bool]string{true: " (default: embedded server)", false: ""}[embedded])
+		fs.StringVar(&f.natsCreds, "nats-creds", "", "NATS credentials `FILE`: a .creds file (user JWT + seed) or a user nkey seed")
+		fs.StringVar(&f.natsUser, "nats-user", os.Getenv(envNATSUser), "NATS user `NAME` (or $"+envNATSUser+"); password from --nats-password-file or $"+envNATSPassword)
+		fs.StringVar(&f.natsPasswordFile, "nats-password-file", "", "`FILE` holding the NATS password (default: $"+envNATSPassword+")")
+		fs.StringVar(&f.natsTokenFile, "nats-token-file", "", "`FILE` holding the NATS token (default: $"+envNATSToken+")")
+		fs.StringVar(&f.tlsCA, "nats-tls-ca", "", "CA bundle to verify the NATS server")
+		fs.StringVar(&f.tlsCert, "nats-tls-cert", "", "client certificate for NATS mutual TLS")
+		fs.StringVar(&f.tlsKey, "nats-tls-key", "", "client key for NATS mutual TLS")
+	}
+	if g&withHTTP != 0 {
+		fs.StringVar(&f.http, "http", httpDefault, "serve /metrics, /healthz, /readyz (and the live page on run/aggregate) on `addr` (off: none); beyond loopback a token is required")
+		fs.StringVar(&f.httpTokenFile, "http-token-file", "", "`FILE` holding the bearer token HTTP clients must send (default: $"+envHTTPToken+")")
+	}
+	// Without the policy flags a process that creates the task consumers
+	// (the first to open the queue) gives them the default policy.
+	f.ackWait, f.maxDeliver = queue.DefaultPolicy.AckWait, queue.DefaultPolicy.MaxDeliver
+	if g&withPolicy != 0 {
+		fs.DurationVar(&f.ackWait, "ack-wait", queue.DefaultPolicy.AckWait, "redeliver a tile whose worker sent no heartbeat for this long")
+		fs.IntVar(&f.maxDeliver, "max-deliver", queue.DefaultPolicy.MaxDeliver, "give a tile up (dead letter) after this many deliveries")
+	}
 }
 
 // secret reads a secret from file when one is named, else from the

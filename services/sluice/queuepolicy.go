@@ -16,7 +16,7 @@ import (
 func runQueuePolicy(args []string) int {
 	fs := flag.NewFlagSet("queue-policy", flag.ContinueOnError)
 	var nf nodeFlags
-	nf.register(fs, "", false)
+	nf.register(fs, withNATS|withPolicy, "")
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}

@@ -841,7 +841,7 @@ func runReprocess(args []string) int {
 	fs := flag.NewFlagSet("reprocess", flag.ContinueOnError)
 	var nf nodeFlags
 	var in inputFlags
-	nf.register(fs, "", true)
+	nf.register(fs, withEmbedded|withStore|withNATS|withHTTP|withPolicy, "")
 	in.register(fs)
 	var req reprocessRequest
 	fs.StringVar(&req.Steps, "steps", "", "steps to reprocess by the number ending their name: `10-250,300,400-` (default all)")

@@ -42,6 +42,10 @@ func (s *segFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&s.reference, "reference", "", "reference-scan solid mask (labels: solid code = solid, 255 = outside); fluids only are separated")
 }
 
+// segOnlyFlags are the segFlags that act on grey input only (all but
+// --config, which also holds label codes and measurement options).
+var segOnlyFlags = []string{"filter", "threshold", "fixed", "order", "fluids", "noise-sigma", "min-island", "hysteresis-band", "sample", "no-sample", "reference"}
+
 func (s *segFlags) campaignConfig() (campaign.Config, error) {
 	c := campaign.Default()
 	if s.config != "" {

@@ -91,7 +91,7 @@ func retrying(st store.Store, reg prometheus.Registerer, log *slog.Logger) store
 func runWorker(args []string) int {
 	fs := flag.NewFlagSet("worker", flag.ContinueOnError)
 	var nf nodeFlags
-	nf.register(fs, "127.0.0.1:8471", false)
+	nf.register(fs, withStore|withNATS|withHTTP|withPolicy, "127.0.0.1:8471")
 	conc := fs.Int("concurrency", runtime.GOMAXPROCS(0), "tiles processed at once")
 	id := fs.String("id", "", "worker name in results and dead letters (default host:pid)")
 	if _, code, ok := parseOrUsage(fs, args); !ok {
@@ -128,7 +128,7 @@ func runWorker(args []string) int {
 func runAggregate(args []string) int {
 	fs := flag.NewFlagSet("aggregate", flag.ContinueOnError)
 	var nf nodeFlags
-	nf.register(fs, "127.0.0.1:8470", false)
+	nf.register(fs, withStore|withNATS|withHTTP|withPolicy, "127.0.0.1:8470")
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
@@ -257,7 +257,7 @@ func runIngest(args []string) int {
 	var nf nodeFlags
 	var in inputFlags
 	var f ingestFlags
-	nf.register(fs, "127.0.0.1:8472", false)
+	nf.register(fs, withStore|withNATS|withHTTP, "127.0.0.1:8472")
 	in.register(fs)
 	f.register(fs, true)
 	pos, code, ok := parseOrUsage(fs, args)
@@ -384,7 +384,7 @@ func runAll(args []string) int {
 	var nf nodeFlags
 	var in inputFlags
 	var f ingestFlags
-	nf.register(fs, "127.0.0.1:8470", true)
+	nf.register(fs, withEmbedded|withStore|withNATS|withHTTP|withPolicy, "127.0.0.1:8470")
 	in.register(fs)
 	f.register(fs, false)
 	workers := fs.Int("workers", runtime.GOMAXPROCS(0), "tile workers in this process (0: none, for separate `sluice worker` processes)")

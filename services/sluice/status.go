@@ -159,7 +159,7 @@ func isDir(path string) bool {
 func runStatus(args []string) int {
 	fs := flag.NewFlagSet("status", flag.ContinueOnError)
 	var nf nodeFlags
-	nf.register(fs, "", false)
+	nf.register(fs, withStore|withNATS, "")
 	fs.StringVar(&nf.data, "data", defaultData, "data directory whose store/ holds the campaign (when --store is not given)")
 	pos, code, ok := parseOrUsage(fs, args)
 	if !ok {

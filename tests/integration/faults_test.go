@@ -179,6 +179,9 @@ type cluster struct {
 	loc    string
 	env    []string
 	common []string
+	// conn is common without the delivery policy flags, for the
+	// commands that work no tasks (ingest, status).
+	conn []string
 	policy queue.Policy
 	st     store.Store
 }
@@ -198,7 +201,8 @@ func newCluster(t *testing.T, bin string, useMinIO bool, ackWait time.Duration, 
 	} else {
 		c.loc = filepath.Join(t.TempDir(), "store")
 	}
-	c.common = []string{"--nats", c.nats.URL, "--store", c.loc, "--ack-wait", ackWait.String(), "--max-deliver", fmt.Sprint(maxDeliver)}
+	c.conn = []string{"--nats", c.nats.URL, "--store", c.loc}
+	c.common = append(append([]string{}, c.conn...), "--ack-wait", ackWait.String(), "--max-deliver", fmt.Sprint(maxDeliver))
 	// MinIO can answer "Server not initialized yet" for a moment after its
 	// readiness endpoint says ready; the services start only once a store
 	// operation has succeeded here.
@@ -214,12 +218,16 @@ func (c *cluster) addr() string { return fmt.Sprintf("127.0.0.1:%d", testenv.Fre
 
 // service starts `sluice <cmd>` with the cluster's flags plus args.
 func (c *cluster) service(name, cmd string, args ...string) *proc {
-	return start(c.t, name, c.bin, c.env, append(append([]string{cmd}, args...), c.common...)...)
+	flags := c.common
+	if cmd == "ingest" {
+		flags = c.conn
+	}
+	return start(c.t, name, c.bin, c.env, append(append([]string{cmd}, args...), flags...)...)
 }
 
 // ingest stores one scan and queues its tiles (`sluice ingest FILE`).
 func (c *cluster) ingest(f *fixture, i int) error {
-	cmd := exec.Command(c.bin, append([]string{"ingest", "--campaign", f.name, "--config", f.cfgPath, f.paths[i]}, c.common...)...)
+	cmd := exec.Command(c.bin, append([]string{"ingest", "--campaign", f.name, "--config", f.cfgPath, f.paths[i]}, c.conn...)...)
 	cmd.Env = append(os.Environ(), c.env...)
 	out, err := cmd.CombinedOutput()
 	if err != nil {
@@ -615,7 +623,7 @@ func TestMinIOOutage(t *testing.T) {
 		metricSum(wAddr, "sluice_store_errors_total"), retries, metric(wAddr, "sluice_tiles_redelivered_total"),
 		metricSum(aAddr, "sluice_store_errors_total"), metricSum(aAddr, "sluice_store_retries_total"),
 		metricSum(iAddr, "sluice_store_errors_total"), metricSum(iAddr, "sluice_store_retries_total"))
-	out := sluiceRun(t, c.bin, c.env, append([]string{"status", f.name}, c.common...)...)
+	out := sluiceRun(t, c.bin, c.env, append([]string{"status", f.name}, c.conn...)...)
 	if !strings.Contains(out, fmt.Sprintf("done %d", len(f.paths))) || !strings.Contains(out, "failed 0") {
 		t.Errorf("sluice status after the outage:\n%s", out)
 	}
@@ -773,7 +781,7 @@ func TestPoisonTile(t *testing.T) {
 	if n := metricSum(aAddr, "sluice_steps_failed_total"); n != 1 {
 		t.Errorf("sluice_steps_failed_total = %g, want 1", n)
 	}
-	out := sluiceRun(t, bin, c.env, append([]string{"status", f.name}, c.common...)...)
+	out := sluiceRun(t, bin, c.env, append([]string{"status", f.name}, c.conn...)...)
 	t.Logf("sluice status:\n%s", out)
 	wantStatus := fmt.Sprintf("failed:  step %s: tile %d dead-lettered after 3 deliveries: no acknowledgement", poisonStep, poisonTile)
 	if !strings.Contains(out, wantStatus) || !strings.Contains(out, "failed 1") {

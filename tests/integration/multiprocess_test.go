@@ -207,7 +207,8 @@ func TestMultiProcess(t *testing.T) {
 	nats := testenv.StartNATS(t)
 	env := []string{"SLUICE_S3_ACCESS_KEY=" + minio.AccessKey, "SLUICE_S3_SECRET_KEY=" + minio.SecretKey}
 	loc := minio.URL("sluice-mp")
-	common := []string{"--nats", nats.URL, "--store", loc, "--ack-wait", "4s", "--max-deliver", "5"}
+	conn := []string{"--nats", nats.URL, "--store", loc}
+	common := append(append([]string{}, conn...), "--ack-wait", "4s", "--max-deliver", "5")
 	aggAddr := fmt.Sprintf("127.0.0.1:%d", testenv.FreePort(t))
 	w1Addr := fmt.Sprintf("127.0.0.1:%d", testenv.FreePort(t))
 	w2Addr := fmt.Sprintf("127.0.0.1:%d", testenv.FreePort(t))
@@ -221,7 +222,7 @@ func TestMultiProcess(t *testing.T) {
 		t.Fatal(err)
 	}
 	ingest := func(i int) {
-		cmd := exec.Command(bin, append([]string{"ingest", "--campaign", "mp", "--config", cfgPath, paths[i]}, common...)...)
+		cmd := exec.Command(bin, append([]string{"ingest", "--campaign", "mp", "--config", cfgPath, paths[i]}, conn...)...)
 		cmd.Env = append(os.Environ(), env...)
 		out, err := cmd.CombinedOutput()
 		if err != nil {

@@ -87,7 +87,8 @@ tls {
 	loc := minio.URL("sluice-sec")
 	natsFlags := []string{"--nats", nats.URL, "--nats-user", "sluice-svc", "--nats-password-file", pwFile,
 		"--nats-tls-ca", certs.CA, "--nats-tls-cert", certs.ClientCert, "--nats-tls-key", certs.ClientKey}
-	common := append([]string{"--store", loc, "--s3-credentials-file", creds, "--ack-wait", "10s"}, natsFlags...)
+	conn := append([]string{"--store", loc, "--s3-credentials-file", creds}, natsFlags...)
+	common := append(append([]string{}, conn...), "--ack-wait", "10s")
 	// No secret in the environment: everything comes from files.
 	env := []string{"SLUICE_S3_ACCESS_KEY=", "SLUICE_S3_SECRET_KEY=", "AWS_ACCESS_KEY_ID=", "AWS_SECRET_ACCESS_KEY=",
 		"SLUICE_NATS_PASSWORD=", "SLUICE_NATS_TOKEN=", "SLUICE_HTTP_TOKEN="}
@@ -137,7 +138,7 @@ tls {
 	aggAddr := fmt.Sprintf("127.0.0.1:%d", testenv.FreePort(t))
 	agg := start(t, "aggregate", bin, env, append([]string{"aggregate", "--http", aggAddr, "--http-token-file", tokFile}, common...)...)
 	wrk := start(t, "worker", bin, env, append([]string{"worker", "--http", "off", "--concurrency", "2", "--id", "secure-w"}, common...)...)
-	code, out := once("ingest", append([]string{"ingest", "--campaign", "sec", "--config", cfgPath, paths[0]}, common...)...)
+	code, out := once("ingest", append([]string{"ingest", "--campaign", "sec", "--config", cfgPath, paths[0]}, conn...)...)
 	if code != 0 {
 		t.Fatalf("ingest over TLS + users: exit %d\n%s", code, out)
 	}
@@ -181,7 +182,7 @@ tls {
 		t.Errorf("worker with a wrong secret: exit %d, %q", code, out)
 	}
 	minio.Stop()
-	code, out = once("ingest MinIO stopped", append([]string{"ingest", "--campaign", "sec", "--config", cfgPath, paths[2]}, common...)...)
+	code, out = once("ingest MinIO stopped", append([]string{"ingest", "--campaign", "sec", "--config", cfgPath, paths[2]}, conn...)...)
 	if code == 0 {
 		t.Errorf("ingest with MinIO stopped: exit 0\n%s", out)
 	}
