@@ -181,7 +181,7 @@ type cluster struct {
 	common []string
 	// conn is common without the delivery policy flags, for the
 	// commands that work no tasks (ingest, status).
-	conn []string
+	conn   []string
 	policy queue.Policy
 	st     store.Store
 }
