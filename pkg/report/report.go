@@ -65,13 +65,6 @@ type Params struct {
 // Param is one named parameter value, shown as given.
 type Param struct{ Name, Value string }
 
-// Check is one validation result to show.
-type Check struct {
-	Name   string
-	Passed bool
-	Detail string
-}
-
 // Rejected is a scan given up at ingest (truncated, wrong shape, no
 // header …): it has no row, and the report says so with the reason.
 type Rejected struct {
@@ -112,6 +105,8 @@ type page struct {
 	Figures        []figure
 	Distributions  []figure
 	ChecksPassed   int
+	ChecksFailed   int
+	ChecksNotEval  int
 	Cautions       []string
 	ResolvedRadius int
 	Generated      string
@@ -154,8 +149,13 @@ func Write(w io.Writer, in Input) error {
 		}
 	}
 	for _, c := range in.Checks {
-		if c.Passed {
+		switch c.Status {
+		case Passed:
 			pg.ChecksPassed++
+		case NotEvaluated:
+			pg.ChecksNotEval++
+		default:
+			pg.ChecksFailed++
 		}
 	}
 	for _, e := range in.Events {
@@ -246,7 +246,7 @@ td.step { text-align: left; }
 tr.unresolved td.rvox { background: #f5d9a3; font-weight: bold; }
 figure { display: inline-block; margin: 0.5em; }
 figure svg { max-width: 100%; height: auto; }
-.pass { color: #1c4a8c; } .fail { color: #6a3d0c; font-weight: bold; }
+.pass { color: #1c4a8c; } .fail { color: #6a3d0c; font-weight: bold; } .noteval { color: #555; font-style: italic; }
 .cautions { border: 2px solid #6a3d0c; padding: 0.5em 1em; background: #fff6e6; }
 dl { display: grid; grid-template-columns: max-content auto; gap: 0.2em 1em; }
 dt { font-weight: bold; }
@@ -299,9 +299,10 @@ Latest steady-state onset: {{if .Steady}}{{.Steady}}{{else}}not detected{{end}}.
 
 <section id="validation">
 <h2>Validation status</h2>
-<p>{{.ChecksPassed}} of {{len .Checks}} checks passed.</p>
+<p>{{len .Checks}} checks: {{.ChecksPassed}} passed, {{.ChecksFailed}} failed, {{.ChecksNotEval}} not evaluated.
+A check is not evaluated when the series holds nothing it applies to; the reason is given.</p>
 {{if .Checks}}<ul>{{range .Checks}}
-<li class="{{if .Passed}}pass{{else}}fail{{end}}" data-check="{{.Name}}">{{if .Passed}}passed{{else}}FAILED{{end}}: {{.Name}}{{with .Detail}} — {{.}}{{end}}</li>{{end}}
+<li class="{{if eq .Status "passed"}}pass{{else if eq .Status "not evaluated"}}noteval{{else}}fail{{end}}" data-check="{{.Name}}" data-status="{{.Status}}">{{if eq .Status "passed"}}passed{{else if eq .Status "not evaluated"}}not evaluated{{else}}FAILED{{end}}: {{.Name}}{{with .Detail}} — {{.}}{{end}}</li>{{end}}
 </ul>{{end}}
 </section>
 

@@ -105,8 +105,8 @@ func TestReportIsCompleteAndSelfContained(t *testing.T) {
 			IFT: fp(0.0728), SmoothingSigma: 1.5, Thresholds: []float64{812, 2250},
 			ParameterHash: "9f1c2e", SoftwareVersion: "sluice 0.1.0-test", FlowAxis: "z", Connectivity: 26},
 		Rows: rows, Events: evs,
-		Checks: []Check{{Name: "ball area within 2 %", Passed: true, Detail: "−0.8 %"},
-			{Name: "tile invariance", Passed: false, Detail: "off by 1 voxel"}},
+		Checks: []Check{{Name: "ball area within 2 %", Status: Passed, Detail: "−0.8 %"},
+			{Name: "tile invariance", Status: Failed, Detail: "off by 1 voxel"}, {Name: "needs σ", Status: NotEvaluated, Detail: "no σ given"}},
 		Generated: time.Date(2025, 3, 1, 12, 0, 0, 0, time.UTC),
 	}
 	page := render(t, in)
@@ -166,7 +166,7 @@ func TestReportIsCompleteAndSelfContained(t *testing.T) {
 		}
 	}
 	for _, want := range []string{"pressurised cells", "ionising radiation", "few voxels", "2.5 µm", "72.8 mN/m",
-		"9f1c2e", "sluice 0.1.0-test", "812, 2250", "1 of 2 checks passed", "FAILED", "breakthrough/s003",
+		"9f1c2e", "sluice 0.1.0-test", "812, 2250", "3 checks: 1 passed, 1 failed, 1 not evaluated", "FAILED", "breakthrough/s003",
 		"CO2 drainage &lt;synthetic&gt;"} {
 		if !strings.Contains(text, want) {
 			t.Errorf("report lacks %q", want)

@@ -5,10 +5,8 @@ import (
 	"encoding/json"
 	"flag"
 	"fmt"
-	"math"
 	"os"
 	"path/filepath"
-	"sort"
 	"time"
 
 	"sluice/pkg/campaign"
@@ -191,7 +189,7 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 	if err != nil {
 		return err
 	}
-	err = report.Write(f, report.Input{Params: p, Rows: rows, Rejected: rejected, Events: evs, Checks: validationChecks(rows), Generated: time.Now()})
+	err = report.Write(f, report.Input{Params: p, Rows: rows, Rejected: rejected, Events: evs, Checks: report.PhysicalChecks(rows, p.IFT), Generated: time.Now()})
 	if cerr := f.Close(); err == nil {
 		err = cerr
 	}
@@ -199,61 +197,4 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 		return err
 	}
 	return os.Rename(path+".tmp", path)
-}
-
-// validationChecks are the physical consistency checks of a series: what
-// must hold whatever the fluids do.
-func validationChecks(rows []series.Row) []report.Check {
-	var checks []report.Check
-	// The rock does not change during a displacement: porosity must be the
-	// same in every step (common practice: a drifting porosity flags
-	// registration or segmentation problems).
-	var phis []float64
-	for _, r := range rows {
-		if r.Porosity != nil {
-			phis = append(phis, *r.Porosity)
-		}
-	}
-	if len(phis) > 1 {
-		s := append([]float64(nil), phis...)
-		sort.Float64s(s)
-		med := s[len(s)/2]
-		worst := 0.0
-		for _, v := range phis {
-			worst = math.Max(worst, math.Abs(v-med)/med)
-		}
-		checks = append(checks, report.Check{Name: "porosity constant across steps (rock unchanged)", Passed: worst <= 0.01,
-			Detail: fmt.Sprintf("largest relative deviation from the median %.4f: %.2f %% (limit 1 %%)", med, 100*worst)})
-	}
-	// Saturations are fractions of the pore space.
-	bad := 0
-	for _, r := range rows {
-		if r.SatWetting != nil && r.SatNonwetting != nil && (math.Abs(*r.SatWetting+*r.SatNonwetting-1) > 1e-9 || *r.SatWetting < 0 || *r.SatWetting > 1) {
-			bad++
-		}
-	}
-	checks = append(checks, report.Check{Name: "S_w + S_n = 1, both in [0, 1]", Passed: bad == 0, Detail: fmt.Sprintf("%d of %d steps violate it", bad, len(rows))})
-	// Curvature resolved: mean radius of curvature at least ten voxels
-	// (Akai et al. 2019: average Pc within 11 % above 10 voxels).
-	resolved, withK := 0, 0
-	for _, r := range rows {
-		if r.CurvMean != nil && r.VoxelSize != nil && *r.CurvMean > 0 {
-			withK++
-			if 2/(*r.CurvMean**r.VoxelSize) >= report.ResolvedRadius {
-				resolved++
-			}
-		}
-	}
-	checks = append(checks, report.Check{Name: "interface radius of curvature ≥ 10 voxels", Passed: withK > 0 && resolved == withK,
-		Detail: fmt.Sprintf("%d of %d steps with a w–n interface", resolved, withK)})
-	// Contact angles measured.
-	withA := 0
-	for _, r := range rows {
-		if r.AngleMean != nil {
-			withA++
-		}
-	}
-	checks = append(checks, report.Check{Name: "contact angles sampled in every step with a contact line", Passed: withA > 0,
-		Detail: fmt.Sprintf("%d of %d steps", withA, len(rows))})
-	return checks
 }
