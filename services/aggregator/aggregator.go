@@ -588,19 +588,77 @@ func (a *Aggregator) announced(ctx context.Context, c layout.Campaign) ([]events
 
 // refreshCurrent re-reads campaign.json, so a run switched to by another
 // process (`sluice switch`) is honoured, and reports whether hash is the
-// campaign's current run.
+// campaign's current run. A campaign.json that cannot be read leaves the
+// state known before.
 func (a *Aggregator) refreshCurrent(ctx context.Context, c layout.Campaign, hash string) (*campaignState, bool) {
 	cs := a.campaign(ctx, c.Name())
 	if cs == nil {
 		return nil, false
 	}
-	r, err := campaign.LoadRecord(ctx, a.Store, c) // not under a.mu: see campaign
+	if err := a.syncRecord(ctx, cs, c); err != nil {
+		a.Log.Warn("aggregator: campaign.json not re-read; keeping the current run known before", "campaign", c.Name(), "err", err)
+	}
 	a.mu.Lock()
 	defer a.mu.Unlock()
-	if err == nil && r.Current != "" {
-		cs.record = r
-	}
 	return cs, cs.record.Current == hash
+}
+
+// syncRecord re-reads the campaign's campaign.json (a small object) into
+// cs, so that the current parameter hash shows as the store has it right
+// after another process (`sluice switch`, which touches only the store and
+// sends no message) changed it. When the current hash changed, the steps'
+// states are read again under the new hash (as Start reads them), because
+// status and tile counts belong to one run. Nothing is read under a.mu (see
+// campaign). A tile result handled between the listing here and the swap
+// below is counted again by the step's next tile or its completion.
+func (a *Aggregator) syncRecord(ctx context.Context, cs *campaignState, c layout.Campaign) error {
+	r, err := campaign.LoadRecord(ctx, a.Store, c)
+	if err != nil {
+		return err
+	}
+	a.mu.Lock()
+	was := cs.record.Current
+	if r.Current == "" || r.Current == was {
+		if r.Current != "" {
+			cs.record = r
+		}
+		a.mu.Unlock()
+		return nil
+	}
+	a.mu.Unlock()
+	steps, err := a.loadSteps(ctx, c, r.Current)
+	if err != nil {
+		return err
+	}
+	var times map[string]float64
+	jk, _ := campaign.RunSeriesKeys(c, r.Current)
+	if b, err := a.Store.Get(ctx, jk); err == nil {
+		if rows, err := series.Decode(b); err == nil {
+			times = map[string]float64{}
+			for _, row := range rows {
+				times[row.Step] = row.Time
+			}
+		}
+	}
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if cs.record.Current != was {
+		cs.record = r // another caller swapped the steps meanwhile
+		return nil
+	}
+	fresh := make(map[string]*stepState, len(steps))
+	for _, st := range steps {
+		// A step's time belongs to its scan, not to the run.
+		if t, ok := times[st.Step]; ok {
+			st.TimeS = t
+		} else if old, ok := cs.steps[st.Step]; ok {
+			st.TimeS = old.TimeS
+		}
+		fresh[st.Step] = st
+	}
+	cs.record, cs.steps = r, fresh
+	a.Log.Info("campaign switched to another run", "campaign", c.Name(), "from", was, "to", r.Current)
+	return nil
 }
 
 // CompleteStep completes a step of a run whose tile results are all stored

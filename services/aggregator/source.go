@@ -24,8 +24,14 @@ var _ web.Source = (*Aggregator)(nil)
 
 func badName(err error) error { return fmt.Errorf("%w: %w", web.ErrBadRequest, err) }
 
-// Campaigns lists the campaigns the aggregator knows.
+// Campaigns lists the campaigns the aggregator knows, each with the
+// current parameter hash as its campaign.json says now: the record is read
+// again on every request (see syncRecord), so a `sluice switch` made by
+// another process shows at once.
 func (a *Aggregator) Campaigns(ctx context.Context) ([]web.CampaignInfo, error) {
+	if err := a.syncAll(ctx); err != nil {
+		return nil, err
+	}
 	a.mu.Lock()
 	out := []web.CampaignInfo{}
 	for name, cs := range a.campaigns {
@@ -58,6 +64,26 @@ func (a *Aggregator) Campaigns(ctx context.Context) ([]web.CampaignInfo, error) 
 	return out, nil
 }
 
+// syncAll re-reads the campaign.json of every known campaign.
+func (a *Aggregator) syncAll(ctx context.Context) error {
+	a.mu.Lock()
+	known := make(map[string]*campaignState, len(a.campaigns))
+	for name, cs := range a.campaigns {
+		known[name] = cs
+	}
+	a.mu.Unlock()
+	for name, cs := range known {
+		c, err := layout.NewCampaign(name)
+		if err != nil {
+			continue
+		}
+		if err := a.syncRecord(ctx, cs, c); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
 // Rejected lists the campaign's scans given up by the watcher, read from
 // their records in the store (campaigns/<c>/rejected/).
 func (a *Aggregator) Rejected(ctx context.Context, c string) ([]web.RejectedScan, error) {
@@ -79,10 +105,17 @@ func (a *Aggregator) Rejected(ctx context.Context, c string) ([]web.RejectedScan
 	return out, nil
 }
 
-// Steps lists a campaign's steps with their status.
+// Steps lists a campaign's steps with their status under the campaign's
+// current run (re-read from campaign.json, see syncRecord).
 func (a *Aggregator) Steps(ctx context.Context, c string) ([]web.StepStatus, error) {
-	if _, err := layout.NewCampaign(c); err != nil {
+	cl, err := layout.NewCampaign(c)
+	if err != nil {
 		return nil, badName(err)
+	}
+	if cs, ok := a.known(c); ok {
+		if err := a.syncRecord(ctx, cs, cl); err != nil {
+			return nil, err
+		}
 	}
 	a.mu.Lock()
 	defer a.mu.Unlock()
