@@ -73,10 +73,46 @@ type Rejected struct {
 	At                 string
 }
 
+// StepSettings are how one step was segmented, from its plan: the
+// thresholds and sample cylinder pass 1 found for it. Phases detected,
+// voxel size and whether it was assumed come from the step's row.
+type StepSettings struct {
+	Step string
+	// Thresholds are the step's grey thresholds, ascending; Method "otsu"
+	// or "fixed".
+	Thresholds []float64
+	Method     string
+	// Fluids is "both", "wetting" or "nonwetting" (the phase decision).
+	Fluids string
+	// Filter is the denoising filter's method.
+	Filter string
+	// Sample is the sample cylinder (y, x, radius) in voxels; HasSample is
+	// false when the step's plan does not say.
+	Sample    [3]float64
+	HasSample bool
+}
+
+// ThresholdDrift is the fraction of the grey-value scale beyond which a
+// step's threshold is flagged as differing from the campaign's median of
+// the same threshold. The scale is the median gap between the two
+// thresholds of three-class steps (the grey width of the middle class);
+// without such steps it is the median threshold's magnitude. Otsu
+// thresholds move with the class proportions, so a drifting threshold
+// flags a change in beam, detector or phase content worth a look, not
+// necessarily an error (common practice).
+const ThresholdDrift = 0.10
+
+// ThresholdDriftMinSteps is the number of steps with the same number of
+// thresholds and the same fluids needed before medians are compared.
+const ThresholdDriftMinSteps = 3
+
 // Input is everything a report shows. Rows need not be sorted.
 type Input struct {
 	Params
 	Rows []series.Row
+	// Steps holds each step's segmentation settings (any order; steps
+	// without an entry show dashes).
+	Steps []StepSettings
 	// Rejected lists the scans given up, in step order.
 	Rejected []Rejected
 	// Events as found by events.Detect on Rows.
@@ -96,8 +132,18 @@ type tableRow struct {
 	Unresolved                                             bool
 }
 
+// settingsRow is one line of the per-step segmentation table.
+type settingsRow struct {
+	Step, Time, Voxel, Filter, Method, Thresholds, Phases, PhasesNote, SampleY, SampleX, SampleR string
+	VoxelAssumed, Drift                                                                          bool
+	DriftNote                                                                                    string
+}
+
 type page struct {
 	Input
+	Settings       []settingsRow
+	DriftRule      string
+	DriftFlagged   int
 	VoxelSize      string
 	IFT            string
 	Thresholds     string
@@ -168,6 +214,12 @@ func Write(w io.Writer, in Input) error {
 	}
 	for i := range rows {
 		pg.Table = append(pg.Table, tabulate(&rows[i], in.VoxelSize))
+	}
+	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps)
+	for _, s := range pg.Settings {
+		if s.Drift {
+			pg.DriftFlagged++
+		}
 	}
 	for _, f := range plots.Build(rows, in.Events) {
 		var buf bytes.Buffer
@@ -243,7 +295,7 @@ table { border-collapse: collapse; font-size: 0.85em; }
 th, td { border: 1px solid #bbb; padding: 0.2em 0.5em; text-align: right; }
 th { background: #eee; }
 td.step { text-align: left; }
-tr.unresolved td.rvox { background: #f5d9a3; font-weight: bold; }
+tr.unresolved td.rvox, tr.drift td.thr { background: #f5d9a3; font-weight: bold; }
 figure { display: inline-block; margin: 0.5em; }
 figure svg { max-width: 100%; height: auto; }
 .pass { color: #1c4a8c; } .fail { color: #6a3d0c; font-weight: bold; } .noteval { color: #555; font-style: italic; }
@@ -268,7 +320,7 @@ dt { font-weight: bold; }
 <dt>Voxel size</dt><dd>{{.VoxelSize}}</dd>
 <dt>Interfacial tension σ</dt><dd>{{.IFT}}</dd>
 <dt>Curvature smoothing σ</dt><dd>{{if .SmoothingSigma}}{{.SmoothingSigma}} voxels{{else}}—{{end}}</dd>
-<dt>Segmentation thresholds</dt><dd>{{.Thresholds}}</dd>
+<dt>Segmentation thresholds</dt><dd>{{if .Steps}}per step, see <a href="#segmentation">Segmentation per step</a>{{else}}{{.Thresholds}}{{end}}</dd>
 <dt>Flow axis</dt><dd>{{if .FlowAxis}}{{.FlowAxis}}{{else}}—{{end}}</dd>
 <dt>Connectivity</dt><dd>{{if .Connectivity}}{{.Connectivity}}{{else}}—{{end}}</dd>
 <dt>Parameter hash</dt><dd><code>{{if .ParameterHash}}{{.ParameterHash}}{{else}}—{{end}}</code></dd>
@@ -304,6 +356,17 @@ A check is not evaluated when the series holds nothing it applies to; the reason
 {{if .Checks}}<ul>{{range .Checks}}
 <li class="{{if eq .Status "passed"}}pass{{else if eq .Status "not evaluated"}}noteval{{else}}fail{{end}}" data-check="{{.Name}}" data-status="{{.Status}}">{{if eq .Status "passed"}}passed{{else if eq .Status "not evaluated"}}not evaluated{{else}}FAILED{{end}}: {{.Name}}{{with .Detail}} — {{.}}{{end}}</li>{{end}}
 </ul>{{end}}
+</section>
+
+<section id="segmentation">
+<h2>Segmentation per step</h2>
+{{if .Settings}}<p>Thresholds (grey values), phases found and the sample cylinder (centre y, x and radius, voxels) of each
+step, as pass 1 found them. {{.DriftRule}}{{if .DriftFlagged}} <span class="fail">{{.DriftFlagged}} steps flagged.</span>{{else}} No step flagged.{{end}}</p>
+<table id="settings-table">
+<tr><th>step</th><th>t (s)</th><th>voxel (µm)</th><th>filter</th><th>method</th><th>thresholds</th><th>phases</th>
+<th>sample y</th><th>sample x</th><th>sample r</th><th>flag</th></tr>{{range .Settings}}
+<tr data-settings="{{.Step}}"{{if .Drift}} class="drift"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.Voxel}}{{if .VoxelAssumed}} (assumed: the scan gave none){{end}}</td><td class="step">{{.Filter}}</td><td class="step">{{.Method}}</td><td class="thr">{{.Thresholds}}</td><td class="step"{{with .PhasesNote}} title="{{.}}"{{end}}>{{.Phases}}</td><td>{{.SampleY}}</td><td>{{.SampleX}}</td><td>{{.SampleR}}</td><td class="step">{{if .Drift}}threshold drift: {{.DriftNote}}{{end}}</td></tr>{{end}}
+</table>{{else}}<p>No steps.</p>{{end}}
 </section>
 
 <section id="series">

@@ -2,11 +2,13 @@ package report
 
 import (
 	"bytes"
+	"encoding/json"
 	"encoding/xml"
 	"fmt"
 	"io"
 	"math"
 	"os"
+	"regexp"
 	"strings"
 	"testing"
 	"time"
@@ -241,5 +243,76 @@ func TestReportListsRejectedScans(t *testing.T) {
 	none := string(render(t, Input{Params: Params{Campaign: "c"}, Rows: campaign(5)}))
 	if strings.Contains(none, "data-rejected=") || !strings.Contains(none, "None: every scan that arrived was ingested.") {
 		t.Errorf("a report without rejected scans should say none were")
+	}
+}
+
+// TestSettingsPerStep: every step shows its own thresholds, phases and
+// sample cylinder, and only thresholds beyond ThresholdDrift of the scale
+// are flagged. Arithmetic by hand: s000 has no plan and s008 holds the
+// wetting fluid only (one threshold, alone in its group: not compared), so
+// s001…s007 are compared. Their T2 are 2249 ×4, 2250, 2350, 2600 (median
+// 2249) and their gaps T2 − T1 are 1447, 1448 ×3, 1449, 1550, 1799 (median
+// 1448), so the limit is 10 % · 1448 = 144.8 grey values. Step s004's
+// T2 = 2600 is 351 off (24 %, flagged); s006's T2 = 2350 is 101 off (7 %,
+// not flagged).
+func TestSettingsPerStep(t *testing.T) {
+	rows := campaign(9)
+	var steps []StepSettings
+	for i, r := range rows {
+		s := StepSettings{Step: r.Step, Method: "otsu", Fluids: "both", Filter: "median",
+			Thresholds: []float64{800 + float64(i%3), 2250 - float64(i%2)}, Sample: [3]float64{31.5 + float64(i)/10, 32, 28}, HasSample: true}
+		switch r.Step {
+		case "s004":
+			s.Thresholds[1] = 2600
+		case "s006":
+			s.Thresholds[1] = 2350
+		case "s008":
+			s.Fluids, s.Thresholds = "wetting", []float64{1500}
+			rows[i].Extra = map[string]json.RawMessage{"phases_detected": json.RawMessage("2"),
+				"phases_note": json.RawMessage(`"one fluid: wetting"`), "voxel_size_assumed": json.RawMessage("true")}
+		}
+		if i == 0 {
+			continue // s000 has no plan: dashes
+		}
+		steps = append(steps, s)
+	}
+	for i := range rows {
+		rows[i].VoxelSize = fp(2.5e-6)
+	}
+	page := string(render(t, Input{Params: Params{Campaign: "c", VoxelSize: 2.5e-6}, Rows: rows, Steps: steps}))
+	got := map[string]string{}
+	for _, m := range regexp.MustCompile(`(?s)<tr data-settings="([^"]+)"( class="drift")?>(.*?)</tr>`).FindAllStringSubmatch(page, -1) {
+		got[m[1]] = m[2] + m[3]
+	}
+	if len(got) != len(rows) {
+		t.Fatalf("%d settings rows, want %d", len(got), len(rows))
+	}
+	for _, c := range []struct{ step, want string }{
+		{"s000", `<td class="thr">—</td>`},
+		{"s001", `<td class="thr">801, 2249</td>`},
+		{"s001", `<td>31.6</td><td>32.0</td><td>28.0</td>`},
+		{"s001", `3 (rock, both fluids)`},
+		{"s003", `<td>135.0</td>`},
+		{"s004", `<td class="thr">801, 2600</td>`},
+		{"s004", `threshold drift: threshold 2 is 2600, the median of 7 steps is 2249: off by 24 % of the scale`},
+		{"s008", `2 (rock, wetting only)`},
+		{"s008", `title="one fluid: wetting"`},
+		{"s008", `2.5 (assumed: the scan gave none)`},
+		{"s008", `<td class="thr">1500</td>`},
+	} {
+		if !strings.Contains(got[c.step], c.want) {
+			t.Errorf("step %s: row lacks %q:\n%s", c.step, c.want, got[c.step])
+		}
+	}
+	for step, row := range got {
+		if flagged := strings.HasPrefix(row, ` class="drift"`); flagged != (step == "s004") {
+			t.Errorf("step %s flagged %v", step, flagged)
+		}
+	}
+	for _, want := range []string{"by more than 10 % of the scale: the median grey-value gap between the two thresholds of three-class steps (1448)",
+		"Medians need at least 3 such steps (7 of 9 steps compared)", "1 steps flagged"} {
+		if !strings.Contains(page, want) {
+			t.Errorf("report lacks %q", want)
+		}
 	}
 }

@@ -2,10 +2,16 @@ package main
 
 import (
 	"context"
+	"fmt"
+	"os"
 	"path/filepath"
+	"regexp"
+	"strconv"
 	"strings"
 	"testing"
 
+	"sluice/pkg/campaign"
+	"sluice/pkg/layout"
 	"sluice/pkg/series"
 	"sluice/pkg/store"
 )
@@ -40,6 +46,34 @@ func TestDemoSmall(t *testing.T) {
 	}
 	if len(rows) != steps {
 		t.Fatalf("series has %d rows, want %d", len(rows), steps)
+	}
+	// The report shows each step's own thresholds and sample cylinder, as
+	// its plan under the current parameter hash holds them.
+	page, err := os.ReadFile(filepath.Join(dir, "report.html"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	c, _ := layout.NewCampaign("demo-drainage")
+	rec, err := campaign.LoadRecord(context.Background(), st, c)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range rows {
+		s, _ := c.Step(r.Step)
+		var plan campaign.Plan
+		if err := campaign.GetJSON(context.Background(), st, campaign.PlanKey(s, rec.Current), &plan); err != nil {
+			t.Fatal(err)
+		}
+		th := plan.Thresholds
+		var ts []string
+		for _, v := range th.T {
+			ts = append(ts, strconv.FormatFloat(v, 'g', 6, 64))
+		}
+		want := fmt.Sprintf(`<td class="thr">%s</td>`, strings.Join(ts, ", "))
+		m := regexp.MustCompile(`(?s)<tr data-settings="` + regexp.QuoteMeta(r.Step) + `"[^>]*>(.*?)</tr>`).FindSubmatch(page)
+		if m == nil || !strings.Contains(string(m[1]), want) || !strings.Contains(string(m[1]), fmt.Sprintf("<td>%.1f</td><td>%.1f</td><td>%.1f</td>", th.Sample.Y, th.Sample.X, th.Sample.Radius)) {
+			t.Errorf("report's row for step %s lacks its plan's thresholds %s and sample %+v:\n%s", r.Step, want, th.Sample, m)
+		}
 	}
 	// Drainage: the nonwetting phase only invades, so its saturation never
 	// falls from one step to the next (common practice: a drainage series

@@ -163,15 +163,26 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 	if r := rows[len(rows)-1]; r.VoxelSize != nil {
 		p.VoxelSize = *r.VoxelSize
 	}
-	// Thresholds of the latest step's plan.
-	if s, err := c.Step(rows[len(rows)-1].Step); err == nil {
+	// Each step's plan gives its thresholds and sample cylinder; the
+	// latest plan gives the settings shown once.
+	var steps []report.StepSettings
+	for i, r := range rows {
+		s, err := c.Step(r.Step)
+		if err != nil {
+			continue
+		}
 		var plan campaign.Plan
-		if b, err := st.Get(ctx, campaign.PlanKey(s, rec.Current)); err == nil && json.Unmarshal(b, &plan) == nil {
-			p.Thresholds = plan.Thresholds.T
+		if b, err := st.Get(ctx, campaign.PlanKey(s, rec.Current)); err != nil || json.Unmarshal(b, &plan) != nil {
+			continue
+		}
+		th := plan.Thresholds
+		steps = append(steps, report.StepSettings{Step: r.Step, Thresholds: th.T, Method: th.Method, Fluids: th.Fluids(),
+			Filter: plan.Config.Segment.Filter.Method, Sample: [3]float64{th.Sample.Y, th.Sample.X, th.Sample.Radius}, HasSample: th.Sample.Radius > 0})
+		if i == len(rows)-1 {
+			p.Thresholds = th.T
 			p.Other = append(p.Other,
-				report.Param{Name: "segmentation", Value: fmt.Sprintf("%s filter, %s thresholds, order %s, min island %d, hysteresis band %g",
-					plan.Config.Segment.Filter.Method, plan.Thresholds.Method, plan.Config.Segment.Order, plan.Config.Segment.MinIsland, plan.Config.Segment.Hysteresis.Band)},
-				report.Param{Name: "sample cylinder (y, x, r) voxels", Value: fmt.Sprintf("%.1f, %.1f, %.1f", plan.Thresholds.Sample.Y, plan.Thresholds.Sample.X, plan.Thresholds.Sample.Radius)},
+				report.Param{Name: "segmentation (latest step)", Value: fmt.Sprintf("%s filter, %s thresholds, order %s, min island %d, hysteresis band %g",
+					plan.Config.Segment.Filter.Method, th.Method, plan.Config.Segment.Order, plan.Config.Segment.MinIsland, plan.Config.Segment.Hysteresis.Band)},
 				report.Param{Name: "curvature exclusion near solid", Value: fmt.Sprintf("%g voxels", plan.Config.Measure.CurvatureExclude)},
 				report.Param{Name: "tile / halo", Value: fmt.Sprintf("%d / %d voxels", plan.Tile, plan.Halo)})
 		}
@@ -189,7 +200,7 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 	if err != nil {
 		return err
 	}
-	err = report.Write(f, report.Input{Params: p, Rows: rows, Rejected: rejected, Events: evs, Checks: report.PhysicalChecks(rows, p.IFT), Generated: time.Now()})
+	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, Checks: report.PhysicalChecks(rows, p.IFT), Generated: time.Now()})
 	if cerr := f.Close(); err == nil {
 		err = cerr
 	}
