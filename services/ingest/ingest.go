@@ -20,6 +20,7 @@ import (
 
 	"google.golang.org/protobuf/types/known/timestamppb"
 
+	"sluice/internal/usermsg"
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
 	"sluice/pkg/scan"
@@ -136,7 +137,10 @@ func (in *Ingester) Reject(ctx context.Context, req Request, attempts int, err e
 	if cerr != nil {
 		return fmt.Errorf("ingest: %s: %w", req.Path, cerr)
 	}
-	r := campaign.Rejection{Step: req.Step, File: req.Path, Reason: err.Error(), Attempts: attempts,
+	// The reason is read on the live page, in the API, `sluice status`
+	// and the report: without Go package prefixes.
+	reason := usermsg.Clean(err.Error(), "", req.Path, req.Step, req.Campaign)
+	r := campaign.Rejection{Step: req.Step, File: req.Path, Reason: reason, Attempts: attempts,
 		At: time.Now().UTC().Format(time.RFC3339)}
 	if perr := campaign.PutRejection(ctx, in.Store, c, r); perr != nil {
 		return fmt.Errorf("ingest: recording the rejection of %s: %w", req.Path, perr)

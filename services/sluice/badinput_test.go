@@ -9,6 +9,7 @@ import (
 	"os"
 	"path/filepath"
 	"regexp"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -16,6 +17,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"google.golang.org/protobuf/proto"
 
+	"sluice/internal/usermsg"
 	"sluice/pkg/campaign"
 	"sluice/pkg/queue"
 	"sluice/pkg/store"
@@ -46,12 +48,35 @@ func oneLineError(t *testing.T, label string, code int, errs string, wants ...st
 	if strings.Contains(errs, "goroutine ") || strings.Contains(errs, "panic") {
 		t.Errorf("%s: stack or panic on stderr: %s", label, errs)
 	}
+	if p := packagePrefix(errs); p != "" {
+		t.Errorf("%s: error line %q holds the Go package prefix %q", label, strings.TrimSpace(errs), p+":")
+	}
 	for _, w := range wants {
 		if !strings.Contains(errs, w) {
 			t.Errorf("%s: error line %q does not contain %q", label, strings.TrimSpace(errs), w)
 		}
 	}
 	t.Logf("%s: %s", label, strings.TrimSpace(errs))
+}
+
+// packagePrefix returns the first name of a sluice Go package that opens a
+// part of an error line ("sluice: volio: x.raw: …" → "volio"), after
+// "sluice: " and the command's own name, or "".
+func packagePrefix(line string) string {
+	line = strings.TrimPrefix(strings.TrimSpace(line), "sluice: ")
+	parts := strings.Split(line, ": ")
+	for _, c := range commands() {
+		if len(parts) > 1 && parts[0] == c.name {
+			parts = parts[1:]
+			break
+		}
+	}
+	for _, p := range parts[:len(parts)-1] {
+		if slices.Contains(usermsg.Packages, p) {
+			return p
+		}
+	}
+	return ""
 }
 
 // TestBadInputFiles: `sluice measure` and `sluice segment` on every bad

@@ -7,6 +7,7 @@ import (
 	"io"
 	"math"
 	"os"
+	"sluice/internal/usermsg"
 	"sluice/pkg/campaign"
 	"strconv"
 	"strings"
@@ -62,11 +63,23 @@ const (
 	exitBadInput = 2
 )
 
+// The command being run and the arguments the user gave it: what
+// userMessage keeps however it is spelt.
+var (
+	runningCommand string
+	userArgs       []string
+)
+
+// userMessage is msg as the user reads it: one line, without the prefixes
+// of sluice's Go packages (usermsg.Clean), the command's name and the
+// user's own arguments (file names …) left as they are.
+func userMessage(msg string) string {
+	return usermsg.Clean(msg, runningCommand, userArgs...)
+}
+
 // fail prints a one-line error and returns the exit status.
 func fail(code int, format string, a ...any) int {
-	msg := fmt.Sprintf(format, a...)
-	msg = strings.ReplaceAll(msg, "\n", " ")
-	fmt.Fprintln(os.Stderr, "sluice: "+msg)
+	fmt.Fprintln(os.Stderr, "sluice: "+userMessage(fmt.Sprintf(format, a...)))
 	return code
 }
 

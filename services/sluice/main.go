@@ -78,6 +78,7 @@ func run(args []string) int {
 	}
 	for _, c := range commands() {
 		if c.name == args[0] {
+			runningCommand, userArgs = c.name, args[1:]
 			return c.run(args[1:])
 		}
 	}

@@ -199,6 +199,9 @@ func TestRejectedScans(t *testing.T) {
 		if !ok || !strings.Contains(r.Reason, want) || r.Attempts != 5 || filepath.Base(r.File) != r.Step+".raw" || strings.Contains(r.Reason, "\n") {
 			t.Errorf("rejected %+v: want step in %v, reason containing %q on one line, 5 attempts", r, reasons, want)
 		}
+		if p := packagePrefix(r.Reason); p != "" {
+			t.Errorf("rejection reason %q holds the Go package prefix %q", r.Reason, p+":")
+		}
 		if r.Step == "scan-0004" && !strings.Contains(r.Reason, hdr) {
 			t.Errorf("missing header not named: %q", r.Reason)
 		}

@@ -924,7 +924,7 @@ func runReprocess(args []string) int {
 	}
 	fmt.Fprintln(stdout)
 	for _, err := range sum.Rejected {
-		fmt.Fprintf(os.Stderr, "sluice: reprocess: scan not ingested: %v\n", err)
+		fmt.Fprintln(os.Stderr, "sluice: "+userMessage(fmt.Sprintf("reprocess: scan not ingested: %v", err)))
 	}
 	// rejectedExit ends a run that went through with the scans it could
 	// take: exit 2, since part of the input was refused.

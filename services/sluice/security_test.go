@@ -208,7 +208,7 @@ func TestCLISecurityRefusals(t *testing.T) {
 		{[]string{"reprocess", "c", "--nats", "tok-in-url@127.0.0.1:1", "--store", dir}, "--nats URL holds credentials"},
 		{[]string{"worker", "--nats", "nats://127.0.0.1:1", "--store", dir, "--http", "off", "--nats-user", "bob", "--nats-password-file", empty}, "--nats-password-file " + empty + ": file is empty"},
 		{[]string{"worker", "--nats", "nats://127.0.0.1:1", "--store", dir, "--http", "off", "--nats-token-file", filepath.Join(dir, "nope")}, "--nats-token-file " + filepath.Join(dir, "nope") + ": no such file"},
-		{[]string{"worker", "--nats", "nats://127.0.0.1:1", "--store", "s3://b?endpoint=127.0.0.1:1&tls=false", "--http", "off", "--s3-credentials-file", empty}, "store: credentials file " + empty + ": needs both"},
+		{[]string{"worker", "--nats", "nats://127.0.0.1:1", "--store", "s3://b?endpoint=127.0.0.1:1&tls=false", "--http", "off", "--s3-credentials-file", empty}, "credentials file " + empty + ": needs both"},
 	} {
 		code, _, errs := runCLI(t, tc.args...)
 		if strings.Contains(errs, "pw-in-url") || strings.Contains(errs, "tok-in-url") {

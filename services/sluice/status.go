@@ -10,6 +10,7 @@ import (
 	"sort"
 	"strings"
 
+	"sluice/internal/usermsg"
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
 	"sluice/pkg/queue"
@@ -131,18 +132,18 @@ func printStatus(w io.Writer, rec campaign.Record, steps []string, runs []runSta
 			fmt.Fprintf(w, "    differs: %s\n", d)
 		}
 		for _, s := range r.Failed {
-			fmt.Fprintf(w, "    failed:  step %s: %s\n", s, r.Reasons[s])
+			fmt.Fprintf(w, "    failed:  step %s: %s\n", s, usermsg.Clean(r.Reasons[s], "", s))
 		}
 		for i, s := range r.Pending {
 			if i == 10 {
 				fmt.Fprintf(w, "    pending: … %d more\n", len(r.Pending)-10)
 				break
 			}
-			fmt.Fprintf(w, "    pending: step %s: %s\n", s, r.Reasons[s])
+			fmt.Fprintf(w, "    pending: step %s: %s\n", s, usermsg.Clean(r.Reasons[s], "", s))
 		}
 	}
 	for _, r := range rejected {
-		fmt.Fprintf(w, "rejected: %s (step %s) after %d attempts at %s: %s\n", r.File, r.Step, r.Attempts, r.At, r.Reason)
+		fmt.Fprintf(w, "rejected: %s (step %s) after %d attempts at %s: %s\n", r.File, r.Step, r.Attempts, r.At, usermsg.Clean(r.Reason, "", r.File, r.Step))
 	}
 	if !deadLetters {
 		fmt.Fprintln(w, "(no --nats: dead-lettered tiles are not shown, only missing tiles)")

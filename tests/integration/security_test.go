@@ -114,7 +114,7 @@ tls {
 		{"no credentials", []string{"--nats", nats.URL, "--nats-tls-ca", certs.CA, "--nats-tls-cert", certs.ClientCert, "--nats-tls-key", certs.ClientKey}},
 	} {
 		code, out := once("worker "+tc.name, append([]string{"worker", "--http", "off", "--store", loc, "--s3-credentials-file", creds}, tc.args...)...)
-		if code == 0 || !strings.Contains(out, "queue: connect to tls://127.0.0.1:") {
+		if code == 0 || !strings.Contains(out, "connect to tls://127.0.0.1:") {
 			t.Errorf("worker with %s: exit %d, output %q; want a refused connection", tc.name, code, out)
 		}
 		t.Logf("worker with %s: %s", tc.name, strings.TrimSpace(out))
@@ -173,12 +173,12 @@ tls {
 	// Failing runs: a wrong S3 secret, then MinIO stopped.
 	code, out = once("ingest wrong secret", append([]string{"ingest", "--campaign", "sec", "--config", cfgPath, paths[1],
 		"--store", loc, "--s3-credentials-file", wrongCreds}, natsFlags...)...)
-	if code == 0 || !strings.Contains(out, "store: s3 bucket sluice-sec") {
+	if code == 0 || !strings.Contains(out, "s3 bucket sluice-sec") {
 		t.Errorf("ingest with a wrong secret: exit %d, %q", code, out)
 	}
 	t.Logf("ingest with a wrong secret: %s", strings.TrimSpace(out))
 	code, out = once("worker wrong secret", append([]string{"worker", "--http", "off", "--store", loc, "--s3-credentials-file", wrongCreds}, natsFlags...)...)
-	if code == 0 || !strings.Contains(out, "store: s3 bucket sluice-sec") {
+	if code == 0 || !strings.Contains(out, "s3 bucket sluice-sec") {
 		t.Errorf("worker with a wrong secret: exit %d, %q", code, out)
 	}
 	minio.Stop()
