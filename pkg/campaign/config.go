@@ -79,7 +79,7 @@ type Measure struct {
 	FlowAxis string `json:"flow_axis" yaml:"flow_axis"`
 	// CurvatureSigma and CurvatureExclude: Gaussian σ of the level-set
 	// curvature and the distance from the solid (voxels) within which
-	// interface is ignored; defaults 1.5 and 3.
+	// interface is ignored (0: none); defaults 1.5 and 3.
 	CurvatureSigma   float64 `json:"curvature_sigma" yaml:"curvature_sigma"`
 	CurvatureExclude float64 `json:"curvature_exclude" yaml:"curvature_exclude"`
 	// ContactRadius, ContactSolidSigma and ContactMinFaces tune the
@@ -250,7 +250,13 @@ func (c Config) MeasureOptions() (measure.Options, error) {
 	default:
 		return o, fmt.Errorf("campaign: flow_axis %q (want z, y or x)", c.Measure.FlowAxis)
 	}
-	o.Curvature = curvature.Options{Sigma: c.Measure.CurvatureSigma, Exclude: c.Measure.CurvatureExclude}
+	// curvature_exclude 0 means what it says, no exclusion; curvature.Options
+	// reads a zero Exclude as its default (3), and a negative one as none.
+	ex := c.Measure.CurvatureExclude
+	if ex == 0 {
+		ex = -1
+	}
+	o.Curvature = curvature.Options{Sigma: c.Measure.CurvatureSigma, Exclude: ex}
 	o.Contact = contact.Options{Radius: c.Measure.ContactRadius, SolidSigma: c.Measure.ContactSolidSigma, MinFaces: c.Measure.ContactMinFaces}
 	o.SkipCurvature, o.SkipContact = c.Measure.SkipCurvature, c.Measure.SkipContact
 	if err := o.Validate(); err != nil {

@@ -101,7 +101,8 @@ type measureFlags struct {
 	ift                        float64
 	connectivity               int
 	flowAxis                   string
-	exclude, sigma             float64
+	exclude                    optionalFloat
+	sigma                      float64
 	tile, workers              int
 }
 
@@ -113,7 +114,7 @@ func (m *measureFlags) register(fs *flag.FlagSet) {
 	fs.Float64Var(&m.ift, "ift", 0, "interfacial tension σ in N/m, within 0.001…0.5 (water–air 0.072 at 25 °C; 35 mN/m is 0.035); default: the config's ift_n_per_m, else none and no capillary pressure")
 	fs.IntVar(&m.connectivity, "connectivity", 26, "connectivity of nonwetting clusters and Euler characteristics: 26 or 6")
 	fs.StringVar(&m.flowAxis, "flow-axis", "z", "axis from inlet to outlet: z, y or x")
-	fs.Float64Var(&m.exclude, "exclude", d.Curvature.Exclude, "ignore interface within this many voxels of the solid for curvature")
+	fs.Var(&m.exclude, "exclude", fmt.Sprintf("ignore w–n interface within this many `voxels` of the solid for curvature; 0 = none (default: the config's measure.curvature_exclude, else %g)", d.Curvature.Exclude))
 	fs.Float64Var(&m.sigma, "curvature-sigma", d.Curvature.Sigma, "Gaussian smoothing (voxels) of the level-set curvature")
 	fs.IntVar(&m.tile, "tile", 128, "tile edge in voxels for parallel measurement (results do not depend on it)")
 	fs.IntVar(&m.workers, "workers", runtime.GOMAXPROCS(0), "parallel tiles")
@@ -135,7 +136,7 @@ func (m *measureFlags) apply(c *campaign.Config, set map[string]bool) error {
 		c.Measure.FlowAxis = m.flowAxis
 	}
 	if set["exclude"] {
-		c.Measure.CurvatureExclude = m.exclude
+		c.Measure.CurvatureExclude = m.exclude.v
 	}
 	if set["curvature-sigma"] {
 		c.Measure.CurvatureSigma = m.sigma
