@@ -1,16 +1,24 @@
 // Package plots draws the figures of a campaign's series with gonum/plot,
 // as PNG and SVG, for the live page, papers and logbooks:
 //
-//	saturation          S_w and S_n against time
+//	saturation          S_w and S_n against time, axis fixed to 0–1
 //	capillary_pressure  Pc (kPa; area-weighted mean and median, Pc = σκ) against time,
 //	                    or the total curvature κ (1/mm) when σ is not set
 //	curvature           total curvature κ of the w–n interface (1/mm), mean and median, against time
-//	specific_area       specific interfacial areas a_wn, a_ws, a_ns (1/mm) against time
+//	specific_area       specific interfacial areas a_wn, a_ws, a_ns per bulk volume
+//	                    (mm²/mm³ of bulk volume) against time
 //	pc_saturation       Pc–S_w trajectory (κ–S_w without σ)
 //	area_saturation     a_wn–S_w trajectory
 //	contact_angle       contact-angle distribution of the latest step (bars) with the
 //	                    running distribution of all steps (line), 5° bins, per degree
 //	ganglia             nonwetting ganglia count and largest-ganglion volume fraction against time
+//
+// Every figure's title names the campaign and the run (short parameter
+// hash). Time axes are in s, min or h chosen by the campaign's length (see
+// TimeUnit); numeric axes end on round ticks (1, 2 or 5 × 10^k apart,
+// RoundTicks), counts on integers; fractions are fixed to 0–1. Units are
+// written as in the Unit constants, the same on the live page and in the
+// report.
 //
 // Time plots mark breakthrough and steady-state events with vertical lines.
 // Null values leave gaps in lines. Colours come from Palette (see its
@@ -25,6 +33,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -55,29 +64,184 @@ const AngleBin = 5
 var Names = []string{"saturation", "capillary_pressure", "curvature", "specific_area",
 	"pc_saturation", "area_saturation", "contact_angle", "ganglia"}
 
+// Unit texts of the figures' axes, written the same way in the report
+// and on the live page. Dimensionless quantities carry "–".
+const (
+	UnitDimensionless = "–"
+	UnitPressure      = "kPa"
+	UnitCurvature     = "1/mm"
+	// UnitSpecificArea: interfacial area per bulk volume of the sample
+	// (solid included), numerically equal to 1/mm.
+	UnitSpecificArea = "mm²/mm³ of bulk volume"
+	UnitAngle        = "°"
+	UnitAngleDensity = "1/°"
+)
+
+// Run names the campaign and run a figure belongs to; each figure's title
+// carries them.
+type Run struct {
+	Campaign string
+	// Hash is the run's parameter hash; the title shows its first 8
+	// characters.
+	Hash string
+}
+
+// Caption returns "campaign NAME, run HASH8" (parts left out when empty).
+func (r Run) Caption() string {
+	h := r.Hash
+	if len(h) > 8 {
+		h = h[:8]
+	}
+	switch {
+	case r.Campaign != "" && h != "":
+		return "campaign " + r.Campaign + ", run " + h
+	case r.Campaign != "":
+		return "campaign " + r.Campaign
+	case h != "":
+		return "run " + h
+	}
+	return ""
+}
+
 // Figure is one drawn figure: one panel, or several stacked with aligned
 // axes.
 type Figure struct {
-	Name   string
-	Title  string
-	panels []*plot.Plot
+	Name  string
+	Title string
+	// TimeUnit is the unit of the time axis ("s", "min" or "h"; empty for
+	// figures without one).
+	TimeUnit string
+	panels   []*plot.Plot
+	specs    []axes
+	empty    bool
 }
 
+// axes says how a panel's axes are finished: fixed ranges stay as set,
+// integer axes get integer ticks.
+type axes struct{ fixedX, fixedY, intY bool }
+
 // Build draws every figure of the series (rows sorted by time; see
-// series.Sort) with the given events marked. Figures without data are
-// still drawn, with "(no data)" in the title.
-func Build(rows []series.Row, evs []events.Event) []Figure {
-	b := builder{rows: rows, evs: evs}
+// series.Sort) with the given events marked, titled with the run. Figures
+// without data are still drawn, with "(no data)" in the title.
+func Build(rows []series.Row, evs []events.Event, run Run) []Figure {
+	unit, per := TimeUnit(rows)
+	b := builder{rows: rows, evs: evs, unit: unit, perUnit: per}
 	figs := []Figure{
 		b.saturation(), b.pressure(), b.curvature(), b.area(),
 		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(),
 	}
-	for _, f := range figs {
-		for _, p := range f.panels {
-			headroom(p)
+	for i := range figs {
+		f := &figs[i]
+		for j, p := range f.panels {
+			var a axes
+			if j < len(f.specs) {
+				a = f.specs[j]
+			}
+			if !a.fixedY {
+				headroom(p)
+			}
+			finish(p, a)
 		}
+		t := f.Title
+		if f.empty {
+			t += " (no data)"
+		}
+		if c := run.Caption(); c != "" {
+			t += "\n" + c
+		}
+		f.panels[0].Title.Text = t
 	}
 	return figs
+}
+
+// TimeUnit chooses the time axis unit from the campaign's length (last
+// minus first step time): seconds below 10 min, minutes below 3 h, hours
+// from 3 h. It returns the unit and its length in seconds.
+func TimeUnit(rows []series.Row) (string, float64) {
+	if len(rows) == 0 {
+		return "s", 1
+	}
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for i := range rows {
+		lo, hi = math.Min(lo, rows[i].Time), math.Max(hi, rows[i].Time)
+	}
+	switch span := hi - lo; {
+	case span < 600:
+		return "s", 1
+	case span < 3*3600:
+		return "min", 60
+	}
+	return "h", 3600
+}
+
+// RoundStep returns the tick spacing for the range [lo, hi]: 1, 2 or 5 ×
+// 10^k, the smallest giving at most 6 intervals; at least 1 when integer.
+func RoundStep(lo, hi float64, integer bool) float64 {
+	raw := (hi - lo) / 6
+	if !(raw > 0) {
+		return 1
+	}
+	mag := math.Pow(10, math.Floor(math.Log10(raw)))
+	step := 10 * mag
+	for _, m := range []float64{1, 2, 5} {
+		if m*mag >= raw*(1-1e-12) {
+			step = m * mag
+			break
+		}
+	}
+	if integer && step < 1 {
+		step = 1
+	}
+	return step
+}
+
+// RoundTicks labels multiples of RoundStep(min, max) within the axis
+// range, with as many decimals as the step needs.
+type RoundTicks struct{ Integer bool }
+
+// Ticks implements plot.Ticker.
+func (r RoundTicks) Ticks(lo, hi float64) []plot.Tick {
+	step := RoundStep(lo, hi, r.Integer)
+	dec := 0
+	if step < 1 {
+		dec = int(math.Ceil(-math.Log10(step) - 1e-9))
+	}
+	var ticks []plot.Tick
+	for k := math.Ceil(lo/step - 1e-9); k*step <= hi+step*1e-9; k++ {
+		v := k * step
+		if v == 0 {
+			v = 0 // no "-0"
+		}
+		ticks = append(ticks, plot.Tick{Value: v, Label: strconv.FormatFloat(v, 'f', dec, 64)})
+	}
+	return ticks
+}
+
+// finish rounds a panel's free axes outwards to multiples of their tick
+// step and sets round tickers (fixed axes keep their range).
+func finish(p *plot.Plot, a axes) {
+	round := func(ax *plot.Axis, fixed, integer bool) {
+		if _, ok := ax.Tick.Marker.(plot.ConstantTicks); ok {
+			return
+		}
+		ax.Tick.Marker = RoundTicks{Integer: integer}
+		if fixed {
+			return
+		}
+		if math.IsInf(ax.Min, 0) || math.IsInf(ax.Max, 0) || ax.Min > ax.Max {
+			ax.Min, ax.Max = 0, 1
+		}
+		if ax.Min == ax.Max {
+			d := math.Max(math.Abs(ax.Min)*0.1, 1)
+			ax.Min, ax.Max = ax.Min-d, ax.Max+d
+		}
+		for range 3 { // the step of the widened range can differ once
+			step := RoundStep(ax.Min, ax.Max, integer)
+			ax.Min, ax.Max = math.Floor(ax.Min/step+1e-9)*step, math.Ceil(ax.Max/step-1e-9)*step
+		}
+	}
+	round(&p.X, a.fixedX, false)
+	round(&p.Y, a.fixedY, a.intY)
 }
 
 // WriteSVG renders f as SVG.
@@ -102,12 +266,12 @@ func (f *Figure) WritePNG(w io.Writer) error {
 
 // WriteFiles writes every figure as dir/<name>.png and dir/<name>.svg and
 // returns the paths written.
-func WriteFiles(dir string, rows []series.Row, evs []events.Event) ([]string, error) {
+func WriteFiles(dir string, rows []series.Row, evs []events.Event, run Run) ([]string, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, fmt.Errorf("plots: %w", err)
 	}
 	var paths []string
-	for _, f := range Build(rows, evs) {
+	for _, f := range Build(rows, evs, run) {
 		for _, ext := range []string{".png", ".svg"} {
 			p := filepath.Join(dir, f.Name+ext)
 			if err := writeFile(p, &f, ext); err != nil {
@@ -154,8 +318,10 @@ func (f *Figure) draw(c draw.Canvas) {
 }
 
 type builder struct {
-	rows []series.Row
-	evs  []events.Event
+	rows    []series.Row
+	evs     []events.Event
+	unit    string  // time axis unit
+	perUnit float64 // seconds per time unit
 }
 
 // style is the look of one data series.
@@ -241,23 +407,23 @@ func (b *builder) col(get func(*series.Row) *float64, scale float64) []float64 {
 func (b *builder) times() []float64 {
 	out := make([]float64, len(b.rows))
 	for i := range b.rows {
-		out[i] = b.rows[i].Time
+		out[i] = b.rows[i].Time / b.perUnit
 	}
 	return out
 }
 
+func (b *builder) timeLabel() string { return "time t (" + b.unit + ")" }
+
 func (b *builder) timePlot(name, title, ylabel string, curves []curve) Figure {
-	p := newPlot(title, "time t (s)", ylabel)
+	p := newPlot(title, b.timeLabel(), ylabel)
 	n := 0
 	for i, c := range curves {
 		n += addSeries(p, styles[i], c.label, b.times(), c.y)
 	}
-	if n == 0 {
-		p.Title.Text += " (no data)"
-	} else {
+	if n > 0 {
 		b.markEvents(p)
 	}
-	return Figure{Name: name, Title: title, panels: []*plot.Plot{p}}
+	return Figure{Name: name, Title: title, TimeUnit: b.unit, panels: []*plot.Plot{p}, empty: n == 0}
 }
 
 type curve struct {
@@ -266,11 +432,12 @@ type curve struct {
 }
 
 func (b *builder) saturation() Figure {
-	f := b.timePlot("saturation", "Saturation", "saturation (1)", []curve{
+	f := b.timePlot("saturation", "Saturation", "saturation ("+UnitDimensionless+")", []curve{
 		{"S_w (wetting)", b.col(func(r *series.Row) *float64 { return r.SatWetting }, 1)},
 		{"S_n (nonwetting)", b.col(func(r *series.Row) *float64 { return r.SatNonwetting }, 1)},
 	})
 	f.panels[0].Y.Min, f.panels[0].Y.Max = 0, 1
+	f.specs = []axes{{fixedY: true}}
 	return f
 }
 
@@ -297,26 +464,26 @@ var (
 
 func (b *builder) pressure() Figure {
 	if b.hasPc() {
-		return b.timePlot("capillary_pressure", "Capillary pressure", "capillary pressure Pc (kPa)", []curve{
+		return b.timePlot("capillary_pressure", "Capillary pressure", "capillary pressure Pc ("+UnitPressure+")", []curve{
 			{"Pc mean", b.col(pcMean, pascalToK)},
 			{"Pc median", b.col(pcMedian, pascalToK)},
 		})
 	}
-	return b.timePlot("capillary_pressure", "Interface curvature (no σ: Pc not computed)", "total curvature κ (1/mm)", []curve{
+	return b.timePlot("capillary_pressure", "Interface curvature (no σ: Pc not computed)", "total curvature κ ("+UnitCurvature+")", []curve{
 		{"κ mean", b.col(kMean, perMetreT)},
 		{"κ median", b.col(kMedian, perMetreT)},
 	})
 }
 
 func (b *builder) curvature() Figure {
-	return b.timePlot("curvature", "Curvature of the w–n interface", "total curvature κ (1/mm)", []curve{
+	return b.timePlot("curvature", "Curvature of the w–n interface", "total curvature κ ("+UnitCurvature+")", []curve{
 		{"κ mean (area-weighted)", b.col(kMean, perMetreT)},
 		{"κ median", b.col(kMedian, perMetreT)},
 	})
 }
 
 func (b *builder) area() Figure {
-	return b.timePlot("specific_area", "Specific interfacial area", "specific area a (1/mm)", []curve{
+	return b.timePlot("specific_area", "Specific interfacial area per bulk volume", "specific area a ("+UnitSpecificArea+")", []curve{
 		{"a_wn", b.col(areaWN, perMetreT)},
 		{"a_ws", b.col(func(r *series.Row) *float64 { return r.SpecificWS }, perMetreT)},
 		{"a_ns", b.col(func(r *series.Row) *float64 { return r.SpecificNS }, perMetreT)},
@@ -324,10 +491,9 @@ func (b *builder) area() Figure {
 }
 
 func (b *builder) trajectory(name, title, ylabel, label string, y []float64) Figure {
-	p := newPlot(title, "wetting saturation S_w (1)", ylabel)
-	if addSeries(p, styles[0], label, b.col(satWet, 1), y) == 0 {
-		p.Title.Text += " (no data)"
-	} else {
+	p := newPlot(title, "wetting saturation S_w ("+UnitDimensionless+")", ylabel)
+	n := addSeries(p, styles[0], label, b.col(satWet, 1), y)
+	if n > 0 {
 		// Ring the latest point so the direction of travel is visible.
 		x := b.col(satWet, 1)
 		for i := len(y) - 1; i >= 0; i-- {
@@ -341,18 +507,18 @@ func (b *builder) trajectory(name, title, ylabel, label string, y []float64) Fig
 		}
 	}
 	p.X.Min, p.X.Max = 0, 1
-	return Figure{Name: name, Title: title, panels: []*plot.Plot{p}}
+	return Figure{Name: name, Title: title, panels: []*plot.Plot{p}, specs: []axes{{fixedX: true}}, empty: n == 0}
 }
 
 func (b *builder) pcTrajectory() Figure {
 	if b.hasPc() {
-		return b.trajectory("pc_saturation", "Capillary pressure – saturation", "capillary pressure Pc (kPa)", "Pc mean", b.col(pcMean, pascalToK))
+		return b.trajectory("pc_saturation", "Capillary pressure – saturation", "capillary pressure Pc ("+UnitPressure+")", "Pc mean", b.col(pcMean, pascalToK))
 	}
-	return b.trajectory("pc_saturation", "Curvature – saturation (no σ)", "total curvature κ (1/mm)", "κ mean", b.col(kMean, perMetreT))
+	return b.trajectory("pc_saturation", "Curvature – saturation (no σ)", "total curvature κ ("+UnitCurvature+")", "κ mean", b.col(kMean, perMetreT))
 }
 
 func (b *builder) areaTrajectory() Figure {
-	return b.trajectory("area_saturation", "Interfacial area – saturation", "specific area a_wn (1/mm)", "a_wn", b.col(areaWN, perMetreT))
+	return b.trajectory("area_saturation", "Interfacial area – saturation", "specific area a_wn ("+UnitSpecificArea+")", "a_wn", b.col(areaWN, perMetreT))
 }
 
 // AngleDistributions returns the contact-angle distribution of the latest
@@ -400,7 +566,7 @@ func AngleDistributions(rows []series.Row) (last, running []float64, latest int)
 
 func (b *builder) angles() Figure {
 	title := "Contact angle through the wetting phase"
-	p := newPlot(title, "contact angle θ (°)", "fraction of samples per degree (1/°)")
+	p := newPlot(title, "contact angle θ ("+UnitAngle+")", "fraction of samples per degree ("+UnitAngleDensity+")")
 	last, running, latest := AngleDistributions(b.rows)
 	p.X.Min, p.X.Max = 0, 180
 	var ticks []plot.Tick
@@ -409,8 +575,7 @@ func (b *builder) angles() Figure {
 	}
 	p.X.Tick.Marker = plot.ConstantTicks(ticks)
 	if latest < 0 {
-		p.Title.Text += " (no data)"
-		return Figure{Name: "contact_angle", Title: title, panels: []*plot.Plot{p}}
+		return Figure{Name: "contact_angle", Title: title, panels: []*plot.Plot{p}, specs: []axes{{fixedX: true}}, empty: true}
 	}
 	h := &plotter.Histogram{Width: AngleBin, FillColor: Palette.Sky}
 	h.LineStyle = draw.LineStyle{Color: Palette.Ink, Width: vg.Points(0.5)}
@@ -428,7 +593,7 @@ func (b *builder) angles() Figure {
 	p.Add(l, sc)
 	p.Legend.Add(fmt.Sprintf("all steps (%d)", len(b.rows)), l, sc)
 	p.Add(&vline{x: 90, style: draw.LineStyle{Color: Palette.Slate, Width: vg.Points(0.8), Dashes: []vg.Length{vg.Points(2), vg.Points(2)}}})
-	return Figure{Name: "contact_angle", Title: title, panels: []*plot.Plot{p}}
+	return Figure{Name: "contact_angle", Title: title, panels: []*plot.Plot{p}, specs: []axes{{fixedX: true}}}
 }
 
 func (b *builder) ganglia() Figure {
@@ -439,20 +604,20 @@ func (b *builder) ganglia() Figure {
 			count[i] = float64(*c)
 		}
 	}
-	top := newPlot("Nonwetting ganglia", "", "ganglia count (1)")
+	top := newPlot("Nonwetting ganglia", "", "number of ganglia ("+UnitDimensionless+")")
 	n := addSeries(top, styles[0], "ganglia", b.times(), count)
-	bottom := newPlot("", "time t (s)", "largest ganglion fraction (1)")
+	top.Y.Min = 0 // counts start at zero
+	bottom := newPlot("", b.timeLabel(), "largest ganglion fraction ("+UnitDimensionless+")")
 	n += addSeries(bottom, styles[1], "largest / all nonwetting volume",
 		b.times(), b.col(func(r *series.Row) *float64 { return r.LargestFraction }, 1))
 	bottom.Y.Min, bottom.Y.Max = 0, 1
-	if n == 0 {
-		top.Title.Text += " (no data)"
-	} else {
+	if n > 0 {
 		b.markEvents(top)
 		b.markEvents(bottom)
 	}
 	top.HideX()
-	return Figure{Name: "ganglia", Title: "Nonwetting ganglia", panels: []*plot.Plot{top, bottom}}
+	return Figure{Name: "ganglia", Title: "Nonwetting ganglia", TimeUnit: b.unit, panels: []*plot.Plot{top, bottom},
+		specs: []axes{{intY: true}, {fixedY: true}}, empty: n == 0}
 }
 
 var eventStyles = map[events.Kind]draw.LineStyle{
@@ -463,7 +628,7 @@ var eventStyles = map[events.Kind]draw.LineStyle{
 func (b *builder) markEvents(p *plot.Plot) {
 	seen := map[events.Kind]bool{}
 	for _, e := range b.evs {
-		v := &vline{x: e.Time, style: eventStyles[e.Kind]}
+		v := &vline{x: e.Time / b.perUnit, style: eventStyles[e.Kind]}
 		p.Add(v)
 		if !seen[e.Kind] {
 			seen[e.Kind] = true

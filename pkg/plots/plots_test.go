@@ -122,7 +122,7 @@ func TestWriteFilesProducesDecodablePNGAndSVG(t *testing.T) {
 		t.Fatal(err)
 	}
 	dir := t.TempDir()
-	paths, err := WriteFiles(dir, rows, evs)
+	paths, err := WriteFiles(dir, rows, evs, Run{Campaign: "drainage-test", Hash: "0123456789abcdef"})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -172,7 +172,7 @@ func TestWriteFilesProducesDecodablePNGAndSVG(t *testing.T) {
 func TestSVGHoldsEveryPoint(t *testing.T) {
 	const n = 17
 	rows := drainage(n, 5) // Pc null at step 5: the Pc line breaks there
-	figs := Build(rows, nil)
+	figs := Build(rows, nil, Run{})
 	for _, c := range []struct {
 		fig       string
 		lines     []int // vertex counts of Ink-coloured data lines, legend thumbnails (2) included
@@ -193,7 +193,7 @@ func TestSVGHoldsEveryPoint(t *testing.T) {
 		}
 	}
 	// Dropping one step must change what is drawn (the check can fail).
-	svg, _ := render(t, byName(Build(rows[:n-1], nil), "saturation"))
+	svg, _ := render(t, byName(Build(rows[:n-1], nil, Run{}), "saturation"))
 	if lines, _ := svgPaths(string(svg), Palette.Ink); lines[0] != n-1 {
 		t.Fatalf("n−1 rows drew %v vertices", lines)
 	}
@@ -225,7 +225,7 @@ func TestContactAngleFigure(t *testing.T) {
 	if got := last[12]; math.Abs(got-want/tot/AngleBin) > 1e-15 {
 		t.Fatalf("bin [60,65): %v, want %v", got, want/tot/AngleBin)
 	}
-	svg, _ := render(t, byName(Build(rows, nil), "contact_angle"))
+	svg, _ := render(t, byName(Build(rows, nil, Run{}), "contact_angle"))
 	_, bars := svgPaths(string(svg), Palette.Sky)
 	// One filled polygon per 5° bin plus the legend swatch.
 	if bars != 180/AngleBin+1 {
@@ -238,7 +238,7 @@ func TestContactAngleFigure(t *testing.T) {
 }
 
 func TestEmptySeriesStillDraws(t *testing.T) {
-	for _, f := range Build(nil, nil) {
+	for _, f := range Build(nil, nil, Run{}) {
 		svg, pngb := render(t, f)
 		wellFormed(t, f.Name, svg)
 		if _, err := png.Decode(bytes.NewReader(pngb)); err != nil {
@@ -253,8 +253,8 @@ func TestEmptySeriesStillDraws(t *testing.T) {
 func TestEventMarkers(t *testing.T) {
 	rows := drainage(12, -1)
 	evs := []events.Event{{Kind: events.Breakthrough, Step: rows[6].Step, Time: rows[6].Time}}
-	svg, _ := render(t, byName(Build(rows, evs), "saturation"))
-	without, _ := render(t, byName(Build(rows, nil), "saturation"))
+	svg, _ := render(t, byName(Build(rows, evs, Run{}), "saturation"))
+	without, _ := render(t, byName(Build(rows, nil, Run{}), "saturation"))
 	black := func(b []byte) int {
 		n := 0
 		for _, m := range pathRe.FindAllStringSubmatch(string(b), -1) {
@@ -277,7 +277,7 @@ func BenchmarkBuildAndRender(b *testing.B) {
 	rows := drainage(200, -1)
 	b.ReportAllocs()
 	for i := 0; i < b.N; i++ {
-		for _, f := range Build(rows, nil) {
+		for _, f := range Build(rows, nil, Run{}) {
 			if err := f.WriteSVG(io.Discard); err != nil {
 				b.Fatal(err)
 			}

@@ -142,6 +142,7 @@ type settingsRow struct {
 type page struct {
 	Input
 	Settings       []settingsRow
+	AreaUnit       string
 	DriftRule      string
 	DriftFlagged   int
 	VoxelSize      string
@@ -180,6 +181,7 @@ func Write(w io.Writer, in Input) error {
 		Thresholds:     "—",
 		Cautions:       Cautions,
 		ResolvedRadius: ResolvedRadius,
+		AreaUnit:       plots.UnitSpecificArea,
 		Generated:      in.Generated.UTC().Format(time.RFC3339),
 	}
 	if in.IFT != nil {
@@ -221,7 +223,7 @@ func Write(w io.Writer, in Input) error {
 			pg.DriftFlagged++
 		}
 	}
-	for _, f := range plots.Build(rows, in.Events) {
+	for _, f := range plots.Build(rows, in.Events, plots.Run{Campaign: in.Campaign, Hash: in.ParameterHash}) {
 		var buf bytes.Buffer
 		if err := f.WriteSVG(&buf); err != nil {
 			return fmt.Errorf("report: %w", err)
@@ -376,7 +378,7 @@ curvature of the w–n interface in voxels, 2/(κ·h); highlighted where below {
 image-derived curvature and Pc lose accuracy.</p>
 <table id="series-table">
 <tr><th>step</th><th>t (s)</th><th>S_w</th><th>φ</th><th>Pc (kPa)</th><th>κ mean (1/mm)</th><th>κ median (1/mm)</th>
-<th>R/h (vox)</th><th>a_wn (1/mm)</th><th>θ mean (°)</th><th>θ median (°)</th><th>θ std (°)</th><th>θ samples</th>
+<th>R/h (vox)</th><th>a_wn ({{.AreaUnit}})</th><th>θ mean (°)</th><th>θ median (°)</th><th>θ std (°)</th><th>θ samples</th>
 <th>ganglia</th><th>largest fraction</th><th>percolates</th></tr>{{range .Table}}
 <tr data-step="{{.Step}}"{{if .Unresolved}} class="unresolved"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.Sw}}</td><td>{{.Phi}}</td><td>{{.Pc}}</td><td>{{.KMean}}</td><td>{{.KMedian}}</td><td class="rvox">{{.RVox}}</td><td>{{.AWN}}</td><td>{{.AMean}}</td><td>{{.AMedian}}</td><td>{{.AStd}}</td><td>{{.ASamples}}</td><td>{{.Ganglia}}</td><td>{{.Largest}}</td><td>{{.Perc}}</td></tr>{{end}}
 </table>

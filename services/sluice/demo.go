@@ -350,16 +350,16 @@ func summarizeDemo(ctx context.Context, w io.Writer, data, name string, sc *scen
 	if bt >= 0 && bt < len(rows) {
 		fmt.Fprintf(w, "ground truth: breakthrough at step %s; the last %d steps are near steady state\n", rows[bt].Step, sc.SteadySteps)
 	}
-	plotDir := filepath.Join(data, "plots")
-	files, err := writePlots(plotDir, rows, evs)
-	if err != nil {
-		return fail(exitFailure, "demo: plots: %v", err)
-	}
-	report := filepath.Join(data, "report.html")
 	st, err := storeAt(filepath.Join(data, "store"))
 	if err != nil {
 		return fail(exitFailure, "demo: %v", err)
 	}
+	plotDir := filepath.Join(data, "plots")
+	files, err := writePlots(plotDir, plotRun(ctx, st, name), rows, evs)
+	if err != nil {
+		return fail(exitFailure, "demo: plots: %v", err)
+	}
+	report := filepath.Join(data, "report.html")
 	if err := writeReport(ctx, st, report, name, demoScenario); err != nil {
 		return fail(exitFailure, "demo: report: %v", err)
 	}

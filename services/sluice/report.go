@@ -71,11 +71,22 @@ func campaignEventOptions(ctx context.Context, st store.Store, name string) even
 	return events.Defaults()
 }
 
-func writePlots(dir string, rows []series.Row, evs []events.Event) ([]string, error) {
+// plotRun names a campaign's current run for figure titles.
+func plotRun(ctx context.Context, st store.Store, name string) plots.Run {
+	run := plots.Run{Campaign: name}
+	if c, err := layout.NewCampaign(name); err == nil {
+		if rec, err := campaign.LoadRecord(ctx, st, c); err == nil {
+			run.Hash = rec.Current
+		}
+	}
+	return run
+}
+
+func writePlots(dir string, run plots.Run, rows []series.Row, evs []events.Event) ([]string, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, err
 	}
-	return plots.WriteFiles(dir, rows, evs)
+	return plots.WriteFiles(dir, rows, evs, run)
 }
 
 // runPlot is `sluice plot`.
@@ -104,7 +115,7 @@ func runPlot(args []string) int {
 	if dir == "" {
 		dir = filepath.Join(cf.data, "plots", pos[0])
 	}
-	files, err := writePlots(dir, rows, evs)
+	files, err := writePlots(dir, plotRun(ctx, st, pos[0]), rows, evs)
 	if err != nil {
 		return fail(exitFailure, "plot: %v", err)
 	}
