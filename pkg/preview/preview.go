@@ -17,11 +17,15 @@
 //	Margin | z-slice NX·s × NY·s | Margin | y-slice NX·s × NZ·s | Margin | x-slice NY·s × NZ·s | Margin
 //
 // Width  = max(4·Margin + (2·NX + NY)·s, MinWidth)
-// Height = Margin + TitleHeight + max(NY, NZ)·s + Margin + LegendHeight + Margin
+// Height = Margin + TitleHeight + max(NY, NZ)·s + Margin + ScaleHeight + LegendHeight + Margin
 //
 // Each slice has a title above it ("z = 12", the global index); the z-slice
-// is drawn with y downwards, the y- and x-slices with z downwards. The
-// legend strip runs along the bottom.
+// is drawn with y downwards, the y- and x-slices with z downwards. Below the
+// slices runs the scale strip: a black bar of a round length (1, 2 or 5 ×
+// 10^k, in µm, mm or m) about a fifth of the z-slice's width, under the
+// z-slice, with its length written beside it; all slices share its scale.
+// Without a known voxel size the strip says so and draws no bar. The legend
+// strip runs along the bottom.
 package preview
 
 import (
@@ -33,6 +37,7 @@ import (
 	"io"
 	"math"
 	"sort"
+	"strconv"
 
 	"golang.org/x/image/font"
 	"golang.org/x/image/font/basicfont"
@@ -47,6 +52,9 @@ const (
 	Margin       = 8
 	TitleHeight  = 16
 	LegendHeight = 20
+	ScaleHeight  = 16
+	// BarThickness is the height of the scale bar in pixels.
+	BarThickness = 4
 	MinWidth     = 460
 	// Swatch is the edge of a legend colour square.
 	Swatch = 12
@@ -82,6 +90,11 @@ type Options struct {
 	Window *[2]float64
 	// Scale is an integer magnification ≥ 1.
 	Scale int
+	// VoxelSize is the voxel edge in metres for the scale bar; 0 means
+	// unknown. VoxelSizeAssumed marks a size that was assumed rather than
+	// given (measure's 1 µm fallback): no bar is drawn for it either.
+	VoxelSize        float64
+	VoxelSizeAssumed bool
 }
 
 // Defaults returns the default codes, α = 0.45, scale 1, centre point.
@@ -95,8 +108,60 @@ func Size(shape [3]int, scale int) (w, h int) {
 	if w < MinWidth {
 		w = MinWidth
 	}
-	h = Margin + TitleHeight + max(ny, nz) + Margin + LegendHeight + Margin
+	h = Margin + TitleHeight + max(ny, nz) + Margin + ScaleHeight + LegendHeight + Margin
 	return w, h
+}
+
+// ScaleBarTarget is the fraction of the z-slice width a scale bar aims
+// for; the bar is the 1, 2 or 5 × 10^k length nearest to it (in ratio),
+// so it spans about 13–32 % of the slice, mostly 15–25 %.
+const ScaleBarTarget = 0.2
+
+// Bar is the scale bar of a preview.
+type Bar struct {
+	// Length in metres and Pixels its drawn length, round(Length/h · s).
+	Length float64
+	Pixels int
+	// Label is the length as written ("50 µm", "2 mm").
+	Label string
+	// Note replaces the bar when the voxel size is not known; empty when a
+	// bar is drawn.
+	Note string
+}
+
+// ScaleBar chooses the scale bar for a slice nx voxels wide drawn at
+// magnification scale, with voxel edge h metres (0: unknown; assumed: h is
+// not known but assumed).
+func ScaleBar(h float64, assumed bool, nx, scale int) Bar {
+	switch {
+	case assumed:
+		return Bar{Note: "no scale bar: voxel size assumed, not known"}
+	case !(h > 0) || math.IsInf(h, 0):
+		return Bar{Note: "no scale bar: voxel size unknown"}
+	}
+	target := ScaleBarTarget * float64(nx) * h
+	best, bestErr := 0.0, math.Inf(1)
+	for k := -10; k <= 3; k++ {
+		for _, m := range []float64{1, 2, 5} {
+			l := m * math.Pow(10, float64(k))
+			if e := math.Abs(math.Log(l / target)); e < bestErr {
+				best, bestErr = l, e
+			}
+		}
+	}
+	return Bar{Length: best, Pixels: int(math.Round(best / h * float64(scale))), Label: lengthLabel(best)}
+}
+
+// lengthLabel writes a round length in µm below 1 mm, mm below 1 m, else m.
+func lengthLabel(l float64) string {
+	num := func(v float64) string { return strconv.FormatFloat(v, 'g', 3, 64) }
+	switch {
+	case l < 1e-3*(1-1e-9):
+		return num(l*1e6) + " µm"
+	case l < 1*(1-1e-9):
+		return num(l*1e3) + " mm"
+	}
+	return num(l) + " m"
 }
 
 // sampler reads a grey voxel as float64.
@@ -270,8 +335,23 @@ func render(box volume.Box, at func(z, y, x int) float64, label func(z, y, x int
 		}
 		x0 += size[s.across]*o.Scale + Margin
 	}
+	o.scaleBar(img, top+max(size[0], size[1])*o.Scale+Margin, size[2])
 	o.legend(img)
 	return img, nil
+}
+
+// scaleBar draws the scale strip whose top row is y0, under the z-slice
+// (nx voxels wide).
+func (o *Options) scaleBar(img *image.NRGBA, y0, nx int) {
+	b := ScaleBar(o.VoxelSize, o.VoxelSizeAssumed, nx, o.Scale)
+	baseline := y0 + 12
+	if b.Note != "" {
+		text(img, Margin, baseline, b.Note)
+		return
+	}
+	yb := y0 + (ScaleHeight-BarThickness)/2 - 1
+	draw.Draw(img, image.Rect(Margin, yb, Margin+b.Pixels, yb+BarThickness), image.Black, image.Point{}, draw.Src)
+	text(img, Margin+b.Pixels+6, baseline, b.Label)
 }
 
 // grey8 maps v to 0…255 between lo and hi, clamped.
@@ -340,10 +420,27 @@ func (o *Options) legend(img *image.NRGBA) {
 	}
 }
 
-// text draws s with its baseline at y, starting at x, in black.
+// text draws s with its baseline at y, starting at x, in black. The face
+// is ASCII only: µ is drawn as u with its left stem carried below the
+// baseline.
 func text(img *image.NRGBA, x, y int, s string) {
 	d := font.Drawer{Dst: img, Src: image.Black, Face: basicfont.Face7x13, Dot: fixed.P(x, y)}
-	d.DrawString(s)
+	for _, r := range s {
+		if r != 'µ' {
+			d.DrawString(string(r))
+			continue
+		}
+		gx := d.Dot.X.Round()
+		d.DrawString("u")
+		for cx := gx; cx < gx+basicfont.Face7x13.Advance; cx++ {
+			if img.NRGBAAt(cx, y-1) == (color.NRGBA{0, 0, 0, 0xFF}) {
+				for dy := 0; dy < 3; dy++ {
+					img.SetNRGBA(cx, y+dy, color.NRGBA{0, 0, 0, 0xFF})
+				}
+				break
+			}
+		}
+	}
 }
 
 // WritePNG renders the preview and encodes it as PNG.

@@ -53,9 +53,9 @@ func TestPixelsMatchPalette(t *testing.T) {
 	}
 	w, h := Size(g.Shape(), 2)
 	// Size by hand: width 4·8 + (2·28 + 24)·2 = 192 < 460 → 460;
-	// height 8 + 16 + max(24, 20)·2 + 8 + 20 + 8 = 108.
-	if w != 460 || h != 108 || img.Bounds().Dx() != w || img.Bounds().Dy() != h {
-		t.Fatalf("size %v, Size() %d×%d, want 460×108", img.Bounds(), w, h)
+	// height 8 + 16 + max(24, 20)·2 + 8 + 16 + 20 + 8 = 124.
+	if w != 460 || h != 124 || img.Bounds().Dx() != w || img.Bounds().Dy() != h {
+		t.Fatalf("size %v, Size() %d×%d, want 460×124", img.Bounds(), w, h)
 	}
 	a := o.Alpha
 	// blend by hand: round((1−α)·g + α·c)
@@ -140,7 +140,7 @@ func TestPercentileWindowAndPNG(t *testing.T) {
 		t.Fatal(err)
 	}
 	w, h := Size([3]int{9, 10, 250}, 1)
-	if img.Bounds() != image.Rect(0, 0, w, h) || w != 4*8+2*250+10 || h != 8+16+10+8+20+8 {
+	if img.Bounds() != image.Rect(0, 0, w, h) || w != 4*8+2*250+10 || h != 8+16+10+8+16+20+8 {
 		t.Fatalf("PNG %v, want %d×%d", img.Bounds(), w, h)
 	}
 	// z-slice at z = 4, row y = 0: x = 125 must be mid-grey, not black.

@@ -225,6 +225,9 @@ func (a *Aggregator) Preview(ctx context.Context, c, s string, point [3]int) ([]
 	o.Point = &point
 	// Small scans are enlarged so the slices stay legible on the page.
 	o.Scale = min(4, max(1, 384/max(m.Shape[0], m.Shape[1], m.Shape[2])))
+	// Campaign scans always carry their voxel size (ingest refuses a scan
+	// without one); 0 would draw "no scale bar" rather than a wrong one.
+	o.VoxelSize = m.VoxelSize
 	img, err := preview.RenderPlanes(whole, planes, lplanes, o)
 	if err != nil {
 		return nil, err
