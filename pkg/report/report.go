@@ -135,7 +135,7 @@ type tableRow struct {
 // settingsRow is one line of the per-step segmentation table.
 type settingsRow struct {
 	Step, Time, Voxel, Filter, Method, Thresholds, Phases, PhasesNote, SampleY, SampleX, SampleR string
-	VoxelAssumed, Drift                                                                          bool
+	VoxelAssumed, VoxelDiffers, Drift                                                            bool
 	DriftNote                                                                                    string
 }
 
@@ -217,9 +217,9 @@ func Write(w io.Writer, in Input) error {
 	for i := range rows {
 		pg.Table = append(pg.Table, tabulate(&rows[i], in.VoxelSize))
 	}
-	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps)
+	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps, in.VoxelSize)
 	for _, s := range pg.Settings {
-		if s.Drift {
+		if s.Drift || s.VoxelDiffers {
 			pg.DriftFlagged++
 		}
 	}
@@ -297,7 +297,7 @@ table { border-collapse: collapse; font-size: 0.85em; }
 th, td { border: 1px solid #bbb; padding: 0.2em 0.5em; text-align: right; }
 th { background: #eee; }
 td.step { text-align: left; }
-tr.unresolved td.rvox, tr.drift td.thr { background: #f5d9a3; font-weight: bold; }
+tr.unresolved td.rvox, tr.drift td.thr, td.differs { background: #f5d9a3; font-weight: bold; }
 figure { display: inline-block; margin: 0.5em; }
 figure svg { max-width: 100%; height: auto; }
 .pass { color: #1c4a8c; } .fail { color: #6a3d0c; font-weight: bold; } .noteval { color: #555; font-style: italic; }
@@ -363,11 +363,12 @@ A check is not evaluated when the series holds nothing it applies to; the reason
 <section id="segmentation">
 <h2>Segmentation per step</h2>
 {{if .Settings}}<p>Thresholds (grey values), phases found and the sample cylinder (centre y, x and radius, voxels) of each
-step, as pass 1 found them. {{.DriftRule}}{{if .DriftFlagged}} <span class="fail">{{.DriftFlagged}} steps flagged.</span>{{else}} No step flagged.{{end}}</p>
+step, as pass 1 found them. {{.DriftRule}}{{if .DriftFlagged}} <span class="fail">{{.DriftFlagged}} steps flagged.</span>{{else}} No step flagged.{{end}} A voxel size other than the campaign's is flagged too: lengths, areas
+and curvatures of such a step are not comparable with the others.</p>
 <table id="settings-table">
 <tr><th>step</th><th>t (s)</th><th>voxel (µm)</th><th>filter</th><th>method</th><th>thresholds</th><th>phases</th>
 <th>sample y</th><th>sample x</th><th>sample r</th><th>flag</th></tr>{{range .Settings}}
-<tr data-settings="{{.Step}}"{{if .Drift}} class="drift"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.Voxel}}{{if .VoxelAssumed}} (assumed: the scan gave none){{end}}</td><td class="step">{{.Filter}}</td><td class="step">{{.Method}}</td><td class="thr">{{.Thresholds}}</td><td class="step"{{with .PhasesNote}} title="{{.}}"{{end}}>{{.Phases}}</td><td>{{.SampleY}}</td><td>{{.SampleX}}</td><td>{{.SampleR}}</td><td class="step">{{if .Drift}}threshold drift: {{.DriftNote}}{{end}}</td></tr>{{end}}
+<tr data-settings="{{.Step}}"{{if .Drift}} class="drift"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td{{if .VoxelDiffers}} class="differs"{{end}}>{{.Voxel}}{{if .VoxelAssumed}} (assumed: the scan gave none){{end}}</td><td class="step">{{.Filter}}</td><td class="step">{{.Method}}</td><td class="thr">{{.Thresholds}}</td><td class="step"{{with .PhasesNote}} title="{{.}}"{{end}}>{{.Phases}}</td><td>{{.SampleY}}</td><td>{{.SampleX}}</td><td>{{.SampleR}}</td><td class="step">{{if .VoxelDiffers}}voxel size differs from the campaign's {{$.VoxelSize}}{{if .Drift}}; {{end}}{{end}}{{if .Drift}}threshold drift: {{.DriftNote}}{{end}}</td></tr>{{end}}
 </table>{{else}}<p>No steps.</p>{{end}}
 </section>
 

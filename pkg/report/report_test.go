@@ -279,6 +279,7 @@ func TestSettingsPerStep(t *testing.T) {
 	for i := range rows {
 		rows[i].VoxelSize = fp(2.5e-6)
 	}
+	rows[7].VoxelSize = fp(5e-6) // s007 imaged at another resolution: flagged
 	page := string(render(t, Input{Params: Params{Campaign: "c", VoxelSize: 2.5e-6}, Rows: rows, Steps: steps}))
 	got := map[string]string{}
 	for _, m := range regexp.MustCompile(`(?s)<tr data-settings="([^"]+)"( class="drift")?>(.*?)</tr>`).FindAllStringSubmatch(page, -1) {
@@ -299,6 +300,8 @@ func TestSettingsPerStep(t *testing.T) {
 		{"s008", `title="one fluid: wetting"`},
 		{"s008", `2.5 (assumed: the scan gave none)`},
 		{"s008", `<td class="thr">1500</td>`},
+		{"s007", `<td class="differs">5</td>`},
+		{"s007", `voxel size differs from the campaign's 2.5 µm (2.5e-06 m)`},
 	} {
 		if !strings.Contains(got[c.step], c.want) {
 			t.Errorf("step %s: row lacks %q:\n%s", c.step, c.want, got[c.step])
@@ -308,9 +311,12 @@ func TestSettingsPerStep(t *testing.T) {
 		if flagged := strings.HasPrefix(row, ` class="drift"`); flagged != (step == "s004") {
 			t.Errorf("step %s flagged %v", step, flagged)
 		}
+		if differs := strings.Contains(row, `class="differs"`); differs != (step == "s007") {
+			t.Errorf("step %s voxel size flagged %v", step, differs)
+		}
 	}
 	for _, want := range []string{"by more than 10 % of the scale: the median grey-value gap between the two thresholds of three-class steps (1448)",
-		"Medians need at least 3 such steps (7 of 9 steps compared)", "1 steps flagged"} {
+		"Medians need at least 3 such steps (7 of 9 steps compared)", "2 steps flagged"} {
 		if !strings.Contains(page, want) {
 			t.Errorf("report lacks %q", want)
 		}

@@ -13,9 +13,10 @@ import (
 
 // settingsTable joins the rows (time, voxel size, phases from the result)
 // with each step's segmentation settings and flags thresholds that drift
-// from the campaign median (see ThresholdDrift). It returns the table and
-// the rule as shown to the reader.
-func settingsTable(rows []series.Row, steps []StepSettings) ([]settingsRow, string) {
+// from the campaign median (see ThresholdDrift) and voxel sizes that differ
+// from the campaign's h (relative 1e-6; h = 0: not compared). It returns
+// the table and the rule as shown to the reader.
+func settingsTable(rows []series.Row, steps []StepSettings, h float64) ([]settingsRow, string) {
 	by := map[string]StepSettings{}
 	for _, s := range steps {
 		by[s.Step] = s
@@ -28,6 +29,7 @@ func settingsTable(rows []series.Row, steps []StepSettings) ([]settingsRow, stri
 			Thresholds: "—", Phases: "—", SampleY: "—", SampleX: "—", SampleR: "—"}
 		if r.VoxelSize != nil && *r.VoxelSize > 0 {
 			t.Voxel = strconv.FormatFloat(*r.VoxelSize*1e6, 'g', 4, 64)
+			t.VoxelDiffers = h > 0 && math.Abs(*r.VoxelSize-h) > 1e-6*h
 		}
 		if b, has := r.Extra["voxel_size_assumed"]; has {
 			var a bool
