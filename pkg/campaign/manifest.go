@@ -17,9 +17,13 @@ type Manifest struct {
 	DType     string  `json:"dtype"`
 	VoxelSize float64 `json:"voxel_size_m"`
 	TimeS     float64 `json:"time_s"`
-	Chunk     int     `json:"chunk"`
-	Source    string  `json:"source"`
-	Bytes     int64   `json:"stored_bytes"`
+	// TimeFrom says where TimeS comes from: "--time", "--times",
+	// "marker", "header" or "mtime" (file modification time, counted from
+	// the campaign's origin; only on request). Empty in older manifests.
+	TimeFrom string `json:"time_from,omitempty"`
+	Chunk    int    `json:"chunk"`
+	Source   string `json:"source"`
+	Bytes    int64  `json:"stored_bytes"`
 	// ReceivedAt is when ingest started on the scan; IngestedAt when its
 	// chunks and this manifest were durable. Step latency runs from
 	// ReceivedAt to the series row.

@@ -9,6 +9,7 @@
 //	campaigns/<campaign>/steps/<step>/result.json    stitched step result
 //	campaigns/<campaign>/steps/<step>/tiles/<hash>/<tile>.json  one tile's partial result
 //	campaigns/<campaign>/series.csv, series.json     one row per step
+//	campaigns/<campaign>/mtime-origin.json           origin of step times from file modification times
 //
 // Keys are relative to the root of a store; a store opened on
 // s3://bucket/prefix or a directory adds its own prefix, so the layout itself
@@ -104,6 +105,10 @@ func (c Campaign) ReferenceVolume() string { return c.Reference() + "volume.zarr
 
 // SolidMask returns the Zarr array prefix of the reference solid mask.
 func (c Campaign) SolidMask() string { return c.Reference() + "solid.zarr/" }
+
+// MTimeOrigin is where the campaign keeps the origin of step times taken
+// from file modification times (--time-from-mtime).
+func (c Campaign) MTimeOrigin() string { return c.Dir() + "mtime-origin.json" }
 
 // SeriesCSV returns the key of the campaign's series table.
 func (c Campaign) SeriesCSV() string { return c.Dir() + "series.csv" }

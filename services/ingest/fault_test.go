@@ -85,7 +85,7 @@ func TestIngestIntoReadOnlyStoreFailsAtOnce(t *testing.T) {
 			}
 		})
 	in := &Ingester{Store: st, Version: "test"}
-	_, err := in.Ingest(ctx, Request{Campaign: "ro", Step: "scan-0001", Path: path})
+	_, err := in.Ingest(ctx, Request{Campaign: "ro", Step: "scan-0001", Path: path, HasTime: true})
 	if !errors.Is(err, fs.ErrPermission) || !errors.Is(err, syscall.EACCES) || !store.IsPermanent(err) {
 		t.Fatalf("ingest into a read-only store: %v; want a permanent error with fs.ErrPermission (EACCES) in the chain", err)
 	}
@@ -118,7 +118,7 @@ func TestWatcherStopsOnStoreRefusal(t *testing.T) {
 	go func() {
 		done <- w.Run(ctx, func(a Arrival) error {
 			offers++
-			_, err := in.Ingest(ctx, Request{Campaign: "ro", Step: a.Step, Path: a.Path})
+			_, err := in.Ingest(ctx, Request{Campaign: "ro", Step: a.Step, Path: a.Path, HasTime: true})
 			return err
 		})
 	}()

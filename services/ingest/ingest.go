@@ -63,10 +63,19 @@ type Request struct {
 	Campaign string
 	Step     string
 	Path     string
-	// TimeS is the experiment time; with HasTime false a time recorded in
-	// the file wins over TimeS.
+	// TimeS is the experiment time in seconds when HasTime (from --time,
+	// --times or the scan's marker); it wins over a time in the scan's
+	// header. TimeFrom says where it came from (stored in the manifest).
 	TimeS    float64
 	HasTime  bool
+	TimeFrom string
+	// ModTime, when not zero, dates a scan that has no time from TimeS nor
+	// its header (the user asked for it: --time-from-mtime): the step's
+	// time is then ModTime less the campaign's modification-time origin,
+	// the ModTime of the first scan dated this way (kept in the store, so
+	// a restarted watcher counts from the same origin). Without any of
+	// them the scan is refused, never stored at t = 0.
+	ModTime  time.Time
 	Priority sluicepb.Priority
 }
 
@@ -269,6 +278,47 @@ type badScan struct{ msg string }
 func (e badScan) Error() string        { return e.msg }
 func (e badScan) Is(target error) bool { return target == volio.ErrFormat }
 
+// mtimeOrigin is the campaign's origin of modification-time step times.
+type mtimeOrigin struct {
+	ModTime time.Time `json:"mtime_origin"`
+	File    string    `json:"file"`
+}
+
+// stepTime is the experiment time of the scan of req and where it comes
+// from: the request's own time (--time, --times, marker), else the scan's
+// header, else — only when the request allows it — its modification time
+// counted from the campaign's origin. A scan with none is refused.
+func (in *Ingester) stepTime(ctx context.Context, c layout.Campaign, req Request, h volio.Header) (float64, string, error) {
+	switch {
+	case req.HasTime:
+		from := req.TimeFrom
+		if from == "" {
+			from = "given"
+		}
+		return req.TimeS, from, nil
+	case h.HasTime:
+		return h.TimeS, "header", nil
+	case req.ModTime.IsZero():
+		return 0, "", badScan{fmt.Sprintf("ingest: %s has no experiment time: none from its marker (time_s), --times or --time, none in its metadata; give it one, or date scans by file modification time with --time-from-mtime", req.Path)}
+	}
+	var o mtimeOrigin
+	key := c.MTimeOrigin()
+	err := campaign.GetJSON(ctx, in.Store, key, &o)
+	if errors.Is(err, fs.ErrNotExist) {
+		o = mtimeOrigin{ModTime: req.ModTime.UTC(), File: req.Path}
+		err = campaign.PutJSON(ctx, in.Store, key, o)
+	}
+	if err != nil {
+		return 0, "", fmt.Errorf("ingest: %s: time origin %s: %w", req.Path, key, err)
+	}
+	d := req.ModTime.Sub(o.ModTime).Seconds()
+	if d < 0 {
+		return 0, "", badScan{fmt.Sprintf("ingest: %s was modified at %s, before the campaign's time origin %s (the modification time of %s): give it a time in its marker or --times",
+			req.Path, req.ModTime.UTC().Format(time.RFC3339), o.ModTime.Format(time.RFC3339), o.File)}
+	}
+	return d, "mtime", nil
+}
+
 // ChunkEdge returns the chunk edge of grey volumes stored for a tile edge.
 func ChunkEdge(tile int) int { return min(tile, MaxChunk) }
 
@@ -300,9 +350,9 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 		return campaign.Manifest{}, err
 	}
 	st = finiteSlabs{Stream: st, path: req.Path}
-	t := req.TimeS
-	if !req.HasTime && h.HasTime {
-		t = h.TimeS
+	t, from, err := in.stepTime(ctx, step.Campaign(), req, h)
+	if err != nil {
+		return campaign.Manifest{}, err
 	}
 	tile := cfg.Tile
 	c := ChunkEdge(tile)
@@ -358,7 +408,7 @@ func (in *Ingester) store(ctx context.Context, step layout.Step, req Request, cf
 		in.Metrics.StageSeconds.WithLabelValues("zarr_write").Observe(writing.Seconds())
 	}
 	man := campaign.Manifest{Campaign: step.Campaign().Name(), Step: step.Name(), Shape: h.Shape, DType: h.DType.String(),
-		VoxelSize: vs, TimeS: t, Chunk: c, Source: req.Path, Bytes: stored, ReceivedAt: received, IngestedAt: time.Now().UTC(), Version: in.Version}
+		VoxelSize: vs, TimeS: t, TimeFrom: from, Chunk: c, Source: req.Path, Bytes: stored, ReceivedAt: received, IngestedAt: time.Now().UTC(), Version: in.Version}
 	return man, campaign.PutJSON(ctx, in.Store, step.Manifest(), man)
 }
 

@@ -102,7 +102,7 @@ func ingestMemoryChild(t *testing.T, path string) {
 		t.Skipf("cannot reset the peak RSS: %v", err)
 	}
 	base := procStatus(t, "VmRSS")
-	man, err := in.StoreStep(ctx, Request{Campaign: "mem", Step: "scan-0001", Path: path})
+	man, err := in.StoreStep(ctx, Request{Campaign: "mem", Step: "scan-0001", Path: path, HasTime: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -210,7 +210,7 @@ func TestThresholdsKnownPlanEqualsPass1(t *testing.T) {
 		t.Fatal(err)
 	}
 	in := &Ingester{Store: st, Version: "test"}
-	man, err := in.StoreStep(ctx, Request{Campaign: "known", Step: "scan-0001", Path: path})
+	man, err := in.StoreStep(ctx, Request{Campaign: "known", Step: "scan-0001", Path: path, HasTime: true})
 	if err != nil {
 		t.Fatal(err)
 	}

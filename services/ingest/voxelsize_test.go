@@ -46,7 +46,7 @@ func TestScanWithoutVoxelSizeRefused(t *testing.T) {
 		t.Fatal(err)
 	}
 	in := &Ingester{Store: st, Version: "test"}
-	_, err = in.StoreStep(ctx, Request{Campaign: "novs", Step: "scan-0001", Path: bare})
+	_, err = in.StoreStep(ctx, Request{Campaign: "novs", Step: "scan-0001", Path: bare, HasTime: true})
 	if err == nil || !strings.Contains(err.Error(), bare) || !strings.Contains(err.Error(), "voxel size") || strings.Contains(err.Error(), "\n") {
 		t.Fatalf("scan without voxel size in a campaign without one: %v, want one line naming the file and the voxel size", err)
 	}
@@ -61,7 +61,7 @@ func TestScanWithoutVoxelSizeRefused(t *testing.T) {
 
 	// The file's metadata is enough.
 	withVS := write("scan-0002.raw", 3e-6)
-	man, err := in.StoreStep(ctx, Request{Campaign: "novs", Step: "scan-0002", Path: withVS})
+	man, err := in.StoreStep(ctx, Request{Campaign: "novs", Step: "scan-0002", Path: withVS, HasTime: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -76,7 +76,7 @@ func TestScanWithoutVoxelSizeRefused(t *testing.T) {
 	}
 	for i, p := range []string{bare, withVS} {
 		step := []string{"scan-0001", "scan-0002"}[i]
-		man, err := in.StoreStep(ctx, Request{Campaign: "withvs", Step: step, Path: p})
+		man, err := in.StoreStep(ctx, Request{Campaign: "withvs", Step: step, Path: p, HasTime: true})
 		if err != nil {
 			t.Fatalf("%s with voxel_size 4um: %v", p, err)
 		}

@@ -26,12 +26,14 @@ type Arrival struct {
 	Path string
 	// Step is the step name derived from the file name.
 	Step string
-	// TimeS is the experiment time of the scan in seconds: from the marker
-	// file when HasTime, else the scan's modification time relative to the
-	// first scan seen (ingest prefers a time recorded in the volume's own
-	// header over the latter).
+	// TimeS is the experiment time of the scan in seconds from its marker
+	// file, when HasTime.
 	TimeS   float64
 	HasTime bool
+	// ModTime is the scan's modification time (the latest of its files),
+	// set only when Watcher.ModTimes allows it to date the scan and the
+	// marker gives no time; see Request.ModTime.
+	ModTime time.Time
 }
 
 // Marker is the suffix of the file a reconstruction pipeline writes last,
@@ -155,6 +157,10 @@ type Watcher struct {
 	Settle time.Duration
 	// Poll is the scan interval (default 1 s).
 	Poll time.Duration
+	// ModTimes lets a scan's modification time date it when its marker
+	// gives no time (Arrival.ModTime); without it such a scan needs a time
+	// in its header or from the caller (--times), else ingest refuses it.
+	ModTimes bool
 	// Attempts bounds how often a scan whose ingest failed is offered
 	// again (default 5), after 2, 4, 8 … polls: an object store or NATS
 	// outage longer than the services' own retries must not lose a scan,
@@ -170,8 +176,6 @@ type Watcher struct {
 
 	seen   map[string]bool
 	sizes  map[string]sizeSeen
-	t0     time.Time
-	t0Set  bool
 	failed map[string]bool
 	tries  map[string]int       // failed ingests per scan name
 	after  map[string]time.Time // no new attempt before
@@ -389,16 +393,13 @@ func (w *Watcher) Scan() ([]Arrival, error) {
 			w.Log.Error("watch: skipping scan", "path", path, "err", err)
 			continue
 		}
-		if !hasTime {
-			fi, err := os.Stat(path)
-			if err == nil {
-				if !w.t0Set {
-					w.t0, w.t0Set = fi.ModTime(), true
-				}
-				timeS = fi.ModTime().Sub(w.t0).Seconds()
+		a := Arrival{Path: path, Step: step, TimeS: timeS, HasTime: hasTime}
+		if !hasTime && w.ModTimes {
+			if _, mtime, err := treeSize(path); err == nil {
+				a.ModTime = mtime
 			}
 		}
-		out = append(out, Arrival{Path: path, Step: step, TimeS: timeS, HasTime: hasTime})
+		out = append(out, a)
 	}
 	return out, nil
 }
@@ -425,6 +426,13 @@ func StepName(file string) (string, error) {
 		return "", fmt.Errorf("ingest: %s: cannot derive a step name: %w", file, err)
 	}
 	return s, nil
+}
+
+// ModTime is the modification time of a scan: of its file, or the latest
+// of the files under its directory (a TIFF stack, a Zarr array).
+func ModTime(path string) (time.Time, error) {
+	_, t, err := treeSize(path)
+	return t, err
 }
 
 // treeSize sums the sizes of a file or of all files under a directory and

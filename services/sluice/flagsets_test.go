@@ -21,7 +21,7 @@ var (
 	inputGroup    = []string{"shape", "dtype", "byte-order", "voxel-size", "max-voxels"}
 	segGroup      = append([]string{"config"}, segOnlyFlags...)
 	measureGroup  = []string{"solid", "wetting", "nonwetting", "ift", "connectivity", "flow-axis", "exclude", "curvature-sigma", "tile", "workers"}
-	watchGroup    = []string{"campaign", "config", "watch", "create-watch", "settle"}
+	watchGroup    = []string{"campaign", "config", "watch", "create-watch", "settle", "times", "time-from-mtime"}
 	campaignGroup = []string{"data", "store"}
 )
 

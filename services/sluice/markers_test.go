@@ -14,7 +14,10 @@ import (
 	"time"
 
 	"sluice/pkg/campaign"
+	"sluice/pkg/layout"
+	"sluice/pkg/queue"
 	"sluice/pkg/series"
+	"sluice/pkg/store"
 	"sluice/pkg/volio"
 )
 
@@ -284,5 +287,146 @@ func TestStatusRefusesMissingData(t *testing.T) {
 	}
 	if _, err := os.Stat(missing); err == nil {
 		t.Errorf("status created %s", missing)
+	}
+}
+
+// `run --watch` / `ingest --watch` used to date a scan with an empty
+// marker and no time in its header by its file modification time, without
+// being asked. Now such a scan is rejected (campaigns/<c>/rejected/<step>.json,
+// its reason naming the file); --times dates scans from a CSV (re-read
+// when it changes, so rows added during the beamtime count), and
+// --time-from-mtime allows the modification time.
+func TestWatchStepTimes(t *testing.T) {
+	if testing.Short() {
+		t.Skip("starts a NATS server")
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
+	defer cancel()
+	srv, err := queue.StartServer(queue.ServerConfig{StoreDir: t.TempDir()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(srv.Shutdown)
+	q, err := queue.Open(ctx, queue.Config{Server: srv, Logger: quietLog()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer q.Close()
+	dir := t.TempDir()
+	local, err := store.NewLocal(filepath.Join(dir, "store"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg := campaign.Default()
+	cfg.VoxelSize, cfg.DetectSample, cfg.Tile, cfg.Measure.SkipContact = "3um", false, 32, true
+	cfgPath := filepath.Join(dir, "c.json")
+	if err := writeDemoConfig(cfgPath, cfg); err != nil {
+		t.Fatal(err)
+	}
+	grey := pipelineScene(t, [3]int{32, 32, 32}, 11)
+	// timeless writes a scan without a time in its header, with an empty
+	// marker, last modified at mtime.
+	timeless := func(watch, name string, mtime time.Time) string {
+		t.Helper()
+		p := filepath.Join(watch, name)
+		if err := volio.WriteRaw(p, grey, volio.WriteOptions{}); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.Chtimes(p, mtime, mtime); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(p+".done", nil, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	// watchUntil runs the watcher of f until cond holds.
+	watchUntil := func(f ingestFlags, what string, cond func() bool) {
+		t.Helper()
+		ing, err := startIngest(ctx, f, inputFlags{}, local, taskPublisher{q}, nil, nil, quietLog())
+		if err != nil {
+			t.Fatal(err)
+		}
+		wctx, stop := context.WithCancel(ctx)
+		done := make(chan error, 1)
+		go func() { done <- watchAndIngest(wctx, ing, f, quietLog()) }()
+		for !cond() {
+			if ctx.Err() != nil {
+				t.Fatalf("still waiting for %s", what)
+			}
+			time.Sleep(10 * time.Millisecond) // polling the store, bounded by ctx
+		}
+		stop()
+		if err := <-done; err != nil {
+			t.Fatal(err)
+		}
+	}
+	manifest := func(c, step string) (campaign.Manifest, bool) {
+		var m campaign.Manifest
+		s, _ := layout.NewStep(c, step)
+		return m, campaign.GetJSON(ctx, local, s.Manifest(), &m) == nil
+	}
+	rejection := func(c, step string) (campaign.Rejection, bool) {
+		var r campaign.Rejection
+		lc, _ := layout.NewCampaign(c)
+		key, _ := campaign.RejectedKey(lc, step)
+		return r, campaign.GetJSON(ctx, local, key, &r) == nil
+	}
+
+	base := time.Date(2026, 3, 1, 10, 0, 0, 0, time.UTC)
+	watch := filepath.Join(dir, "in")
+	os.Mkdir(watch, 0o755)
+	p1 := timeless(watch, "scan-0001.raw", base)
+	timeless(watch, "scan-0002.raw", base.Add(60*time.Second))
+	times := filepath.Join(dir, "times.csv")
+	os.WriteFile(times, []byte("step,time_s\nscan-0002,600\n"), 0o644)
+	f := ingestFlags{campaign: "nt", config: cfgPath, watch: watch, times: times, poll: 5 * time.Millisecond}
+	if err := f.checkWatch(); err != nil {
+		t.Fatal(err)
+	}
+	watchUntil(f, "scan-0001 rejected and scan-0002 stored", func() bool {
+		if m, ok := manifest("nt", "scan-0001"); ok {
+			t.Fatalf("scan-0001, without any time, was stored at t = %g s from %q", m.TimeS, m.TimeFrom)
+		}
+		_, rej := rejection("nt", "scan-0001")
+		_, ok := manifest("nt", "scan-0002")
+		return rej && ok
+	})
+	r, _ := rejection("nt", "scan-0001")
+	t.Logf("rejected: %s: %s", r.File, r.Reason)
+	if !strings.Contains(r.Reason, p1+" has no experiment time") || !strings.Contains(r.Reason, "--time-from-mtime") || strings.Contains(r.Reason, "\n") {
+		t.Errorf("rejection reason %q; want one line naming %s and --time-from-mtime", r.Reason, p1)
+	}
+	if _, ok := manifest("nt", "scan-0001"); ok {
+		t.Error("the scan without a time was stored")
+	}
+	if m, _ := manifest("nt", "scan-0002"); m.TimeS != 600 || m.TimeFrom != "--times" {
+		t.Errorf("scan-0002 at t = %g s from %q; want 600 s from --times", m.TimeS, m.TimeFrom)
+	}
+
+	// The times file gains a row for scan-0003 while the campaign runs.
+	timeless(watch, "scan-0003.raw", base.Add(120*time.Second))
+	os.WriteFile(times, []byte("step,time_s\nscan-0002,600\nscan-0003,1200\n"), 0o644)
+	watchUntil(f, "scan-0003 stored", func() bool { _, ok := manifest("nt", "scan-0003"); return ok })
+	if m, _ := manifest("nt", "scan-0003"); m.TimeS != 1200 {
+		t.Errorf("scan-0003 at t = %g s, want 1200 s from the rewritten --times", m.TimeS)
+	}
+
+	// --time-from-mtime: another campaign over a copy of the two timeless
+	// scans, dated from the first one's modification time.
+	watch2 := filepath.Join(dir, "in2")
+	os.Mkdir(watch2, 0o755)
+	timeless(watch2, "scan-0001.raw", base)
+	timeless(watch2, "scan-0002.raw", base.Add(90*time.Second))
+	f2 := ingestFlags{campaign: "mt", config: cfgPath, watch: watch2, timeFromMTime: true, poll: 5 * time.Millisecond}
+	watchUntil(f2, "both scans stored", func() bool {
+		_, a := manifest("mt", "scan-0001")
+		_, b := manifest("mt", "scan-0002")
+		return a && b
+	})
+	for step, want := range map[string]float64{"scan-0001": 0, "scan-0002": 90} {
+		if m, _ := manifest("mt", step); m.TimeS != want || m.TimeFrom != "mtime" {
+			t.Errorf("%s at t = %g s from %q; want %g s from mtime", step, m.TimeS, m.TimeFrom, want)
+		}
 	}
 }

@@ -249,11 +249,12 @@ func archiveVolumes(dir string, times *stepTimes) (vols []ingest.Request, reject
 		}
 		req := ingest.Request{Step: step, Path: path, Priority: sluicepb.Priority_PRIORITY_BATCH}
 		if r, ok := times.row(step); ok {
-			req.TimeS, req.HasTime = r.t, true
+			req.TimeS, req.HasTime, req.TimeFrom = r.t, true, "--times"
 			used[step] = true
 		} else {
 			marker, err := ingest.MarkerFor(names, name)
 			if err == nil && marker != "" {
+				req.TimeFrom = "marker"
 				req.TimeS, req.HasTime, err = ingest.ReadMarker(filepath.Join(dir, marker))
 			}
 			if err != nil {

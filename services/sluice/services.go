@@ -159,6 +159,10 @@ type ingestFlags struct {
 	settle                        time.Duration
 	timeS                         optionalFloat
 	batch, createWatch            bool
+	// times is --times FILE; timeFromMTime allows file modification
+	// times to date scans with no other time.
+	times         string
+	timeFromMTime bool
 	// poll is the watcher's scan interval (0: its default, 1 s); tests
 	// shorten it so that a scan's five attempts take milliseconds.
 	poll time.Duration
@@ -170,17 +174,25 @@ func (f *ingestFlags) register(fs *flag.FlagSet, single bool) {
 	fs.StringVar(&f.watch, "watch", "", "watch `DIR` and ingest each scan once its marker file exists (scan_0042.raw.done or scan_0042.done)")
 	fs.BoolVar(&f.createWatch, "create-watch", false, "create the --watch directory if it does not exist (without it a missing directory is an error)")
 	fs.DurationVar(&f.settle, "settle", 0, "also accept scans without a marker once unchanged for this long (e.g. 30s)")
+	fs.StringVar(&f.times, "times", "", "CSV `FILE` with the header step,time_s giving steps' experiment times in seconds (wins over markers and headers; re-read when it changes)")
+	fs.BoolVar(&f.timeFromMTime, "time-from-mtime", false, "date a scan that has no time from --times, its marker or its header by its file modification time, in seconds from that of the campaign's first scan so dated (without it such a scan is rejected)")
 	if single {
 		fs.StringVar(&f.step, "step", "", "step name for a single FILE (default: from the file name)")
-		fs.Var(&f.timeS, "time", "experiment time of the step in `seconds` (default: the scan's marker {\"time_s\": …}, else its header; required when neither gives one)")
+		fs.Var(&f.timeS, "time", "experiment time of the step in `seconds` (default: its --times row, else the scan's marker {\"time_s\": …}, else its header, else with --time-from-mtime its modification time; refused when none gives one)")
 		fs.BoolVar(&f.batch, "batch", false, "queue the tiles as batch work (archives) instead of live")
 	}
 }
 
 // checkWatch makes sure the --watch directory is there before anything
 // starts: a mistyped path must not become a new empty folder watched for
-// ever. It is created only when --create-watch asks for it.
+// ever. It is created only when --create-watch asks for it. A --times file
+// must read correctly from the start too.
 func (f ingestFlags) checkWatch() error {
+	if f.times != "" {
+		if _, err := readStepTimes(f.times); err != nil {
+			return err
+		}
+	}
 	if f.watch == "" {
 		if f.createWatch {
 			return errors.New("--create-watch needs --watch DIR")
@@ -228,17 +240,26 @@ func startIngest(ctx context.Context, f ingestFlags, in inputFlags, st ingest.St
 
 // watchAndIngest runs the directory watcher until ctx ends.
 func watchAndIngest(ctx context.Context, ing *ingest.Ingester, f ingestFlags, log *slog.Logger) error {
-	w := &ingest.Watcher{Dir: f.watch, Settle: f.settle, Poll: f.poll, Log: log}
+	w := &ingest.Watcher{Dir: f.watch, Settle: f.settle, Poll: f.poll, Log: log, ModTimes: f.timeFromMTime}
 	w.GaveUp = func(a ingest.Arrival, attempts int, err error) {
 		req := ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path}
 		if rerr := ing.Reject(ctx, req, attempts, err); rerr != nil {
 			log.Error("rejected scan not recorded", "path", a.Path, "err", rerr)
 		}
 	}
+	times := &liveTimes{path: f.times}
 	return w.Run(ctx, func(a ingest.Arrival) error {
 		t0 := time.Now()
-		r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path, TimeS: a.TimeS, HasTime: a.HasTime,
-			Priority: sluicepb.Priority_PRIORITY_LIVE})
+		req := ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path, TimeS: a.TimeS, HasTime: a.HasTime, TimeFrom: "marker",
+			ModTime: a.ModTime, Priority: sluicepb.Priority_PRIORITY_LIVE}
+		row, ok, err := times.row(a.Step)
+		if err != nil {
+			return fmt.Errorf("%s: %w", a.Path, err)
+		}
+		if ok {
+			req.TimeS, req.HasTime, req.TimeFrom = row.t, true, "--times"
+		}
+		r, err := ing.Ingest(ctx, req)
 		if errors.Is(err, ingest.ErrDone) {
 			log.Info("scan already measured; skipped", "path", a.Path, "step", a.Step)
 			return nil
@@ -249,6 +270,36 @@ func watchAndIngest(ctx context.Context, ing *ingest.Ingester, f ingestFlags, lo
 		log.Info("step ingested", "campaign", f.campaign, "step", a.Step, "tiles", r.TileCount, "seconds", fmt.Sprintf("%.2f", time.Since(t0).Seconds()))
 		return nil
 	})
+}
+
+// liveTimes is a --times file read again whenever it changes, so that
+// rows added during the experiment date the scans that follow. A zero
+// path has no rows.
+type liveTimes struct {
+	path  string
+	size  int64
+	mtime time.Time
+	t     *stepTimes
+}
+
+// row returns the time of step, if the file has one.
+func (l *liveTimes) row(step string) (timeRow, bool, error) {
+	if l.path == "" {
+		return timeRow{}, false, nil
+	}
+	fi, err := os.Stat(l.path)
+	if err != nil {
+		return timeRow{}, false, fmt.Errorf("--times %w", err)
+	}
+	if l.t == nil || fi.Size() != l.size || !fi.ModTime().Equal(l.mtime) {
+		t, err := readStepTimes(l.path)
+		if err != nil {
+			return timeRow{}, false, err
+		}
+		l.t, l.size, l.mtime = t, fi.Size(), fi.ModTime()
+	}
+	r, ok := l.t.row(step)
+	return r, ok, nil
 }
 
 // runIngest is `sluice ingest`.
@@ -305,9 +356,22 @@ func runIngest(args []string) int {
 			return fail(exitBadInput, "%v", err)
 		}
 	}
-	timeS, hasTime := f.timeS.v, f.timeS.set
-	if !hasTime {
-		if timeS, hasTime, err = scanTime(path, ing.ReadOpt); err != nil {
+	req := ingest.Request{Campaign: f.campaign, Step: step, Path: path, TimeS: f.timeS.v, HasTime: f.timeS.set, TimeFrom: "--time"}
+	if !req.HasTime {
+		row, ok, err := (&liveTimes{path: f.times}).row(step)
+		if err != nil {
+			return fail(exitBadInput, "ingest: %v", err)
+		}
+		req.TimeS, req.HasTime, req.TimeFrom = row.t, ok, "--times"
+	}
+	if !req.HasTime {
+		req.TimeFrom = "marker"
+		if req.TimeS, req.HasTime, err = scanTime(path, ing.ReadOpt, f.timeFromMTime); err != nil {
+			return fail(exitBadInput, "ingest: %v", err)
+		}
+	}
+	if !req.HasTime && f.timeFromMTime {
+		if req.ModTime, err = ingest.ModTime(path); err != nil {
 			return fail(exitBadInput, "ingest: %v", err)
 		}
 	}
@@ -317,7 +381,8 @@ func runIngest(args []string) int {
 	if f.batch {
 		prio = sluicepb.Priority_PRIORITY_BATCH
 	}
-	r, err := ing.Ingest(ctx, ingest.Request{Campaign: f.campaign, Step: step, Path: path, TimeS: timeS, HasTime: hasTime, Priority: prio})
+	req.Priority = prio
+	r, err := ing.Ingest(ctx, req)
 	bar.done()
 	if err != nil {
 		return fail(exitBadInput, "%v", err)
@@ -328,11 +393,12 @@ func runIngest(args []string) int {
 
 // scanTime is the experiment time of a single scan given without --time:
 // from its marker (scan_0042.raw.done or scan_0042.done) when that holds
-// one, else from the scan's header. A scan with neither is refused rather
-// than stored at t = 0, which would date the campaign's events wrongly; a
-// header that cannot be read is left to the ingest, which names the
-// problem.
-func scanTime(path string, opt volio.Options) (float64, bool, error) {
+// one, else from the scan's header (returned as no time: the ingest reads
+// it). A scan with neither is refused rather than stored at t = 0, which
+// would date the campaign's events wrongly, unless mtimeOK (the ingest
+// then dates it by its modification time); a header that cannot be read
+// is left to the ingest, which names the problem.
+func scanTime(path string, opt volio.Options, mtimeOK bool) (float64, bool, error) {
 	dir, name := filepath.Split(filepath.Clean(path))
 	if dir == "" {
 		dir = "."
@@ -354,13 +420,10 @@ func scanTime(path string, opt volio.Options) (float64, bool, error) {
 		}
 	}
 	h, err := volio.ReadHeader(path, opt)
-	if err != nil {
+	if err != nil || h.HasTime || mtimeOK {
 		return 0, false, nil
 	}
-	if !h.HasTime {
-		return 0, false, fmt.Errorf("%s has no experiment time (no marker with time_s, none in its header): give --time SECONDS", path)
-	}
-	return h.TimeS, true, nil
+	return 0, false, fmt.Errorf("%s has no experiment time (no --times row, no marker with time_s, none in its header): give --time SECONDS, --times FILE, or --time-from-mtime", path)
 }
 
 // allInOne is the embedded deployment: NATS, store, watcher, workers and
