@@ -121,7 +121,7 @@ func refusalSetup(ctx context.Context, t *testing.T) (*queue.Queue, *store.Local
 		t.Fatal(err)
 	}
 	in := &ingest.Ingester{Store: local, Queue: taskPublisher{q}, Version: Version, Log: log}
-	if r, err := in.Ingest(ctx, ingest.Request{Campaign: "refused", Step: "scan-0001", Path: path}); err != nil || r.TileCount != 1 {
+	if r, err := in.Ingest(ctx, ingest.Request{Campaign: "refused", Step: "scan-0001", Path: path, HasTime: true}); err != nil || r.TileCount != 1 {
 		t.Fatalf("ingest: %v, %v; want one tile", r, err)
 	}
 	setMode := func(mode fs.FileMode) {

@@ -81,7 +81,7 @@ func benchProcessTile(b *testing.B, tile int) {
 	}
 	var tasks taskList
 	in := &ingest.Ingester{Store: st, Queue: &tasks, Version: "bench"}
-	if _, err := in.Ingest(ctx, ingest.Request{Campaign: "bench", Step: "scan-0006", Path: path}); err != nil {
+	if _, err := in.Ingest(ctx, ingest.Request{Campaign: "bench", Step: "scan-0006", Path: path, HasTime: true}); err != nil {
 		b.Fatal(err)
 	}
 	if len(tasks) != 27 {

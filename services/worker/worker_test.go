@@ -52,7 +52,7 @@ func ingestSmall(t *testing.T) (store.Store, taskList) {
 	}
 	var tasks taskList
 	in := &ingest.Ingester{Store: st, Queue: &tasks, Version: "test"}
-	if _, err := in.Ingest(ctx, ingest.Request{Campaign: "c", Step: "scan-0006", Path: path}); err != nil {
+	if _, err := in.Ingest(ctx, ingest.Request{Campaign: "c", Step: "scan-0006", Path: path, HasTime: true}); err != nil {
 		t.Fatal(err)
 	}
 	if len(tasks) != 8 {
