@@ -175,6 +175,12 @@ type Partial struct {
 	// Hist counts samples per 0.1° bin over [0°, 180°] (bin i holds
 	// [i/10, (i+1)/10), 180° goes to the last bin); nil when empty.
 	Hist []int64 `json:"hist,omitempty"`
+	// Line counts the contact-line sample points found, fitted or not, and
+	// NonwettingOnSolid the nonwetting voxels with a solid face-neighbour:
+	// with N they say why a step has no angle (no nonwetting on the solid,
+	// no line, or a line whose points could not be fitted).
+	Line              int64 `json:"line,omitempty"`
+	NonwettingOnSolid int64 `json:"nonwetting_on_solid,omitempty"`
 }
 
 // Measure returns the angles at the contact-line samples owned by core
@@ -195,7 +201,8 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 		workers = runtime.GOMAXPROCS(0)
 	}
 	f.classify(core.Grow(int(math.Ceil(opt.Radius))), workers)
-	samples := f.line(core)
+	samples, onSolid := f.line(core)
+	p.Line, p.NonwettingOnSolid = int64(len(samples)), onSolid
 	if len(samples) == 0 {
 		return p
 	}
@@ -235,7 +242,7 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 func Angle(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, p [3]int, opt Options) (float64, bool) {
 	f := newFitter(lab, solid, wetting, nonwetting, opt.norm())
 	at := volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}
-	if !lab.Box.Contains(p[0], p[1], p[2]) || len(f.line(at)) == 0 {
+	if line, _ := f.line(at); !lab.Box.Contains(p[0], p[1], p[2]) || len(line) == 0 {
 		return 0, false
 	}
 	f.classify(at.Grow(int(math.Ceil(f.opt.Radius))), 1)
@@ -428,12 +435,13 @@ func (f *fitter) classify(box volume.Box, workers int) {
 // touches the solid too. The second condition keeps the boundary between
 // the wetting-covered and nonwetting-covered parts of the wall and drops
 // the inside of a one-voxel nonwetting film (solid below, wetting above),
-// which lies away from the line.
-func (f *fitter) line(box volume.Box) [][3]int {
+// which lies away from the line. It also returns how many nonwetting
+// voxels of box touch the solid.
+func (f *fitter) line(box volume.Box) ([][3]int, int64) {
 	lab := f.lab
 	box = box.Intersect(lab.Box)
 	if box.Empty() {
-		return nil
+		return nil, 0
 	}
 	// touch marks, on box grown by one, the voxels touching the solid whose
 	// class is wetting or nonwetting (the only ones asked about).
@@ -460,6 +468,7 @@ func (f *fitter) line(box volume.Box) [][3]int {
 		}
 	}
 	var out [][3]int
+	var onSolid int64
 	tsz, tsy := ts[1]*ts[2], ts[2]
 	for z := box.Min[0]; z < box.Max[0]; z++ {
 		for y := box.Min[1]; y < box.Max[1]; y++ {
@@ -468,6 +477,7 @@ func (f *fitter) line(box volume.Box) [][3]int {
 				if touch[i] != classNon {
 					continue
 				}
+				onSolid++
 				found := false
 				for dz := max(z-1, tb.Min[0]) - z; dz <= min(z+1, tb.Max[0]-1)-z && !found; dz++ {
 					for dy := max(y-1, tb.Min[1]) - y; dy <= min(y+1, tb.Max[1]-1)-y && !found; dy++ {
@@ -485,7 +495,7 @@ func (f *fitter) line(box volume.Box) [][3]int {
 			}
 		}
 	}
-	return out
+	return out, onSolid
 }
 
 // face is one wetting–nonwetting voxel face near a sample. Its axis normal
@@ -732,6 +742,8 @@ func solve6(m [6][7]float64) ([6]float64, bool) {
 // Add accumulates q into p.
 func (p *Partial) Add(q *Partial) {
 	p.N += q.N
+	p.Line += q.Line
+	p.NonwettingOnSolid += q.NonwettingOnSolid
 	p.Sum += q.Sum
 	p.SumSq += q.SumSq
 	if q.Hist != nil {

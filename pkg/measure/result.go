@@ -51,6 +51,9 @@ type Result struct {
 	AngleMedian  *float64 `json:"contact_angle_median_deg"`
 	AngleStd     *float64 `json:"contact_angle_std_deg"`
 	AngleSamples int64    `json:"contact_angle_samples"`
+	// AngleNote says, in one line, why there is no contact angle when the
+	// step holds solid and both fluids but no sample was measured.
+	AngleNote string `json:"contact_angle_note,omitempty"`
 	// AngleHist counts contact-angle samples in 1° bins: AngleHist[i]
 	// holds angles in [i, i+1) degrees, through the wetting phase.
 	AngleHist []int64 `json:"contact_angle_histogram"`
@@ -226,6 +229,9 @@ func finish(s *Partial, cs cluster.Summary, whole volume.Box, h float64, opt Opt
 		}
 		hist := c.Histogram1Deg()
 		r.AngleHist = hist[:]
+		if c.N == 0 && r.VoxelsSolid > 0 && r.VoxelsWetting > 0 && r.VoxelsNonwetting > 0 {
+			r.AngleNote = noAngleNote(c)
+		}
 	}
 
 	r.GangliaCount = cs.Count
@@ -235,4 +241,18 @@ func finish(s *Partial, cs cluster.Summary, whole volume.Box, h float64, opt Opt
 	}
 	r.Percolates = cs.Percolates
 	return r
+}
+
+// noAngleNote says why a step with solid and both fluids has no contact
+// angle sample.
+func noAngleNote(c *contact.Partial) string {
+	switch {
+	case c.NonwettingOnSolid == 0:
+		return "no three-phase contact line found: the nonwetting phase touches the solid nowhere in the labels " +
+			"(a wetting film separates them: real, or a partial-volume artefact of the segmentation)"
+	case c.Line == 0:
+		return "no three-phase contact line found: the nonwetting phase touches the solid, but nowhere beside wetting phase that touches it too"
+	}
+	return fmt.Sprintf("%d contact-line points found but none could be fitted: too few wetting–nonwetting interface faces within the fit radius "+
+		"(points too close to the edge of the sample or of the scan, or a line only a voxel or two long)", c.Line)
 }

@@ -305,5 +305,8 @@ func printTable(w io.Writer, path string, r *measure.Result, voxelAssumed bool) 
 	fmt.Fprintf(tw, "largest ganglion\t%s\tof nonwetting volume\n", f(r.LargestFraction, 1, "%.4f"))
 	fmt.Fprintf(tw, "nonwetting percolates (%s)\t%v\t\n", r.FlowAxis, r.Percolates)
 	tw.Flush()
+	if r.AngleNote != "" {
+		fmt.Fprintf(w, "note: contact angle: %s\n", r.AngleNote)
+	}
 	fmt.Fprintln(w, "Image-derived capillary pressure and contact angles are estimates; their error grows as radii of curvature approach a few voxels.")
 }
