@@ -59,12 +59,16 @@ var commandFlags = map[string][]string{
 	// HTTP and works no tasks.
 	"status":  join(storeGroup, natsGroup, []string{"data"}),
 	"compare": join(campaignGroup, []string{"runs", "out"}),
+	// The modes of bench.
+	"bench stages":   {"size", "tile", "workers", "nlm"},
+	"bench compare":  {"size", "repeat", "python", "script", "json", "cpuprofile"},
+	"bench campaign": {"size", "steps", "tile", "workers", "procs", "base", "ahead", "seed", "data", "keep", "json", "timeout"},
 }
 
 // helpFlags returns the flag names `sluice CMD -h` lists.
 func helpFlags(t *testing.T, cmd string) []string {
 	t.Helper()
-	code, out, errs := runCLI(t, cmd, "-h")
+	code, out, errs := runCLI(t, append([]string{"help"}, strings.Fields(cmd)...)...)
 	if code != exitOK {
 		t.Fatalf("%s -h: exit %d, %s", cmd, code, errs)
 	}
@@ -86,27 +90,34 @@ func helpFlags(t *testing.T, cmd string) []string {
 // flags it reads (commandFlags), so that e.g. `status` offers no
 // --ack-wait nor --http.
 func TestCommandsOfferOnlyTheirFlags(t *testing.T) {
+	var names []string
 	for _, c := range commands() {
-		if c.name == "version" || c.name == "bench" {
-			continue
+		switch c.name {
+		case "version":
+		case "bench":
+			names = append(names, "bench stages", "bench compare", "bench campaign")
+		default:
+			names = append(names, c.name)
 		}
-		want, ok := commandFlags[c.name]
+	}
+	for _, name := range names {
+		want, ok := commandFlags[name]
 		if !ok {
-			t.Errorf("command %s has no entry in commandFlags", c.name)
+			t.Errorf("command %s has no entry in commandFlags", name)
 			continue
 		}
 		want = slices.Clone(want)
 		sort.Strings(want)
 		want = slices.Compact(want)
-		got := helpFlags(t, c.name)
+		got := helpFlags(t, name)
 		for _, n := range got {
 			if !slices.Contains(want, n) {
-				t.Errorf("%s offers --%s, which it does not read", c.name, n)
+				t.Errorf("%s offers --%s, which it does not read", name, n)
 			}
 		}
 		for _, n := range want {
 			if !slices.Contains(got, n) {
-				t.Errorf("%s lacks --%s", c.name, n)
+				t.Errorf("%s lacks --%s", name, n)
 			}
 		}
 	}
@@ -155,5 +166,40 @@ func TestMeasureLabelsRefusesSegmentFlags(t *testing.T) {
 	want := "sluice: measure: --filter segments grey input; with --labels " + path + " is already segmented (leave --filter out)"
 	if code != exitBadInput || strings.TrimRight(errs, "\n") != want {
 		t.Errorf("exit %d, stderr %q; want exit 2 and %q", code, errs, want)
+	}
+}
+
+// TestIngestModeFlags: ingest's flags for one FILE (--step, --time,
+// --batch) are refused with --watch, and those of --watch (--http with an
+// address, --settle) with one FILE, instead of being ignored.
+func TestIngestModeFlags(t *testing.T) {
+	dir := t.TempDir()
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--watch", dir, "--time", "30"}, "sluice: ingest: --time dates one FILE; with --watch scans take their times from --times, their markers or headers"},
+		{[]string{"--watch", dir, "--step", "s1"}, "sluice: ingest: --step names the step of one FILE; with --watch each scan's step comes from its file name"},
+		{[]string{"--watch", dir, "--batch"}, "sluice: ingest: --batch queues one FILE as batch work; with --watch scans are queued live"},
+		{[]string{"--http", "127.0.0.1:0", "x.raw"}, "sluice: ingest: --http serves metrics while watching (--watch); one FILE serves nothing (--http off is accepted)"},
+		{[]string{"--settle", "30s", "x.raw"}, "sluice: ingest: --settle is for --watch (scans without a marker); one FILE is taken as it is"},
+	} {
+		code, _, errs := runCLI(t, append([]string{"ingest", "--campaign", "c", "--nats", "nats://127.0.0.1:1", "--store", dir}, c.args...)...)
+		if code != exitBadInput || strings.TrimRight(errs, "\n") != c.want {
+			t.Errorf("%v: exit %d, stderr %q; want exit 2 and %q", c.args, code, errs, c.want)
+		}
+	}
+}
+
+// TestRunWithoutWatchRefusesIngestFlags: `run` without --watch ingests
+// nothing, so --campaign, --config, --times … would be ignored: refused.
+func TestRunWithoutWatchRefusesIngestFlags(t *testing.T) {
+	dir := t.TempDir()
+	for _, name := range []string{"campaign", "config", "times", "voxel-size"} {
+		code, _, errs := runCLI(t, "run", "--data", dir, "--http", "off", "--"+name, "x")
+		want := "sluice: run: --" + name + " applies to the scans of --watch DIR, and none is given"
+		if code != exitBadInput || strings.TrimRight(errs, "\n") != want {
+			t.Errorf("run --%s without --watch: exit %d, stderr %q; want %q", name, code, errs, want)
+		}
 	}
 }

@@ -31,6 +31,7 @@ import (
 	"sync"
 	"time"
 
+	"sluice/internal/usermsg"
 	"sluice/pkg/campaign"
 	"sluice/pkg/events"
 	"sluice/pkg/layout"
@@ -979,7 +980,7 @@ func runReprocess(args []string) int {
 		}
 		sort.Strings(names)
 		for _, s := range names {
-			fmt.Fprintf(stdout, "  failed: step %s: %s\n", s, failed[s])
+			fmt.Fprintf(stdout, "  failed: step %s: %s\n", s, usermsg.Clean(failed[s], "", s))
 		}
 		return fail(exitFailure, "reprocess: campaign %s run %s: %d steps failed (see `sluice status %s`)", req.Campaign, sum.Hash, len(failed), req.Campaign)
 	}

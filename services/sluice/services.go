@@ -318,6 +318,27 @@ func runIngest(args []string) int {
 	if (len(pos) == 1) == (f.watch != "") {
 		return fail(exitBadInput, "ingest: give either one FILE or --watch DIR")
 	}
+	// Flags of the other mode would be ignored: refuse them.
+	set := givenFlags(fs)
+	for _, c := range []struct {
+		flag  string
+		watch bool // the flag belongs to --watch
+		msg   string
+	}{
+		{"step", false, "--step names the step of one FILE; with --watch each scan's step comes from its file name"},
+		{"time", false, "--time dates one FILE; with --watch scans take their times from --times, their markers or headers"},
+		{"batch", false, "--batch queues one FILE as batch work; with --watch scans are queued live"},
+		{"http", true, "--http serves metrics while watching (--watch); one FILE serves nothing (--http off is accepted)"},
+		{"http-token-file", true, "--http-token-file guards the HTTP server of --watch; one FILE serves nothing"},
+		{"settle", true, "--settle is for --watch (scans without a marker); one FILE is taken as it is"},
+	} {
+		if c.flag == "http" && (nf.http == "off" || nf.http == "") {
+			continue // "serve nothing" is what one FILE does anyway
+		}
+		if set[c.flag] && c.watch == (f.watch == "") {
+			return fail(exitBadInput, "ingest: %s", c.msg)
+		}
+	}
 	if err := f.checkWatch(); err != nil {
 		return fail(exitBadInput, "ingest: %v", err)
 	}
@@ -453,6 +474,16 @@ func runAll(args []string) int {
 	workers := fs.Int("workers", runtime.GOMAXPROCS(0), "tile workers in this process (0: none, for separate `sluice worker` processes)")
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
+	}
+	if f.watch == "" {
+		// Without --watch the node ingests nothing: the flags that say
+		// how to ingest would be ignored.
+		set := givenFlags(fs)
+		for _, name := range []string{"campaign", "config", "settle", "times", "time-from-mtime", "shape", "dtype", "byte-order", "voxel-size", "max-voxels"} {
+			if set[name] {
+				return fail(exitBadInput, "run: --%s applies to the scans of --watch DIR, and none is given", name)
+			}
+		}
 	}
 	ctx, stop := signalContext()
 	defer stop()
