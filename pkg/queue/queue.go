@@ -11,6 +11,13 @@
 //	SLUICE_EVENTS   sluice.event.<c>                              kept 7 days
 //	SLUICE_DEAD     sluice.dead.<c>                               kept 30 days
 //	KV sluice_progress                                            aggregator state
+//	(no stream)     sluice.worker.beat                            worker beats, core NATS
+//
+// Every worker (Work) publishes a WorkerBeat every WorkOptions.Beat (5 s by
+// default): its id, host, pid, start, tiles done and failed, tasks in hand.
+// The aggregator (WatchWorkers) counts a worker present while its last beat
+// is younger than BeatsMissed of its intervals; a worker that stops in
+// order says so in a last beat and leaves the count at once.
 //
 // Every task is published with the message id campaign/step/tile/param-hash
 // (layout.Step.TileID), so a task published twice within the stream's

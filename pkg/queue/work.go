@@ -63,6 +63,11 @@ type WorkOptions struct {
 	// DrainTimeout is how long in-flight handlers may run after ctx is
 	// cancelled before their context is cancelled too (default 2 min).
 	DrainTimeout time.Duration
+	// Beat is the interval of the worker's beats on SubjectWorkerBeat
+	// (default DefaultBeat; negative: none). Beats go on while in-flight
+	// handlers drain; the last one, when Work returns, says the worker
+	// stops.
+	Beat time.Duration
 }
 
 func (o WorkOptions) withDefaults(p Policy) WorkOptions {
@@ -81,6 +86,9 @@ func (o WorkOptions) withDefaults(p Policy) WorkOptions {
 	}
 	if o.DrainTimeout <= 0 {
 		o.DrainTimeout = 2 * time.Minute
+	}
+	if o.Beat == 0 {
+		o.Beat = DefaultBeat
 	}
 	return o
 }
@@ -106,13 +114,25 @@ func (q *Queue) Work(ctx context.Context, handler Handler, opts WorkOptions) err
 	})
 	defer stop()
 
+	// Beats go on while in-flight handlers drain (the worker is still
+	// there); the last one, sent after the regular ones have stopped, says
+	// it leaves.
+	var beats *beater
+	if opts.Beat > 0 {
+		beats = newBeater(q, opts)
+		bctx, bstop := context.WithCancel(context.WithoutCancel(ctx))
+		beating := make(chan struct{})
+		go func() { defer close(beating); beats.run(bctx) }()
+		defer func() { bstop(); <-beating; beats.goodbye() }()
+	}
+
 	var wg sync.WaitGroup
 	errc := make(chan error, opts.Concurrency)
 	for i := 0; i < opts.Concurrency; i++ {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			if err := q.workLoop(ctx, hctx, handler, opts); err != nil {
+			if err := q.workLoop(ctx, hctx, handler, opts, beats); err != nil {
 				errc <- err
 			}
 		}()
@@ -122,7 +142,7 @@ func (q *Queue) Work(ctx context.Context, handler Handler, opts WorkOptions) err
 	return <-errc
 }
 
-func (q *Queue) workLoop(ctx, hctx context.Context, handler Handler, opts WorkOptions) error {
+func (q *Queue) workLoop(ctx, hctx context.Context, handler Handler, opts WorkOptions, beats *beater) error {
 	pause := pullBackoff{first: opts.IdleWait}
 	for ctx.Err() == nil {
 		m, err := q.next(opts.IdleWait)
@@ -145,7 +165,7 @@ func (q *Queue) workLoop(ctx, hctx context.Context, handler Handler, opts WorkOp
 		}
 		pause.reset()
 		if m != nil {
-			q.handle(hctx, m, handler, opts)
+			q.handle(hctx, m, handler, opts, beats)
 		}
 	}
 	return nil
@@ -188,8 +208,9 @@ func fetchOne(c jetstream.Consumer, wait time.Duration) (jetstream.Msg, error) {
 	return nil, nil
 }
 
-// handle runs handler on one message and settles it.
-func (q *Queue) handle(ctx context.Context, m jetstream.Msg, handler Handler, opts WorkOptions) {
+// handle runs handler on one message and settles it; beats (may be nil)
+// hears of the task taken and its outcome.
+func (q *Queue) handle(ctx context.Context, m jetstream.Msg, handler Handler, opts WorkOptions, beats *beater) {
 	meta, err := m.Metadata()
 	if err != nil {
 		q.log.Warn("queue: message without metadata", "subject", m.Subject(), "err", err)
@@ -211,7 +232,11 @@ func (q *Queue) handle(ctx context.Context, m jetstream.Msg, handler Handler, op
 	}
 	task.Attempt = uint32(meta.NumDelivered)
 
+	id := TaskID(task)
+	beats.take(id)
 	err = q.runWithHeartbeat(ctx, m, task, handler, opts.Heartbeat)
+	handedBack := err != nil && ctx.Err() != nil && !IsPermanent(err)
+	beats.settle(id, err == nil, err != nil && !handedBack)
 	switch {
 	case err == nil:
 		// Wait for the server to confirm the ack: after this the task is

@@ -63,9 +63,32 @@ type Health struct {
 	QueueBatch   int64   `json:"queue_batch"`
 	TilesPerS    float64 `json:"tiles_per_s"`
 	StepLatencyS float64 `json:"step_latency_s"` // latest step
-	Workers      int     `json:"workers"`
-	Uptime       float64 `json:"uptime_s"`
-	Version      string  `json:"version"`
+	// Workers counts the worker processes present: those whose last beat
+	// (queue.SubjectWorkerBeat) came within three of their beat intervals
+	// and that have not said they stop. WorkerSlots adds up their
+	// concurrency (tiles handled at once); WorkerList describes each.
+	Workers     int          `json:"workers"`
+	WorkerSlots int          `json:"worker_slots"`
+	WorkerList  []WorkerInfo `json:"worker_list"`
+	Uptime      float64      `json:"uptime_s"`
+	Version     string       `json:"version"`
+}
+
+// WorkerInfo is one worker present, as its last beat describes it. Times
+// are RFC 3339 in UTC; LastSeen is when the aggregator heard the beat (its
+// own clock, so a worker's clock does not matter).
+type WorkerInfo struct {
+	ID          string   `json:"id"`
+	Host        string   `json:"host"`
+	PID         int64    `json:"pid"`
+	StartedAt   string   `json:"started_at"`
+	LastSeen    string   `json:"last_seen"`
+	LastSeenAgo float64  `json:"last_seen_s_ago"`
+	BeatS       float64  `json:"beat_interval_s"`
+	Concurrency int      `json:"concurrency"`
+	TilesDone   uint64   `json:"tiles_done"`
+	TilesFailed uint64   `json:"tiles_failed"`
+	Current     []string `json:"current"` // tasks in hand: campaign/step/tile/param_hash
 }
 
 // RejectedScan is a scan the watcher gave up after its attempts (a

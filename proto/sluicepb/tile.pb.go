@@ -931,6 +931,144 @@ func (x *DeadLetter) GetAt() *timestamppb.Timestamp {
 	return nil
 }
 
+// WorkerBeat is a worker's sign of life, published every interval on the
+// core NATS subject sluice.worker.beat (not stored in a stream: a beat is
+// only worth anything while it is fresh). The aggregator counts a worker as
+// present while its last beat is younger than three of its intervals; a
+// worker that stops in order sends a last beat with stopping set and leaves
+// the count at once.
+type WorkerBeat struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The worker's name (as in results and dead letters).
+	WorkerId string `protobuf:"bytes,1,opt,name=worker_id,json=workerId,proto3" json:"worker_id,omitempty"`
+	Host     string `protobuf:"bytes,2,opt,name=host,proto3" json:"host,omitempty"`
+	Pid      int64  `protobuf:"varint,3,opt,name=pid,proto3" json:"pid,omitempty"`
+	// When the worker began taking tiles.
+	StartedAt *timestamppb.Timestamp `protobuf:"bytes,4,opt,name=started_at,json=startedAt,proto3" json:"started_at,omitempty"`
+	// Time between two beats of this worker.
+	Interval *durationpb.Duration `protobuf:"bytes,5,opt,name=interval,proto3" json:"interval,omitempty"`
+	// Tiles acknowledged since started_at.
+	TilesDone uint64 `protobuf:"varint,6,opt,name=tiles_done,json=tilesDone,proto3" json:"tiles_done,omitempty"`
+	// Deliveries whose handler failed since started_at.
+	TilesFailed uint64 `protobuf:"varint,7,opt,name=tiles_failed,json=tilesFailed,proto3" json:"tiles_failed,omitempty"`
+	// Tasks in hand now, as campaign/step/tile/param_hash.
+	Current []string `protobuf:"bytes,8,rep,name=current,proto3" json:"current,omitempty"`
+	// Tiles the worker handles at once.
+	Concurrency int32 `protobuf:"varint,9,opt,name=concurrency,proto3" json:"concurrency,omitempty"`
+	// Set on the last beat of a worker that stops in order.
+	Stopping      bool                   `protobuf:"varint,10,opt,name=stopping,proto3" json:"stopping,omitempty"`
+	SentAt        *timestamppb.Timestamp `protobuf:"bytes,11,opt,name=sent_at,json=sentAt,proto3" json:"sent_at,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *WorkerBeat) Reset() {
+	*x = WorkerBeat{}
+	mi := &file_sluice_v1_tile_proto_msgTypes[7]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *WorkerBeat) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*WorkerBeat) ProtoMessage() {}
+
+func (x *WorkerBeat) ProtoReflect() protoreflect.Message {
+	mi := &file_sluice_v1_tile_proto_msgTypes[7]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use WorkerBeat.ProtoReflect.Descriptor instead.
+func (*WorkerBeat) Descriptor() ([]byte, []int) {
+	return file_sluice_v1_tile_proto_rawDescGZIP(), []int{7}
+}
+
+func (x *WorkerBeat) GetWorkerId() string {
+	if x != nil {
+		return x.WorkerId
+	}
+	return ""
+}
+
+func (x *WorkerBeat) GetHost() string {
+	if x != nil {
+		return x.Host
+	}
+	return ""
+}
+
+func (x *WorkerBeat) GetPid() int64 {
+	if x != nil {
+		return x.Pid
+	}
+	return 0
+}
+
+func (x *WorkerBeat) GetStartedAt() *timestamppb.Timestamp {
+	if x != nil {
+		return x.StartedAt
+	}
+	return nil
+}
+
+func (x *WorkerBeat) GetInterval() *durationpb.Duration {
+	if x != nil {
+		return x.Interval
+	}
+	return nil
+}
+
+func (x *WorkerBeat) GetTilesDone() uint64 {
+	if x != nil {
+		return x.TilesDone
+	}
+	return 0
+}
+
+func (x *WorkerBeat) GetTilesFailed() uint64 {
+	if x != nil {
+		return x.TilesFailed
+	}
+	return 0
+}
+
+func (x *WorkerBeat) GetCurrent() []string {
+	if x != nil {
+		return x.Current
+	}
+	return nil
+}
+
+func (x *WorkerBeat) GetConcurrency() int32 {
+	if x != nil {
+		return x.Concurrency
+	}
+	return 0
+}
+
+func (x *WorkerBeat) GetStopping() bool {
+	if x != nil {
+		return x.Stopping
+	}
+	return false
+}
+
+func (x *WorkerBeat) GetSentAt() *timestamppb.Timestamp {
+	if x != nil {
+		return x.SentAt
+	}
+	return nil
+}
+
 var File_sluice_v1_tile_proto protoreflect.FileDescriptor
 
 const file_sluice_v1_tile_proto_rawDesc = "" +
@@ -1032,7 +1170,23 @@ const file_sluice_v1_tile_proto_rawDesc = "" +
 	"\x06reason\x18\x06 \x01(\tR\x06reason\x12\x1b\n" +
 	"\tworker_id\x18\a \x01(\tR\bworkerId\x12\x10\n" +
 	"\x03raw\x18\b \x01(\fR\x03raw\x12*\n" +
-	"\x02at\x18\t \x01(\v2\x1a.google.protobuf.TimestampR\x02at*K\n" +
+	"\x02at\x18\t \x01(\v2\x1a.google.protobuf.TimestampR\x02at\"\x90\x03\n" +
+	"\n" +
+	"WorkerBeat\x12\x1b\n" +
+	"\tworker_id\x18\x01 \x01(\tR\bworkerId\x12\x12\n" +
+	"\x04host\x18\x02 \x01(\tR\x04host\x12\x10\n" +
+	"\x03pid\x18\x03 \x01(\x03R\x03pid\x129\n" +
+	"\n" +
+	"started_at\x18\x04 \x01(\v2\x1a.google.protobuf.TimestampR\tstartedAt\x125\n" +
+	"\binterval\x18\x05 \x01(\v2\x19.google.protobuf.DurationR\binterval\x12\x1d\n" +
+	"\n" +
+	"tiles_done\x18\x06 \x01(\x04R\ttilesDone\x12!\n" +
+	"\ftiles_failed\x18\a \x01(\x04R\vtilesFailed\x12\x18\n" +
+	"\acurrent\x18\b \x03(\tR\acurrent\x12 \n" +
+	"\vconcurrency\x18\t \x01(\x05R\vconcurrency\x12\x1a\n" +
+	"\bstopping\x18\n" +
+	" \x01(\bR\bstopping\x123\n" +
+	"\asent_at\x18\v \x01(\v2\x1a.google.protobuf.TimestampR\x06sentAt*K\n" +
 	"\bPriority\x12\x18\n" +
 	"\x14PRIORITY_UNSPECIFIED\x10\x00\x12\x11\n" +
 	"\rPRIORITY_LIVE\x10\x01\x12\x12\n" +
@@ -1051,7 +1205,7 @@ func file_sluice_v1_tile_proto_rawDescGZIP() []byte {
 }
 
 var file_sluice_v1_tile_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
-var file_sluice_v1_tile_proto_msgTypes = make([]protoimpl.MessageInfo, 8)
+var file_sluice_v1_tile_proto_msgTypes = make([]protoimpl.MessageInfo, 9)
 var file_sluice_v1_tile_proto_goTypes = []any{
 	(Priority)(0),                 // 0: sluice.v1.Priority
 	(StepEvent_Kind)(0),           // 1: sluice.v1.StepEvent.Kind
@@ -1062,30 +1216,34 @@ var file_sluice_v1_tile_proto_goTypes = []any{
 	(*StepReady)(nil),             // 6: sluice.v1.StepReady
 	(*StepEvent)(nil),             // 7: sluice.v1.StepEvent
 	(*DeadLetter)(nil),            // 8: sluice.v1.DeadLetter
-	nil,                           // 9: sluice.v1.StepEvent.ValuesEntry
-	(*timestamppb.Timestamp)(nil), // 10: google.protobuf.Timestamp
-	(*durationpb.Duration)(nil),   // 11: google.protobuf.Duration
+	(*WorkerBeat)(nil),            // 9: sluice.v1.WorkerBeat
+	nil,                           // 10: sluice.v1.StepEvent.ValuesEntry
+	(*timestamppb.Timestamp)(nil), // 11: google.protobuf.Timestamp
+	(*durationpb.Duration)(nil),   // 12: google.protobuf.Duration
 }
 var file_sluice_v1_tile_proto_depIdxs = []int32{
 	2,  // 0: sluice.v1.TileTask.core:type_name -> sluice.v1.Box
 	0,  // 1: sluice.v1.TileTask.priority:type_name -> sluice.v1.Priority
-	10, // 2: sluice.v1.TileTask.published_at:type_name -> google.protobuf.Timestamp
-	11, // 3: sluice.v1.StageTiming.duration:type_name -> google.protobuf.Duration
+	11, // 2: sluice.v1.TileTask.published_at:type_name -> google.protobuf.Timestamp
+	12, // 3: sluice.v1.StageTiming.duration:type_name -> google.protobuf.Duration
 	4,  // 4: sluice.v1.TileDone.stages:type_name -> sluice.v1.StageTiming
-	10, // 5: sluice.v1.TileDone.finished_at:type_name -> google.protobuf.Timestamp
-	10, // 6: sluice.v1.TileDone.published_at:type_name -> google.protobuf.Timestamp
+	11, // 5: sluice.v1.TileDone.finished_at:type_name -> google.protobuf.Timestamp
+	11, // 6: sluice.v1.TileDone.published_at:type_name -> google.protobuf.Timestamp
 	0,  // 7: sluice.v1.StepReady.priority:type_name -> sluice.v1.Priority
-	10, // 8: sluice.v1.StepReady.ingested_at:type_name -> google.protobuf.Timestamp
+	11, // 8: sluice.v1.StepReady.ingested_at:type_name -> google.protobuf.Timestamp
 	1,  // 9: sluice.v1.StepEvent.kind:type_name -> sluice.v1.StepEvent.Kind
-	9,  // 10: sluice.v1.StepEvent.values:type_name -> sluice.v1.StepEvent.ValuesEntry
-	10, // 11: sluice.v1.StepEvent.at:type_name -> google.protobuf.Timestamp
+	10, // 10: sluice.v1.StepEvent.values:type_name -> sluice.v1.StepEvent.ValuesEntry
+	11, // 11: sluice.v1.StepEvent.at:type_name -> google.protobuf.Timestamp
 	3,  // 12: sluice.v1.DeadLetter.task:type_name -> sluice.v1.TileTask
-	10, // 13: sluice.v1.DeadLetter.at:type_name -> google.protobuf.Timestamp
-	14, // [14:14] is the sub-list for method output_type
-	14, // [14:14] is the sub-list for method input_type
-	14, // [14:14] is the sub-list for extension type_name
-	14, // [14:14] is the sub-list for extension extendee
-	0,  // [0:14] is the sub-list for field type_name
+	11, // 13: sluice.v1.DeadLetter.at:type_name -> google.protobuf.Timestamp
+	11, // 14: sluice.v1.WorkerBeat.started_at:type_name -> google.protobuf.Timestamp
+	12, // 15: sluice.v1.WorkerBeat.interval:type_name -> google.protobuf.Duration
+	11, // 16: sluice.v1.WorkerBeat.sent_at:type_name -> google.protobuf.Timestamp
+	17, // [17:17] is the sub-list for method output_type
+	17, // [17:17] is the sub-list for method input_type
+	17, // [17:17] is the sub-list for extension type_name
+	17, // [17:17] is the sub-list for extension extendee
+	0,  // [0:17] is the sub-list for field type_name
 }
 
 func init() { file_sluice_v1_tile_proto_init() }
@@ -1099,7 +1257,7 @@ func file_sluice_v1_tile_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_sluice_v1_tile_proto_rawDesc), len(file_sluice_v1_tile_proto_rawDesc)),
 			NumEnums:      2,
-			NumMessages:   8,
+			NumMessages:   9,
 			NumExtensions: 0,
 			NumServices:   0,
 		},

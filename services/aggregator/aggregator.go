@@ -76,6 +76,7 @@ type Aggregator struct {
 	tileTimes []time.Time               // recent tile arrivals, for tiles/s
 	arrived   map[string]map[int32]bool // tiles seen per (step, hash) tile prefix
 	lastLat   float64
+	workers   map[string]heardWorker // by worker id (WorkerBeat)
 }
 
 type campaignState struct {

@@ -259,5 +259,10 @@ func (a *Aggregator) Health(ctx context.Context) web.Health {
 		}
 	}
 	h.TilesPerS = float64(n) / 60
+	h.WorkerList = a.presentWorkers(time.Now())
+	h.Workers = len(h.WorkerList)
+	for _, w := range h.WorkerList {
+		h.WorkerSlots += w.Concurrency
+	}
 	return h
 }

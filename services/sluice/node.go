@@ -316,7 +316,12 @@ func (p taskPublisher) PublishTask(ctx context.Context, t *sluicepb.TileTask) er
 	return err
 }
 
-// runWorkers pulls tile tasks until ctx ends, then drains.
+// workerBeat is the interval of the workers' beats to the aggregator (0:
+// queue.DefaultBeat); tests shorten it.
+var workerBeat time.Duration
+
+// runWorkers pulls tile tasks until ctx ends, then drains, beating to the
+// aggregator meanwhile (queue.WorkOptions.Beat).
 //
 // A store that refuses this worker (store.IsRefused: wrong keys, a full or
 // read-only disk) would fail every tile here, so the worker stops taking
@@ -352,7 +357,7 @@ func runWorkers(ctx context.Context, q *queue.Queue, st store.Store, m *telemetr
 		}
 		m.TilesProcessed.WithLabelValues(prio).Inc()
 		return nil
-	}, queue.WorkOptions{Concurrency: concurrency, WorkerID: id})
+	}, queue.WorkOptions{Concurrency: concurrency, WorkerID: id, Beat: workerBeat})
 	if cause := context.Cause(ctx); err == nil && store.IsRefused(cause) {
 		return fmt.Errorf("worker %s stopped: the object store refuses it: %w", id, cause)
 	}
@@ -406,6 +411,9 @@ func runAggregator(ctx context.Context, q *queue.Queue, a *aggregator.Aggregator
 	g.Go("dead letters", func(ctx context.Context) error {
 		return q.FollowDeadLetters(ctx, aggregator.StopOnRefusal(a.StepFailed))
 	})
+	// Workers beat every few seconds: /api/health counts those heard of
+	// lately.
+	g.Go("worker beats", func(ctx context.Context) error { return q.WatchWorkers(ctx, a.WorkerBeat) })
 	g.Go("queue lag", func(ctx context.Context) error {
 		t := time.NewTicker(2 * time.Second)
 		defer t.Stop()
@@ -453,6 +461,9 @@ func newAggregator(ctx context.Context, st store.Store, q *queue.Queue, reg *pro
 	if err := a.Start(ctx); err != nil {
 		return nil, nil, nil, err
 	}
+	reg.MustRegister(prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "sluice_workers",
+		Help: "Worker processes present: heard from within three of their beat intervals."},
+		func() float64 { return float64(a.WorkersPresent()) }))
 	return a, m, hub, nil
 }
 

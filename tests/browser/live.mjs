@@ -32,6 +32,13 @@ try {
     return n;
   });
   if (inked < 500) await fail(`saturation plot nearly empty (${inked} dark pixels)`);
+  // The health line counts the node's worker process (it beats to the
+  // aggregator; /api/health lists it).
+  const workers = await page.waitForFunction(() => {
+    const w = document.getElementById("workers-count");
+    return w && Number(w.textContent) >= 1 && document.querySelectorAll("#workers li b").length >= 1;
+  }, null, { timeout: 60000 }).then(() => true, () => false);
+  if (!workers) await fail("health line does not count the node's worker within 60 s");
   const before = await points();
   console.log(`loaded ${before}`);
   await page.waitForFunction((b) => Number(document.getElementById("plot-sat").dataset.points || 0) > b, before, { timeout: 180000 });

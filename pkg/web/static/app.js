@@ -6,6 +6,10 @@
 // Line colours, chosen to stay distinct for the common red–green colour
 // vision deficiencies: they differ in lightness as well as hue (dark blue,
 // amber, dark magenta, light sky) and every series also has its own marker.
+// Axis units, written as the report's figures write them (pkg/plots Unit…;
+// a test in pkg/web holds the two together).
+const U = { none: "–", pressure: "kPa", area: "mm²/mm³ of bulk volume", angleDensity: "1/°" };
+
 const C = { a: "#1d3f8f", b: "#d98a00", c: "#8c2d73", d: "#4aa3d8", grid: "#e4e4e4", axis: "#555" };
 
 const state = { campaign: null, series: [], steps: [], events: [], rejected: [], lastStep: null };
@@ -102,13 +106,13 @@ function pair(kx, ky, sy = 1) { return state.series.map(r => [num(r[kx]), num(r[
 function draw() {
   plot(qs("plot-sat"), [
     { name: "S_w", color: C.a, marker: "circle", pts: col("saturation_wetting") },
-    { name: "S_n", color: C.b, marker: "square", pts: col("saturation_nonwetting") }], "time (s)", "saturation (–)", { ymin: 0, ymax: 1 });
+    { name: "S_n", color: C.b, marker: "square", pts: col("saturation_nonwetting") }], "time (s)", `saturation (${U.none})`, { ymin: 0, ymax: 1 });
   plot(qs("plot-pc"), [
     { name: "Pc mean", color: C.c, marker: "circle", pts: col("capillary_pressure_pa", 1e-3) },
-    { name: "Pc median", color: C.d, marker: "triangle", pts: col("capillary_pressure_median_pa", 1e-3) }], "time (s)", "Pc (kPa)");
-  plot(qs("plot-awn"), [{ name: "a_wn", color: C.a, marker: "diamond", pts: col("specific_area_wn_per_m", 1e-3) }], "time (s)", "a_wn (1/mm)");
-  plot(qs("plot-pcs"), [{ name: "Pc(S_w)", color: C.c, marker: "circle", pts: pair("saturation_wetting", "capillary_pressure_pa", 1e-3) }], "S_w (–)", "Pc (kPa)", { xmin: 0, xmax: 1 });
-  plot(qs("plot-as"), [{ name: "a_wn(S_w)", color: C.a, marker: "square", pts: pair("saturation_wetting", "specific_area_wn_per_m", 1e-3) }], "S_w (–)", "a_wn (1/mm)", { xmin: 0, xmax: 1 });
+    { name: "Pc median", color: C.d, marker: "triangle", pts: col("capillary_pressure_median_pa", 1e-3) }], "time (s)", `Pc (${U.pressure})`);
+  plot(qs("plot-awn"), [{ name: "a_wn", color: C.a, marker: "diamond", pts: col("specific_area_wn_per_m", 1e-3) }], "time (s)", `a_wn (${U.area})`);
+  plot(qs("plot-pcs"), [{ name: "Pc(S_w)", color: C.c, marker: "circle", pts: pair("saturation_wetting", "capillary_pressure_pa", 1e-3) }], `S_w (${U.none})`, `Pc (${U.pressure})`, { xmin: 0, xmax: 1 });
+  plot(qs("plot-as"), [{ name: "a_wn(S_w)", color: C.a, marker: "square", pts: pair("saturation_wetting", "specific_area_wn_per_m", 1e-3) }], `S_w (${U.none})`, `a_wn (${U.area})`, { xmin: 0, xmax: 1 });
   const last = state.series[state.series.length - 1];
   const run = new Array(180).fill(0);
   let nrun = 0;
@@ -118,9 +122,9 @@ function draw() {
   plot(qs("plot-angle"), [
     { name: "all steps", color: C.d, bars: true, alpha: 0.6, pts: run.map((c, i) => [i, nrun ? c / nrun : 0]) },
     { name: "latest step", color: C.c, marker: "circle", line: true, pts: nl ? lh.map((c, i) => [i + 0.5, c / nl]) : [] }],
-    "contact angle θ through wetting phase (°)", "fraction per 1°", { xmin: 0, xmax: 180, ymin: 0 });
-  plot(qs("plot-ganglia"), [{ name: "ganglia", color: C.b, marker: "square", pts: col("ganglia_count") }], "time (s)", "ganglia count", { ymin: 0 });
-  plot(qs("plot-largest"), [{ name: "largest cluster / all nonwetting", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], "time (s)", "fraction (–)", { ymin: 0, ymax: 1 });
+    "contact angle θ through wetting phase (°)", `fraction of samples per degree (${U.angleDensity})`, { xmin: 0, xmax: 180, ymin: 0 });
+  plot(qs("plot-ganglia"), [{ name: "ganglia", color: C.b, marker: "square", pts: col("ganglia_count") }], "time (s)", `number of ganglia (${U.none})`, { ymin: 0 });
+  plot(qs("plot-largest"), [{ name: "largest cluster / all nonwetting", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], "time (s)", `largest ganglion fraction (${U.none})`, { ymin: 0, ymax: 1 });
   const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s, s.latency_s]);
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], "time (s)", "ingest → series (s)", { ymin: 0 });
   summary(last);
@@ -167,15 +171,23 @@ function banners() {
   qs("banners").innerHTML = b.map(([c, t]) => `<div class="${c}">${t}</div>`).join("");
 }
 
+// taskName shows a task id (campaign/step/tile/param_hash) as "step tile N".
+function taskName(id) { const p = String(id).split("/"); return p.length >= 3 ? `${p[1]} tile ${p[2]}` : String(id); }
+
 async function health() {
   try {
     const h = await getJSON("/api/health");
-    qs("health").innerHTML = `<div>queue (live / batch)<b>${h.queue_live} / ${h.queue_batch}</b></div><div>tiles/s<b>${fmt(h.tiles_per_s, 2)}</b></div><div>latest step latency<b>${fmt(h.step_latency_s, 1)} s</b></div><div>version<b>${h.version}</b></div>`;
+    const ws = h.worker_list || [];
+    qs("health").innerHTML = `<div>workers<b id="workers-count">${h.workers}</b></div><div>queue (live / batch)<b>${h.queue_live} / ${h.queue_batch}</b></div><div>tiles/s<b>${fmt(h.tiles_per_s, 2)}</b></div><div>latest step latency<b>${fmt(h.step_latency_s, 1)} s</b></div><div>version<b>${esc(h.version)}</b></div>`;
+    qs("workers").innerHTML = ws.length ? ws.map(w =>
+      `<li><b>${esc(w.id)}</b> on ${esc(w.host)}: ${w.tiles_done} tiles done` + (w.tiles_failed ? `, ${w.tiles_failed} failed` : "") +
+      `, ${w.current.length ? "working on " + w.current.map(x => esc(taskName(x))).join(", ") : "idle"}; last seen ${fmt(w.last_seen_s_ago, 0)} s ago</li>`).join("")
+      : `<li>No worker heard from: tiles wait in the queue until one starts.</li>`;
   } catch (e) { /* shown by the connection pill */ }
 }
 
 async function refresh() {
-  if (!state.campaign) return;
+  if (!state.campaign) { health(); return; }
   const c = encodeURIComponent(state.campaign);
   const [series, steps, events, rejected] = await Promise.all([
     getJSON(`/api/campaigns/${c}/series.json`).catch(() => []),
