@@ -76,24 +76,29 @@ func TestWholeIndependentOfTiling(t *testing.T) {
 	t.Logf("truth × segmented (solid, wetting, nonwetting, outside): %v; sample %+v; thresholds %v %+v", conf, refPrep.Thresholds.Sample, refPrep.Thresholds.T, refPrep.Thresholds.Phases)
 	t.Logf("pore voxels right %.4f (wetting %.4f, nonwetting %.4f), sample masked %.4f, ΔS_w %+.4f, Δφ %+.4f", poreAcc, wetAcc, nonAcc, masked, dS, dPhi)
 	// Source: the forward model's truth labels and cylinder. Measured
-	// 2026-12-04 (errors in the table): the pores of this small scene are
-	// only a few voxels wide, and a fifth of the true wetting voxels come
-	// out nonwetting (and 14 % of the nonwetting ones wetting), so the pore
-	// accuracy is 74 % (78 % among the voxels the detector keeps; the old
-	// check, ≥ 75 % there, ignored masking). The detected disc (radius 17.45
-	// for 18) masks 6.4 % of the sample. Bands twice each measured error;
-	// together they catch a lost phase (e.g. all pore wetting: nonwetting
-	// 100 % wrong, ΔS_w +0.46) and an over-eager mask.
+	// 2026-12-05 with the default watershed assignment (errors in the
+	// table): the pores of this small scene are only a few voxels wide, and
+	// a fifth of the true wetting voxels come out nonwetting (and 10 % of
+	// the nonwetting ones wetting), so the pore accuracy is 75 %. The
+	// detected disc (radius 17.45 for 18) masks 6.4 % of the sample. With
+	// the threshold assignment (2026-12-04) ΔS_w was only −0.013 because
+	// two errors cancelled: 1751 solid voxels called wetting (the false
+	// brine skin on rock contacts) offset 2110 wetting voxels called
+	// nonwetting; the watershed calls 748 fewer solid voxels wetting and
+	// 372 fewer nonwetting voxels wetting (pore accuracy 0.7426 → 0.7476,
+	// |Δφ| 0.0372 → 0.0175), which leaves ΔS_w at −0.058. Bands twice each
+	// measured error; together they catch a lost phase (e.g. all pore
+	// wetting: nonwetting 100 % wrong, ΔS_w +0.46) and an over-eager mask.
 	for _, c := range []struct {
 		name          string
 		err, measured float64
 	}{
-		{"pore voxels wrong", 1 - poreAcc, 0.2574},
-		{"wetting voxels wrong", 1 - wetAcc, 0.3049},
-		{"nonwetting voxels wrong", 1 - nonAcc, 0.2014},
+		{"pore voxels wrong", 1 - poreAcc, 0.2524},
+		{"wetting voxels wrong", 1 - wetAcc, 0.3168},
+		{"nonwetting voxels wrong", 1 - nonAcc, 0.1764},
 		{"sample masked", masked, 0.0637},
-		{"|ΔS_w|", math.Abs(dS), 0.0130},
-		{"|Δφ|", math.Abs(dPhi), 0.0372},
+		{"|ΔS_w|", math.Abs(dS), 0.0576},
+		{"|Δφ|", math.Abs(dPhi), 0.0175},
 	} {
 		if c.err > 2*c.measured {
 			t.Errorf("%s: %.4f, more than twice the measured %.4f", c.name, c.err, c.measured)

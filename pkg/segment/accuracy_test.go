@@ -242,19 +242,30 @@ type variant struct {
 	reference  bool
 	ideal      bool // reference mask = true solid
 	localFluid int  // local-fluid passes (3-class mode)
+	watershed  bool // Assign "watershed" (default); else "threshold"
 }
 
+// variants: the first six are the threshold assignment (the only one
+// before the watershed existed; their numbers are those of 2026-12-04),
+// the last three the default watershed assignment without any
+// partial-volume correction (no PSF needed).
 var variants = []variant{
-	{"median 3-class", "median", false, false, false, 0},
-	{"nlm 3-class+pv", "nlm", true, false, false, 0},
-	{"nlm ref+pv, scan mask", "nlm", true, true, false, 0},
-	{"nlm ref+pv, ideal mask", "nlm", true, true, true, 0},
-	{"nlm 3-class+pv+lf1", "nlm", true, false, false, 1},
-	{"nlm 3-class+pv+lf2", "nlm", true, false, false, 2},
+	{"median 3-class", "median", false, false, false, 0, false},
+	{"nlm 3-class+pv", "nlm", true, false, false, 0, false},
+	{"nlm ref+pv, scan mask", "nlm", true, true, false, 0, false},
+	{"nlm ref+pv, ideal mask", "nlm", true, true, true, 0, false},
+	{"nlm 3-class+pv+lf1", "nlm", true, false, false, 1, false},
+	{"nlm 3-class+pv+lf2", "nlm", true, false, false, 2, false},
+	{"median 3-class ws", "median", false, false, false, 0, true},
+	{"nlm 3-class ws", "nlm", false, false, false, 0, true},
+	{"nlm ref ws, scan mask", "nlm", false, true, false, 0, true},
 }
 
 func (v variant) params(fp forward.Params) Params {
 	p := withFilter(fp, v.filter)
+	if !v.watershed {
+		p.Assign = AssignThreshold
+	}
 	if v.pv {
 		p.PartialVolume.Blur = fp.Blur
 		p.PartialVolume.LocalFluid = v.localFluid
@@ -299,6 +310,17 @@ var measuredSeed1 = map[string]errs{
 	"CNR 10 nlm ref+pv, ideal mask": {0.0049, -0.0037, -0.066, 0},
 	"CNR 10 nlm 3-class+pv+lf1":     {0.0138, -0.0052, +0.058, -0.0010},
 	"CNR 10 nlm 3-class+pv+lf2":     {0.0152, -0.0090, -0.094, -0.0021},
+	// Watershed assignment (default), no partial-volume correction;
+	// measured 2026-12-05.
+	"CNR 3 median 3-class ws":      {0.0353, -0.0047, -0.041, -0.0002},
+	"CNR 3 nlm 3-class ws":         {0.0329, -0.0109, -0.134, -0.0022},
+	"CNR 3 nlm ref ws, scan mask":  {0.0159, -0.0032, +0.037, -0.0011},
+	"CNR 5 median 3-class ws":      {0.0306, -0.0064, -0.075, -0.0017},
+	"CNR 5 nlm 3-class ws":         {0.0255, -0.0090, -0.116, -0.0021},
+	"CNR 5 nlm ref ws, scan mask":  {0.0135, -0.0027, +0.024, -0.0011},
+	"CNR 10 median 3-class ws":     {0.0273, -0.0081, -0.082, -0.0029},
+	"CNR 10 nlm 3-class ws":        {0.0199, -0.0082, -0.101, -0.0022},
+	"CNR 10 nlm ref ws, scan mask": {0.0113, -0.0028, +0.012, -0.0011},
 }
 
 // TestAccuracyForwardModel scores the pipeline on forward-model scans of
@@ -337,7 +359,8 @@ func TestAccuracyForwardModel(t *testing.T) {
 			}
 			me, ok := measuredSeed1[key]
 			if !ok {
-				t.Fatalf("%s: no measured errors recorded", key)
+				t.Errorf("%s: no measured errors recorded", key)
+				continue
 			}
 			checkTruth(t, key, sc, me, target)
 		}
@@ -355,22 +378,31 @@ func TestAccuracyOtherScenes(t *testing.T) {
 		"nlm ref+pv, scan mask": {0.0187, -0.0082, -0.083, -0.0012},
 		"nlm 3-class+pv+lf1":    {0.0297, -0.0019, +0.183, +0.0005},
 		"nlm 3-class+pv+lf2":    {0.0310, -0.0143, -0.089, -0.0023},
+		// Watershed, no partial-volume correction (2026-12-05).
+		"nlm 3-class ws":        {0.0381, -0.0158, -0.184, -0.0027},
+		"nlm ref ws, scan mask": {0.0230, -0.0013, +0.027, -0.0012},
 	}
 	grey, truth, fp := packScene(128, 2, 5, 5)
 	p := variants[2].params(fp)
 	f := prefiltered(t, grey, p)
-	lab, th := pipeline(t, f, unfiltered(p), referenceMask(t, truth, fp))
+	mask := referenceMask(t, truth, fp)
+	lab, th := pipeline(t, f, unfiltered(p), mask)
 	sc := scoreOf(t, lab, truth, p.Codes)
 	t.Logf("seed 2, ref+pv scan mask: true S_w %.3f φ %.4f, pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, Δφ %+.4f, threshold %v", sc.sTrue, sc.phiTrue, 100*sc.poreAcc, sc.dS, 100*sc.dA, sc.dPhi, th.T)
 	checkTruth(t, "seed 2, "+variants[2].name, sc, measured[variants[2].name], &issue3)
-	for _, v := range variants[4:] {
+	for _, v := range []variant{variants[4], variants[5], variants[7], variants[8]} {
 		p := v.params(fp)
-		lab, th := pipeline(t, f, unfiltered(p), nil)
+		var sm *volume.Labels
+		if v.reference {
+			sm = mask
+		}
+		lab, th := pipeline(t, f, unfiltered(p), sm)
 		sc := scoreOf(t, lab, truth, p.Codes)
 		t.Logf("seed 2, %s: pore %.2f %%, ΔS_w %+.4f, ΔA_wn %+.1f %%, Δφ %+.4f, thresholds %v", v.name, 100*sc.poreAcc, sc.dS, 100*sc.dA, sc.dPhi, th.T)
 		m, ok := measured[v.name]
 		if !ok {
-			t.Fatalf("seed 2, %s: no measured errors recorded", v.name)
+			t.Errorf("seed 2, %s: no measured errors recorded", v.name)
+			continue
 		}
 		checkTruth(t, "seed 2, "+v.name, sc, m, nil)
 	}

@@ -115,6 +115,14 @@ type Params struct {
 	// PartialVolume corrects the fluid grey next to the solid for the
 	// scanner blur (see the package doc); Blur 0 = off.
 	PartialVolume PartialVolume `json:"partial_volume" yaml:"partial_volume"`
+	// Assign decides the voxels between the confident ones of each class:
+	// "watershed" (default: seeds are the voxels whose face neighbours
+	// share their threshold class; the rest are flooded from them over the
+	// grey differences, see the package doc) or "threshold" (every voxel
+	// keeps the class of its filtered grey).
+	Assign string `json:"assign" yaml:"assign"`
+	// Watershed bounds the flood of Assign "watershed".
+	Watershed Watershed `json:"watershed" yaml:"watershed"`
 	// Hysteresis of the nonwetting phase; Band 0 = off.
 	Hysteresis Hysteresis `json:"hysteresis" yaml:"hysteresis"`
 	// MinIsland: 26-connected nonwetting components of fewer voxels become
@@ -134,8 +142,9 @@ type Params struct {
 }
 
 // Defaults returns codes 0/1/2, order "nws", a 3×3×3 median, 3-class Otsu,
-// 1024 bins, hysteresis off, island removal off, no sample mask, and
-// 8-voxel blocks for sample detection.
+// 1024 bins, watershed assignment (sum cost, at most 4 steps), hysteresis
+// off, island removal off, no sample mask, and 8-voxel blocks for sample
+// detection.
 func Defaults() Params {
 	return Params{
 		Codes:         phase.Default(),
@@ -143,6 +152,8 @@ func Defaults() Params {
 		Filter:        Filter{Method: "median", Sigma: 1, Truncate: filter.DefaultTruncate, NLM: filter.NLM{PatchRadius: 1, SearchRadius: 2}},
 		Threshold:     "otsu",
 		Bins:          1024,
+		Assign:        AssignWatershed,
+		Watershed:     Watershed{Steps: 4, Cost: CostSum},
 		Hysteresis:    Hysteresis{Steps: 4},
 		PartialVolume: PartialVolume{MaxFraction: 0.6},
 		SampleBlock:   8,
@@ -200,6 +211,16 @@ func (p Params) Validate() error {
 	if math.IsNaN(p.Range[0]) || math.IsNaN(p.Range[1]) || math.IsInf(p.Range[0], 0) || math.IsInf(p.Range[1], 0) || p.Range[1] < p.Range[0] {
 		return fmt.Errorf("segment: bad float range %v", p.Range)
 	}
+	switch p.Assign {
+	case AssignWatershed:
+		ws := p.Watershed
+		if ws.Steps < 1 || ws.Steps > 16 || (ws.Cost != CostSum && ws.Cost != CostMax) {
+			return fmt.Errorf("segment: watershed steps %d must be in 1..16 and cost %q sum or max", ws.Steps, ws.Cost)
+		}
+	case AssignThreshold:
+	default:
+		return fmt.Errorf("segment: unknown assign %q (want watershed or threshold)", p.Assign)
+	}
 	h := p.Hysteresis
 	if h.Band < 0 || math.IsNaN(h.Band) || math.IsInf(h.Band, 0) || (h.Band > 0 && (h.Steps < 1 || h.Steps > 64)) {
 		return fmt.Errorf("segment: hysteresis band %g must be >= 0 with steps in 1..64 (got %d)", h.Band, h.Steps)
@@ -244,9 +265,9 @@ func (p Params) FilterHalo() int {
 
 // Halo returns the halo a tile needs for Segment to equal the whole-volume
 // result: filter halo + partial-volume blur radius·(1 + 2·LocalFluid) +
-// hysteresis steps + (MinIsland − 1).
+// watershed steps + 1 + hysteresis steps + (MinIsland − 1).
 func (p Params) Halo() int {
-	h := p.FilterHalo() + p.PVHalo()*(1+2*p.PartialVolume.LocalFluid)
+	h := p.FilterHalo() + p.PVHalo()*(1+2*p.PartialVolume.LocalFluid) + p.WatershedHalo()
 	if p.Hysteresis.Band > 0 {
 		h += p.Hysteresis.Steps
 	}

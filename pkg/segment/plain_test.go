@@ -40,60 +40,67 @@ func TestIntegerPathMatchesFloat(t *testing.T) {
 		"reference": func(p *Params) { p.Reference = true; p.Sample = Sample{Y: 12, X: 12, Radius: 10} },
 		"pv":        func(p *Params) { p.PartialVolume.Blur = 0.7 },
 	}
-	for name, set := range cases {
-		p := withFilter(fp, "median")
-		p.MinIsland = 0
-		// The paths, not the phase decision, are compared: this small CNR 4
-		// scene lies below the decision's limit (phases.go), so state both.
-		p.Fluids = FluidsBoth
-		set(&p)
-		var solid *volume.Labels
-		if p.Reference {
-			solid = mask
-		}
-		h, err := Histogram(grey, grey.Box, p, solid)
-		if err != nil {
-			t.Fatal(err)
-		}
-		hf, err := Histogram(f, grey.Box, withRange(p), solid)
-		if err != nil {
-			t.Fatal(err)
-		}
-		th, err := ComputeThresholds(h, p)
-		if err != nil {
-			t.Fatal(err)
-		}
-		// Same binning (64 grey values per bin from 0): same counts.
-		for i := range h.Counts {
-			if h.Counts[i] != hf.Counts[i] {
-				t.Fatalf("%s: histogram bin %d: uint16 %d, float32 %d", name, i, h.Counts[i], hf.Counts[i])
+	// Every case with the watershed (default) and with the threshold
+	// assignment, whose median path never computes the median
+	// (filter.Median3Levels).
+	for _, assign := range []string{AssignWatershed, AssignThreshold} {
+		for name, set := range cases {
+			name := name + " " + assign
+			p := withFilter(fp, "median")
+			p.Assign = assign
+			p.MinIsland = 0
+			// The paths, not the phase decision, are compared: this small CNR 4
+			// scene lies below the decision's limit (phases.go), so state both.
+			p.Fluids = FluidsBoth
+			set(&p)
+			var solid *volume.Labels
+			if p.Reference {
+				solid = mask
 			}
-		}
-		a, err := Segment(grey, core, th, p, solid)
-		if err != nil {
-			t.Fatalf("%s: %v", name, err)
-		}
-		b, err := Segment(f, core, th, withRange(p), solid)
-		if err != nil {
-			t.Fatalf("%s: %v", name, err)
-		}
-		var diff, nw, out int
-		for i := range a.Pix {
-			if a.Pix[i] != b.Pix[i] {
-				diff++
+			h, err := Histogram(grey, grey.Box, p, solid)
+			if err != nil {
+				t.Fatal(err)
 			}
-			if a.Pix[i] == p.Codes.Nonwetting {
-				nw++
+			hf, err := Histogram(f, grey.Box, withRange(p), solid)
+			if err != nil {
+				t.Fatal(err)
 			}
-			if a.Pix[i] == phase.Outside {
-				out++
+			th, err := ComputeThresholds(h, p)
+			if err != nil {
+				t.Fatal(err)
 			}
-		}
-		if diff != 0 || a.Box != b.Box || a.VoxelSize != b.VoxelSize {
-			t.Errorf("%s: %d of %d labels differ between uint16 and float32 input (boxes %v %v)", name, diff, len(a.Pix), a.Box, b.Box)
-		}
-		if nw == 0 || (p.Sample.Radius > 0 && out == 0) {
-			t.Errorf("%s: no nonwetting (%d) or outside (%d) voxels: the check proves nothing", name, nw, out)
+			// Same binning (64 grey values per bin from 0): same counts.
+			for i := range h.Counts {
+				if h.Counts[i] != hf.Counts[i] {
+					t.Fatalf("%s: histogram bin %d: uint16 %d, float32 %d", name, i, h.Counts[i], hf.Counts[i])
+				}
+			}
+			a, err := Segment(grey, core, th, p, solid)
+			if err != nil {
+				t.Fatalf("%s: %v", name, err)
+			}
+			b, err := Segment(f, core, th, withRange(p), solid)
+			if err != nil {
+				t.Fatalf("%s: %v", name, err)
+			}
+			var diff, nw, out int
+			for i := range a.Pix {
+				if a.Pix[i] != b.Pix[i] {
+					diff++
+				}
+				if a.Pix[i] == p.Codes.Nonwetting {
+					nw++
+				}
+				if a.Pix[i] == phase.Outside {
+					out++
+				}
+			}
+			if diff != 0 || a.Box != b.Box || a.VoxelSize != b.VoxelSize {
+				t.Errorf("%s: %d of %d labels differ between uint16 and float32 input (boxes %v %v)", name, diff, len(a.Pix), a.Box, b.Box)
+			}
+			if nw == 0 || (p.Sample.Radius > 0 && out == 0) {
+				t.Errorf("%s: no nonwetting (%d) or outside (%d) voxels: the check proves nothing", name, nw, out)
+			}
 		}
 	}
 }
@@ -113,13 +120,16 @@ func TestIntegerMedianTiling(t *testing.T) {
 	p.Hysteresis = Hysteresis{Band: 600, Steps: 2}
 	p.MinIsland = 4
 	p.Sample = Sample{Y: 14.5, X: 15, Radius: 13}
-	l1, _, _ := tiled(t, grey, grey.Box, [3]int{n, n, n}, p, nil)
-	for _, k := range []int{2, 3} {
-		e := (n + k - 1) / k
-		lk, _, _ := tiled(t, grey, grey.Box, [3]int{e, e, e}, p, nil)
-		for i := range l1.Pix {
-			if l1.Pix[i] != lk.Pix[i] {
-				t.Fatalf("%d³ tiles: label %d differs from the whole volume", k, i)
+	for _, assign := range []string{AssignWatershed, AssignThreshold} {
+		p.Assign = assign
+		l1, _, _ := tiled(t, grey, grey.Box, [3]int{n, n, n}, p, nil)
+		for _, k := range []int{2, 3} {
+			e := (n + k - 1) / k
+			lk, _, _ := tiled(t, grey, grey.Box, [3]int{e, e, e}, p, nil)
+			for i := range l1.Pix {
+				if l1.Pix[i] != lk.Pix[i] {
+					t.Fatalf("%s, %d³ tiles: label %d differs from the whole volume", assign, k, i)
+				}
 			}
 		}
 	}
@@ -173,6 +183,7 @@ func benchScene(b *testing.B, p Params) (*volume.Volume[uint16], volume.Box, Thr
 
 func benchSegment(b *testing.B, set func(p *Params)) {
 	p := Defaults()
+	p.Assign = AssignThreshold // each stage alone, unless set asks for the watershed
 	set(&p)
 	grey, core, th := benchScene(b, p)
 	b.ReportAllocs()
@@ -186,8 +197,15 @@ func benchSegment(b *testing.B, set func(p *Params)) {
 	reportThroughput(b, core.Voxels(), cpuTime()-c0)
 }
 
-// BenchmarkSegmentMedian: median + thresholding (the default) on uint16.
-func BenchmarkSegmentMedian(b *testing.B) { benchSegment(b, func(p *Params) {}) }
+// BenchmarkSegmentMedian: median + thresholds + watershed (the default) on
+// uint16.
+func BenchmarkSegmentMedian(b *testing.B) {
+	benchSegment(b, func(p *Params) { p.Assign = AssignWatershed })
+}
+
+// BenchmarkSegmentMedianThreshold: median + thresholds, threshold
+// assignment (the median never computed: threshold decomposition).
+func BenchmarkSegmentMedianThreshold(b *testing.B) { benchSegment(b, func(p *Params) {}) }
 
 // BenchmarkSegmentThreshold: thresholding alone (filter none) on uint16.
 func BenchmarkSegmentThreshold(b *testing.B) {

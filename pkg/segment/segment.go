@@ -54,13 +54,16 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	}
 	l2 := core.Grow(isl).Intersect(gb)
 	l1 := l2.Grow(steps).Intersect(gb)
+	// The watershed decides l1 from the classes over lw.
+	ws := p.WatershedHalo()
+	lw := l1.Grow(ws).Intersect(gb)
 	// Each local-fluid pass needs the previous labels over its box grown by
 	// the blur radius (local fluid grey) and its solid mask over that box
 	// grown once more (blurred solid fraction): boxes[k] holds the labels of
-	// pass k, boxes[0] those of the plain pass, boxes[passes] = l1.
+	// pass k, boxes[0] those of the plain pass, boxes[passes] = lw.
 	passes := p.PartialVolume.LocalFluid
 	boxes := make([]volume.Box, passes+1)
-	boxes[passes] = l1
+	boxes[passes] = lw
 	for k := passes - 1; k >= 0; k-- {
 		boxes[k] = boxes[k+1].Grow(2 * p.PVHalo()).Intersect(gb)
 	}
@@ -74,16 +77,23 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 	var (
 		lab  *volume.Labels
 		g    *volume.Volume[float32]
-		kind []uint8 // hysteresis kinds, when the labelling gave them
+		f    *volume.Volume[float32] // filtered grey (watershed)
+		kind []uint8                 // hysteresis kinds, when the labelling gave them
 		err  error
 	)
-	if p.PartialVolume.Blur == 0 {
+	if p.PartialVolume.Blur == 0 && ws > 0 {
+		// Plain pass for the watershed, which needs the filtered grey:
+		// filter once, then classify the float32 grey.
+		if f, err = filtered(grey, lw, p); err != nil {
+			return nil, err
+		}
+		lab, g = classify(f, p, c, solid), f
+	} else if p.PartialVolume.Blur == 0 {
 		// Plain pass: l0 == l1; filter and classify row by row.
 		if lab, g, kind, err = plainLabels(grey, l1, p, c, solid, steps > 0); err != nil {
 			return nil, err
 		}
 	} else {
-		var f *volume.Volume[float32]
 		if f, err = filtered(grey, l0, p); err != nil {
 			return nil, err
 		}
@@ -125,6 +135,21 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 			}
 		}
 	}
+	if ws > 0 {
+		// Pass 1 over lw; pass 2 (wall) over the box it decides.
+		reach := p.Watershed.Steps + 1
+		p1 := l1.Grow(reach).Intersect(gb)
+		if p.Watershed.Wall {
+			lab = c.flood(lab, cropTo(f, lw), p1, p, false)
+			lab = c.flood(lab, cropTo(f, p1), l1, p, true)
+		} else {
+			lab = c.flood(lab, cropTo(f, lw), l1, p, false)
+		}
+		if g != nil && steps > 0 {
+			g = cropTo(g, l1)
+		}
+		kind = nil
+	}
 	lab.VoxelSize = grey.EdgeLength()
 	if steps > 0 {
 		if kind == nil {
@@ -139,6 +164,34 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 		return lab, nil
 	}
 	return lab.Crop(core, 0), nil
+}
+
+// cropTo returns v cropped to box, or v itself when it covers box exactly.
+func cropTo(v *volume.Volume[float32], box volume.Box) *volume.Volume[float32] {
+	if v.Box == box {
+		return v
+	}
+	return v.Crop(box, 0)
+}
+
+// classify labels the box of the filtered grey f by class, sample cylinder
+// and reference mask, as plainLabels does.
+func classify(f *volume.Volume[float32], p Params, c *classes, mask *volume.Labels) *volume.Labels {
+	out := f.Box
+	rl := &rowLabeller{p: p, c: c, mask: mask, out: out, lab: volume.New[uint8](out, f.VoxelSize)}
+	rl.span = sampleSpans(p.Sample, out)
+	nx := out.Max[2] - out.Min[2]
+	for z := out.Min[0]; z < out.Max[0]; z++ {
+		for y := out.Min[1]; y < out.Max[1]; y++ {
+			row := f.Pix[f.Index(z, y, out.Min[2]):][:nx]
+			dst, x0, x1 := rl.row(z, y)
+			for i := x0; i < x1; i++ {
+				dst[i] = c.codes[c.class(float64(row[i]))]
+			}
+			rl.masked(z, y, dst, x0, x1)
+		}
+	}
+	return rl.lab
 }
 
 // maskCode is the label of a voxel the reference mask puts outside the pore

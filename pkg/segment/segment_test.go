@@ -159,14 +159,17 @@ func tiled(t *testing.T, grey volume.Any, whole volume.Box, tile [3]int, p Param
 }
 
 // TestTileInvariance segments with 1, 8 and 27 tiles, with every stage on
-// (NLM, partial-volume correction, hysteresis, island removal, sample mask),
-// in 3-class and reference mode, and requires identical histograms,
-// thresholds and labels.
+// (NLM, partial-volume correction, watershed, hysteresis, island removal,
+// sample mask), in 3-class and reference mode, and requires identical
+// histograms, thresholds and labels. Each watershed cost runs once per
+// mode, the second with the wall pass.
 func TestTileInvariance(t *testing.T) {
 	const n = 30
 	grey, truth, fp := scene(n, 4, 7)
-	for _, ref := range []bool{false, true} {
+	for k := 0; k < 4; k++ {
+		ref := k%2 == 1
 		p := withFilter(fp, "nlm")
+		p.Watershed = Watershed{Steps: 3, Cost: []string{CostSum, CostMax}[k/2], Wall: k/2 == 1}
 		p.PartialVolume.Blur = 0.7
 		p.Hysteresis = Hysteresis{Band: 600, Steps: 2}
 		p.MinIsland = 4
@@ -217,6 +220,19 @@ func TestTileInvariance(t *testing.T) {
 		if outside == 0 || nw == 0 {
 			t.Errorf("ref %v: no outside (%d) or nonwetting (%d) voxels", ref, outside, nw)
 		}
+		q := p
+		q.Assign = AssignThreshold
+		lt, _, _ := tiled(t, grey, whole, [3]int{n, n, n}, q, mask)
+		moved := 0
+		for i := range lt.Pix {
+			if lt.Pix[i] != l1.Pix[i] {
+				moved++
+			}
+		}
+		if moved == 0 {
+			t.Errorf("ref %v, watershed %+v: no label differs from the threshold assignment", ref, p.Watershed)
+		}
+		t.Logf("ref %v, watershed %+v: %d of %d labels differ from the threshold assignment", ref, p.Watershed, moved, len(lt.Pix))
 	}
 }
 
@@ -245,6 +261,9 @@ func TestHysteresisAndIslands(t *testing.T) {
 	p.Threshold = "fixed"
 	p.Fixed = []float64{50}
 	p.Hysteresis = Hysteresis{Band: 10, Steps: 3}
+	// The stages are checked alone: the watershed would flood the
+	// one-voxel seed (no voxel of its class among its neighbours).
+	p.Assign = AssignThreshold
 	th, _ := ComputeThresholds(Hist{}, p)
 	lab, err := Segment(g, g.Box, th, p, mask)
 	if err != nil {
@@ -360,10 +379,12 @@ func TestFloatExtent(t *testing.T) {
 }
 
 // BenchmarkSegment256 segments one 256³ uint16 tile (plus halo) with the
-// median filter and with NLM; throughput is reported per core.
+// median filter (default watershed assignment, and threshold assignment)
+// and with NLM; throughput is reported per core.
 func BenchmarkSegment256(b *testing.B) {
-	for _, method := range []string{"median", "nlm"} {
-		b.Run(method, func(b *testing.B) {
+	for _, name := range []string{"median", "median-threshold", "nlm"} {
+		method, assign, _ := strings.Cut(name, "-")
+		b.Run(name, func(b *testing.B) {
 			const n = 256
 			lab := volume.NewShape[uint8](n+8, n+8, n+8, 1e-6)
 			forward.Rock{GrainRadius: 8, Porosity: 0.4, BlobRadius: 8, BlobFrac: 0.4, Seed: 1}.Draw(lab, phase.Default())
@@ -371,17 +392,60 @@ func BenchmarkSegment256(b *testing.B) {
 			img, _ := forward.Render(lab, fp)
 			grey := forward.Uint16(img)
 			p := withFilter(fp, method)
+			if assign != "" {
+				p.Assign = assign
+			}
 			p.MinIsland = 4
 			p.Hysteresis = Hysteresis{Band: 500, Steps: 1}
 			core := volume.BoxOf(n, n, n).Translate([3]int{4, 4, 4})
 			th := Thresholds{T: []float64{19000, 32000}}
 			b.ResetTimer()
+			c0 := cpuTime()
 			for i := 0; i < b.N; i++ {
 				if _, err := Segment(grey, core, th, p, nil); err != nil {
 					b.Fatal(err)
 				}
 			}
+			cpu := cpuTime() - c0
 			b.ReportMetric(float64(n*n*n)*float64(b.N)/b.Elapsed().Seconds()/1e6/float64(runtime.GOMAXPROCS(0)), "MVox/s/core")
+			// CPU seconds do not grow when other processes share the cores.
+			b.ReportMetric(float64(n*n*n)*float64(b.N)/cpu.Seconds()/1e6, "MVox/cpu-s")
 		})
+	}
+}
+
+// TestWatershedTiling segments with 1, 8 and 27 tiles with the watershed as
+// the last stage (no hysteresis, no island removal, whose margins would
+// hide an error of its own halo), each cost, with and without the wall
+// pass, in 3-class and reference mode, and requires identical labels.
+func TestWatershedTiling(t *testing.T) {
+	const n = 30
+	grey, truth, fp := scene(n, 4, 9)
+	for _, ws := range []Watershed{{Steps: 4, Cost: CostSum}, {Steps: 5, Cost: CostMax}, {Steps: 3, Cost: CostSum, Wall: true}} {
+		for _, ref := range []bool{false, true} {
+			p := withFilter(fp, "median")
+			p.MinIsland = 0
+			p.Watershed = ws
+			p.Reference = ref
+			p.Fluids = FluidsBoth
+			var mask *volume.Labels
+			if ref {
+				mask = idealMask(truth)
+			}
+			l1, _, _ := tiled(t, grey, grey.Box, [3]int{n, n, n}, p, mask)
+			for _, k := range []int{2, 3} {
+				e := (n + k - 1) / k
+				lk, _, _ := tiled(t, grey, grey.Box, [3]int{e, e, e}, p, mask)
+				diff := 0
+				for i := range l1.Pix {
+					if l1.Pix[i] != lk.Pix[i] {
+						diff++
+					}
+				}
+				if diff != 0 {
+					t.Errorf("%+v, ref %v, %d³ tiles: %d labels differ from the whole volume", ws, ref, k, diff)
+				}
+			}
+		}
 	}
 }

@@ -336,6 +336,9 @@ func sluiceChain(grey *volume.Volume[uint16], repeat int) (map[string]stageFigur
 	sp := segment.Defaults()
 	sp.Filter.Method = "none"
 	sp.Bins = 1024
+	// The reference is np.digitize: compare the threshold classification,
+	// not the default watershed assignment that follows it.
+	sp.Assign = segment.AssignThreshold
 	var lab *volume.Labels
 	if err := timed("otsu", func() error {
 		h, err := segment.Histogram(med, box, sp, nil)

@@ -260,7 +260,7 @@ func TestCampaignRefusesUnknownVoxelSize(t *testing.T) {
 	if err := volio.WriteRaw(filepath.Join(from, "scan-0001.raw"), v, volio.WriteOptions{TimeS: 10, HasTime: true}); err != nil {
 		t.Fatal(err)
 	}
-	cfg := writeFile(t, dir, "camp.yaml", "tile: 16\ndetect_sample: false\n")
+	cfg := writeFile(t, dir, "camp.yaml", "tile: 32\ndetect_sample: false\n")
 	code, _, errs := runCLI(t, "reprocess", "novs", "--data", filepath.Join(dir, "data"), "--from", from, "--config", cfg)
 	lines := strings.Split(strings.TrimSpace(errs), "\n")
 	last := lines[len(lines)-1]

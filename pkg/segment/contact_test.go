@@ -1,0 +1,130 @@
+package segment
+
+import (
+	"fmt"
+	"math"
+	"testing"
+
+	"sluice/pkg/forward"
+	"sluice/pkg/measure"
+	"sluice/pkg/phase"
+	"sluice/pkg/volume"
+)
+
+// capScene is a sessile nonwetting cap on a flat solid plate: a sphere of
+// radius r (voxels) cut by the plate plane z = 20.3, its centre placed so
+// that the angle through the wetting phase at the contact line is theta
+// (degrees), in a 96³ box of brine, rendered by pkg/forward with its
+// defaults (μ_n 14000, μ_w 24000, μ_s 40000, PSF σ 0.7 voxel, CNR 5,
+// uint16). It returns the grey scan and the labels it was rendered from.
+func capScene(theta float64) (*volume.Volume[uint16], *volume.Labels) {
+	const n, r, zp = 96, 28.0, 20.3
+	c := phase.Default()
+	lab := volume.NewShape[uint8](n, n, n, 4e-6)
+	zc := zp + r*math.Cos(theta*math.Pi/180)
+	ctr := float64(n)/2 + 0.27
+	for z := 0; z < n; z++ {
+		for y := 0; y < n; y++ {
+			for x := 0; x < n; x++ {
+				fz, fy, fx := float64(z), float64(y), float64(x)
+				v := c.Wetting
+				if fz < zp {
+					v = c.Solid
+				} else if (fz-zc)*(fz-zc)+(fy-ctr)*(fy-ctr)+(fx-ctr)*(fx-ctr) < r*r {
+					v = c.Nonwetting
+				}
+				lab.Set(z, y, x, v)
+			}
+		}
+	}
+	img, err := forward.Render(lab, forward.Default())
+	if err != nil {
+		panic(err)
+	}
+	return forward.Uint16(img), lab
+}
+
+// capAngle returns the mean contact angle pkg/measure finds on lab and the
+// number of its samples (0 and 0 when there are none).
+func capAngle(t *testing.T, lab *volume.Labels) (float64, int64) {
+	t.Helper()
+	o := measure.Defaults()
+	o.SkipCurvature = true
+	r, err := measure.Volume(lab, o, 0, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.AngleMean == nil {
+		return 0, 0
+	}
+	return *r.AngleMean, r.AngleSamples
+}
+
+// TestContactAngleOnGreyCaps segments forward-model scans of sessile caps
+// of 60°, 90° and 120° with the default options (3-class Otsu, watershed
+// assignment) and each filter, and compares the mean contact angle with
+// that of the labels the scan was rendered from (the same estimator,
+// pkg/contact, on the truth: 60.0°, 91.1°, 121.3°; the estimator itself is
+// checked against analytic caps in pkg/contact). Before the watershed the
+// threshold assignment put a false wetting skin between every nonwetting
+// voxel and the plate (the blurred edge passes through the brine grey), so
+// there was no contact line: 0 samples on the 60° cap (checked below), and
+// 10° and 21° from 11 and 128 samples on the 90° and 120° caps.
+//
+// The grey angles are still biased low, more so for larger angles and
+// with the median or the Gaussian; this misses issue 15's 3° target. The
+// bands are twice the errors measured 2026-12-05 (grey mean − label mean,
+// floor 3°); on top, each filter must keep the order 60° < 90° < 120°. Why
+// the bias: the estimator moves by 12–18° when the first fluid layer on the
+// plate loses one voxel at the contact line (measured on the truth labels),
+// and that layer is where the PSF mixes all three phases (see the package
+// doc, "Contact lines").
+func TestContactAngleOnGreyCaps(t *testing.T) {
+	// measured[filter][i]: grey mean − label mean, caps 60°, 90°, 120°.
+	measured := map[string][3]float64{
+		"median":   {-10.3, -23.9, -29.0},
+		"gaussian": {-18.2, -40.7, -55.8},
+		"nlm":      {-2.7, -12.9, -26.6},
+	}
+	rows := ""
+	prev := map[string]float64{}
+	for i, theta := range []float64{60, 90, 120} {
+		grey, truth := capScene(theta)
+		want, nw := capAngle(t, truth)
+		if nw == 0 {
+			t.Fatalf("%g° cap: no samples on the truth labels", theta)
+		}
+		for _, method := range []string{"median", "gaussian", "nlm", "threshold"} {
+			p := Defaults()
+			p.Filter.NLM.Sigma = forward.Default().NoiseSigma()
+			if method == "threshold" {
+				p.Assign = AssignThreshold
+			} else {
+				p.Filter.Method = method
+			}
+			lab, _ := pipeline(t, grey, p, nil)
+			got, n := capAngle(t, lab)
+			rows += fmt.Sprintf("%4g° cap  %-9s  %6.1f° (%d samples), labels %.1f° (%d): error %+.1f°\n", theta, method, got, n, want, nw, got-want)
+			if method == "threshold" {
+				// The defect the watershed removes: no contact line on the
+				// 60° cap (a false wetting skin covers the plate).
+				if theta == 60 && n != 0 {
+					t.Errorf("60° cap, threshold assignment: %d samples, want 0 (the false skin)", n)
+				}
+				continue
+			}
+			if n == 0 {
+				t.Errorf("%g° cap, %s: no contact-angle samples", theta, method)
+				continue
+			}
+			if tol := math.Max(2*math.Abs(measured[method][i]), 3); math.Abs(got-want) > tol {
+				t.Errorf("%g° cap, %s: %.1f° vs %.1f° on the labels (error %+.1f°, tolerance %.1f°)", theta, method, got, want, got-want, tol)
+			}
+			if a, ok := prev[method]; ok && !(got > a) {
+				t.Errorf("%g° cap, %s: %.1f°, not above the smaller cap's %.1f°", theta, method, got, a)
+			}
+			prev[method] = got
+		}
+	}
+	t.Logf("contact angle on grey caps (default options but the filter):\n%s", rows)
+}
