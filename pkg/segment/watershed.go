@@ -196,44 +196,67 @@ func (c *classes) flood(lab *volume.Labels, f *volume.Volume[float32], out volum
 		prevC[u] = inf
 	}
 	changed := make([]bool, w)
-	for round := 0; round < p.Watershed.Steps; round++ {
-		parallel(w, func(g int) {
-			ch := false
-			for u := g * nu / w; u < (g+1)*nu/w; u++ {
-				bc, bm := prevC[u], prevM[u]
-				i := int(list[u])
-				fi := f.Pix[i]
-				b := nbs[u]
-				for n, o := range offs {
-					if b&(1<<n) == 0 {
-						continue
-					}
-					j := i + o
-					v := id[j]
-					if v == -2 || (v >= 0 && round == 0) {
-						continue // not floodable; unseeded at +Inf
-					}
-					wn := abs32(f.Pix[j] - fi)
-					var cv float32
-					var cm uint8
-					if v == -1 {
-						cv, cm = wn, 1<<uint(cls[pix[j]])
-					} else {
-						cv, cm = prevC[v], prevM[v]
-						if additive {
-							cv += wn
-						} else if cv < wn {
-							cv = wn
-						}
-					}
+	// Round 0 takes the seeds among the neighbours (their contribution never
+	// changes, and costs only fall) and turns nbs[u] into the set of
+	// unseeded neighbours, the only ones later rounds need to read.
+	parallel(w, func(g int) {
+		for u := g * nu / w; u < (g+1)*nu/w; u++ {
+			bc, bm := inf, uint8(0)
+			i := int(list[u])
+			fi := f.Pix[i]
+			b := nbs[u]
+			var un uint8
+			for n, o := range offs {
+				if b&(1<<n) == 0 {
+					continue
+				}
+				j := i + o
+				switch v := id[j]; {
+				case v >= 0:
+					un |= 1 << n
+				case v == -1:
+					cv, cm := abs32(f.Pix[j]-fi), uint8(1)<<uint(cls[pix[j]])
 					if cv < bc {
 						bc, bm = cv, cm
 					} else if cv == bc {
 						bm |= cm
 					}
 				}
-				if bc != prevC[u] || bm != prevM[u] {
-					ch = true
+			}
+			nbs[u] = un
+			prevC[u], prevM[u] = bc, bm
+		}
+	})
+	for round := 1; round < p.Watershed.Steps; round++ {
+		parallel(w, func(g int) {
+			ch := false
+			for u := g * nu / w; u < (g+1)*nu/w; u++ {
+				bc, bm := prevC[u], prevM[u]
+				b := nbs[u]
+				if b != 0 {
+					i := int(list[u])
+					fi := f.Pix[i]
+					for n, o := range offs {
+						if b&(1<<n) == 0 {
+							continue
+						}
+						j := i + o
+						v := id[j]
+						cv, cm := prevC[v], prevM[v]
+						if wn := abs32(f.Pix[j] - fi); additive {
+							cv += wn
+						} else if cv < wn {
+							cv = wn
+						}
+						if cv < bc {
+							bc, bm = cv, cm
+						} else if cv == bc {
+							bm |= cm
+						}
+					}
+					if bc != prevC[u] || bm != prevM[u] {
+						ch = true
+					}
 				}
 				nextC[u], nextM[u] = bc, bm
 			}
