@@ -15,6 +15,22 @@ import (
 // windows (x, y, z), each a running count of the a and b voxels packed in
 // the low and high byte of a uint16 (counts ≤ 2r+1 ≤ 255).
 func Mixed(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.Volume[uint8] {
+	out := Holds(lab, a, b, box, r)
+	for i, v := range out.Pix {
+		if v == 3 {
+			out.Pix[i] = 1
+		} else {
+			out.Pix[i] = 0
+		}
+	}
+	return out
+}
+
+// Holds returns, on box ∩ lab.Box, bit 0 set where the cube of radius r
+// (Chebyshev distance, the voxel itself included) holds a voxel of a and
+// bit 1 where it holds a voxel of b (so 3 where Mixed is 1); voxels beyond
+// lab.Box are missing.
+func Holds(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.Volume[uint8] {
 	box = box.Intersect(lab.Box)
 	out := volume.New[uint8](box, lab.VoxelSize)
 	if box.Empty() || r < 0 || 2*r+1 > 255 {
@@ -96,9 +112,7 @@ func Mixed(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.V
 		for y := box.Min[1]; y < box.Max[1]; y++ {
 			row := cur[((z-src.Min[0])*s[1]+(y-src.Min[1]))*s[2]+box.Min[2]-src.Min[2]:][:box.Max[2]-box.Min[2]]
 			for _, c := range row {
-				if c == 1|1<<8 {
-					out.Pix[i] = 1
-				}
+				out.Pix[i] = uint8(c&1) | uint8(c>>8)<<1
 				i++
 			}
 		}

@@ -26,7 +26,7 @@ func bandScene(seed int64) *volume.Labels {
 }
 
 // Source: common practice — a Chebyshev-cube test done by brute force over
-// the (2r+1)³ window.
+// the (2r+1)³ window; Mixed and Holds.
 func TestMixedMatchesBruteForce(t *testing.T) {
 	for seed := int64(1); seed <= 3; seed++ {
 		lab := bandScene(seed)
@@ -34,6 +34,7 @@ func TestMixedMatchesBruteForce(t *testing.T) {
 		box := lab.Box.Grow(-4).Translate([3]int{1, 0, 2})
 		for _, r := range []int{0, 1, 2, 5} {
 			got := Mixed(lab, a, b, box, r)
+			holds := Holds(lab, a, b, box, r)
 			for z := got.Box.Min[0]; z < got.Box.Max[0]; z++ {
 				for y := got.Box.Min[1]; y < got.Box.Max[1]; y++ {
 					for x := got.Box.Min[2]; x < got.Box.Max[2]; x++ {
@@ -54,6 +55,16 @@ func TestMixedMatchesBruteForce(t *testing.T) {
 						}
 						if g := got.At(z, y, x); g != want {
 							t.Fatalf("seed %d r %d: Mixed(%d,%d,%d) = %d, brute force %d", seed, r, z, y, x, g, want)
+						}
+						wantH := uint8(0)
+						if ha {
+							wantH |= 1
+						}
+						if hb {
+							wantH |= 2
+						}
+						if g := holds.At(z, y, x); g != wantH {
+							t.Fatalf("seed %d r %d: Holds(%d,%d,%d) = %d, brute force %d", seed, r, z, y, x, g, wantH)
 						}
 					}
 				}

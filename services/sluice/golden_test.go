@@ -274,7 +274,7 @@ func dropChecks(m map[string]any, d dropScene) []dropFailure {
 	rel("area_wn_m2", tr.capArea*tr.voxelArea, 0.05)
 	// Source: κ = 2/R of the sphere; Young–Laplace Pc = 2σ/R. Measured
 	// with the wall-aware estimator (pkg/curvature, 2026-12-05): mean
-	// −2.18 %, median −4.9 %. Before it, −0.68 % here came from the wall
+	// −2.33 %, median −5.3 %. Before it, −0.68 % here came from the wall
 	// bias cancelling the exclusion's cut bias; the same drop at two other
 	// placements now reads −0.8 % (pkg/curvature package doc, "Measured").
 	rel("curvature_wn_mean_per_m", tr.kappa, 0.045)
