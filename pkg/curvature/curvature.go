@@ -185,7 +185,8 @@
 // # Tiles
 //
 // κ at a voxel depends on labels within r + 1 (kernel and differences)
-// plus max(ρ + 1, r) (the continuation) of it, and the exclusion on labels
+// plus max(⌈ρ⌉ + 2, r) (the continuation: block offset, fit ball, face
+// partner) of it, and the exclusion on labels
 // within the foot shift plus Exclude; Halo returns the larger, and every
 // sum is taken in a fixed order relative to the voxel, so tiles add to the
 // whole-volume result (tests: TestTileAdditivity, TestTubeTiles, which

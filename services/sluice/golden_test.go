@@ -275,8 +275,8 @@ func dropChecks(m map[string]any, d dropScene) []dropFailure {
 	// Source: κ = 2/R of the sphere; Young–Laplace Pc = 2σ/R. Measured
 	// with the wall-aware estimator (pkg/curvature, 2026-12-05): mean
 	// −2.33 %, median −5.3 %. Before it, −0.68 % here came from the wall
-	// bias cancelling the exclusion's cut bias; the same drop at two other
-	// placements now reads −0.8 % (pkg/curvature package doc, "Measured").
+	// bias cancelling the exclusion's cut bias; the same drop (R 14, 75°)
+	// at two other sub-voxel placements reads −1.0 % and −0.8 %.
 	rel("curvature_wn_mean_per_m", tr.kappa, 0.045)
 	rel("capillary_pressure_pa", tr.pc, 0.045)
 	rel("curvature_wn_median_per_m", tr.kappa, 0.075)
