@@ -139,7 +139,9 @@
 //     −14…+6 % at 2, −26…+11 % at 1 (θ 60° at some placements: the first
 //     voxel layers see the staircase of the continuation), −1.5…+2.6 % at
 //     4;
-//   - foot exclusion without continuation: −6…−17 % at 3, −2.6…−5.5 % at 4.
+//   - foot exclusion without continuation: −6…−17 % at 3, −2.6…−5.5 % at 4;
+//   - no exclusion at all: −45…+17 % with the continuation, −44…−75 %
+//     without.
 //
 // The plane radius ρ = 8 gave the same results within 2 % (measured with
 // the voxel exclusion); ρ = 6 keeps
@@ -219,7 +221,8 @@ type Options struct {
 	// band voxel on the φ = ½ level (package doc, "Exclusion"), the one
 	// levelset.Near makes, asked only there. With the continuation into
 	// the solid (WallFit) it is a safety margin: tube menisci at θ 20–60°
-	// read −26…+11 % with 1, −14…+6 % with 2, −4.6…+2.2 % with 3.
+	// read −26…+11 % with 1, −14…+6 % with 2, −4.6…+2.2 % with 3, and
+	// −45…+17 % with none (the contact line itself is then averaged in).
 	Exclude float64 `json:"exclude"`
 	// WallFit is the radius (voxels) of the plane fits that continue the
 	// w–n interface into the solid before smoothing (package doc, "Wall";
