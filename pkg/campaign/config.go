@@ -83,10 +83,13 @@ type Measure struct {
 	CurvatureSigma   float64 `json:"curvature_sigma" yaml:"curvature_sigma"`
 	CurvatureExclude float64 `json:"curvature_exclude" yaml:"curvature_exclude"`
 	// ContactRadius, ContactSolidSigma and ContactMinFaces tune the
-	// contact-angle fit; defaults 6, 2 and 12.
+	// contact-angle fit; defaults 12, 2 and 12. ContactWallGap (voxels,
+	// default 0 = off) leaves interface faces that near the solid out of
+	// the fit (contact.Options.WallGap; 3 for scans segmented from grey).
 	ContactRadius     float64 `json:"contact_radius" yaml:"contact_radius"`
 	ContactSolidSigma float64 `json:"contact_solid_sigma" yaml:"contact_solid_sigma"`
 	ContactMinFaces   int     `json:"contact_min_faces" yaml:"contact_min_faces"`
+	ContactWallGap    float64 `json:"contact_wall_gap,omitempty" yaml:"contact_wall_gap,omitempty"`
 	// SkipCurvature and SkipContact turn the expensive measurements off.
 	SkipCurvature bool `json:"skip_curvature" yaml:"skip_curvature"`
 	SkipContact   bool `json:"skip_contact" yaml:"skip_contact"`
@@ -257,7 +260,7 @@ func (c Config) MeasureOptions() (measure.Options, error) {
 		ex = -1
 	}
 	o.Curvature = curvature.Options{Sigma: c.Measure.CurvatureSigma, Exclude: ex}
-	o.Contact = contact.Options{Radius: c.Measure.ContactRadius, SolidSigma: c.Measure.ContactSolidSigma, MinFaces: c.Measure.ContactMinFaces}
+	o.Contact = contact.Options{Radius: c.Measure.ContactRadius, SolidSigma: c.Measure.ContactSolidSigma, MinFaces: c.Measure.ContactMinFaces, WallGap: c.Measure.ContactWallGap}
 	o.SkipCurvature, o.SkipContact = c.Measure.SkipCurvature, c.Measure.SkipContact
 	if err := o.Validate(); err != nil {
 		return o, fmt.Errorf("campaign: %w", err)

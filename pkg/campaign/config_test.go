@@ -55,6 +55,7 @@ func TestHashCoversResultsOnly(t *testing.T) {
 		"exclusion":   func(c *Config) { c.Measure.CurvatureExclude = 2 },
 		"connectivty": func(c *Config) { c.Measure.Connectivity = 6 },
 		"voxel size":  func(c *Config) { c.VoxelSize = "2um" },
+		"wall gap":    func(c *Config) { c.Measure.ContactWallGap = 3 },
 	} {
 		c := Default()
 		change(&c)
@@ -132,6 +133,31 @@ func TestUnitsChecked(t *testing.T) {
 	for _, s := range []float64{0, 0.001, 0.025, 0.04, 0.072, 0.5} {
 		if err := CheckIFT(s); err != nil {
 			t.Errorf("σ %g N/m refused: %v", s, err)
+		}
+	}
+}
+
+// measure.contact_wall_gap reaches the contact-angle options, and a gap the
+// fit cannot hold is refused when the config is read.
+func TestContactWallGapKey(t *testing.T) {
+	c, err := Parse("gap.yaml", []byte("measure:\n  contact_wall_gap: 3\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	mo, err := c.MeasureOptions()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if mo.Contact.WallGap != 3 {
+		t.Errorf("contact_wall_gap 3 gave WallGap %g", mo.Contact.WallGap)
+	}
+	for _, bad := range []string{"-1", "6", "20"} {
+		c, err := Parse("gap.yaml", []byte("measure:\n  contact_wall_gap: "+bad+"\n"))
+		if err == nil {
+			_, err = c.MeasureOptions()
+		}
+		if err == nil {
+			t.Errorf("contact_wall_gap %s accepted (fit radius 12: the gap must stay below 6)", bad)
 		}
 	}
 }

@@ -89,6 +89,9 @@ func (o Options) Validate() error {
 	if o.IFT < 0 || math.IsNaN(o.IFT) {
 		return fmt.Errorf("measure: interfacial tension must be ≥ 0 N/m, not %g", o.IFT)
 	}
+	if g := o.Contact.WallGap; !(g >= 0) || g >= math.Max(o.Contact.Radius, contact.DefaultRadius)/2 {
+		return fmt.Errorf("measure: contact-angle wall gap must be ≥ 0 and below half the fit radius, not %g voxels", g)
+	}
 	return nil
 }
 
