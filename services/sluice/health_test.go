@@ -56,6 +56,7 @@ func TestHealthCountsWorkers(t *testing.T) {
 	cfg.DetectSample = false
 	cfg.Tile = 20 // 40³ scan: 8 tiles
 	cfg.Measure.SkipContact = true
+	cfg.Measure.SkipCurvature = true // keeps the halo (curvature 14 + segmentation 6) within 20-voxel tiles
 	cfgPath := filepath.Join(data, "c.json")
 	if err := writeDemoConfig(cfgPath, cfg); err != nil {
 		t.Fatal(err)

@@ -797,7 +797,7 @@ func TestBurst(t *testing.T) {
 		t.Skip("multi-process test")
 	}
 	const distinct, copies = 10, 20
-	f := prepare(t, "burst", 16, 16, distinct)
+	f := prepare(t, "burst", 16, 32, distinct) // one tile per step (tile edge above the 20-voxel halo)
 	c := newCluster(t, binary(t, ""), false, 30*time.Second, 5)
 	aAddr, w1, w2 := c.addr(), c.addr(), c.addr()
 	c.service("aggregate", "aggregate", "--http", aAddr)
