@@ -1,11 +1,15 @@
 package web
 
 import (
+	"fmt"
+	"os"
+	"os/exec"
 	"regexp"
 	"strings"
 	"testing"
 
 	"sluice/pkg/plots"
+	"sluice/pkg/series"
 )
 
 // TestPageUnitsMatchFigures: the live page writes each axis unit as the
@@ -42,5 +46,50 @@ func TestPageUnitsMatchFigures(t *testing.T) {
 	html, _ := static.ReadFile("static/index.html")
 	if !strings.Contains(string(html), "Specific interfacial area per bulk volume") {
 		t.Error("index.html: the a_wn figure does not say per bulk volume")
+	}
+}
+
+// TestPageTimeUnitMatchesFigures runs the page's timeUnit (app.js) in Node
+// on campaigns of several lengths and compares it with pkg/plots.TimeUnit,
+// which the PNG/SVG figures use, so the page and the figures put the same
+// unit on their time axes. Lengths at both sides of each switch (10 min,
+// 3 h). Spoiled once (600 → 900 s in app.js): the 600 s and 899 s cases
+// failed.
+func TestPageTimeUnitMatchesFigures(t *testing.T) {
+	node, err := exec.LookPath("node")
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatal("node is not installed (scripts/setup-test-env installs it)")
+		}
+		t.Skip("node is not installed")
+	}
+	b, err := static.ReadFile("static/app.js")
+	if err != nil {
+		t.Fatal(err)
+	}
+	fn := regexp.MustCompile(`(?s)\nfunction timeUnit\(\) \{.*?\n\}\n`).FindString(string(b))
+	if fn == "" {
+		t.Fatal("app.js has no function timeUnit()")
+	}
+	spans := []float64{0, 300, 599, 600, 899, 10799, 10800, 36000}
+	lit := make([]string, len(spans))
+	for i, v := range spans {
+		lit[i] = fmt.Sprint(v)
+	}
+	script := "function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }\nlet state;\n" + fn +
+		"for (const s of [" + strings.Join(lit, ",") + "]) { state = { series: [{ time_s: 30 }, { time_s: 30 + s }] }; console.log(timeUnit().name); }\n"
+	out, err := exec.Command(node, "-e", script).CombinedOutput()
+	if err != nil {
+		t.Fatalf("node: %v\n%s", err, out)
+	}
+	got := strings.Fields(string(out))
+	if len(got) != len(spans) {
+		t.Fatalf("node printed %q for %d spans", out, len(spans))
+	}
+	for i, s := range spans {
+		want, _ := plots.TimeUnit([]series.Row{{Time: 30}, {Time: 30 + s}})
+		if got[i] != want {
+			t.Errorf("campaign of %g s: page uses %q, figures %q", s, got[i], want)
+		}
 	}
 }

@@ -100,17 +100,29 @@ function marker(ctx, kind, x, y) {
 
 // ---- panels ---------------------------------------------------------------
 
-function col(key, scale = 1) { return state.series.map(r => [r.time_s, num(r[key]) === null ? null : r[key] * scale]); }
+// timeUnit picks the time axis unit from the campaign's length as the PNG/SVG
+// figures do (pkg/plots TimeUnit): s below 10 min, min below 3 h, else h.
+function timeUnit() {
+  const ts = state.series.map(r => r.time_s).filter(t => num(t) !== null);
+  const span = ts.length ? Math.max(...ts) - Math.min(...ts) : 0;
+  if (span < 600) return { name: "s", s: 1 };
+  if (span < 3 * 3600) return { name: "min", s: 60 };
+  return { name: "h", s: 3600 };
+}
+let TU = { name: "s", s: 1 };
+function col(key, scale = 1) { return state.series.map(r => [r.time_s / TU.s, num(r[key]) === null ? null : r[key] * scale]); }
 function pair(kx, ky, sy = 1) { return state.series.map(r => [num(r[kx]), num(r[ky]) === null ? null : r[ky] * sy]); }
 
 function draw() {
+  TU = timeUnit();
+  const tl = `time t (${TU.name})`;
   plot(qs("plot-sat"), [
     { name: "S_w", color: C.a, marker: "circle", pts: col("saturation_wetting") },
-    { name: "S_n", color: C.b, marker: "square", pts: col("saturation_nonwetting") }], "time (s)", `saturation (${U.none})`, { ymin: 0, ymax: 1 });
+    { name: "S_n", color: C.b, marker: "square", pts: col("saturation_nonwetting") }], tl, `saturation (${U.none})`, { ymin: 0, ymax: 1 });
   plot(qs("plot-pc"), [
     { name: "Pc mean", color: C.c, marker: "circle", pts: col("capillary_pressure_pa", 1e-3) },
-    { name: "Pc median", color: C.d, marker: "triangle", pts: col("capillary_pressure_median_pa", 1e-3) }], "time (s)", `Pc (${U.pressure})`);
-  plot(qs("plot-awn"), [{ name: "a_wn", color: C.a, marker: "diamond", pts: col("specific_area_wn_per_m", 1e-3) }], "time (s)", `a_wn (${U.area})`);
+    { name: "Pc median", color: C.d, marker: "triangle", pts: col("capillary_pressure_median_pa", 1e-3) }], tl, `Pc (${U.pressure})`);
+  plot(qs("plot-awn"), [{ name: "a_wn", color: C.a, marker: "diamond", pts: col("specific_area_wn_per_m", 1e-3) }], tl, `a_wn (${U.area})`);
   plot(qs("plot-pcs"), [{ name: "Pc(S_w)", color: C.c, marker: "circle", pts: pair("saturation_wetting", "capillary_pressure_pa", 1e-3) }], `S_w (${U.none})`, `Pc (${U.pressure})`, { xmin: 0, xmax: 1 });
   plot(qs("plot-as"), [{ name: "a_wn(S_w)", color: C.a, marker: "square", pts: pair("saturation_wetting", "specific_area_wn_per_m", 1e-3) }], `S_w (${U.none})`, `a_wn (${U.area})`, { xmin: 0, xmax: 1 });
   const last = state.series[state.series.length - 1];
@@ -123,10 +135,10 @@ function draw() {
     { name: "all steps", color: C.d, bars: true, alpha: 0.6, pts: run.map((c, i) => [i, nrun ? c / nrun : 0]) },
     { name: "latest step", color: C.c, marker: "circle", line: true, pts: nl ? lh.map((c, i) => [i + 0.5, c / nl]) : [] }],
     "contact angle θ through wetting phase (°)", `fraction of samples per degree (${U.angleDensity})`, { xmin: 0, xmax: 180, ymin: 0 });
-  plot(qs("plot-ganglia"), [{ name: "ganglia", color: C.b, marker: "square", pts: col("ganglia_count") }], "time (s)", `number of ganglia (${U.none})`, { ymin: 0 });
-  plot(qs("plot-largest"), [{ name: "largest cluster / all nonwetting", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], "time (s)", `largest ganglion fraction (${U.none})`, { ymin: 0, ymax: 1 });
-  const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s, s.latency_s]);
-  plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], "time (s)", "ingest → series (s)", { ymin: 0 });
+  plot(qs("plot-ganglia"), [{ name: "ganglia", color: C.b, marker: "square", pts: col("ganglia_count") }], tl, `number of ganglia (${U.none})`, { ymin: 0 });
+  plot(qs("plot-largest"), [{ name: "largest cluster / all nonwetting", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], tl, `largest ganglion fraction (${U.none})`, { ymin: 0, ymax: 1 });
+  const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s / TU.s, s.latency_s]);
+  plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], tl, "ingest → series (s)", { ymin: 0 });
   summary(last);
   stepsTable();
   rejectedTable();
