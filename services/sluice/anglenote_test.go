@@ -2,6 +2,7 @@ package main
 
 import (
 	"encoding/json"
+	"math"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -82,5 +83,52 @@ func TestMeasureSaysWhyNoAngle(t *testing.T) {
 	t.Logf("grey drop on a film: %d samples, note %q", m.N, m.Note)
 	if m.N == 0 && m.Note == "" {
 		t.Errorf("grey drop on a film: 0 samples and no note")
+	}
+}
+
+// TestMeasureGreyAngleNote: contact angles measured on a grey scan that
+// measure segmented itself carry a note about the layers on the rock unless
+// measure.contact_wall_gap is set, and setting it moves the mean towards the
+// angle measured on the labels the scan was rendered from (pkg/segment
+// TestContactAngleOnGreyCapsWallGap holds the accuracy figures).
+func TestMeasureGreyAngleNote(t *testing.T) {
+	dir := t.TempDir()
+	lab := capScene()
+	labels := filepath.Join(dir, "cap-labels.raw")
+	if err := volio.WriteRaw(labels, lab, volio.WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	g, err := forward.Render(lab, forward.Default())
+	if err != nil {
+		t.Fatal(err)
+	}
+	grey := filepath.Join(dir, "cap-grey.raw")
+	if err := volio.WriteRaw(grey, forward.Uint16(g), volio.WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	gap := writeFile(t, dir, "gap.yaml", "measure:\n  contact_wall_gap: 3\n")
+	type out struct {
+		N    int64    `json:"contact_angle_samples"`
+		Mean *float64 `json:"contact_angle_mean_deg"`
+		Note string   `json:"contact_angle_note"`
+	}
+	run := func(args ...string) out {
+		t.Helper()
+		code, stdout, errs := runCLI(t, append([]string{"measure", "--json", "--voxel-size", "2um"}, args...)...)
+		var o out
+		if code != exitOK || json.Unmarshal([]byte(stdout), &o) != nil || o.N == 0 || o.Mean == nil {
+			t.Fatalf("measure %v: exit %d, %d samples: %s", args, code, o.N, errs)
+		}
+		return o
+	}
+	truth := run("--labels", labels)
+	plain := run("--no-sample", grey)
+	fixed := run("--no-sample", "--config", gap, grey)
+	t.Logf("labels %.1f°, grey %.1f° (note %q), grey with wall gap 3 %.1f°", *truth.Mean, *plain.Mean, plain.Note, *fixed.Mean)
+	if truth.Note != "" || !strings.Contains(plain.Note, "contact_wall_gap") || fixed.Note != "" {
+		t.Errorf("notes: labels %q, grey %q (want the wall-gap note), grey with the gap %q", truth.Note, plain.Note, fixed.Note)
+	}
+	if math.Abs(*fixed.Mean-*truth.Mean) >= math.Abs(*plain.Mean-*truth.Mean) {
+		t.Errorf("the wall gap did not bring the grey angle closer to the labels' %.1f°: %.1f° without, %.1f° with", *truth.Mean, *plain.Mean, *fixed.Mean)
 	}
 }
