@@ -116,8 +116,11 @@ type Input struct {
 	// Rejected lists the scans given up, in step order.
 	Rejected []Rejected
 	// Events as found by events.Detect on Rows.
-	Events    []events.Event
-	Checks    []Check
+	Events []events.Event
+	Checks []Check
+	// Cautions are shown after the ones every report carries (Cautions),
+	// e.g. about a setting of this campaign.
+	Cautions  []string
 	Generated time.Time
 }
 
@@ -179,7 +182,7 @@ func Write(w io.Writer, in Input) error {
 		VoxelSize:      lengthText(in.VoxelSize),
 		IFT:            "not set (capillary pressure not computed)",
 		Thresholds:     "—",
-		Cautions:       Cautions,
+		Cautions:       append(append([]string(nil), Cautions...), in.Cautions...),
 		ResolvedRadius: ResolvedRadius,
 		AreaUnit:       plots.UnitSpecificArea,
 		Generated:      in.Generated.UTC().Format(time.RFC3339),

@@ -53,6 +53,11 @@ func TestDemoSmall(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	// The demo measures contact angles with the wall gap off, so the
+	// report cautions about the layers on the rock.
+	if angles := anyAngles(rows); angles != strings.Contains(string(page), "measure.contact_wall_gap 0") {
+		t.Errorf("steps with contact angles: %v; the report's wall-gap caution: %v", angles, !angles)
+	}
 	c, _ := layout.NewCampaign("demo-drainage")
 	rec, err := campaign.LoadRecord(context.Background(), st, c)
 	if err != nil {

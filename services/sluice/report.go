@@ -207,11 +207,15 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 	for _, r := range rs {
 		rejected = append(rejected, report.Rejected{Step: r.Step, File: r.File, Reason: r.Reason, Attempts: r.Attempts, At: r.At})
 	}
+	var cautions []string
+	if rec.Config.Measure.ContactWallGap == 0 && anyAngles(rows) {
+		cautions = append(cautions, "Contact angles were fitted down to the rock surface (measure.contact_wall_gap 0): on segmented grey scans the voxel layers on the rock, where the scanner blur mixes all three phases, pull them low (10–29° on forward-model caps of 60–120°); contact_wall_gap: 3 brings those within 3.5°.")
+	}
 	f, err := os.Create(path + ".tmp")
 	if err != nil {
 		return err
 	}
-	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, Checks: report.PhysicalChecks(rows, p.IFT), Generated: time.Now()})
+	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, Checks: report.PhysicalChecks(rows, p.IFT), Cautions: cautions, Generated: time.Now()})
 	if cerr := f.Close(); err == nil {
 		err = cerr
 	}
@@ -219,4 +223,14 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 		return err
 	}
 	return os.Rename(path+".tmp", path)
+}
+
+// anyAngles reports whether a step has contact-angle samples.
+func anyAngles(rows []series.Row) bool {
+	for _, r := range rows {
+		if r.AngleSamples != nil && *r.AngleSamples > 0 {
+			return true
+		}
+	}
+	return false
 }
