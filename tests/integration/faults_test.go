@@ -211,6 +211,13 @@ func newCluster(t *testing.T, bin string, useMinIO bool, ackWait time.Duration, 
 		c.st, err = store.Open(context.Background(), c.loc, creds)
 		return err == nil
 	})
+	// The delivery policy is the deployment's: set it once, as an operator
+	// does, before any service opens the queue. Otherwise whichever process
+	// opens it first (ingest takes no policy flags) creates the task
+	// consumers with the default 30 s / 5, and the services keep that.
+	if out, err := exec.Command(bin, "queue-policy", "--nats", c.nats.URL, "--ack-wait", ackWait.String(), "--max-deliver", fmt.Sprint(maxDeliver)).CombinedOutput(); err != nil {
+		t.Fatalf("sluice queue-policy: %v\n%s", err, out)
+	}
 	return c
 }
 
