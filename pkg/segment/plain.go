@@ -45,21 +45,28 @@ func plainLabels(grey volume.Any, out volume.Box, p Params, c *classes, mask *vo
 	if err != nil {
 		return nil, nil, nil, err
 	}
-	nx := out.Max[2] - out.Min[2]
-	for z := out.Min[0]; z < out.Max[0]; z++ {
-		for y := out.Min[1]; y < out.Max[1]; y++ {
-			row := f.Pix[f.Index(z, y, out.Min[2]):][:nx]
-			dst, x0, x1 := rl.row(z, y)
-			for i := x0; i < x1; i++ {
-				dst[i] = c.codes[c.class(float64(row[i]))]
-			}
-			rl.masked(z, y, dst, x0, x1)
-		}
-	}
+	rl.floatLabels(f)
 	if hyst {
 		rl.g = f
 	}
 	return rl.lab, rl.g, nil, nil
+}
+
+// floatLabels labels every row of r.out from the filtered grey f by class,
+// then applies the sample cylinder and the reference mask.
+func (r *rowLabeller) floatLabels(f *volume.Volume[float32]) {
+	out, c := r.out, r.c
+	nx := out.Max[2] - out.Min[2]
+	for z := out.Min[0]; z < out.Max[0]; z++ {
+		for y := out.Min[1]; y < out.Max[1]; y++ {
+			row := f.Pix[f.Index(z, y, out.Min[2]):][:nx]
+			dst, x0, x1 := r.row(z, y)
+			for i := x0; i < x1; i++ {
+				dst[i] = c.codes[c.class(float64(row[i]))]
+			}
+			r.masked(z, y, dst, x0, x1)
+		}
+	}
 }
 
 // rowLabeller writes the labels (and grey) of box out row by row; rows are

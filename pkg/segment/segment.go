@@ -177,20 +177,9 @@ func cropTo(v *volume.Volume[float32], box volume.Box) *volume.Volume[float32] {
 // classify labels the box of the filtered grey f by class, sample cylinder
 // and reference mask, as plainLabels does.
 func classify(f *volume.Volume[float32], p Params, c *classes, mask *volume.Labels) *volume.Labels {
-	out := f.Box
-	rl := &rowLabeller{p: p, c: c, mask: mask, out: out, lab: volume.New[uint8](out, f.VoxelSize)}
-	rl.span = sampleSpans(p.Sample, out)
-	nx := out.Max[2] - out.Min[2]
-	for z := out.Min[0]; z < out.Max[0]; z++ {
-		for y := out.Min[1]; y < out.Max[1]; y++ {
-			row := f.Pix[f.Index(z, y, out.Min[2]):][:nx]
-			dst, x0, x1 := rl.row(z, y)
-			for i := x0; i < x1; i++ {
-				dst[i] = c.codes[c.class(float64(row[i]))]
-			}
-			rl.masked(z, y, dst, x0, x1)
-		}
-	}
+	rl := &rowLabeller{p: p, c: c, mask: mask, out: f.Box, lab: volume.New[uint8](f.Box, f.VoxelSize)}
+	rl.span = sampleSpans(p.Sample, f.Box)
+	rl.floatLabels(f)
 	return rl.lab
 }
 
