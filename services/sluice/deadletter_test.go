@@ -63,16 +63,7 @@ func waitUntil(t *testing.T, what string, cond func() bool) {
 // memory only, so a restarted aggregator forgot every failed step).
 func TestDeadLettersSurviveAggregatorRestart(t *testing.T) {
 	ctx := context.Background()
-	srv, err := queue.StartServer(queue.ServerConfig{StoreDir: t.TempDir()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer srv.Shutdown()
-	q, err := queue.Open(ctx, queue.Config{Server: srv, Logger: quietLog()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer q.Close()
+	q := embeddedQueue(ctx, t)
 	local, err := store.NewLocal(t.TempDir())
 	if err != nil {
 		t.Fatal(err)
@@ -189,16 +180,7 @@ func TestDeadLettersSurviveAggregatorRestart(t *testing.T) {
 // ended: the process stayed up doing nothing.)
 func TestAggregatorStopsWhenAConsumerDies(t *testing.T) {
 	ctx := context.Background()
-	srv, err := queue.StartServer(queue.ServerConfig{StoreDir: t.TempDir()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer srv.Shutdown()
-	q, err := queue.Open(ctx, queue.Config{Server: srv, Logger: quietLog()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer q.Close()
+	q := embeddedQueue(ctx, t)
 	local, err := store.NewLocal(t.TempDir())
 	if err != nil {
 		t.Fatal(err)

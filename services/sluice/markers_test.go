@@ -15,7 +15,6 @@ import (
 
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
-	"sluice/pkg/queue"
 	"sluice/pkg/series"
 	"sluice/pkg/store"
 	"sluice/pkg/volio"
@@ -302,16 +301,7 @@ func TestWatchStepTimes(t *testing.T) {
 	}
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	defer cancel()
-	srv, err := queue.StartServer(queue.ServerConfig{StoreDir: t.TempDir()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(srv.Shutdown)
-	q, err := queue.Open(ctx, queue.Config{Server: srv, Logger: quietLog()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer q.Close()
+	q := embeddedQueue(ctx, t)
 	dir := t.TempDir()
 	local, err := store.NewLocal(filepath.Join(dir, "store"))
 	if err != nil {

@@ -206,3 +206,20 @@ func TestAggregatorStopsOnStoreRefusal(t *testing.T) {
 		t.Fatalf("the result naked by the stopped consumer was lost: %v", err)
 	}
 }
+
+// embeddedQueue starts an embedded NATS server with JetStream in a
+// temporary directory and opens the queue on it; both end with the test.
+func embeddedQueue(ctx context.Context, t *testing.T) *queue.Queue {
+	t.Helper()
+	srv, err := queue.StartServer(queue.ServerConfig{StoreDir: t.TempDir()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(srv.Shutdown)
+	q, err := queue.Open(ctx, queue.Config{Server: srv, Logger: quietLog()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { q.Close() })
+	return q
+}

@@ -16,7 +16,6 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 
 	"sluice/pkg/campaign"
-	"sluice/pkg/queue"
 	"sluice/pkg/store"
 	"sluice/pkg/telemetry"
 	"sluice/pkg/volio"
@@ -62,16 +61,7 @@ func TestRejectedScans(t *testing.T) {
 	}
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	defer cancel()
-	srv, err := queue.StartServer(queue.ServerConfig{StoreDir: t.TempDir()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(srv.Shutdown)
-	q, err := queue.Open(ctx, queue.Config{Server: srv, Logger: quietLog()})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer q.Close()
+	q := embeddedQueue(ctx, t)
 	dir := t.TempDir()
 	root := filepath.Join(dir, "store")
 	local, err := store.NewLocal(root)
