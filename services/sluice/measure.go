@@ -272,9 +272,10 @@ func runMeasure(args []string) int {
 	return exitOK
 }
 
-// greyAngleNote goes with contact angles measured on labels segmented here
-// from grey without a wall gap (pkg/contact doc, "Grey scans").
-const greyAngleNote = "segmented from grey without measure.contact_wall_gap, so the voxel layers on the rock (where the scanner blur mixes all three phases) enter the fit; on forward-model caps of 60–120° that reads 10–29° low, and contact_wall_gap: 3 brings it within 3.5°"
+// greyAngleNote goes with contact angles measured on labels segmented from
+// grey without a wall gap: in `measure`'s table and JSON and as a caution
+// of the campaign report (pkg/contact doc, "Grey scans").
+const greyAngleNote = "contact angles were fitted down to the rock surface (measure.contact_wall_gap 0): on segmented grey scans the voxel layers on the rock, where the scanner blur mixes all three phases, pull them low (10–29° on forward-model caps of 60–120°); contact_wall_gap: 3 brings those within 3.5°"
 
 // measureOutput is the JSON of `sluice measure`: the result keys and
 // whether the voxel size was assumed (1 µm, known from neither flag,

@@ -209,7 +209,7 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 	}
 	var cautions []string
 	if rec.Config.Measure.ContactWallGap == 0 && anyAngles(rows) {
-		cautions = append(cautions, "Contact angles were fitted down to the rock surface (measure.contact_wall_gap 0): on segmented grey scans the voxel layers on the rock, where the scanner blur mixes all three phases, pull them low (10–29° on forward-model caps of 60–120°); contact_wall_gap: 3 brings those within 3.5°.")
+		cautions = append(cautions, "Contact angles: "+greyAngleNote+".")
 	}
 	f, err := os.Create(path + ".tmp")
 	if err != nil {
