@@ -45,7 +45,7 @@ var commandFlags = map[string][]string{
 	"run": join(embedGroup, storeGroup, natsGroup, httpGroup, policyGroup, inputGroup, watchGroup, []string{"workers"}),
 	// ingest works no tasks: no delivery policy. HTTP with --watch.
 	"ingest":    join(storeGroup, natsGroup, httpGroup, inputGroup, watchGroup, []string{"step", "time", "batch"}),
-	"worker":    join(storeGroup, natsGroup, httpGroup, policyGroup, []string{"concurrency", "id"}),
+	"worker":    join(storeGroup, natsGroup, httpGroup, policyGroup, []string{"concurrency", "id", "exit-when-idle"}),
 	"aggregate": join(storeGroup, natsGroup, httpGroup, policyGroup),
 	"demo":      {"size", "steps", "data", "http", "workers", "tile", "seed", "serve", "v"},
 	"plot":      join(campaignGroup, []string{"out"}),

@@ -474,3 +474,37 @@ func (p eventPublisher) PublishEvent(ctx context.Context, id string, e *sluicepb
 	_, err := p.q.PublishEvent(ctx, id, e)
 	return err
 }
+
+// errIdle is the cause with which a worker started with --exit-when-idle
+// stops: the task queue stayed empty.
+var errIdle = errors.New("the task queue stayed empty")
+
+// waitQueueIdle returns nil once the task queue (live and batch) has held no
+// task — neither waiting nor delivered to any worker — at every look, one
+// look per poll, for at least idle. A task in flight at another worker keeps
+// this one waiting: should that worker die, the task is redelivered and
+// someone must still be there to take it. A failed look starts the wait
+// over (an unreachable server is not an empty queue). It returns ctx's
+// error when ctx ends first.
+func waitQueueIdle(ctx context.Context, q *queue.Queue, idle, poll time.Duration) error {
+	var since time.Time
+	t := time.NewTicker(poll)
+	defer t.Stop()
+	for {
+		l, err := q.Lag(ctx)
+		now := time.Now()
+		switch {
+		case err != nil || l.Live+l.Batch+l.LiveInFlight+l.BatchInFlight > 0:
+			since = time.Time{}
+		case since.IsZero():
+			since = now
+		case now.Sub(since) >= idle:
+			return nil
+		}
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case <-t.C:
+		}
+	}
+}

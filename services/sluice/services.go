@@ -94,8 +94,12 @@ func runWorker(args []string) int {
 	nf.register(fs, withStore|withNATS|withHTTP|withPolicy, "127.0.0.1:8471")
 	conc := fs.Int("concurrency", runtime.GOMAXPROCS(0), "tiles processed at once")
 	id := fs.String("id", "", "worker name in results and dead letters (default host:pid)")
+	idle := fs.Duration("exit-when-idle", 0, "leave once the whole task queue has been empty this long (0: never; for batch-scheduler allocations)")
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
+	}
+	if *idle < 0 || (*idle > 0 && *idle < time.Second) {
+		return fail(exitBadInput, "worker: --exit-when-idle %v: give 0 (never) or at least 1s", *idle)
 	}
 	c, code := nf.connect("worker")
 	if c == nil {
@@ -114,10 +118,27 @@ func runWorker(args []string) int {
 		wid = fmt.Sprintf("%s:%d", host, os.Getpid())
 	}
 	log.Info("worker started", "id", wid, "concurrency", *conc, "store", fmt.Sprint(st), "http", addr)
-	g := newRunGroup(ctx)
+	// With --exit-when-idle the idle watch ends the group's parent
+	// context: every part drains and stops as on a signal.
+	gctx, leave := context.WithCancelCause(ctx)
+	defer leave(nil)
+	if *idle > 0 {
+		go func() {
+			if waitQueueIdle(gctx, q, *idle, time.Second) == nil {
+				leave(errIdle)
+			}
+		}()
+	}
+	g := newRunGroup(gctx)
 	g.Go("tile workers", func(ctx context.Context) error { return runWorkers(ctx, q, st, m, wid, *conc, log) })
 	g.Go("", func(ctx context.Context) error { return watchConn(ctx, q) })
-	if err := g.Wait(); err != nil {
+	err = g.Wait()
+	if err == nil && errors.Is(context.Cause(gctx), errIdle) {
+		log.Info("worker leaves: the task queue stayed empty", "id", wid, "for", idle.String())
+		fmt.Fprintf(os.Stderr, "worker %s: the task queue stayed empty for %v; leaving\n", wid, *idle)
+		return exitOK
+	}
+	if err != nil {
 		return fail(exitFailure, "worker: %v", err)
 	}
 	log.Info("worker drained and stopped", "id", wid)
