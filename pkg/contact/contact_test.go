@@ -100,11 +100,13 @@ func TestTiltedWedges(t *testing.T) {
 
 // Source: gonum stat (Mean, StdDev, Quantile with the empirical CDF) on the
 // per-sample angles returned by Angle — the partial's statistics must agree
-// with a direct computation (median to the 0.1° bin width).
+// with a direct computation (median to the 0.1° bin width). Every line
+// voxel is a sample here (AllLineVoxels); TestThinnedSampleCount checks
+// which ones thinning keeps.
 func TestPartialStatistics(t *testing.T) {
 	lab, _ := capScene(20, 70)
 	s, w, n := codes.Sets()
-	p := Measure(lab, s, w, n, lab.Box, Options{})
+	p := Measure(lab, s, w, n, lab.Box, Options{AllLineVoxels: true})
 	var angles []float64
 	for z := lab.Box.Min[0]; z < lab.Box.Max[0]; z++ {
 		for y := lab.Box.Min[1]; y < lab.Box.Max[1]; y++ {
@@ -163,7 +165,7 @@ func TestTileAdditivity(t *testing.T) {
 	lab, _ := capScene(14, 110)
 	synth.Ball(lab, [3]float64{9, 8, 30}, 7, codes.Nonwetting) // a second, cut drop
 	s, w, n := codes.Sets()
-	for _, opt := range []Options{{}, {Radius: 7, LineHalfWidth: 2}} {
+	for _, opt := range []Options{{}, {Radius: 7, LineHalfWidth: 2}, {AllLineVoxels: true}} {
 		ref := Measure(lab, s, w, n, lab.Box, opt)
 		rng := rand.New(rand.NewPCG(3, 5))
 		cores := randomCores(lab.Box, rng, 2)
