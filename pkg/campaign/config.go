@@ -275,6 +275,9 @@ func (c Config) MeasureOptions() (measure.Options, error) {
 func (c Config) Hash() string {
 	c.Tile = 0
 	c.Events = Events{}
+	if c.Segment.ThresholdScope == segment.ScopeStep {
+		c.Segment.ThresholdScope = "" // the default, spelt out
+	}
 	positiveZeros(reflect.ValueOf(&c).Elem())
 	b, err := json.Marshal(c)
 	if err != nil {

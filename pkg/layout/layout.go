@@ -110,6 +110,17 @@ func (c Campaign) SolidMask() string { return c.Reference() + "solid.zarr/" }
 // from file modification times (--time-from-mtime).
 func (c Campaign) MTimeOrigin() string { return c.Dir() + "mtime-origin.json" }
 
+// Thresholds returns the key of the campaign thresholds (threshold scope
+// "campaign") under a parameter hash: runs/<hash>/thresholds.json, fixed
+// once per run by the first step that holds every phase (or from the
+// user's values) and read by every later step's pass 1.
+func (c Campaign) Thresholds(paramHash string) (string, error) {
+	if !ValidParamHash(paramHash) {
+		return "", fmt.Errorf("layout: parameter hash %q: want 1-64 characters [a-z0-9]", paramHash)
+	}
+	return c.Dir() + "runs/" + paramHash + "/thresholds.json", nil
+}
+
 // SeriesCSV returns the key of the campaign's series table.
 func (c Campaign) SeriesCSV() string { return c.Dir() + "series.csv" }
 

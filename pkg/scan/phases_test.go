@@ -22,6 +22,7 @@ type fluidScene struct {
 	grey  *volume.Volume[uint16]
 	truth *volume.Labels
 	rock  *volume.Labels // solid and wetting: the ideal reference mask
+	lab   *volume.Labels // the labels rendered
 	snw   float64        // true S_n
 	phi   float64        // true porosity
 }
@@ -90,7 +91,7 @@ func makeFluidScene(t testing.TB, n int, seed uint64, snw float64) *fluidScene {
 		t.Fatal(err)
 	}
 	truth := forward.Truth(lab, fp)
-	s := &fluidScene{grey: forward.Uint16(img), truth: truth, rock: lab.Crop(lab.Box, 0)}
+	s := &fluidScene{grey: forward.Uint16(img), truth: truth, rock: lab.Crop(lab.Box, 0), lab: lab}
 	var pore, nonw float64
 	for i, v := range truth.Pix {
 		if v == c.Nonwetting {

@@ -167,18 +167,53 @@ func Prepare(src Source, whole volume.Box, dtype volume.DType, c campaign.Config
 // `workers` goroutines, and returns the labels, the step result and the
 // thresholds used.
 func Whole(grey volume.Any, c campaign.Config, solid *volume.Labels, workers int) (*volume.Labels, *measure.Result, Prepared, error) {
+	lab, res, prep, _, err := WholeCampaign(grey, c, solid, workers, nil, "", 0)
+	return lab, res, prep, err
+}
+
+// CampaignPrepare turns the pass-1 outcome of a step into its thresholds
+// in threshold scope "campaign" (segment.CampaignStep): stored is the
+// campaign's record (nil when none is stored yet), the returned record is
+// the one to store (nil: nothing new). In scope "step" prep is returned
+// as it is.
+func CampaignPrepare(prep Prepared, c campaign.Config, stored *segment.CampaignThresholds, step string, timeS float64) (Prepared, *segment.CampaignThresholds, error) {
+	if c.Segment.ThresholdScope != segment.ScopeCampaign {
+		return prep, nil, nil
+	}
+	th, fresh, err := segment.CampaignStep(prep.Hist, prep.Thresholds, stored, c.Segment, step, timeS)
+	if err != nil {
+		return prep, nil, err
+	}
+	prep.Thresholds = th
+	return prep, fresh, nil
+}
+
+// WholeCampaign is Whole for one step of a campaign in threshold scope
+// "campaign": stored is the campaign's thresholds so far (nil: none yet) and
+// the record this step fixed is returned (nil: none). In scope "step" it is
+// Whole.
+func WholeCampaign(grey volume.Any, c campaign.Config, solid *volume.Labels, workers int, stored *segment.CampaignThresholds, step string, timeS float64) (*volume.Labels, *measure.Result, Prepared, *segment.CampaignThresholds, error) {
 	var solidSrc Source
 	if solid != nil {
 		solidSrc = MemorySource(solid)
 	}
 	prep, c, err := Prepare(MemorySource(grey), grey.Bounds(), grey.DType(), c, solidSrc, workers)
 	if err != nil {
-		return nil, nil, prep, err
+		return nil, nil, prep, nil, err
 	}
+	prep, fresh, err := CampaignPrepare(prep, c, stored, step, timeS)
+	if err != nil {
+		return nil, nil, prep, nil, err
+	}
+	lab, res, err := wholePass2(grey, c, solid, prep, workers)
+	return lab, res, prep, fresh, err
+}
+
+func wholePass2(grey volume.Any, c campaign.Config, solid *volume.Labels, prep Prepared, workers int) (*volume.Labels, *measure.Result, error) {
 	whole := grey.Bounds()
 	halo, err := Halo(c)
 	if err != nil {
-		return nil, nil, prep, err
+		return nil, nil, err
 	}
 	mo, _ := c.MeasureOptions()
 	t := volume.Tiling{Whole: whole, Tile: [3]int{c.Tile, c.Tile, c.Tile}}
@@ -198,7 +233,7 @@ func Whole(grey volume.Any, c campaign.Config, solid *volume.Labels, workers int
 		return nil
 	})
 	if err != nil {
-		return nil, nil, prep, err
+		return nil, nil, err
 	}
 	vs := grey.EdgeLength()
 	if vs == 0 {
@@ -208,7 +243,7 @@ func Whole(grey volume.Any, c campaign.Config, solid *volume.Labels, workers int
 	if err == nil {
 		res.PhasesDetected, res.PhasesNote = prep.Thresholds.Phases.InScan(), prep.Thresholds.Phases.Describe()
 	}
-	return labels, res, prep, err
+	return labels, res, err
 }
 
 func forTiles(t volume.Tiling, workers int, f func(core volume.Box) error) error {

@@ -163,6 +163,21 @@ type Thresholds struct {
 	// DecidePhases); T holds one threshold fewer per missing fluid. Plans
 	// written before the decision existed hold the zero value: both fluids.
 	Phases Phases `json:"phases"`
+	// Campaign is set in threshold scope "campaign": where the campaign
+	// thresholds came from and the drift of this step against them.
+	Campaign *StepCampaign `json:"campaign,omitempty"`
+}
+
+// StepCampaign records, in a step's thresholds, the campaign thresholds it
+// followed and the drift measured.
+type StepCampaign struct {
+	Source string    `json:"source"`
+	From   string    `json:"from_step"`
+	T      []float64 `json:"t"`
+	// Pending is true while no step has fixed the campaign thresholds yet
+	// (this step holds fewer phases): the step used its own split.
+	Pending bool  `json:"pending,omitempty"`
+	Drift   Drift `json:"drift"`
 }
 
 // Fluids returns the fluids of the step: FluidsBoth, FluidsWetting or

@@ -101,6 +101,12 @@ type Params struct {
 	// values, or one in reference mode. A voxel above a threshold belongs to
 	// the brighter class.
 	Fixed []float64 `json:"fixed,omitempty" yaml:"fixed,omitempty"`
+	// ThresholdScope is "step" (or empty, the default: thresholds from each
+	// step's own histogram, or Fixed) or "campaign": thresholds fixed once
+	// for the campaign, from the first step holding every phase or from
+	// Fixed, and followed for grey-level drift within a bound (see
+	// campaign.go).
+	ThresholdScope string `json:"threshold_scope,omitempty" yaml:"threshold_scope,omitempty"`
 	// Reference selects reference-scan mode: Segment takes the solid (and
 	// outside) voxels from a mask and only separates the two fluids in the
 	// pore space with one threshold.
@@ -180,6 +186,14 @@ func (p Params) Validate() error {
 		}
 	default:
 		return fmt.Errorf("segment: unknown filter %q (want none, median, gaussian or nlm)", p.Filter.Method)
+	}
+	switch p.ThresholdScope {
+	case "", ScopeStep, ScopeCampaign:
+	default:
+		return fmt.Errorf("segment: threshold_scope %q must be step or campaign", p.ThresholdScope)
+	}
+	if p.ThresholdScope == ScopeCampaign && p.Threshold == "isodata" {
+		return fmt.Errorf("segment: threshold_scope campaign takes otsu (levels from the first step) or fixed thresholds, not isodata")
 	}
 	switch p.Fluids {
 	case "", FluidsAuto, FluidsBoth, FluidsWetting, FluidsNonwetting:

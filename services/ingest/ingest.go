@@ -453,6 +453,11 @@ func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign
 	if err != nil {
 		return campaign.Plan{}, err
 	}
+	if cfg.Segment.ThresholdScope == segment.ScopeCampaign {
+		if prep, err = campaignThresholds(ctx, st, step, man.TimeS, hash, prep, eff); err != nil {
+			return campaign.Plan{}, err
+		}
+	}
 	halo, err := scan.Halo(eff)
 	if err != nil {
 		return campaign.Plan{}, err
@@ -463,15 +468,50 @@ func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign
 	return p, nil
 }
 
+// campaignThresholds applies the campaign's thresholds (threshold scope
+// "campaign") to a step's pass 1: it reads the campaign record under hash,
+// or — when there is none yet and this step holds every phase — stores the
+// one this step fixes. Steps of a run are planned in time order (ingest as
+// they come, reprocess sorted by time), so the first such step fixes them.
+func campaignThresholds(ctx context.Context, st Store, step layout.Step, timeS float64, hash string, prep scan.Prepared, eff campaign.Config) (scan.Prepared, error) {
+	key, err := step.Campaign().Thresholds(hash)
+	if err != nil {
+		return prep, err
+	}
+	var stored *segment.CampaignThresholds
+	var ct segment.CampaignThresholds
+	switch err := campaign.GetJSON(ctx, st, key, &ct); {
+	case err == nil:
+		stored = &ct
+	case errors.Is(err, fs.ErrNotExist):
+	default:
+		return prep, err
+	}
+	prep, fresh, err := scan.CampaignPrepare(prep, eff, stored, step.Name(), timeS)
+	if err != nil {
+		if stored != nil {
+			return prep, fmt.Errorf("%s: %w", key, err)
+		}
+		return prep, err
+	}
+	if fresh != nil {
+		if err := campaign.PutJSON(ctx, st, key, fresh); err != nil {
+			return prep, err
+		}
+	}
+	return prep, nil
+}
+
 // ThresholdsKnown reports whether a step's plan follows from cfg alone,
 // before any voxel is read: fixed thresholds, a given (or no) sample
 // cylinder, a given grey range for float32 scans, a given solid grey for
 // the partial-volume correction and no local-fluid passes (which need the
-// fluid peaks of the histogram). scan.Prepare would then read and filter
+// fluid peaks of the histogram), and thresholds of scope "step" (scope
+// "campaign" follows the drift of each step's histogram). scan.Prepare would then read and filter
 // the whole step only to return cfg's own values.
 func ThresholdsKnown(cfg campaign.Config, dt volume.DType) bool {
 	p := cfg.Segment
-	return p.Threshold == "fixed" &&
+	return p.Threshold == "fixed" && p.ThresholdScope != segment.ScopeCampaign &&
 		!(cfg.DetectSample && p.Sample.Radius == 0) &&
 		!(dt == volume.Float32 && p.Range == [2]float64{}) &&
 		!(p.PartialVolume.Blur > 0 && p.PartialVolume.SolidGrey == 0) &&

@@ -19,7 +19,7 @@ import (
 // config file.
 type segFlags struct {
 	config, filter, threshold, fixed, order, sample, reference string
-	fluids                                                     string
+	fluids, scope                                              string
 	minIsland                                                  optionalInt
 	band                                                       optionalFloat
 	noise                                                      float64
@@ -31,6 +31,7 @@ func (s *segFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&s.filter, "filter", "", "denoiser before thresholds: none, median (default), gaussian or nlm")
 	fs.StringVar(&s.threshold, "threshold", "", "otsu (3-class multi-level Otsu on the filtered histogram, default) or fixed")
 	fs.StringVar(&s.fixed, "fixed", "", "fixed grey thresholds `T1,T2` (darkest|middle, middle|brightest); implies --threshold fixed")
+	fs.StringVar(&s.scope, "threshold-scope", "", "step (thresholds from each scan's own histogram, default) or campaign (fixed once from the first scan holding every phase, or --fixed, then followed for grey-level drift)")
 	fs.StringVar(&s.order, "order", "", "phases from darkest to brightest: nws (gas/oil darkest, default) or nsw (doped brine)")
 	fs.StringVar(&s.fluids, "fluids", "", "fluids the scan holds: auto (decided from the histogram, default), both, wetting or nonwetting")
 	fs.Float64Var(&s.noise, "noise-sigma", 0, "noise standard deviation in grey units, for --filter nlm (measure it in a uniform region)")
@@ -44,7 +45,7 @@ func (s *segFlags) register(fs *flag.FlagSet) {
 
 // segOnlyFlags are the segFlags that act on grey input only (all but
 // --config, which also holds label codes and measurement options).
-var segOnlyFlags = []string{"filter", "threshold", "fixed", "order", "fluids", "noise-sigma", "min-island", "hysteresis-band", "sample", "no-sample", "reference"}
+var segOnlyFlags = []string{"filter", "threshold", "threshold-scope", "fixed", "order", "fluids", "noise-sigma", "min-island", "hysteresis-band", "sample", "no-sample", "reference"}
 
 func (s *segFlags) campaignConfig() (campaign.Config, error) {
 	c := campaign.Default()
@@ -74,6 +75,9 @@ func (s *segFlags) campaignConfig() (campaign.Config, error) {
 			}
 			p.Fixed = append(p.Fixed, v)
 		}
+	}
+	if s.scope != "" {
+		p.ThresholdScope = s.scope
 	}
 	if s.order != "" {
 		p.Order = s.order
