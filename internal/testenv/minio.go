@@ -106,3 +106,24 @@ func randomHex(n int) string {
 	}
 	return hex.EncodeToString(b)
 }
+
+// StartMinIOOn starts a MinIO server inside test host h (a network
+// namespace of a Net), on h's address, port 9000; otherwise as StartMinIO.
+func StartMinIOOn(t testing.TB, h *Host) *MinIO {
+	t.Helper()
+	bin := requireBinary(t, "minio", "SLUICE_MINIO_BIN", "go install github.com/minio/minio@v0.0.0-20260212201848-7aac2a2c5b7c")
+	m := &MinIO{t: t, bin: "ip", Dir: t.TempDir(), AccessKey: "sluice-" + randomHex(4), SecretKey: randomHex(16)}
+	m.Endpoint = h.Addr + ":9000"
+	m.env = []string{"MINIO_ROOT_USER=" + m.AccessKey, "MINIO_ROOT_PASSWORD=" + m.SecretKey, "MINIO_BROWSER=off", "MINIO_UPDATE=off"}
+	m.args = []string{"netns", "exec", h.NS, bin, "server", "--quiet", "--address", m.Endpoint, "--console-address", h.Addr + ":9001", m.Dir}
+	if err := m.launch(); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		m.p.stop(10 * time.Second)
+		if t.Failed() {
+			t.Logf("testenv: minio log:\n%s", tail(m.p.log.String()))
+		}
+	})
+	return m
+}

@@ -202,7 +202,10 @@ type Config struct {
 	TLSCA, TLSCert, TLSKey string
 	// Name names the connection in server monitoring.
 	Name string
-	// Replicas of every stream (default 1; 3 on a cluster).
+	// Replicas of every stream and of the KV bucket. 0 (auto): a stream
+	// that exists keeps its replicas, so a process started without the
+	// setting never scales a clustered stream down; a new one gets 3 when
+	// the server is part of a cluster and 1 when it stands alone.
 	Replicas int
 	// DuplicateWindow is how long message ids are remembered (default 2 min).
 	DuplicateWindow time.Duration
@@ -275,8 +278,8 @@ func Open(ctx context.Context, cfg Config) (*Queue, error) {
 	if cfg.Logger == nil {
 		cfg.Logger = slog.Default()
 	}
-	if cfg.Replicas <= 0 {
-		cfg.Replicas = 1
+	if cfg.Replicas < 0 {
+		return nil, fmt.Errorf("queue: replicas %d: give 0 (auto) or 1 to 5", cfg.Replicas)
 	}
 	if cfg.DuplicateWindow <= 0 {
 		cfg.DuplicateWindow = 2 * time.Minute
@@ -317,7 +320,9 @@ func (q *Queue) setup(ctx context.Context, cfg Config) error {
 	}
 	for _, sc := range streams {
 		sc.Storage = jetstream.FileStorage
-		sc.Replicas = cfg.Replicas
+		if sc.Replicas, err = q.replicas(ctx, cfg.Replicas, sc.Name); err != nil {
+			return err
+		}
 		sc.Duplicates = cfg.DuplicateWindow
 		sc.MaxMsgSize = MaxMessage
 		s, err := js.CreateOrUpdateStream(ctx, sc)
@@ -331,17 +336,40 @@ func (q *Queue) setup(ctx context.Context, cfg Config) error {
 	if err := q.setupTaskConsumers(ctx, cfg.Role); err != nil {
 		return err
 	}
+	kvReplicas, err := q.replicas(ctx, cfg.Replicas, "KV_"+ProgressBucket)
+	if err != nil {
+		return err
+	}
 	kv, err := js.CreateOrUpdateKeyValue(ctx, jetstream.KeyValueConfig{
 		Bucket:   ProgressBucket,
 		History:  1,
 		Storage:  jetstream.FileStorage,
-		Replicas: cfg.Replicas,
+		Replicas: kvReplicas,
 	})
 	if err != nil {
 		return fmt.Errorf("queue: key-value bucket %s: %w", ProgressBucket, err)
 	}
 	q.kv = kv
 	return nil
+}
+
+// replicas returns the replica count for stream: want when set; else the
+// stream's own when it exists; else 3 on a cluster and 1 on a lone server.
+func (q *Queue) replicas(ctx context.Context, want int, stream string) (int, error) {
+	if want > 0 {
+		return want, nil
+	}
+	s, err := q.js.Stream(ctx, stream)
+	switch {
+	case err == nil:
+		return max(1, s.CachedInfo().Config.Replicas), nil
+	case !errors.Is(err, jetstream.ErrStreamNotFound):
+		return 0, fmt.Errorf("queue: stream %s: %w", stream, err)
+	case q.nc.ConnectedClusterName() != "":
+		return 3, nil
+	default:
+		return 1, nil
+	}
 }
 
 // taskConsumers are the durable consumers the policy applies to.

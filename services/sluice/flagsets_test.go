@@ -14,7 +14,7 @@ import (
 // measureFlags, segFlags, ingestFlags, campaignFlags).
 var (
 	storeGroup    = []string{"store", "s3-credentials-file"}
-	natsGroup     = []string{"nats", "nats-creds", "nats-user", "nats-password-file", "nats-token-file", "nats-tls-ca", "nats-tls-cert", "nats-tls-key"}
+	natsGroup     = []string{"nats", "nats-creds", "nats-user", "nats-password-file", "nats-token-file", "nats-tls-ca", "nats-tls-cert", "nats-tls-key", "nats-replicas"}
 	httpGroup     = []string{"http", "http-token-file"}
 	policyGroup   = []string{"ack-wait", "max-deliver"}
 	embedGroup    = []string{"data", "expose-nats", "nats-users-file", "expose-nats-tls-cert", "expose-nats-tls-key", "expose-nats-tls-client-ca"}

@@ -36,7 +36,7 @@ type nodeFlags struct {
 	exposeTLSCert, exposeTLSKey, exposeTLSCA  string
 	httpTokenFile, s3CredsFile                string
 	ackWait                                   time.Duration
-	maxDeliver                                int
+	maxDeliver, replicas                      int
 	// policyRole: what this process does with the task consumers'
 	// delivery policy (--ack-wait, --max-deliver) when they exist. Zero:
 	// follow the policy in force, logging a difference. openQueue makes
@@ -95,6 +95,7 @@ func (f *nodeFlags) register(fs *flag.FlagSet, g nodeGroup, httpDefault string) 
 		fs.StringVar(&f.tlsCA, "nats-tls-ca", "", "CA bundle to verify the NATS server")
 		fs.StringVar(&f.tlsCert, "nats-tls-cert", "", "client certificate for NATS mutual TLS")
 		fs.StringVar(&f.tlsKey, "nats-tls-key", "", "client key for NATS mutual TLS")
+		fs.IntVar(&f.replicas, "nats-replicas", 0, "replicas of sluice's streams on a NATS cluster, 1–5 (default: a stream keeps what it has; a new one gets 3 on a cluster, 1 on a lone server)")
 	}
 	if g&withHTTP != 0 {
 		fs.StringVar(&f.http, "http", httpDefault, "serve /metrics, /healthz, /readyz (and the live page on run/aggregate) on `addr` (off: none); beyond loopback a token is required")
@@ -199,7 +200,10 @@ func (f *nodeFlags) serverConfig() (queue.ServerConfig, error) {
 // openQueue connects to --nats, or starts the embedded server when allowed
 // and no URL is given.
 func (f *nodeFlags) openQueue(ctx context.Context, embedded bool, log *slog.Logger) (*queue.Queue, *queue.Server, error) {
-	cfg := queue.Config{URL: f.nats, CredsFile: f.natsCreds, TLSCA: f.tlsCA, TLSCert: f.tlsCert, TLSKey: f.tlsKey,
+	if f.replicas < 0 || f.replicas > 5 {
+		return nil, nil, fmt.Errorf("--nats-replicas %d: give 1 to 5 (or leave it out)", f.replicas)
+	}
+	cfg := queue.Config{URL: f.nats, CredsFile: f.natsCreds, TLSCA: f.tlsCA, TLSCert: f.tlsCert, TLSKey: f.tlsKey, Replicas: f.replicas,
 		Logger: log, Policy: queue.Policy{AckWait: f.ackWait, MaxDeliver: f.maxDeliver}, Role: f.policyRole}
 	var srv *queue.Server
 	if f.nats == "" {
