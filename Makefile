@@ -4,9 +4,14 @@ BIN       ?= bin
 GOBIN     ?= $(shell $(GO) env GOPATH)/bin
 PKGS      ?= ./...
 TESTFLAGS ?= -timeout 40m -count=1
+# Vector instructions (simd/archsimd in pkg/filter, used on AVX2 CPUs): every
+# build and test here has the experiment on; `make GOEXPERIMENT= build` gives
+# the scalar code, with the same results.
+GOEXPERIMENT ?= simd
+export GOEXPERIMENT
 export PATH := $(GOBIN):$(PATH)
 
-.PHONY: help build demo test test-go test-race setup bench fuzz fuzz-ci lint proto proto-check clean
+.PHONY: help build demo test test-go test-scalar test-race setup bench fuzz fuzz-ci lint proto proto-check clean
 
 help: ## list the targets
 	@awk 'BEGIN {FS = ":.*## "} /^[a-zA-Z_-]+:.*## / {printf "  \033[1m%-12s\033[0m %s\n", $$1, $$2}' $(MAKEFILE_LIST)
@@ -24,7 +29,11 @@ test: setup proto-check ## set up, then run every test, the concurrent packages 
 	$(GO) vet $(PKGS)
 	$(GO) test $(TESTFLAGS) $(PKGS)
 	$(MAKE) test-race
+	$(MAKE) test-scalar
 	$(MAKE) fuzz-ci
+
+test-scalar: ## run pkg/filter's tests built without GOEXPERIMENT=simd (the scalar path)
+	GOEXPERIMENT= $(GO) test $(TESTFLAGS) ./pkg/filter/
 
 test-go: ## run the Go tests only, without set-up
 	$(GO) test $(TESTFLAGS) $(PKGS)

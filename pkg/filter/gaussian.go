@@ -164,6 +164,9 @@ type real interface{ float32 | float64 }
 func symmetricRow[S, D real](dst []D, acc []float64, w []float64, base []S, at []int) {
 	r := len(w) - 1
 	n := len(dst)
+	if useVector && r > 0 && symmetricRowVector(dst, w, base, at) {
+		return
+	}
 	row := func(k int) []S { return base[at[r+k]:][:n] }
 	switch r {
 	case 0:
