@@ -118,10 +118,10 @@ type Stats struct {
 }
 
 const (
-	kSolid    = 0
-	kPore     = 1
-	kNonRes   = 2 // nonwetting reservoir (fixed φ = −band)
-	kWetRes   = 3 // wetting reservoir (fixed φ = +band)
+	kSolid  = 0
+	kPore   = 1
+	kNonRes = 2 // nonwetting reservoir (fixed φ = −band)
+	kWetRes = 3 // wetting reservoir (fixed φ = +band)
 )
 
 type extVoxel struct {
@@ -137,14 +137,14 @@ type Solver struct {
 	// n is the padded shape: two voxels on every side; the first holds the
 	// reservoirs and the walls' contact-angle extension, the second only
 	// completes stencils.
-	n [3]int
-	st    [3]int // strides of the padded grid (z, y, x)
-	kind  []uint8
-	phi   []float64
-	next  []float64
-	ext   []extVoxel
-	cosT  float64
-	opt   Options
+	n    [3]int
+	st   [3]int // strides of the padded grid (z, y, x)
+	kind []uint8
+	phi  []float64
+	next []float64
+	ext  []extVoxel
+	cosT float64
+	opt  Options
 	// bandList holds the pore voxels with |φ| < band after the last
 	// reinitialisation.
 	bandList []int32
