@@ -87,6 +87,41 @@ type Tile struct {
 	// Faces holds the local ids on the core's six boundary planes in the
 	// order −z, +z, −y, +y, −x, +x (see FaceLowZ...); 0 = not in the set.
 	Faces [6]Plane `json:"faces"`
+	// CurvArea[i-1] and CurvKappaArea[i-1] are the interface area Σw and
+	// integrated curvature Σκw (voxel², voxel) of the w–n band voxels
+	// attributed to local component i (package curvature,
+	// MeasureAttributed; set by package measure). Both nil when curvature
+	// was not measured, or in results written before they existed. They
+	// add over the tiles of a ganglion in Join.
+	CurvArea      []float64 `json:"curv_area,omitempty"`
+	CurvKappaArea []float64 `json:"curv_kappa_area,omitempty"`
+	// CurvForeign holds the sums of band voxels of this tile attributed to
+	// nonwetting voxels outside its core that no local component reaches
+	// within the attribution box: each names one voxel At (global z, y, x)
+	// of that nonwetting piece, which lies in another tile's Rim; Join
+	// adds the sums to the ganglion there.
+	CurvForeign []Foreign `json:"curv_foreign,omitempty"`
+	// RimDepth is the number of core layers on each side kept in Rim: the
+	// local ids of planes 0..RimDepth−1 from each of the six faces, plane
+	// (2a+side)·RimDepth + d at depth d from face 2a+side, laid out as
+	// Faces (depth 0 repeats the face). Join reads them to find the
+	// ganglion of another tile's CurvForeign voxel. 0 when not kept.
+	RimDepth int     `json:"rim_depth,omitempty"`
+	Rim      []Plane `json:"rim,omitempty"`
+}
+
+// Foreign is a curvature sum attributed to the ganglion holding voxel At.
+type Foreign struct {
+	At        [3]int  `json:"at"`
+	Area      float64 `json:"area"`
+	KappaArea float64 `json:"kappa_area"`
+}
+
+// HasCurvature reports whether the tile carries per-component curvature
+// sums and the rim other tiles' sums are placed by (always true for a tile
+// without components).
+func (t *Tile) HasCurvature() bool {
+	return len(t.Sizes) == 0 || (len(t.CurvArea) == len(t.Sizes) && len(t.CurvKappaArea) == len(t.Sizes) && t.RimDepth > 0)
 }
 
 // Plane is a run-length encoded plane of local component ids. A face
@@ -193,6 +228,120 @@ func offsets(conn int) [][3]int {
 // next call (dropped by the garbage collector when unused). No per-voxel
 // label array.
 func Label(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options) *Tile {
+	t, rl := label(lab, s, core, whole, opt)
+	rl.release()
+	return t
+}
+
+// Lookup answers which local component a voxel of a labelled core
+// belongs to. Release it when done; it must not be used after.
+type Lookup struct {
+	core  volume.Box
+	rl    *runLabels
+	first [][3]int // LabelBox only
+}
+
+// LabelLookup is Label that also returns a Lookup of the core's local ids
+// and keeps rimDepth layers of the core on each side in Tile.Rim (none
+// when rimDepth ≤ 0).
+func LabelLookup(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options, rimDepth int) (*Tile, *Lookup) {
+	t, rl := label(lab, s, core, whole, opt)
+	if rimDepth > 0 {
+		n := core.Size()
+		t.RimDepth = rimDepth
+		t.Rim = make([]Plane, 6*rimDepth)
+		var buf []int32
+		for a := 0; a < 3; a++ {
+			u, v := planeAxes(a)
+			for side := 0; side < 2; side++ {
+				for d := 0; d < rimDepth; d++ {
+					at := min(d, n[a]-1)
+					if side == 1 {
+						at = max(n[a]-1-d, 0)
+					}
+					if cap(buf) < n[u]*n[v] {
+						buf = make([]int32, n[u]*n[v])
+					}
+					buf = rl.facePlane(a, at, buf)
+					t.Rim[(2*a+side)*rimDepth+d] = encodePlane(buf, n[u], n[v])
+				}
+			}
+		}
+	}
+	return t, &Lookup{core: core, rl: rl}
+}
+
+// LabelBox labels the set on box (inside lab.Box) for lookups only: no
+// faces, no flags. Components are numbered 1.. in raster order of their
+// first voxel, which First returns.
+func LabelBox(lab *volume.Labels, s *phase.Set, box volume.Box, opt Options) *Lookup {
+	opt, err := opt.normalized()
+	if err != nil {
+		panic(err)
+	}
+	rl, sizes := labelRuns(lab, s, box, opt.Connectivity)
+	l := &Lookup{core: box, rl: rl, first: make([][3]int, len(sizes))}
+	seen := make([]bool, len(sizes))
+	for r := 0; r < rl.N[0]*rl.N[1]; r++ {
+		for _, u := range rl.Runs[rl.Start[r]:rl.Start[r+1]] {
+			if !seen[u.L-1] {
+				seen[u.L-1] = true
+				l.first[u.L-1] = [3]int{box.Min[0] + r/rl.N[1], box.Min[1] + r%rl.N[1], box.Min[2] + int(u.X0)}
+			}
+		}
+	}
+	return l
+}
+
+// First returns the first voxel in raster order of component id of a
+// LabelBox lookup.
+func (l *Lookup) First(id int32) [3]int { return l.first[id-1] }
+
+// Runs calls f for every run of the labelled box: global row (z, y), x
+// range [x0, x1) and component id.
+func (l *Lookup) Runs(f func(z, y, x0, x1 int, id int32)) {
+	rl, c := l.rl, l.core
+	for r := 0; r < rl.N[0]*rl.N[1]; r++ {
+		for _, u := range rl.Runs[rl.Start[r]:rl.Start[r+1]] {
+			f(c.Min[0]+r/rl.N[1], c.Min[1]+r%rl.N[1], c.Min[2]+int(u.X0), c.Min[2]+int(u.X1), u.L)
+		}
+	}
+}
+
+// At returns the local id (1..len(Sizes)) of voxel (z, y, x) in global
+// coordinates, 0 when it is outside the core or not in the set.
+func (l *Lookup) At(z, y, x int) int32 {
+	c := l.core
+	if !c.Contains(z, y, x) {
+		return 0
+	}
+	row := l.rl.row(z-c.Min[0], y-c.Min[1])
+	xx := int32(x - c.Min[2])
+	// First run ending after xx.
+	i, j := 0, len(row)
+	for i < j {
+		h := (i + j) / 2
+		if row[h].X1 <= xx {
+			i = h + 1
+		} else {
+			j = h
+		}
+	}
+	if i < len(row) && row[i].X0 <= xx {
+		return row[i].L
+	}
+	return 0
+}
+
+// Release returns the lookup's buffers to the pool.
+func (l *Lookup) Release() {
+	if l != nil && l.rl != nil {
+		l.rl.release()
+		l.rl = nil
+	}
+}
+
+func label(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options) (*Tile, *runLabels) {
 	opt, err := opt.normalized()
 	if err != nil {
 		panic(err)
@@ -231,8 +380,7 @@ func Label(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt Options
 			}
 		}
 	}
-	rl.release()
-	return t
+	return t, rl
 }
 
 func mark(flags []bool, ids []int32) {

@@ -17,16 +17,34 @@ type Ganglion struct {
 	// faces of the whole box along the flow axis.
 	Inlet  bool `json:"inlet"`
 	Outlet bool `json:"outlet"`
+	// CurvArea and CurvKappaArea are the sums of the tiles'
+	// per-component curvature sums (Tile.CurvArea, voxel² and voxel): the
+	// ganglion's w–n interface area and integrated curvature. Valid only
+	// when Merged.Curvature is set.
+	CurvArea      float64 `json:"curv_area,omitempty"`
+	CurvKappaArea float64 `json:"curv_kappa_area,omitempty"`
 }
+
+// Connected reports whether the ganglion touches the inlet or the outlet
+// face: the definition Summary uses for connected and trapped volume.
+func (g Ganglion) Connected() bool { return g.Inlet || g.Outlet }
 
 // Merged is the whole-volume cluster set joined from tiles.
 type Merged struct {
 	// Ganglia lists the clusters, largest first (ties: inlet and outlet
-	// contact first). The list is the same for every tiling.
+	// contact first). The list is the same for every tiling, except that
+	// ganglia equal in size and contact may come in another order.
 	Ganglia []Ganglion
 	// Local[t][i-1] is the index in Ganglia of local component i of tile t,
 	// for relabelling a tile's label chunk with whole-volume cluster ids.
 	Local [][]int32
+	// Curvature reports whether every tile carried per-component
+	// curvature sums, so that Ganglion.CurvArea and CurvKappaArea hold the
+	// whole-volume sums.
+	Curvature bool
+	// CurvatureErr says why Curvature is false although every tile carried
+	// sums (a sum that could not be placed); empty otherwise.
+	CurvatureErr string
 }
 
 // forest is a disjoint-set forest with union by size and path compression
@@ -98,8 +116,10 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 	for i := range index {
 		index[i] = -1
 	}
-	m := &Merged{Local: make([][]int32, len(tiles))}
+	m := &Merged{Local: make([][]int32, len(tiles)), Curvature: true}
 	for t, tl := range tiles {
+		curv := tl.HasCurvature()
+		m.Curvature = m.Curvature && curv
 		m.Local[t] = make([]int32, len(tl.Sizes))
 		for i, sz := range tl.Sizes {
 			r := uf.find(int32(base[t]) + int32(i) + 1)
@@ -112,6 +132,10 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 			m.Ganglia[g].Voxels += sz
 			m.Ganglia[g].Inlet = m.Ganglia[g].Inlet || tl.Inlet[i]
 			m.Ganglia[g].Outlet = m.Ganglia[g].Outlet || tl.Outlet[i]
+			if curv && len(tl.CurvArea) > 0 {
+				m.Ganglia[g].CurvArea += tl.CurvArea[i]
+				m.Ganglia[g].CurvKappaArea += tl.CurvKappaArea[i]
+			}
 			m.Local[t][i] = g
 		}
 	}
@@ -142,7 +166,94 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 			loc[i] = rank[g]
 		}
 	}
+	if m.Curvature {
+		r := m.Resolver(tiles)
+	foreign:
+		for t, tl := range tiles {
+			for _, f := range tl.CurvForeign {
+				g, err := r.At(f.At)
+				if err != nil {
+					// Inconsistent tile results: report no per-ganglion
+					// curvature rather than a partial one.
+					m.Curvature = false
+					m.CurvatureErr = fmt.Sprintf("tile %d: curvature sum at %v: %v", t, f.At, err)
+					for i := range m.Ganglia {
+						m.Ganglia[i].CurvArea, m.Ganglia[i].CurvKappaArea = 0, 0
+					}
+					break foreign
+				}
+				m.Ganglia[g].CurvArea += f.Area
+				m.Ganglia[g].CurvKappaArea += f.KappaArea
+			}
+		}
+	}
 	return m, nil
+}
+
+// Resolver finds the whole-volume ganglion of a voxel that lies in the Rim
+// of its tile.
+type Resolver struct {
+	m     *Merged
+	tiles []*Tile
+	last  int
+	cache map[[2]int][]int32 // (tile, rim plane) → decoded plane
+}
+
+// Resolver returns a Resolver over the tiles Join merged into m.
+func (m *Merged) Resolver(tiles []*Tile) *Resolver {
+	return &Resolver{m: m, tiles: tiles, cache: map[[2]int][]int32{}}
+}
+
+// At returns the index in Ganglia of the ganglion holding voxel p, read
+// from the Rim of the tile whose core holds p. It fails when no tile holds
+// p, p lies deeper than that tile's RimDepth, or p is not in the set.
+func (r *Resolver) At(p [3]int) (int32, error) {
+	t := -1
+	if r.last < len(r.tiles) && r.tiles[r.last].Core.Contains(p[0], p[1], p[2]) {
+		t = r.last
+	} else {
+		for i, tl := range r.tiles {
+			if tl.Core.Contains(p[0], p[1], p[2]) {
+				t = i
+				break
+			}
+		}
+	}
+	if t < 0 {
+		return 0, fmt.Errorf("no tile holds voxel %v", p)
+	}
+	r.last = t
+	tl := r.tiles[t]
+	c, n := tl.Core, tl.Core.Size()
+	for a := 0; a < 3; a++ {
+		for side := 0; side < 2; side++ {
+			d := p[a] - c.Min[a]
+			if side == 1 {
+				d = c.Max[a] - 1 - p[a]
+			}
+			if d >= tl.RimDepth {
+				continue
+			}
+			k := (2*a+side)*tl.RimDepth + d
+			key := [2]int{t, k}
+			plane, ok := r.cache[key]
+			if !ok {
+				pl := tl.Rim[k]
+				plane = make([]int32, pl.Rows*pl.Cols)
+				if err := pl.Decode(plane); err != nil {
+					return 0, err
+				}
+				r.cache[key] = plane
+			}
+			u, v := planeAxes(a)
+			id := plane[(p[u]-c.Min[u])*n[v]+p[v]-c.Min[v]]
+			if id <= 0 {
+				return 0, fmt.Errorf("voxel %v is not in the set in tile %d", p, t)
+			}
+			return r.m.Local[t][id-1], nil
+		}
+	}
+	return 0, fmt.Errorf("voxel %v lies deeper than the rim (%d) of tile %d", p, tl.RimDepth, t)
 }
 
 // checkTiles validates the tiles' metadata and that their cores partition
@@ -169,7 +280,22 @@ func checkTiles(tiles []*Tile, whole volume.Box, opt Options) error {
 		if len(tl.Inlet) != len(tl.Sizes) || len(tl.Outlet) != len(tl.Sizes) {
 			return fmt.Errorf("cluster: tile %d has %d sizes, %d inlet and %d outlet flags", t, len(tl.Sizes), len(tl.Inlet), len(tl.Outlet))
 		}
+		if (len(tl.CurvArea) != 0 || len(tl.CurvKappaArea) != 0) && (len(tl.CurvArea) != len(tl.Sizes) || len(tl.CurvKappaArea) != len(tl.Sizes)) {
+			return fmt.Errorf("cluster: tile %d has %d sizes, %d and %d curvature sums", t, len(tl.Sizes), len(tl.CurvArea), len(tl.CurvKappaArea))
+		}
 		n := tl.Core.Size()
+		if tl.RimDepth < 0 || len(tl.Rim) != 6*tl.RimDepth {
+			return fmt.Errorf("cluster: tile %d has %d rim planes for depth %d", t, len(tl.Rim), tl.RimDepth)
+		}
+		for k, p := range tl.Rim {
+			u, v := planeAxes(k / tl.RimDepth / 2)
+			if p.Rows != n[u] || p.Cols != n[v] {
+				return fmt.Errorf("cluster: tile %d rim plane %d is %d×%d, core %v needs %d×%d", t, k, p.Rows, p.Cols, tl.Core, n[u], n[v])
+			}
+			if err := p.check(n[u]*n[v], len(tl.Sizes)); err != nil {
+				return fmt.Errorf("cluster: tile %d rim plane %d: %w", t, k, err)
+			}
+		}
 		for a := 0; a < 3; a++ {
 			u, v := planeAxes(a)
 			for side := 0; side < 2; side++ {
@@ -359,7 +485,7 @@ func Summarize(ganglia []Ganglion, opt Options) Summary {
 			s.Spanning++
 			spanning += g.Voxels
 		}
-		if g.Inlet || g.Outlet {
+		if g.Connected() {
 			s.ConnectedVoxels += g.Voxels
 		} else {
 			s.TrappedVoxels += g.Voxels

@@ -133,6 +133,14 @@
 // bit-identical angles for the samples its core owns; N and Hist add
 // exactly, Sum and SumSq to rounding.
 //
+// # Uncertainty
+//
+// Partial.Blocks holds the count and the sum of angles per block of
+// package blockse, by the sample's voxel; blockse.Ratio gives the
+// standard error of the mean angle from the spread between blocks (batch
+// means in space, with one blocking step to twice the edge;
+// docs/capillary-pressure-uncertainty.md).
+//
 // # Cost
 //
 // The faces of the tile (plus Radius) are listed once, per row and in
@@ -151,6 +159,7 @@ import (
 	"sync"
 	"sync/atomic"
 
+	"sluice/pkg/blockse"
 	"sluice/pkg/levelset"
 	"sluice/pkg/phase"
 	"sluice/pkg/volume"
@@ -233,6 +242,11 @@ type Partial struct {
 	// no line, or a line whose points could not be fitted).
 	Line              int64 `json:"line,omitempty"`
 	NonwettingOnSolid int64 `json:"nonwetting_on_solid,omitempty"`
+	// Blocks holds the sample count and the sum of angles per block of
+	// the fixed lattice of package blockse, by the sample's voxel: the
+	// standard error of the mean angle (package doc, "Uncertainty").
+	// Absent in results written before it existed.
+	Blocks blockse.Sums `json:"blocks,omitempty"`
 }
 
 // Measure returns the angles at the contact-line samples owned by core
@@ -280,11 +294,15 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 		}()
 	}
 	wg.Wait()
+	blocks := blockse.Acc{}
 	for i, th := range angles {
 		if ok[i] {
 			p.addAngle(th)
+			q := samples[i]
+			blocks.Add(blockse.KeyOf(q[0], q[1], q[2]), 1, th)
 		}
 	}
+	p.Blocks = blocks.Sums()
 	return p
 }
 
@@ -886,6 +904,7 @@ func (p *Partial) Add(q *Partial) {
 	p.NonwettingOnSolid += q.NonwettingOnSolid
 	p.Sum += q.Sum
 	p.SumSq += q.SumSq
+	p.Blocks = blockse.Merge(p.Blocks, q.Blocks)
 	if q.Hist != nil {
 		if p.Hist == nil {
 			p.Hist = make([]int64, len(q.Hist))

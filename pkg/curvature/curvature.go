@@ -194,6 +194,26 @@
 // whole-volume result (tests: TestTileAdditivity, TestTubeTiles, which
 // also shows that a halo one voxel short changes the result).
 //
+// # Ganglia
+//
+// MeasureAttributed also gives each band voxel to the nearest nonwetting
+// voxel of the labels (Euclidean, centre to centre, the first of equally
+// near ones in a fixed order of offsets) within AttributionReach — the
+// band of a smoothed plane reaches footReach from its ½ level, plus one
+// voxel — so that package measure can sum w and κw per ganglion and report
+// the connected and trapped interfaces apart (Armstrong, Porter &
+// Wildenschild 2012, Adv. Water Resour. 46:55). A band voxel is attributed
+// by the tile owning it; its nonwetting voxel may lie in the halo, within
+// AttributionReach ≤ Halo() of the core, and packages measure and cluster
+// find that voxel's ganglion across the tile boundary (cluster.Tile.Rim).
+// docs/capillary-pressure-uncertainty.md has the definitions and checks.
+//
+// # Uncertainty
+//
+// Partial.Blocks holds Σw and Σκw per block of package blockse, by the
+// band voxel's position; blockse.Ratio gives the standard error of the
+// mean κ from the spread between blocks (batch means in space).
+//
 // # Histogram and median
 //
 // Hist holds Σ|∇φ| per κ bin: HistBins bins of width (HistMax−HistMin)/
@@ -205,6 +225,7 @@ package curvature
 import (
 	"math"
 
+	"sluice/pkg/blockse"
 	"sluice/pkg/levelset"
 	"sluice/pkg/phase"
 	"sluice/pkg/volume"
@@ -299,16 +320,61 @@ type Partial struct {
 	// Hist is the area-weighted κ histogram (see package doc); nil when
 	// empty.
 	Hist []float64 `json:"hist,omitempty"`
+	// Blocks holds Σ|∇φ| and Σκ|∇φ| (scaled as Area and KappaArea) per
+	// block of the fixed lattice of package blockse, by the block of the
+	// band voxel: the standard error of the mean κ (package doc,
+	// "Uncertainty"). Absent in results written before it existed.
+	Blocks blockse.Sums `json:"blocks,omitempty"`
+}
+
+// Attributed is the contribution of one band voxel to the ganglion of a
+// nonwetting voxel (package doc, "Ganglia").
+type Attributed struct {
+	// Owner is the nonwetting voxel nearest the band voxel (global z, y, x).
+	Owner [3]int
+	// Block is the block (package blockse) of the band voxel.
+	Block blockse.Key
+	// W is the voxel's area weight |∇φ|/(1−2·Band), K = κ·W (1/voxel).
+	W, K float64
+}
+
+// AttributionReach is the farthest (voxels, Euclidean) a band voxel looks
+// for the nonwetting voxel it is attributed to: the reach of the band from
+// the φ = ½ level of a smoothed plane plus one voxel (5 at σ = 1.5). It is
+// never more than Halo() (⌈2.05σ⌉ + 1 ≤ ⌈3σ⌉ + 1).
+func (o Options) AttributionReach() int {
+	o = o.norm()
+	return footReach(o.Sigma) + 1
 }
 
 // Measure returns the partial of the voxels of core (clipped to lab.Box).
 // lab must cover core plus Halo() voxels on every side, clipped to the scan.
 func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core volume.Box, opt Options) Partial {
+	p, _ := measure(lab, solid, wetting, nonwetting, core, opt, false)
+	return p
+}
+
+// MeasureAttributed returns Measure's partial and, for every band voxel
+// of core that has a nonwetting voxel within AttributionReach, its
+// attribution to the nearest one, which may lie outside core (in the halo):
+// package measure resolves it to a ganglion (package doc, "Ganglia"). lab
+// must cover core plus Halo() voxels on every side, clipped to the scan;
+// Halo() ≥ AttributionReach(). The list is in z, y, x order.
+func MeasureAttributed(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core volume.Box, opt Options) (Partial, []Attributed) {
+	return measure(lab, solid, wetting, nonwetting, core, opt, true)
+}
+
+func measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core volume.Box, opt Options, attribute bool) (Partial, []Attributed) {
 	opt = opt.norm()
 	var p Partial
 	core = core.Intersect(lab.Box)
 	if core.Empty() {
-		return p
+		return p, nil
+	}
+	ev := core // the box of band voxels visited
+	var own *owner
+	if attribute {
+		own = newOwner(lab, nonwetting, opt.AttributionReach())
 	}
 	pore := levelset.Union(wetting, nonwetting)
 	var rest phase.Set // den ∖ num of the fraction
@@ -317,46 +383,51 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 	}
 	// Narrow band (package levelset): φ can lie strictly inside (0, 1) only
 	// where the kernel cube holds both nonwetting and other pore voxels.
-	// The candidates are the pore voxels of the core there that are not
-	// excluded near the solid, in z, y, x order; φ is computed only on
-	// them and the 3×3×3 neighbours their derivatives read.
+	// The candidates are the pore voxels of ev there, in z, y, x order; φ
+	// is computed only on them and the 3×3×3 neighbours their derivatives
+	// read.
 	// src is lab with the fluids continued into the solid within the
-	// kernel's reach of the voxels read below (core + r + 1).
+	// kernel's reach of the voxels read below (ev + r + 1).
 	r := levelset.Radius(opt.Sigma)
 	src := lab
 	if opt.WallFit > 0 {
 		wc, okw := firstCode(wetting)
 		nc, okn := firstCode(nonwetting)
 		if okw && okn {
-			src = extendIntoSolid(lab, solid, wetting, nonwetting, core.Grow(r+1), r, opt.WallFit, wc, nc)
+			src = extendIntoSolid(lab, solid, wetting, nonwetting, ev.Grow(r+1), r, opt.WallFit, wc, nc)
 		}
 	}
-	mix := levelset.Mixed(src, nonwetting, &rest, core, r)
+	mix := levelset.Mixed(src, nonwetting, &rest, ev, r)
 	ex := newExclusion(lab, solid, opt.Exclude)
-	var cand []int32 // offsets in core, z-major
+	var cand []int32   // offsets in ev, z-major
+	var owners []int32 // with own: lab.Pix index of the owner, −1 none
 	i := 0
-	for z := core.Min[0]; z < core.Max[0]; z++ {
-		for y := core.Min[1]; y < core.Max[1]; y++ {
-			row := lab.Pix[lab.Index(z, y, core.Min[2]):][:core.Max[2]-core.Min[2]]
+	for z := ev.Min[0]; z < ev.Max[0]; z++ {
+		for y := ev.Min[1]; y < ev.Max[1]; y++ {
+			row := lab.Pix[lab.Index(z, y, ev.Min[2]):][:ev.Max[2]-ev.Min[2]]
 			m := mix.Pix[i:][:len(row)]
 			for k, l := range row {
-				if m[k] != 0 && pore[l] {
-					cand = append(cand, int32(i+k))
+				if m[k] == 0 || !pore[l] {
+					continue
 				}
+				if own != nil {
+					owners = append(owners, own.find(z, y, ev.Min[2]+k))
+				}
+				cand = append(cand, int32(i+k))
 			}
 			i += len(row)
 		}
 	}
 	if len(cand) == 0 {
-		return p
+		return p, nil
 	}
-	pb := core.Grow(1).Intersect(lab.Box)
+	pb := ev.Grow(1).Intersect(lab.Box)
 	need := volume.New[uint8](pb, 0)
-	cs := core.Size()
+	cs := ev.Size()
 	ps := pb.Size()
 	pos := func(c int32) (z, y, x int) {
 		ci := int(c)
-		return core.Min[0] + ci/(cs[1]*cs[2]), core.Min[1] + ci/cs[2]%cs[1], core.Min[2] + ci%cs[2]
+		return ev.Min[0] + ci/(cs[1]*cs[2]), ev.Min[1] + ci/cs[2]%cs[1], ev.Min[2] + ci%cs[2]
 	}
 	for _, c := range cand {
 		z, y, x := pos(c)
@@ -371,7 +442,9 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 	}
 	phi := levelset.FractionOn(src, nonwetting, pore, pb, opt.Sigma, need)
 	scale := 1 / (1 - 2*Band)
-	for _, c := range cand {
+	blocks := blockse.Acc{}
+	var att []Attributed
+	for ci, c := range cand {
 		z, y, x := pos(c)
 		f := float64(phi.At(z, y, x))
 		if !(f >= Band && f <= 1-Band) {
@@ -404,6 +477,13 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 			}
 		}
 		w := gn * scale
+		bk := blockse.KeyOf(z, y, x)
+		if own != nil {
+			if o := owners[ci]; o >= 0 {
+				oz, oy, ox := coords(lab, o)
+				att = append(att, Attributed{Owner: [3]int{oz, oy, ox}, Block: bk, W: w, K: k * w})
+			}
+		}
 		p.Area += w
 		p.KappaArea += k * w
 		p.Kappa2Area += k * k * w
@@ -412,8 +492,63 @@ func Measure(lab *volume.Labels, solid, wetting, nonwetting *phase.Set, core vol
 			p.Hist = make([]float64, HistBins)
 		}
 		p.Hist[bin(k)] += w
+		blocks.Add(bk, w, k*w)
 	}
-	return p
+	p.Blocks = blocks.Sums()
+	return p, att
+}
+
+// owner finds, for a band voxel, the nearest nonwetting voxel of lab within
+// Euclidean distance r (centre to centre), the first of equally near ones
+// in a fixed order of offsets, so the answer depends only on the labels
+// around the voxel, not on the tile.
+type owner struct {
+	lab  *volume.Labels
+	non  *phase.Set
+	off  [][3]int // ball offsets, nearest first, ties in z, y, x order
+	flat []int
+	r    int
+}
+
+func newOwner(lab *volume.Labels, non *phase.Set, r int) *owner {
+	o := &owner{lab: lab, non: non, r: r}
+	s := lab.Box.Size()
+	for d2 := 0; d2 <= r*r; d2++ {
+		for dz := -r; dz <= r; dz++ {
+			for dy := -r; dy <= r; dy++ {
+				for dx := -r; dx <= r; dx++ {
+					if dz*dz+dy*dy+dx*dx == d2 {
+						o.off = append(o.off, [3]int{dz, dy, dx})
+						o.flat = append(o.flat, (dz*s[1]+dy)*s[2]+dx)
+					}
+				}
+			}
+		}
+	}
+	return o
+}
+
+// coords returns the global coordinates of lab.Pix[i].
+func coords(lab *volume.Labels, i int32) (z, y, x int) {
+	s := lab.Box.Size()
+	j := int(i)
+	return lab.Box.Min[0] + j/(s[1]*s[2]), lab.Box.Min[1] + j/s[2]%s[1], lab.Box.Min[2] + j%s[2]
+}
+
+// find returns the lab.Pix index of the owner of (z, y, x), or −1.
+func (o *owner) find(z, y, x int) int32 {
+	lab, b := o.lab, o.lab.Box
+	j := lab.Index(z, y, x)
+	inside := z-o.r >= b.Min[0] && z+o.r < b.Max[0] && y-o.r >= b.Min[1] && y+o.r < b.Max[1] && x-o.r >= b.Min[2] && x+o.r < b.Max[2]
+	for k, d := range o.off {
+		if !inside && !b.Contains(z+d[0], y+d[1], x+d[2]) {
+			continue
+		}
+		if o.non[lab.Pix[j+o.flat[k]]] {
+			return int32(j + o.flat[k])
+		}
+	}
+	return -1
 }
 
 // exclusion answers whether a voxel lies within distance e (Euclidean,
@@ -485,6 +620,7 @@ func (p *Partial) Add(q *Partial) {
 	p.KappaArea += q.KappaArea
 	p.Kappa2Area += q.Kappa2Area
 	p.Voxels += q.Voxels
+	p.Blocks = blockse.Merge(p.Blocks, q.Blocks)
 	if q.Hist != nil {
 		if p.Hist == nil {
 			p.Hist = make([]float64, len(q.Hist))

@@ -30,12 +30,15 @@
 package measure
 
 import (
+	"cmp"
 	"errors"
 	"fmt"
 	"math"
 	"runtime"
+	"slices"
 	"sync"
 
+	"sluice/pkg/blockse"
 	"sluice/pkg/cluster"
 	"sluice/pkg/contact"
 	"sluice/pkg/curvature"
@@ -135,6 +138,21 @@ type Partial struct {
 	Curvature *curvature.Partial `json:"curvature,omitempty"`
 	Contact   *contact.Partial   `json:"contact,omitempty"`
 	Clusters  *cluster.Tile      `json:"clusters"`
+	// GangliaBlocks holds the curvature sums attributed to the tile's
+	// local nonwetting components (Clusters ids) per block of package
+	// blockse: the standard errors of the connected and trapped Pc. Nil
+	// when curvature was not measured or not attributed.
+	GangliaBlocks []OwnedBlock `json:"ganglia_blocks,omitempty"`
+}
+
+// OwnedBlock is the curvature sum W = Σw, X = Σκw (voxel², voxel) of the
+// band voxels of one block attributed to one local component (Owner ≥ 1)
+// or, with Owner 0, to the ganglion holding voxel At of another tile
+// (cluster.Tile.CurvForeign).
+type OwnedBlock struct {
+	Owner int32   `json:"id"`
+	At    *[3]int `json:"at,omitempty"`
+	blockse.Sum
 }
 
 // paddedOrigins returns the cell origins a core owns with the image padded
@@ -173,6 +191,11 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 	if !lab.Box.ContainsBox(need) {
 		return nil, fmt.Errorf("measure: tile data %v does not cover core %v with halo %d", lab.Box, core, opt.Halo())
 	}
+	attribute := !opt.SkipCurvature
+	rim := 0
+	if attribute {
+		rim = opt.Curvature.AttributionReach()
+	}
 	solid, wet, non := opt.Codes.Sets()
 	p := &Partial{Core: core}
 	workers := opt.Workers
@@ -184,6 +207,7 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 	// run beside the curvature while the contact-angle fits share the
 	// workers; no stage's result depends on how it is scheduled.
 	var wg sync.WaitGroup
+	var look *cluster.Lookup
 	run := func(f func()) {
 		if workers == 1 {
 			f()
@@ -199,11 +223,17 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 			p.Padded[i] = morph.Cells(lab, s, po)
 			p.Interior[i] = morph.Cells(lab, s, io)
 		}
-		p.Clusters = cluster.Label(lab, non, core, whole, opt.clusterOptions())
+		p.Clusters, look = cluster.LabelLookup(lab, non, core, whole, opt.clusterOptions(), rim)
 	})
+	var att []curvature.Attributed
 	if !opt.SkipCurvature {
 		run(func() {
-			c := curvature.Measure(lab, solid, wet, non, core, opt.Curvature)
+			var c curvature.Partial
+			if attribute {
+				c, att = curvature.MeasureAttributed(lab, solid, wet, non, core, opt.Curvature)
+			} else {
+				c = curvature.Measure(lab, solid, wet, non, core, opt.Curvature)
+			}
 			p.Curvature = &c
 		})
 	}
@@ -214,7 +244,117 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 		p.Contact = &c
 	}
 	wg.Wait()
+	if attribute {
+		attributeGanglia(p, att, look, lab, non, core.Grow(rim).Intersect(lab.Box), opt.clusterOptions())
+	}
+	look.Release()
 	return p, nil
+}
+
+// attributeGanglia sums the attributed band voxels of the core per local
+// component of the tile (Clusters.CurvArea, CurvKappaArea) and per (block,
+// component) (GangliaBlocks), in the order of att. A band voxel's
+// nonwetting voxel may lie in the halo (within the attribution reach of the
+// core, so inside box): if its component within box reaches the core, the
+// sum goes to a local component of that piece (the same ganglion);
+// otherwise to Clusters.CurvForeign, named by the piece's first voxel in
+// raster order, which lies in the rim of the tile owning it
+// (cluster.Resolver).
+func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Lookup, lab *volume.Labels, non *phase.Set, box volume.Box, co cluster.Options) {
+	t := p.Clusters
+	t.CurvArea = make([]float64, len(t.Sizes))
+	t.CurvKappaArea = make([]float64, len(t.Sizes))
+	core := t.Core
+	// Pieces of the nonwetting phase within box, and for each the local
+	// component of the core it holds (0 when none), built on first need.
+	var ext *cluster.Lookup
+	var toLocal []int32
+	extOwner := func(v [3]int) (local int32, piece int32) {
+		if ext == nil {
+			ext = cluster.LabelBox(lab, non, box, co)
+			ext.Runs(func(z, y, x0, x1 int, id int32) {
+				for int(id) > len(toLocal) {
+					toLocal = append(toLocal, 0)
+				}
+				if toLocal[id-1] != 0 || !core.Contains(z, y, core.Min[2]) || x1 <= core.Min[2] || x0 >= core.Max[2] {
+					return
+				}
+				toLocal[id-1] = look.At(z, y, max(x0, core.Min[2]))
+			})
+		}
+		e := ext.At(v[0], v[1], v[2])
+		if e <= 0 {
+			return 0, 0
+		}
+		return toLocal[e-1], e
+	}
+	type key struct {
+		b     blockse.Key
+		id    int32 // local id, or −piece for a foreign piece
+		piece int32
+	}
+	acc := map[key]*OwnedBlock{}
+	foreign := map[int32]int{} // piece → index in CurvForeign
+	for _, a := range att {
+		id := look.At(a.Owner[0], a.Owner[1], a.Owner[2])
+		var piece int32
+		if id == 0 {
+			id, piece = extOwner(a.Owner)
+			if id == 0 && piece == 0 {
+				continue // not reached: the owner is a nonwetting voxel in box
+			}
+		}
+		k := key{b: a.Block, id: id}
+		if id > 0 {
+			t.CurvArea[id-1] += a.W
+			t.CurvKappaArea[id-1] += a.K
+		} else {
+			k.piece = piece
+			at := ext.First(piece)
+			i, ok := foreign[piece]
+			if !ok {
+				i = len(t.CurvForeign)
+				foreign[piece] = i
+				t.CurvForeign = append(t.CurvForeign, cluster.Foreign{At: at})
+			}
+			t.CurvForeign[i].Area += a.W
+			t.CurvForeign[i].KappaArea += a.K
+		}
+		s := acc[k]
+		if s == nil {
+			s = &OwnedBlock{Owner: id, Sum: blockse.Sum{Key: a.Block}}
+			if id == 0 {
+				at := ext.First(piece)
+				s.At = &at
+			}
+			acc[k] = s
+		}
+		s.W += a.W
+		s.X += a.K
+	}
+	ext.Release()
+	p.GangliaBlocks = make([]OwnedBlock, 0, len(acc))
+	for _, s := range acc {
+		p.GangliaBlocks = append(p.GangliaBlocks, *s)
+	}
+	slices.SortFunc(p.GangliaBlocks, func(a, b OwnedBlock) int {
+		if c := cmp.Compare(a.Owner, b.Owner); c != 0 {
+			return c
+		}
+		if a.At != nil && b.At != nil {
+			for i := range a.At {
+				if c := cmp.Compare(a.At[i], b.At[i]); c != 0 {
+					return c
+				}
+			}
+		}
+		for i := range a.Key {
+			if c := cmp.Compare(a.Key[i], b.Key[i]); c != 0 {
+				return c
+			}
+		}
+		return 0
+	})
 }
 
 // countPhases fills p.Counts over core.

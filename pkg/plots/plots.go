@@ -2,15 +2,24 @@
 // as PNG and SVG, for the live page, papers and logbooks:
 //
 //	saturation          S_w and S_n against time, axis fixed to 0–1
-//	capillary_pressure  Pc (kPa; area-weighted mean and median, Pc = σκ) against time,
-//	                    or the total curvature κ (1/mm) when σ is not set
-//	curvature           total curvature κ of the w–n interface (1/mm), mean and median, against time
+//	capillary_pressure  Pc (kPa; area-weighted mean and median, Pc = σκ, and the mean
+//	                    over the interfaces of the connected and of the trapped
+//	                    nonwetting ganglia) against time, or the total curvature κ
+//	                    (1/mm) when σ is not set; means with ±1 standard error bars
+//	curvature           total curvature κ of the w–n interface (1/mm), mean (± standard
+//	                    error) and median, against time
 //	specific_area       specific interfacial areas a_wn, a_ws, a_ns per bulk volume
 //	                    (mm²/mm³ of bulk volume) against time
 //	pc_saturation       Pc–S_w trajectory (κ–S_w without σ)
 //	area_saturation     a_wn–S_w trajectory
 //	contact_angle       contact-angle distribution of the latest step (bars) with the
-//	                    running distribution of all steps (line), 5° bins, per degree
+//	                    running distribution of all steps (line), 5° bins, per degree,
+//	                    and the latest step's mean angle ± standard error
+//
+// Standard errors come from the spread between spatial blocks (package
+// blockse; docs/capillary-pressure-uncertainty.md); a point without one
+// has no bar.
+//
 //	ganglia             nonwetting ganglia count and largest-ganglion volume fraction against time
 //
 // Every figure's title names the campaign and the run (short parameter
@@ -419,6 +428,9 @@ func (b *builder) timePlot(name, title, ylabel string, curves []curve) Figure {
 	n := 0
 	for i, c := range curves {
 		n += addSeries(p, styles[i], c.label, b.times(), c.y)
+		if c.se != nil {
+			addErrorBars(p, styles[i], b.times(), c.y, c.se)
+		}
 	}
 	if n > 0 {
 		b.markEvents(p)
@@ -429,12 +441,59 @@ func (b *builder) timePlot(name, title, ylabel string, curves []curve) Figure {
 type curve struct {
 	label string
 	y     []float64
+	// se, when set, is the standard error of y: drawn as bars y ± se.
+	se []float64
+}
+
+// errPoints are the points with a finite value and a finite positive
+// standard error: (x, y) and the half-length of their bar.
+type errPoints struct {
+	xy plotter.XYs
+	e  []float64
+}
+
+func (e errPoints) Len() int                    { return len(e.xy) }
+func (e errPoints) XY(i int) (float64, float64) { return e.xy[i].X, e.xy[i].Y }
+func (e errPoints) YError(i int) (float64, float64) {
+	return e.e[i], e.e[i]
+}
+func (e errPoints) XError(i int) (float64, float64) {
+	return e.e[i], e.e[i]
+}
+
+// errorPoints keeps the points of x, y, se that get a bar.
+func errorPoints(x, y, se []float64) errPoints {
+	var ep errPoints
+	for i := range x {
+		if finite(x[i]) && finite(y[i]) && finite(se[i]) && se[i] > 0 {
+			ep.xy = append(ep.xy, plotter.XY{X: x[i], Y: y[i]})
+			ep.e = append(ep.e, se[i])
+		}
+	}
+	return ep
+}
+
+// addErrorBars draws y ± se as vertical bars in the colour of s; it
+// returns the number of bars.
+func addErrorBars(p *plot.Plot, s style, x, y, se []float64) int {
+	ep := errorPoints(x, y, se)
+	if ep.Len() == 0 {
+		return 0
+	}
+	eb, err := plotter.NewYErrorBars(ep)
+	if err != nil {
+		return 0
+	}
+	eb.LineStyle = draw.LineStyle{Color: s.colour, Width: vg.Points(1)}
+	eb.CapWidth = vg.Points(4)
+	p.Add(eb)
+	return ep.Len()
 }
 
 func (b *builder) saturation() Figure {
 	f := b.timePlot("saturation", "Saturation", "saturation ("+UnitDimensionless+")", []curve{
-		{"S_w (wetting)", b.col(func(r *series.Row) *float64 { return r.SatWetting }, 1)},
-		{"S_n (nonwetting)", b.col(func(r *series.Row) *float64 { return r.SatNonwetting }, 1)},
+		{"S_w (wetting)", b.col(func(r *series.Row) *float64 { return r.SatWetting }, 1), nil},
+		{"S_n (nonwetting)", b.col(func(r *series.Row) *float64 { return r.SatNonwetting }, 1), nil},
 	})
 	f.panels[0].Y.Min, f.panels[0].Y.Max = 0, 1
 	f.specs = []axes{{fixedY: true}}
@@ -454,6 +513,8 @@ func (b *builder) hasPc() bool {
 var (
 	pcMean    = func(r *series.Row) *float64 { return r.Pc }
 	pcMedian  = func(r *series.Row) *float64 { return r.PcMedian }
+	pcSE      = func(r *series.Row) *float64 { return r.PcSE }
+	kSE       = func(r *series.Row) *float64 { return r.CurvMeanSE }
 	kMean     = func(r *series.Row) *float64 { return r.CurvMean }
 	kMedian   = func(r *series.Row) *float64 { return r.CurvMedian }
 	satWet    = func(r *series.Row) *float64 { return r.SatWetting }
@@ -465,28 +526,36 @@ var (
 func (b *builder) pressure() Figure {
 	if b.hasPc() {
 		return b.timePlot("capillary_pressure", "Capillary pressure", "capillary pressure Pc ("+UnitPressure+")", []curve{
-			{"Pc mean", b.col(pcMean, pascalToK)},
-			{"Pc median", b.col(pcMedian, pascalToK)},
+			{"Pc mean ± SE", b.col(pcMean, pascalToK), b.col(pcSE, pascalToK)},
+			{"Pc median", b.col(pcMedian, pascalToK), nil},
+			{"Pc connected ganglia ± SE", b.col(func(r *series.Row) *float64 { return r.PcConnected }, pascalToK),
+				b.col(func(r *series.Row) *float64 { return r.PcConnectedSE }, pascalToK)},
+			{"Pc trapped ganglia ± SE", b.col(func(r *series.Row) *float64 { return r.PcTrapped }, pascalToK),
+				b.col(func(r *series.Row) *float64 { return r.PcTrappedSE }, pascalToK)},
 		})
 	}
 	return b.timePlot("capillary_pressure", "Interface curvature (no σ: Pc not computed)", "total curvature κ ("+UnitCurvature+")", []curve{
-		{"κ mean", b.col(kMean, perMetreT)},
-		{"κ median", b.col(kMedian, perMetreT)},
+		{"κ mean ± SE", b.col(kMean, perMetreT), b.col(kSE, perMetreT)},
+		{"κ median", b.col(kMedian, perMetreT), nil},
+		{"κ connected ganglia ± SE", b.col(func(r *series.Row) *float64 { return r.CurvConnected }, perMetreT),
+			b.col(func(r *series.Row) *float64 { return r.CurvConnectedSE }, perMetreT)},
+		{"κ trapped ganglia ± SE", b.col(func(r *series.Row) *float64 { return r.CurvTrapped }, perMetreT),
+			b.col(func(r *series.Row) *float64 { return r.CurvTrappedSE }, perMetreT)},
 	})
 }
 
 func (b *builder) curvature() Figure {
 	return b.timePlot("curvature", "Curvature of the w–n interface", "total curvature κ ("+UnitCurvature+")", []curve{
-		{"κ mean (area-weighted)", b.col(kMean, perMetreT)},
-		{"κ median", b.col(kMedian, perMetreT)},
+		{"κ mean (area-weighted) ± SE", b.col(kMean, perMetreT), b.col(kSE, perMetreT)},
+		{"κ median", b.col(kMedian, perMetreT), nil},
 	})
 }
 
 func (b *builder) area() Figure {
 	return b.timePlot("specific_area", "Specific interfacial area per bulk volume", "specific area a ("+UnitSpecificArea+")", []curve{
-		{"a_wn", b.col(areaWN, perMetreT)},
-		{"a_ws", b.col(func(r *series.Row) *float64 { return r.SpecificWS }, perMetreT)},
-		{"a_ns", b.col(func(r *series.Row) *float64 { return r.SpecificNS }, perMetreT)},
+		{"a_wn", b.col(areaWN, perMetreT), nil},
+		{"a_ws", b.col(func(r *series.Row) *float64 { return r.SpecificWS }, perMetreT), nil},
+		{"a_ns", b.col(func(r *series.Row) *float64 { return r.SpecificNS }, perMetreT), nil},
 	})
 }
 
@@ -593,6 +662,32 @@ func (b *builder) angles() Figure {
 	p.Add(l, sc)
 	p.Legend.Add(fmt.Sprintf("all steps (%d)", len(b.rows)), l, sc)
 	p.Add(&vline{x: 90, style: draw.LineStyle{Color: Palette.Slate, Width: vg.Points(0.8), Dashes: []vg.Length{vg.Points(2), vg.Points(2)}}})
+	// The latest step's mean angle ± SE, a horizontal bar above the bars.
+	if r := &b.rows[latest]; r.AngleMean != nil {
+		top := 0.0
+		for k := range last {
+			top = math.Max(top, math.Max(last[k], running[k]))
+		}
+		se := math.NaN()
+		if r.AngleMeanSE != nil {
+			se = *r.AngleMeanSE
+		}
+		pt := plotter.XYs{{X: *r.AngleMean, Y: 1.08 * top}}
+		sc, _ := plotter.NewScatter(pt)
+		sc.GlyphStyle = draw.GlyphStyle{Color: Palette.Ink, Radius: vg.Points(3), Shape: draw.CircleGlyph{}}
+		p.Add(sc)
+		label := fmt.Sprintf("mean %.1f° (latest step)", *r.AngleMean)
+		if ep := errorPoints([]float64{pt[0].X}, []float64{pt[0].Y}, []float64{se}); ep.Len() > 0 {
+			eb, err := plotter.NewXErrorBars(ep)
+			if err == nil {
+				eb.LineStyle = draw.LineStyle{Color: Palette.Ink, Width: vg.Points(1.2)}
+				eb.CapWidth = vg.Points(5)
+				p.Add(eb)
+				label = fmt.Sprintf("mean %.1f ± %.1f° SE (latest step)", *r.AngleMean, se)
+			}
+		}
+		p.Legend.Add(label, sc)
+	}
 	return Figure{Name: "contact_angle", Title: title, panels: []*plot.Plot{p}, specs: []axes{{fixedX: true}}}
 }
 

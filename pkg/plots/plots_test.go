@@ -285,3 +285,55 @@ func BenchmarkBuildAndRender(b *testing.B) {
 	}
 	b.ReportMetric(float64(len(Names)*b.N)/b.Elapsed().Seconds(), "figures/s")
 }
+
+// TestErrorBars: every mean with a standard error gets a bar of ±SE in its
+// series' colour (one stroke and two caps), a mean without one gets none,
+// and the contact-angle figure shows the latest step's mean ± SE.
+func TestErrorBars(t *testing.T) {
+	const n = 5
+	rows := drainage(n, -1)
+	for i := 0; i < n-1; i++ { // the last step has no SE
+		rows[i].PcSE = fp(0.05 * *rows[i].Pc)
+		rows[i].PcConnected, rows[i].PcConnectedSE = fp(0.9**rows[i].Pc), fp(10)
+	}
+	rows[n-1].AngleMean, rows[n-1].AngleMeanSE = fp(63.2), fp(2.5)
+	count2 := func(svg []byte, c color.NRGBA) int {
+		lines, _ := svgPaths(string(svg), c)
+		k := 0
+		for _, v := range lines {
+			if v == 2 {
+				k++
+			}
+		}
+		return k
+	}
+	figs := Build(rows, nil, Run{})
+	svg, _ := render(t, byName(figs, "capillary_pressure"))
+	// Ink: n−1 bars × 3 strokes + the legend thumbnail. Sky (third
+	// style, connected): the same.
+	if got, want := count2(svg, Palette.Ink), 3*(n-1)+1; got != want {
+		t.Errorf("Pc mean: %d two-vertex ink strokes, want %d", got, want)
+	}
+	if got, want := count2(svg, styles[2].colour), 3*(n-1)+1; got != want {
+		t.Errorf("Pc connected: %d two-vertex strokes, want %d", got, want)
+	}
+	if !strings.Contains(string(svg), "Pc connected ganglia ± SE") {
+		t.Error("legend lacks the connected Pc")
+	}
+	// The bars are ±SE long: the points errorPoints keeps.
+	x := []float64{0, 1, 2}
+	ep := errorPoints(x, []float64{1, math.NaN(), 3}, []float64{0.5, 0.1, math.NaN()})
+	if ep.Len() != 1 || ep.xy[0].Y != 1 {
+		t.Fatalf("errorPoints kept %+v", ep)
+	}
+	if lo, hi := ep.YError(0); lo != 0.5 || hi != 0.5 {
+		t.Fatalf("bar ±%v/%v, want ±0.5", lo, hi)
+	}
+	svg, _ = render(t, byName(figs, "contact_angle"))
+	if !strings.Contains(string(svg), "mean 63.2 ± 2.5° SE (latest step)") {
+		t.Error("contact-angle figure lacks the mean ± SE")
+	}
+	if got := count2(svg, Palette.Ink); got < 3 {
+		t.Errorf("contact-angle figure: %d two-vertex ink strokes, want the bar and its caps", got)
+	}
+}

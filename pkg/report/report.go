@@ -132,7 +132,11 @@ type figure struct {
 type tableRow struct {
 	Step, Time, Sw, Phi, Pc, KMean, KMedian, RVox, AWN     string
 	AMean, AMedian, AStd, ASamples, Ganglia, Largest, Perc string
-	Unresolved                                             bool
+	// PcConnected, PcTrapped: the means over the connected and the
+	// trapped ganglia's interfaces; Trapped: the median of the trapped
+	// ganglia's own Pc and their count. Means carry "± SE" when known.
+	PcConnected, PcTrapped, Trapped string
+	Unresolved                      bool
 }
 
 // settingsRow is one line of the per-step segmentation table.
@@ -256,11 +260,21 @@ func tabulate(r *series.Row, h float64) tableRow {
 		}
 		return strconv.FormatFloat(*p*scale, 'f', prec, 64)
 	}
+	// pm writes a mean with its standard error, "v ± se" (the SE left
+	// out when unknown).
+	pm := func(p, se *float64, scale float64, prec int) string {
+		if p == nil || se == nil {
+			return f(p, scale, prec)
+		}
+		return f(p, scale, prec) + " ± " + f(se, scale, prec)
+	}
 	t := tableRow{
 		Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64),
 		Sw: f(r.SatWetting, 1, 4), Phi: f(r.Porosity, 1, 4),
-		Pc: f(r.Pc, 1e-3, 3), KMean: f(r.CurvMean, 1e-3, 2), KMedian: f(r.CurvMedian, 1e-3, 2),
-		AWN: f(r.SpecificWN, 1e-3, 3), AMean: f(r.AngleMean, 1, 1), AMedian: f(r.AngleMedian, 1, 1),
+		Pc: pm(r.Pc, r.PcSE, 1e-3, 3), KMean: pm(r.CurvMean, r.CurvMeanSE, 1e-3, 2), KMedian: f(r.CurvMedian, 1e-3, 2),
+		PcConnected: pm(r.PcConnected, r.PcConnectedSE, 1e-3, 3), PcTrapped: pm(r.PcTrapped, r.PcTrappedSE, 1e-3, 3),
+		Trapped: "—",
+		AWN:     f(r.SpecificWN, 1e-3, 3), AMean: pm(r.AngleMean, r.AngleMeanSE, 1, 1), AMedian: f(r.AngleMedian, 1, 1),
 		AStd: f(r.AngleStd, 1, 1), Largest: f(r.LargestFraction, 1, 3),
 		RVox: "—", ASamples: "—", Ganglia: "—", Perc: "—",
 	}
@@ -271,6 +285,9 @@ func tabulate(r *series.Row, h float64) tableRow {
 	}
 	if r.AngleSamples != nil {
 		t.ASamples = strconv.FormatInt(*r.AngleSamples, 10)
+	}
+	if g := r.Trapped(); g.Count != nil && *g.Count > 0 && g.PcMedian != nil {
+		t.Trapped = f(g.PcMedian, 1e-3, 3) + " (" + strconv.FormatInt(*g.Count, 10) + ")"
 	}
 	if r.GangliaCount != nil {
 		t.Ganglia = strconv.FormatInt(*r.GangliaCount, 10)
@@ -379,12 +396,17 @@ and curvatures of such a step are not comparable with the others.</p>
 <h2>Series</h2>
 <p>{{len .Table}} steps. All values measured at voxel size {{.VoxelSize}}. R/h is the mean radius of
 curvature of the w–n interface in voxels, 2/(κ·h); highlighted where below {{.ResolvedRadius}} voxels, where
-image-derived curvature and Pc lose accuracy.</p>
+image-derived curvature and Pc lose accuracy. "± x" is one standard error of the mean from the spread between
+blocks of 32 voxels (spatial batch means); it does not include systematic errors. Pc connected and Pc trapped
+are taken over the interfaces of the nonwetting ganglia that touch the inlet or outlet face and of the other
+(trapped) ones; the trapped-ganglia column gives the median of their own Pc over ganglia with at least 250 voxel²
+of interface, and their count.</p>
 <table id="series-table">
-<tr><th>step</th><th>t (s)</th><th>S_w</th><th>φ</th><th>Pc (kPa)</th><th>κ mean (1/mm)</th><th>κ median (1/mm)</th>
+<tr><th>step</th><th>t (s)</th><th>S_w</th><th>φ</th><th>Pc (kPa)</th><th>Pc connected (kPa)</th><th>Pc trapped (kPa)</th>
+<th>trapped ganglia: median Pc (kPa) (count)</th><th>κ mean (1/mm)</th><th>κ median (1/mm)</th>
 <th>R/h (vox)</th><th>a_wn ({{.AreaUnit}})</th><th>θ mean (°)</th><th>θ median (°)</th><th>θ std (°)</th><th>θ samples</th>
 <th>ganglia</th><th>largest fraction</th><th>percolates</th></tr>{{range .Table}}
-<tr data-step="{{.Step}}"{{if .Unresolved}} class="unresolved"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.Sw}}</td><td>{{.Phi}}</td><td>{{.Pc}}</td><td>{{.KMean}}</td><td>{{.KMedian}}</td><td class="rvox">{{.RVox}}</td><td>{{.AWN}}</td><td>{{.AMean}}</td><td>{{.AMedian}}</td><td>{{.AStd}}</td><td>{{.ASamples}}</td><td>{{.Ganglia}}</td><td>{{.Largest}}</td><td>{{.Perc}}</td></tr>{{end}}
+<tr data-step="{{.Step}}"{{if .Unresolved}} class="unresolved"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.Sw}}</td><td>{{.Phi}}</td><td>{{.Pc}}</td><td>{{.PcConnected}}</td><td>{{.PcTrapped}}</td><td>{{.Trapped}}</td><td>{{.KMean}}</td><td>{{.KMedian}}</td><td class="rvox">{{.RVox}}</td><td>{{.AWN}}</td><td>{{.AMean}}</td><td>{{.AMedian}}</td><td>{{.AStd}}</td><td>{{.ASamples}}</td><td>{{.Ganglia}}</td><td>{{.Largest}}</td><td>{{.Perc}}</td></tr>{{end}}
 </table>
 </section>
 

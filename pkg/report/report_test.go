@@ -322,3 +322,24 @@ func TestSettingsPerStep(t *testing.T) {
 		}
 	}
 }
+
+// TestUncertaintyCells: means carry "± SE" when the row has one, and the
+// connected, trapped and trapped-ganglia cells come from the row.
+func TestUncertaintyCells(t *testing.T) {
+	r := series.Row{Step: "a", Pc: fp(1234.5), PcSE: fp(12.25), PcConnected: fp(1000), PcConnectedSE: fp(20),
+		PcTrapped: fp(1500), AngleMean: fp(63.24), AngleMeanSE: fp(2.51),
+		Extra: map[string]json.RawMessage{"trapped_ganglia_curvature": json.RawMessage(`{"count": 4, "pc_median_pa": 1600}`)}}
+	tr := tabulate(&r, 2e-6)
+	for name, c := range map[string][2]string{
+		"Pc": {tr.Pc, "1.234 ± 0.012"}, "connected": {tr.PcConnected, "1.000 ± 0.020"},
+		"trapped": {tr.PcTrapped, "1.500"}, "ganglia": {tr.Trapped, "1.600 (4)"}, "θ": {tr.AMean, "63.2 ± 2.5"},
+	} {
+		if c[0] != c[1] {
+			t.Errorf("%s cell %q, want %q", name, c[0], c[1])
+		}
+	}
+	page := string(render(t, Input{Params: Params{Campaign: "c", VoxelSize: 2e-6}, Rows: []series.Row{r}}))
+	if !strings.Contains(page, "<td>1.234 ± 0.012</td><td>1.000 ± 0.020</td><td>1.500</td><td>1.600 (4)</td>") {
+		t.Error("series table lacks the Pc cells with standard errors")
+	}
+}

@@ -51,7 +51,18 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	contact_angle_mean_deg, contact_angle_median_deg, contact_angle_std_deg,
 //	contact_angle_samples, euler_nonwetting, euler_wetting, euler_solid,
 //	ganglia_count, ganglion_largest_fraction, nonwetting_percolates,
-//	nonwetting_trapped_fraction, connectivity, flow_axis
+//	nonwetting_trapped_fraction, connectivity, flow_axis,
+//	curvature_wn_mean_se_per_m, capillary_pressure_se_pa,
+//	curvature_wn_connected_mean_per_m, curvature_wn_connected_mean_se_per_m,
+//	capillary_pressure_connected_pa, capillary_pressure_connected_se_pa,
+//	curvature_wn_trapped_mean_per_m, curvature_wn_trapped_mean_se_per_m,
+//	capillary_pressure_trapped_pa, capillary_pressure_trapped_se_pa,
+//	contact_angle_mean_se_deg, trapped_ganglia_count,
+//	trapped_ganglia_pc_p10_pa, trapped_ganglia_pc_median_pa,
+//	trapped_ganglia_pc_p90_pa
+//
+// The last four come from the result's trapped_ganglia_curvature object
+// (series.json keeps the whole object).
 //
 // Null values are empty cells; booleans are `true`/`false`.
 var Columns = []Column{
@@ -83,6 +94,21 @@ var Columns = []Column{
 	fcol("nonwetting_trapped_fraction", "1", func(r *Row) *float64 { return r.TrappedFraction }),
 	icol("connectivity", "1", func(r *Row) *int64 { return r.Connectivity }),
 	{Key: "flow_axis", Unit: "", kind: kindString, get: func(r *Row) any { return r.FlowAxis }},
+	fcol("curvature_wn_mean_se_per_m", "1/m", func(r *Row) *float64 { return r.CurvMeanSE }),
+	fcol("capillary_pressure_se_pa", "Pa", func(r *Row) *float64 { return r.PcSE }),
+	fcol("curvature_wn_connected_mean_per_m", "1/m", func(r *Row) *float64 { return r.CurvConnected }),
+	fcol("curvature_wn_connected_mean_se_per_m", "1/m", func(r *Row) *float64 { return r.CurvConnectedSE }),
+	fcol("capillary_pressure_connected_pa", "Pa", func(r *Row) *float64 { return r.PcConnected }),
+	fcol("capillary_pressure_connected_se_pa", "Pa", func(r *Row) *float64 { return r.PcConnectedSE }),
+	fcol("curvature_wn_trapped_mean_per_m", "1/m", func(r *Row) *float64 { return r.CurvTrapped }),
+	fcol("curvature_wn_trapped_mean_se_per_m", "1/m", func(r *Row) *float64 { return r.CurvTrappedSE }),
+	fcol("capillary_pressure_trapped_pa", "Pa", func(r *Row) *float64 { return r.PcTrapped }),
+	fcol("capillary_pressure_trapped_se_pa", "Pa", func(r *Row) *float64 { return r.PcTrappedSE }),
+	fcol("contact_angle_mean_se_deg", "deg", func(r *Row) *float64 { return r.AngleMeanSE }),
+	icol("trapped_ganglia_count", "1", func(r *Row) *int64 { return r.Trapped().Count }),
+	fcol("trapped_ganglia_pc_p10_pa", "Pa", func(r *Row) *float64 { return r.Trapped().PcP10 }),
+	fcol("trapped_ganglia_pc_median_pa", "Pa", func(r *Row) *float64 { return r.Trapped().PcMedian }),
+	fcol("trapped_ganglia_pc_p90_pa", "Pa", func(r *Row) *float64 { return r.Trapped().PcP90 }),
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

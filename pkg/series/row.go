@@ -63,6 +63,19 @@ type Row struct {
 	TrappedFraction *float64 `json:"nonwetting_trapped_fraction"`
 	Connectivity    *int64   `json:"connectivity"`
 	FlowAxis        *string  `json:"flow_axis"`
+	// Standard errors (package blockse) and the connected and trapped
+	// interfaces apart (pkg/measure.Result).
+	CurvMeanSE      *float64 `json:"curvature_wn_mean_se_per_m"`
+	PcSE            *float64 `json:"capillary_pressure_se_pa"`
+	CurvConnected   *float64 `json:"curvature_wn_connected_mean_per_m"`
+	CurvConnectedSE *float64 `json:"curvature_wn_connected_mean_se_per_m"`
+	PcConnected     *float64 `json:"capillary_pressure_connected_pa"`
+	PcConnectedSE   *float64 `json:"capillary_pressure_connected_se_pa"`
+	CurvTrapped     *float64 `json:"curvature_wn_trapped_mean_per_m"`
+	CurvTrappedSE   *float64 `json:"curvature_wn_trapped_mean_se_per_m"`
+	PcTrapped       *float64 `json:"capillary_pressure_trapped_pa"`
+	PcTrappedSE     *float64 `json:"capillary_pressure_trapped_se_pa"`
+	AngleMeanSE     *float64 `json:"contact_angle_mean_se_deg"`
 	// AngleHist counts contact-angle samples in 1° bins through the wetting
 	// phase: AngleHist[i] holds angles in [i, i+1) degrees (180 bins). It
 	// appears in series.json only, never in the CSV.
@@ -202,6 +215,25 @@ func ValidName(s string) bool {
 		}
 	}
 	return true
+}
+
+// TrappedGanglia is the part of a result's trapped_ganglia_curvature
+// object (pkg/measure.GangliaCurvature) the CSV shows.
+type TrappedGanglia struct {
+	Count    *int64   `json:"count"`
+	PcP10    *float64 `json:"pc_p10_pa"`
+	PcMedian *float64 `json:"pc_median_pa"`
+	PcP90    *float64 `json:"pc_p90_pa"`
+}
+
+// Trapped decodes the row's trapped_ganglia_curvature object, kept
+// verbatim in Extra; the zero value when absent or unreadable.
+func (r *Row) Trapped() TrappedGanglia {
+	var g TrappedGanglia
+	if b, ok := r.Extra["trapped_ganglia_curvature"]; ok {
+		_ = json.Unmarshal(b, &g)
+	}
+	return g
 }
 
 // F returns *p, or NaN when p is nil: handy for arithmetic on nullable

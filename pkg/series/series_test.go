@@ -296,3 +296,43 @@ func FuzzDecode(f *testing.F) {
 		}
 	})
 }
+
+// TestUncertaintyColumns: the standard errors, the connected and trapped
+// Pc and the trapped-ganglia distribution of a result reach their CSV
+// columns, and the nested object survives in series.json.
+func TestUncertaintyColumns(t *testing.T) {
+	res := []byte(`{"capillary_pressure_pa": 1000, "capillary_pressure_se_pa": 12.5,
+		"capillary_pressure_connected_pa": 900, "capillary_pressure_connected_se_pa": 20,
+		"capillary_pressure_trapped_pa": 1500, "capillary_pressure_trapped_se_pa": null,
+		"contact_angle_mean_se_deg": 1.75,
+		"trapped_ganglia_curvature": {"min_area_m2": 1e-10, "count": 7, "below_threshold": 3, "pc_p10_pa": 1100, "pc_median_pa": 1400, "pc_p90_pa": 1900}}`)
+	r, err := FromResult("s1", 1, res)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := EncodeCSV([]Row{r})
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimSpace(string(b)), "\n")
+	head, cells := strings.Split(lines[0], ","), strings.Split(lines[1], ",")
+	got := map[string]string{}
+	for i, h := range head {
+		got[h] = cells[i]
+	}
+	for k, want := range map[string]string{"capillary_pressure_se_pa": "12.5", "capillary_pressure_connected_pa": "900",
+		"capillary_pressure_connected_se_pa": "20", "capillary_pressure_trapped_pa": "1500", "capillary_pressure_trapped_se_pa": "",
+		"contact_angle_mean_se_deg": "1.75", "trapped_ganglia_count": "7", "trapped_ganglia_pc_p10_pa": "1100",
+		"trapped_ganglia_pc_median_pa": "1400", "trapped_ganglia_pc_p90_pa": "1900"} {
+		if got[k] != want {
+			t.Errorf("column %s = %q, want %q", k, got[k], want)
+		}
+	}
+	j, err := json.Marshal(r)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(string(j), `"below_threshold":3`) {
+		t.Errorf("series.json lost the trapped-ganglia object: %s", j)
+	}
+}

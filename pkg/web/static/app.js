@@ -21,6 +21,8 @@ function esc(t) { return String(t).replace(/[&<>"']/g, c => ({ "&": "&amp;", "<"
 function qs(id) { return document.getElementById(id); }
 function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }
 function fmt(v, d) { return v === null || v === undefined ? "—" : Number(v).toFixed(d); }
+// pm writes a mean with its standard error (block spread; the SE left out when unknown).
+function pm(v, se, scale, d) { return v == null ? "—" : fmt(v * scale, d) + (se == null ? "" : " ± " + fmt(se * scale, d)); }
 
 async function getJSON(url) {
   const r = await fetch(url, { cache: "no-store" });
@@ -150,8 +152,9 @@ function summary(r) {
   if (!r) { s.innerHTML = "<div>No completed step yet.</div>"; return; }
   const items = [
     ["latest step", r.step], ["time", fmt(r.time_s, 0) + " s"], ["porosity", fmt(r.porosity, 3)],
-    ["S_w", fmt(r.saturation_wetting, 3)], ["Pc", r.capillary_pressure_pa === null ? "— (no σ)" : fmt(r.capillary_pressure_pa / 1e3, 2) + " kPa"],
-    ["θ mean ± sd", fmt(r.contact_angle_mean_deg, 1) + " ± " + fmt(r.contact_angle_std_deg, 1) + "°"],
+    ["S_w", fmt(r.saturation_wetting, 3)], ["Pc ± SE", r.capillary_pressure_pa === null ? "— (no σ)" : pm(r.capillary_pressure_pa, r.capillary_pressure_se_pa, 1e-3, 2) + " kPa"],
+    ["Pc connected ± SE", r.capillary_pressure_connected_pa == null ? "—" : pm(r.capillary_pressure_connected_pa, r.capillary_pressure_connected_se_pa, 1e-3, 2) + " kPa"],
+    ["θ mean ± SE (sd)", pm(r.contact_angle_mean_deg, r.contact_angle_mean_se_deg, 1, 1) + "° (" + fmt(r.contact_angle_std_deg, 1) + "°)"],
     ["ganglia", r.ganglia_count], ["percolating", r.nonwetting_percolates ? "yes" : "no"], ["voxel", fmt(r.voxel_size_m * 1e6, 2) + " µm"]];
   s.innerHTML = items.map(([k, v]) => `<div>${k}<b>${v}</b></div>`).join("");
 }
