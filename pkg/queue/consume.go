@@ -334,3 +334,40 @@ func (q *Queue) DeleteProgress(ctx context.Context, key string) error {
 	}
 	return nil
 }
+
+// WatchJetStream asks for the task stream's state every interval until ctx
+// ends, and logs when JetStream stops answering (a NATS cluster that has
+// lost its majority, a lone server restarting) — once, then every 30 s
+// while it lasts — and when it answers again. Nothing else changes: pulls
+// and publishes wait and retry on their own; this says why work stopped.
+func (q *Queue) WatchJetStream(ctx context.Context, interval time.Duration) {
+	const remind = 30 * time.Second
+	t := time.NewTicker(interval)
+	defer t.Stop()
+	var down, said time.Time
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+		}
+		c, cancel := context.WithTimeout(ctx, interval)
+		_, err := q.js.Stream(c, StreamTasks)
+		cancel()
+		if ctx.Err() != nil {
+			return
+		}
+		now := time.Now()
+		switch {
+		case err != nil && down.IsZero():
+			down, said = now, now
+			q.log.Warn("queue: JetStream does not answer (NATS cluster without a majority, or a server restarting); waiting for it, work resumes by itself", "err", err)
+		case err != nil && now.Sub(said) >= remind:
+			said = now
+			q.log.Warn("queue: still waiting for JetStream", "for", now.Sub(down).Round(time.Second).String(), "err", err)
+		case err == nil && !down.IsZero():
+			q.log.Info("queue: JetStream answers again", "after", now.Sub(down).Round(time.Second).String())
+			down = time.Time{}
+		}
+	}
+}

@@ -441,7 +441,12 @@ func runAggregator(ctx context.Context, q *queue.Queue, a *aggregator.Aggregator
 // while ctx lives (the client gave up: credentials refused, protocol
 // error), and nil when ctx ends. A server that is down is not "for good":
 // the client reconnects for ever.
+//
+// Meanwhile it says in the log when JetStream stops answering (a NATS
+// cluster without a majority, a server restarting) and when it answers
+// again: the process waits through such an outage rather than exit.
 func watchConn(ctx context.Context, q *queue.Queue) error {
+	go q.WatchJetStream(ctx, 5*time.Second)
 	select {
 	case <-ctx.Done():
 		return nil

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"fmt"
 	"os"
 	"path/filepath"
 	"strings"
@@ -20,14 +21,27 @@ func startOn(t *testing.T, h *testenv.Host, name, bin string, env []string, args
 	return start(t, name+"@"+h.Name, "ip", env, append([]string{"netns", "exec", h.NS, bin}, args...)...)
 }
 
+// alive reports whether p's process runs (not exited, not a zombie).
+func alive(p *proc) bool {
+	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/stat", p.cmd.Process.Pid))
+	if err != nil {
+		return false
+	}
+	_, rest, ok := strings.Cut(string(b), ") ")
+	return ok && len(rest) > 0 && rest[0] != 'Z'
+}
+
 // TestNATSClusterFaults: sluice across hosts. Eight network namespaces on a
 // bridge (testenv.Net): a three-node NATS JetStream cluster (streams and KV
 // bucket with 3 replicas, chosen by sluice itself on a cluster), MinIO, the
-// aggregator, three workers; a 14-step campaign queued by reprocess from
+// aggregator, three workers; a 16-step campaign queued by reprocess from
 // the test's own namespace. During it:
 //   - the JetStream meta leader is killed (SIGKILL) and restarted later;
 //   - the task stream's leader is killed and restarted later;
 //   - the aggregator is killed and started on another host;
+//   - two of the three NATS nodes are killed for 20 s: every process waits
+//     and says so in its log, none exits, and the work resumes when they
+//     are back;
 //   - one worker host is cut off for 20 s mid-campaign, then restored.
 //
 // Every step completes once, and the series is byte for byte the
@@ -36,7 +50,7 @@ func TestNATSClusterFaults(t *testing.T) {
 	if testing.Short() {
 		t.Skip("multi-host test")
 	}
-	const n = 14
+	const n = 16
 	nw := testenv.NewNet(t)
 	natsHosts := []*testenv.Host{nw.Host("nats-1"), nw.Host("nats-2"), nw.Host("nats-3")}
 	storeHost := nw.Host("store")
@@ -68,8 +82,9 @@ func TestNATSClusterFaults(t *testing.T) {
 	// after 6 s.
 	sluiceRun(t, bin, nil, "queue-policy", "--nats", cluster.URLs(), "--ack-wait", "6s", "--max-deliver", "20")
 	agg := startOn(t, aggA, "aggregate", bin, creds, append([]string{"aggregate", "--http", "off"}, common...)...)
+	var workers []*proc
 	for i, h := range workHosts {
-		startOn(t, h, "worker", bin, creds, append([]string{"worker", "--http", "off", "--concurrency", "1", "--id", "w" + string(rune('1'+i))}, common...)...)
+		workers = append(workers, startOn(t, h, "worker", bin, creds, append([]string{"worker", "--http", "off", "--concurrency", "1", "--id", "w" + string(rune('1'+i))}, common...)...))
 	}
 	out := sluiceRun(t, bin, creds, append([]string{"reprocess", "cl", "--from", scanDir, "--config", cfgPath, "--no-wait"}, common...)...)
 	t.Logf("queued: %s", strings.TrimSpace(out))
@@ -136,12 +151,49 @@ func TestNATSClusterFaults(t *testing.T) {
 	until(5, "the aggregator's move")
 	kill(agg)
 	t0 = time.Now()
-	startOn(t, aggB, "aggregate", bin, creds, append([]string{"aggregate", "--http", "off"}, common...)...)
+	agg2 := startOn(t, aggB, "aggregate", bin, creds, append([]string{"aggregate", "--http", "off"}, common...)...)
 	prog = progressAfter(t0, "the aggregator moved")
 	t.Logf("aggregator killed on %s, started on %s: next step done after %.1f s", aggA.Name, aggB.Name, prog.Seconds())
 
-	// 4. A worker host is cut off for 20 s.
-	until(7, "the worker host cut")
+	// 4. A majority of NATS is gone for 20 s: JetStream has no quorum.
+	until(7, "the loss of the NATS majority")
+	var others []*testenv.NATSNode
+	for _, nd := range cluster.Nodes {
+		if nd != cluster.MetaLeader() && len(others) < 1 {
+			others = append(others, nd)
+		}
+	}
+	others = append(others, cluster.MetaLeader())
+	before := done()
+	for _, nd := range others {
+		nd.Kill()
+	}
+	time.Sleep(20 * time.Second)
+	during := done()
+	var exited []string
+	for _, p := range append([]*proc{agg2}, workers...) {
+		if !alive(p) {
+			exited = append(exited, p.name)
+		}
+	}
+	if len(exited) > 0 {
+		t.Errorf("with 2 of 3 NATS nodes gone, %v exited; they must wait", exited)
+	}
+	for _, nd := range others {
+		nd.Start()
+	}
+	t0 = time.Now()
+	prog = progressAfter(t0, "the NATS majority came back")
+	t.Logf("NATS nodes %s and %s killed for 20 s at %d steps done (%d done at the end of the outage); next step done %.1f s after their restart",
+		others[0].Name, others[1].Name, before, during, prog.Seconds())
+	for _, p := range append([]*proc{agg2}, workers...) {
+		if l := p.String(); !strings.Contains(l, "retrying") && !strings.Contains(l, "waiting") {
+			t.Errorf("%s logged nothing about waiting for NATS during the outage:\n%s", p.name, tail(l, 10))
+		}
+	}
+
+	// 5. A worker host is cut off for 20 s.
+	until(9, "the worker host cut")
 	t0 = time.Now()
 	workHosts[0].Cut()
 	prog = progressAfter(t0, "a worker host was cut off")
