@@ -573,3 +573,74 @@ func FuzzPlane(f *testing.F) {
 		}
 	})
 }
+
+// TestResolverRim: the ganglion Resolver.At reads from a tile's rim is the
+// ganglion of that voxel in the whole volume (the partition into clusters
+// of a single-tile labelling, which TestLabelMatchesScipy checks against
+// scipy.ndimage.label), for every set voxel within the rim depth of its
+// tile's faces, on grid and guillotine tilings; deeper voxels and voxels
+// not in the set are refused.
+func TestResolverRim(t *testing.T) {
+	const depth = 3
+	lab := randomVolume([3]int{24, 21, 19}, 0.3, 7)
+	set := phase.Of(nw)
+	opt := Options{Connectivity: 26}
+	wt, wl := LabelLookup(lab, set, lab.Box, lab.Box, opt, 0)
+	defer wl.Release()
+	wm, err := Join([]*Tile{wt}, lab.Box, opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for name, cores := range tilings(lab.Box, 4) {
+		tiles := make([]*Tile, len(cores))
+		for i, c := range cores {
+			var l *Lookup
+			tiles[i], l = LabelLookup(lab, set, c, lab.Box, opt, depth)
+			l.Release()
+		}
+		m, err := Join(tiles, lab.Box, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		r := m.Resolver(tiles)
+		toWhole := map[int32]int32{}
+		checked, refused := 0, 0
+		for _, c := range cores {
+			for z := c.Min[0]; z < c.Max[0]; z++ {
+				for y := c.Min[1]; y < c.Max[1]; y++ {
+					for x := c.Min[2]; x < c.Max[2]; x++ {
+						p := [3]int{z, y, x}
+						d := min(z-c.Min[0], c.Max[0]-1-z, y-c.Min[1], c.Max[1]-1-y, x-c.Min[2], c.Max[2]-1-x)
+						g, err := r.At(p)
+						switch {
+						case lab.At(z, y, x) != nw || d >= depth:
+							if err == nil {
+								t.Fatalf("%s: voxel %v (set %v, depth %d) resolved to %d", name, p, lab.At(z, y, x) == nw, d, g)
+							}
+							refused++
+						case err != nil:
+							t.Fatalf("%s: voxel %v: %v", name, p, err)
+						default:
+							w := wm.Local[0][wl.At(z, y, x)-1]
+							if prev, ok := toWhole[g]; ok && prev != w {
+								t.Fatalf("%s: ganglion %d holds voxels of whole-volume ganglia %d and %d", name, g, prev, w)
+							}
+							toWhole[g] = w
+							checked++
+						}
+					}
+				}
+			}
+		}
+		seen := map[int32]bool{}
+		for _, w := range toWhole {
+			if seen[w] {
+				t.Fatalf("%s: two ganglia map to whole-volume ganglion %d", name, w)
+			}
+			seen[w] = true
+		}
+		if checked == 0 || refused == 0 {
+			t.Fatalf("%s: %d voxels resolved, %d refused", name, checked, refused)
+		}
+	}
+}

@@ -262,7 +262,7 @@ func LabelLookup(lab *volume.Labels, s *phase.Set, core, whole volume.Box, opt O
 					if cap(buf) < n[u]*n[v] {
 						buf = make([]int32, n[u]*n[v])
 					}
-					buf = rl.facePlane(a, at, buf)
+					buf = rl.plane(a, at, buf)
 					t.Rim[(2*a+side)*rimDepth+d] = encodePlane(buf, n[u], n[v])
 				}
 			}
@@ -625,6 +625,37 @@ func (rl *runLabels) facePlane(a, at int, buf []int32) []int32 {
 				if u.X0 <= x && x < u.X1 {
 					buf[z*n[1]+y] = u.L
 				}
+			}
+		}
+	}
+	return buf
+}
+
+// plane is facePlane for any core-local coordinate at, also inside the
+// core (facePlane reads x planes only at x = 0 and x = nx−1).
+func (rl *runLabels) plane(a, at int, buf []int32) []int32 {
+	if a != 2 || at == 0 || at == rl.N[2]-1 {
+		return rl.facePlane(a, at, buf)
+	}
+	n := rl.N
+	buf = buf[:n[0]*n[1]]
+	clear(buf)
+	x := int32(at)
+	for z := 0; z < n[0]; z++ {
+		for y := 0; y < n[1]; y++ {
+			rr := rl.row(z, y)
+			// First run ending after x.
+			i, j := 0, len(rr)
+			for i < j {
+				h := (i + j) / 2
+				if rr[h].X1 <= x {
+					i = h + 1
+				} else {
+					j = h
+				}
+			}
+			if i < len(rr) && rr[i].X0 <= x {
+				buf[z*n[1]+y] = rr[i].L
 			}
 		}
 	}

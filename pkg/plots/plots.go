@@ -10,7 +10,7 @@
 //	                    error) and median, against time
 //	specific_area       specific interfacial areas a_wn, a_ws, a_ns per bulk volume
 //	                    (mm²/mm³ of bulk volume) against time
-//	pc_saturation       Pc–S_w trajectory (κ–S_w without σ)
+//	pc_saturation       Pc–S_w trajectory (κ–S_w without σ), ± standard error bars
 //	area_saturation     a_wn–S_w trajectory
 //	contact_angle       contact-angle distribution of the latest step (bars) with the
 //	                    running distribution of all steps (line), 5° bins, per degree,
@@ -559,9 +559,12 @@ func (b *builder) area() Figure {
 	})
 }
 
-func (b *builder) trajectory(name, title, ylabel, label string, y []float64) Figure {
+func (b *builder) trajectory(name, title, ylabel, label string, y, se []float64) Figure {
 	p := newPlot(title, "wetting saturation S_w ("+UnitDimensionless+")", ylabel)
 	n := addSeries(p, styles[0], label, b.col(satWet, 1), y)
+	if se != nil {
+		addErrorBars(p, styles[0], b.col(satWet, 1), y, se)
+	}
 	if n > 0 {
 		// Ring the latest point so the direction of travel is visible.
 		x := b.col(satWet, 1)
@@ -581,13 +584,13 @@ func (b *builder) trajectory(name, title, ylabel, label string, y []float64) Fig
 
 func (b *builder) pcTrajectory() Figure {
 	if b.hasPc() {
-		return b.trajectory("pc_saturation", "Capillary pressure – saturation", "capillary pressure Pc ("+UnitPressure+")", "Pc mean", b.col(pcMean, pascalToK))
+		return b.trajectory("pc_saturation", "Capillary pressure – saturation", "capillary pressure Pc ("+UnitPressure+")", "Pc mean ± SE", b.col(pcMean, pascalToK), b.col(pcSE, pascalToK))
 	}
-	return b.trajectory("pc_saturation", "Curvature – saturation (no σ)", "total curvature κ ("+UnitCurvature+")", "κ mean", b.col(kMean, perMetreT))
+	return b.trajectory("pc_saturation", "Curvature – saturation (no σ)", "total curvature κ ("+UnitCurvature+")", "κ mean ± SE", b.col(kMean, perMetreT), b.col(kSE, perMetreT))
 }
 
 func (b *builder) areaTrajectory() Figure {
-	return b.trajectory("area_saturation", "Interfacial area – saturation", "specific area a_wn ("+UnitSpecificArea+")", "a_wn", b.col(areaWN, perMetreT))
+	return b.trajectory("area_saturation", "Interfacial area – saturation", "specific area a_wn ("+UnitSpecificArea+")", "a_wn", b.col(areaWN, perMetreT), nil)
 }
 
 // AngleDistributions returns the contact-angle distribution of the latest

@@ -320,6 +320,10 @@ func TestErrorBars(t *testing.T) {
 	if !strings.Contains(string(svg), "Pc connected ganglia ± SE") {
 		t.Error("legend lacks the connected Pc")
 	}
+	svg, _ = render(t, byName(figs, "pc_saturation"))
+	if got, want := count2(svg, Palette.Ink), 3*(n-1)+1; got != want {
+		t.Errorf("Pc–S_w: %d two-vertex ink strokes, want %d", got, want)
+	}
 	// The bars are ±SE long: the points errorPoints keeps.
 	x := []float64{0, 1, 2}
 	ep := errorPoints(x, []float64{1, math.NaN(), 3}, []float64{0.5, 0.1, math.NaN()})
