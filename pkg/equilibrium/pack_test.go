@@ -81,8 +81,9 @@ func TestMeasurementChainTable(t *testing.T) {
 	if !*eqChain {
 		t.Skip("run with -eqchain")
 	}
-	for _, theta := range []float64{45} {
-		c, fm, eq := packState(t, 96, 34, 9, theta)
+	for _, run := range []struct{ gr, rc, theta float64 }{{34, 9, 45}, {40, 16, 45}} {
+		theta, rc := run.theta, run.rc
+		c, fm, eq := packState(t, 96, run.gr, rc, theta)
 		d := c.Drain()
 		lab := d.Labels(eq, c.Codes.Wetting, c.Codes.Nonwetting)
 		r, err := measure.Volume(lab, measure.Defaults(), 96, 0)
@@ -101,6 +102,6 @@ func TestMeasurementChainTable(t *testing.T) {
 			sd = *r.AngleStd
 		}
 		t.Logf("θ %g°: S_n FM %.3f, eq %.3f; κ measured %.4f /voxel vs prescribed %.4f (%+.1f %%); θ mean %.1f° (sd %.1f°) vs %g°",
-			theta, d.Saturation(fm), d.Saturation(eq), k, 2/9.0, 100*(k*9/2-1), am, sd, theta)
+			theta, d.Saturation(fm), d.Saturation(eq), k, 2/rc, 100*(k*rc/2-1), am, sd, theta)
 	}
 }
