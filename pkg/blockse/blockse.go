@@ -44,7 +44,7 @@
 // blocks of 32 only, 1.14 for κ (24 scenes of 96³ with random balls) and
 // 0.68 for θ (40 scenes of drops whose contact lines, up to 36 voxels
 // across, span several blocks); with the larger-of-two rule 1.32 for κ
-// (only 8 blocks of 64 in 96³: the rule errs high on small scans) and 1.02
+// (only 8 blocks of 64 in 96³: the rule errs high on small scans) and 1.03
 // for θ (40 scenes of 192² with 22 drops each).
 //
 // SE is reported only with at least MinBlocks blocks; with fewer the

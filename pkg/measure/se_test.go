@@ -75,7 +75,7 @@ func TestCurvatureSECalibration(t *testing.T) {
 // calibrated fails unless the ratio of the rms reported SE to the
 // empirical spread lies within a factor 1.5 of 1. Measured (2026-12-05):
 // 1.32 for κ (24 scenes of 96³, where the blocks of 64 are only 8 and the
-// larger-of-two rule errs high), 1.02 for θ (40 scenes of 40×192×192, 22
+// larger-of-two rule errs high), 1.03 for θ (40 scenes of 40×192×192, 22
 // drops each). With blocks of 32 only they were 1.14 and 0.68 (θ scenes
 // of 128², drops wider than a block). With 24 and 40 scenes the empirical
 // sd itself is uncertain by about 1/√(2(N−1)) = 15 % and 11 %. An SE ten
