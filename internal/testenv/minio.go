@@ -5,6 +5,8 @@ import (
 	"encoding/hex"
 	"fmt"
 	"net/http"
+	"os"
+	"os/exec"
 	"strings"
 	"testing"
 	"time"
@@ -126,4 +128,98 @@ func StartMinIOOn(t testing.TB, h *Host) *MinIO {
 		}
 	})
 	return m
+}
+
+// MinIOCluster is a distributed MinIO server: one node per test host
+// (network namespace), one drive each, erasure coded across them (4 nodes:
+// 2 data + 2 parity shards per object; reads need 2 drives, writes 3).
+// Every node sees its drive at the same path, as distributed MinIO
+// requires: each runs in a mount namespace of its own (unshare -m) with
+// its own directory bind-mounted there.
+type MinIOCluster struct {
+	// Endpoint is host:port of the first node, where clients connect.
+	Endpoint             string
+	AccessKey, SecretKey string
+
+	t     testing.TB
+	bin   string
+	hosts []*Host
+	dirs  []string
+	mnt   string
+	procs []*process
+}
+
+// StartMinIOCluster starts the nodes on hosts, which must have consecutive
+// addresses (Net.Host called one after another), and waits until the
+// cluster reports write quorum.
+func StartMinIOCluster(t testing.TB, hosts ...*Host) *MinIOCluster {
+	t.Helper()
+	bin := requireBinary(t, "minio", "SLUICE_MINIO_BIN", "go install github.com/minio/minio@v0.0.0-20260212201848-7aac2a2c5b7c")
+	if _, err := exec.LookPath("unshare"); err != nil {
+		Missing(t, "unshare is missing (Debian util-linux)")
+	}
+	c := &MinIOCluster{t: t, bin: bin, hosts: hosts, AccessKey: "sluice-" + randomHex(4), SecretKey: randomHex(16)}
+	first, last := hosts[0].Addr, hosts[len(hosts)-1].Addr
+	i := strings.LastIndex(first, ".")
+	var a, b int
+	fmt.Sscan(first[i+1:], &a)
+	fmt.Sscan(last[strings.LastIndex(last, ".")+1:], &b)
+	if b-a != len(hosts)-1 {
+		t.Fatalf("testenv: MinIO hosts %s … %s do not have consecutive addresses", first, last)
+	}
+	mnt, err := os.MkdirTemp("", "minio-drive-")
+	if err != nil {
+		t.Fatal(err)
+	}
+	c.mnt = mnt
+	c.Endpoint = first + ":9000"
+	pool := fmt.Sprintf("http://%s.{%d...%d}:9000%s", first[:i], a, b, mnt)
+	t.Cleanup(func() {
+		for j, p := range c.procs {
+			if p != nil {
+				p.stop(10 * time.Second)
+				if t.Failed() {
+					t.Logf("testenv: minio node %d log:\n%s", j+1, tail(p.log.String()))
+				}
+			}
+		}
+		os.Remove(mnt)
+	})
+	for range hosts {
+		c.dirs = append(c.dirs, t.TempDir())
+		c.procs = append(c.procs, nil)
+	}
+	for j := range hosts {
+		c.launch(j, pool)
+	}
+	p := c.procs[0]
+	if err := p.waitReady(func() bool { return httpOK("http://" + c.Endpoint + "/minio/health/cluster") }); err != nil {
+		t.Fatal(err)
+	}
+	return c
+}
+
+func (c *MinIOCluster) launch(j int, pool string) {
+	h := c.hosts[j]
+	script := fmt.Sprintf("mount --bind %s %s && exec %s server --quiet --address %s:9000 --console-address %s:9001 '%s'",
+		c.dirs[j], c.mnt, c.bin, h.Addr, h.Addr, pool)
+	env := []string{"MINIO_ROOT_USER=" + c.AccessKey, "MINIO_ROOT_PASSWORD=" + c.SecretKey, "MINIO_BROWSER=off", "MINIO_UPDATE=off"}
+	c.procs[j] = start(c.t, fmt.Sprintf("minio node %d", j+1), "ip", env, "netns", "exec", h.NS, "unshare", "-m", "--propagation", "private", "sh", "-c", script)
+}
+
+// URL returns the s3:// store location of bucket on the first node.
+func (c *MinIOCluster) URL(bucket string) string {
+	return "s3://" + bucket + "?endpoint=" + c.Endpoint + "&tls=false"
+}
+
+// Stop stops node j (0-based) with SIGTERM.
+func (c *MinIOCluster) Stop(j int) { c.procs[j].stop(10 * time.Second) }
+
+// Start starts a stopped node j again with its drive; it rejoins the
+// cluster and heals.
+func (c *MinIOCluster) Start(j int) {
+	first, last := c.hosts[0].Addr, c.hosts[len(c.hosts)-1].Addr
+	i := strings.LastIndex(first, ".")
+	pool := fmt.Sprintf("http://%s.{%s...%s}:9000%s", first[:i], first[i+1:], last[strings.LastIndex(last, ".")+1:], c.mnt)
+	c.launch(j, pool)
 }

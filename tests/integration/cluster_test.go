@@ -31,14 +31,15 @@ func alive(p *proc) bool {
 	return ok && len(rest) > 0 && rest[0] != 'Z'
 }
 
-// TestNATSClusterFaults: sluice across hosts. Eight network namespaces on a
-// bridge (testenv.Net): a three-node NATS JetStream cluster (streams and KV
-// bucket with 3 replicas, chosen by sluice itself on a cluster), MinIO, the
-// aggregator, three workers; a 16-step campaign queued by reprocess from
+// TestNATSClusterFaults: sluice across hosts. Twelve network namespaces on
+// a bridge (testenv.Net): a three-node NATS JetStream cluster (streams and
+// KV bucket with 3 replicas, chosen by sluice itself on a cluster), a
+// four-node erasure-coded MinIO, two aggregator hosts, three workers; an 18-step campaign queued by reprocess from
 // the test's own namespace. During it:
 //   - the JetStream meta leader is killed (SIGKILL) and restarted later;
 //   - the task stream's leader is killed and restarted later;
 //   - the aggregator is killed and started on another host;
+//   - one of the four MinIO nodes is stopped for 30 s;
 //   - two of the three NATS nodes are killed for 20 s: every process waits
 //     and says so in its log, none exits, and the work resumes when they
 //     are back;
@@ -50,10 +51,10 @@ func TestNATSClusterFaults(t *testing.T) {
 	if testing.Short() {
 		t.Skip("multi-host test")
 	}
-	const n = 16
+	const n = 18
 	nw := testenv.NewNet(t)
 	natsHosts := []*testenv.Host{nw.Host("nats-1"), nw.Host("nats-2"), nw.Host("nats-3")}
-	storeHost := nw.Host("store")
+	storeHosts := []*testenv.Host{nw.Host("store-1"), nw.Host("store-2"), nw.Host("store-3"), nw.Host("store-4")}
 	aggA, aggB := nw.Host("agg-a"), nw.Host("agg-b")
 	workHosts := []*testenv.Host{nw.Host("work-1"), nw.Host("work-2"), nw.Host("work-3")}
 
@@ -74,7 +75,7 @@ func TestNATSClusterFaults(t *testing.T) {
 	wantJSON, wantCSV := runSeries(t, refStore, "cl", cfg.Hash())
 
 	cluster := testenv.StartNATSCluster(t, natsHosts...)
-	minio := testenv.StartMinIOOn(t, storeHost)
+	minio := testenv.StartMinIOCluster(t, storeHosts...)
 	creds := []string{"SLUICE_S3_ACCESS_KEY=" + minio.AccessKey, "SLUICE_S3_SECRET_KEY=" + minio.SecretKey}
 	loc := minio.URL("sluice-cl")
 	common := []string{"--nats", cluster.URLs(), "--store", loc}
@@ -155,8 +156,18 @@ func TestNATSClusterFaults(t *testing.T) {
 	prog = progressAfter(t0, "the aggregator moved")
 	t.Logf("aggregator killed on %s, started on %s: next step done after %.1f s", aggA.Name, aggB.Name, prog.Seconds())
 
-	// 4. A majority of NATS is gone for 20 s: JetStream has no quorum.
-	until(7, "the loss of the NATS majority")
+	// 4. One MinIO node of four is stopped for 30 s (erasure coding: 3
+	// drives keep reads and writes going).
+	until(6, "the MinIO node's stop")
+	t0 = time.Now()
+	minio.Stop(3)
+	prog = progressAfter(t0, "a MinIO node stopped")
+	t.Logf("MinIO node 4 stopped at %d steps done: next step done after %.1f s", done(), prog.Seconds())
+	time.Sleep(max(0, 30*time.Second-time.Since(t0)))
+	minio.Start(3)
+
+	// 5. A majority of NATS is gone for 20 s: JetStream has no quorum.
+	until(8, "the loss of the NATS majority")
 	var others []*testenv.NATSNode
 	for _, nd := range cluster.Nodes {
 		if nd != cluster.MetaLeader() && len(others) < 1 {
@@ -192,8 +203,8 @@ func TestNATSClusterFaults(t *testing.T) {
 		}
 	}
 
-	// 5. A worker host is cut off for 20 s.
-	until(9, "the worker host cut")
+	// 6. A worker host is cut off for 20 s.
+	until(10, "the worker host cut")
 	t0 = time.Now()
 	workHosts[0].Cut()
 	prog = progressAfter(t0, "a worker host was cut off")
