@@ -28,6 +28,12 @@
 // steady while row i−1 was not (or was not eligible), so a change of
 // injection rate followed by a new plateau gives a new event.
 //
+// Grey drift. In threshold scope "campaign" a step whose phase grey levels
+// drifted so far that a threshold shift was capped has grey_drift_beyond =
+// true (segment.DriftMax). An event is reported at every onset: a row
+// with grey_drift_beyond true whose previous row with a known value had it
+// false, or which has no such previous row.
+//
 // Detection is a pure function of the series and the options: running it
 // again on the same series gives the same events, and each event has an ID
 // (kind/step) that downstream publishers use to deduplicate. Defaults
@@ -52,6 +58,7 @@ type Kind string
 const (
 	Breakthrough Kind = "breakthrough"
 	SteadyState  Kind = "steady_state"
+	GreyDrift    Kind = "grey_drift"
 )
 
 // Event is one detected event, anchored to a step of the series.
@@ -188,7 +195,7 @@ func Detect(rows []series.Row, o Options) ([]Event, error) {
 	series.Sort(rs)
 	var out []Event
 	seenFalse, broke := false, false
-	prevSteady := false
+	prevSteady, prevBeyond := false, false
 	for i := range rs {
 		r := &rs[i]
 		if p := r.Percolates; p != nil && !broke {
@@ -204,6 +211,12 @@ func Detect(rows []series.Row, o Options) ([]Event, error) {
 				broke = true
 			}
 		}
+		if b := r.DriftBeyond; b != nil {
+			if *b && !prevBeyond {
+				out = append(out, Event{Kind: GreyDrift, Step: r.Step, Time: r.Time, Detail: driftDetail(r)})
+			}
+			prevBeyond = *b
+		}
 		w := Steady(rs, i, o)
 		if w.Steady && !prevSteady {
 			out = append(out, Event{Kind: SteadyState, Step: r.Step, Time: r.Time,
@@ -213,4 +226,19 @@ func Detect(rows []series.Row, o Options) ([]Event, error) {
 		prevSteady = w.Steady
 	}
 	return out, nil
+}
+
+// driftDetail says which phase levels drifted, as fractions of the
+// contrast.
+func driftDetail(r *series.Row) string {
+	d := "phase grey levels drifted beyond the bound the campaign thresholds follow (shift capped):"
+	for _, p := range []struct {
+		name string
+		v    *float64
+	}{{"nonwetting", r.DriftNFraction}, {"wetting", r.DriftWFraction}, {"solid", r.DriftSFraction}} {
+		if p.v != nil {
+			d += fmt.Sprintf(" %s %+.1f %%", p.name, 100**p.v)
+		}
+	}
+	return d + " of the contrast"
 }

@@ -275,3 +275,27 @@ func TestDecode(t *testing.T) {
 		}
 	}
 }
+
+// TestGreyDriftOnsets: a grey_drift event at every step where the drift
+// goes beyond the bound after a step within it (or unknown before), none
+// while it stays beyond, none for null rows (scope step).
+func TestGreyDriftOnsets(t *testing.T) {
+	beyond := []*bool{nil, bp(false), bp(true), bp(true), nil, bp(false), bp(true)}
+	var rows []series.Row
+	for i, b := range beyond {
+		r := row(i)
+		r.DriftBeyond = b
+		if b != nil && *b {
+			r.DriftSFraction = fp(-0.36)
+		}
+		rows = append(rows, r)
+	}
+	evs, err := Detect(rows, Defaults())
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := only(evs, GreyDrift)
+	if len(got) != 2 || got[0].Step != rows[2].Step || got[1].Step != rows[6].Step || !strings.Contains(got[0].Detail, "solid -36.0 %") {
+		t.Errorf("grey drift events %+v, want onsets at %s and %s naming the solid drift", got, rows[2].Step, rows[6].Step)
+	}
+}

@@ -31,11 +31,24 @@ type Result struct {
 	// sample from the grey histogram (3: rock and both fluids; 2: rock and
 	// one fluid); 0 when the input was labels. PhasesNote says how it was
 	// decided (segment.Phases.Describe).
-	PhasesDetected int      `json:"phases_detected,omitempty"`
-	PhasesNote     string   `json:"phases_note,omitempty"`
-	Porosity       *float64 `json:"porosity"`
-	SatWetting     *float64 `json:"saturation_wetting"`
-	SatNonwetting  *float64 `json:"saturation_nonwetting"`
+	PhasesDetected int    `json:"phases_detected,omitempty"`
+	PhasesNote     string `json:"phases_note,omitempty"`
+	// Grey-level drift of each phase against the campaign's level, in grey
+	// units and as a fraction of the smallest contrast between adjacent
+	// campaign levels, and whether a threshold shift had to be capped
+	// (segment threshold scope "campaign"; absent otherwise, or when the
+	// level was not measured).
+	GreyDriftNonwetting         *float64 `json:"grey_drift_nonwetting,omitempty"`
+	GreyDriftWetting            *float64 `json:"grey_drift_wetting,omitempty"`
+	GreyDriftSolid              *float64 `json:"grey_drift_solid,omitempty"`
+	GreyDriftNonwettingFraction *float64 `json:"grey_drift_nonwetting_fraction,omitempty"`
+	GreyDriftWettingFraction    *float64 `json:"grey_drift_wetting_fraction,omitempty"`
+	GreyDriftSolidFraction      *float64 `json:"grey_drift_solid_fraction,omitempty"`
+	GreyDriftBeyond             *bool    `json:"grey_drift_beyond,omitempty"`
+	GreyDriftNote               string   `json:"grey_drift_note,omitempty"`
+	Porosity                    *float64 `json:"porosity"`
+	SatWetting                  *float64 `json:"saturation_wetting"`
+	SatNonwetting               *float64 `json:"saturation_nonwetting"`
 
 	AreaWN     float64  `json:"area_wn_m2"`
 	AreaWS     float64  `json:"area_ws_m2"`

@@ -118,6 +118,9 @@ type Input struct {
 	// Events as found by events.Detect on Rows.
 	Events []events.Event
 	Checks []Check
+	// FixedThresholds is the campaign's threshold record in threshold scope
+	// "campaign" (nil: scope step, or not fixed yet).
+	FixedThresholds *CampaignThresholds
 	// Cautions are shown after the ones every report carries (Cautions),
 	// e.g. about a setting of this campaign.
 	Cautions  []string
@@ -142,6 +145,7 @@ type tableRow struct {
 // settingsRow is one line of the per-step segmentation table.
 type settingsRow struct {
 	Step, Time, Voxel, Filter, Method, Thresholds, Phases, PhasesNote, SampleY, SampleX, SampleR string
+	GreyDrift                                                                                    string
 	VoxelAssumed, VoxelDiffers, Drift                                                            bool
 	DriftNote                                                                                    string
 }
@@ -149,6 +153,7 @@ type settingsRow struct {
 type page struct {
 	Input
 	Settings       []settingsRow
+	CampaignTh     *campaignView
 	AreaUnit       string
 	DriftRule      string
 	DriftFlagged   int
@@ -225,6 +230,7 @@ func Write(w io.Writer, in Input) error {
 		pg.Table = append(pg.Table, tabulate(&rows[i], in.VoxelSize))
 	}
 	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps, in.VoxelSize)
+	pg.CampaignTh = viewCampaign(in.FixedThresholds)
 	for _, s := range pg.Settings {
 		if s.Drift || s.VoxelDiffers {
 			pg.DriftFlagged++
@@ -342,7 +348,7 @@ dt { font-weight: bold; }
 <dt>Voxel size</dt><dd>{{.VoxelSize}}</dd>
 <dt>Interfacial tension σ</dt><dd>{{.IFT}}</dd>
 <dt>Curvature smoothing σ</dt><dd>{{if .SmoothingSigma}}{{.SmoothingSigma}} voxels{{else}}—{{end}}</dd>
-<dt>Segmentation thresholds</dt><dd>{{if .Steps}}per step, see <a href="#segmentation">Segmentation per step</a>{{else}}{{.Thresholds}}{{end}}</dd>
+<dt>Segmentation thresholds</dt><dd>{{with .CampaignTh}}campaign thresholds {{.Values}} ({{.Source}}), see <a href="#campaign-thresholds">Campaign thresholds</a>{{else}}{{if .Steps}}per step, see <a href="#segmentation">Segmentation per step</a>{{else}}{{.Thresholds}}{{end}}{{end}}</dd>
 <dt>Flow axis</dt><dd>{{if .FlowAxis}}{{.FlowAxis}}{{else}}—{{end}}</dd>
 <dt>Connectivity</dt><dd>{{if .Connectivity}}{{.Connectivity}}{{else}}—{{end}}</dd>
 <dt>Parameter hash</dt><dd><code>{{if .ParameterHash}}{{.ParameterHash}}{{else}}—{{end}}</code></dd>
@@ -380,6 +386,18 @@ A check is not evaluated when the series holds nothing it applies to; the reason
 </ul>{{end}}
 </section>
 
+<section id="campaign-thresholds">
+<h2>Campaign thresholds</h2>
+{{with .CampaignTh}}<p data-campaign-thresholds="{{.Values}}">Thresholds fixed for the campaign: <strong>{{.Values}}</strong> (grey values), source
+<strong>{{.Source}}</strong>{{if .Step}}, phase levels from the histogram of step {{.Step}}: {{.Levels}}{{end}}. Every step uses them,
+shifted by the measured drift of the phase grey levels (the mean drift of the two phases of a threshold; not applied below
+2 % of their contrast, capped at 25 % — a step beyond is flagged and raises a grey_drift event).</p>
+<figure id="fig-campaign-histogram">
+{{.SVG}}
+<figcaption>Merged histogram the campaign levels came from (log counts); solid lines: thresholds, dashed: phase levels.</figcaption>
+</figure>{{else}}<p>Thresholds per step: each step's come from its own histogram (segment.threshold_scope step){{if $.Steps}}, see <a href="#segmentation">Segmentation per step</a>{{end}}.</p>{{end}}
+</section>
+
 <section id="segmentation">
 <h2>Segmentation per step</h2>
 {{if .Settings}}<p>Thresholds (grey values), phases found and the sample cylinder (centre y, x and radius, voxels) of each
@@ -387,8 +405,8 @@ step, as pass 1 found them. {{.DriftRule}}{{if .DriftFlagged}} <span class="fail
 and curvatures of such a step are not comparable with the others.</p>
 <table id="settings-table">
 <tr><th>step</th><th>t (s)</th><th>voxel (µm)</th><th>filter</th><th>method</th><th>thresholds</th><th>phases</th>
-<th>sample y</th><th>sample x</th><th>sample r</th><th>flag</th></tr>{{range .Settings}}
-<tr data-settings="{{.Step}}"{{if .Drift}} class="drift"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td{{if .VoxelDiffers}} class="differs"{{end}}>{{.Voxel}}{{if .VoxelAssumed}} (assumed: the scan gave none){{end}}</td><td class="step">{{.Filter}}</td><td class="step">{{.Method}}</td><td class="thr">{{.Thresholds}}</td><td class="step"{{with .PhasesNote}} title="{{.}}"{{end}}>{{.Phases}}</td><td>{{.SampleY}}</td><td>{{.SampleX}}</td><td>{{.SampleR}}</td><td class="step">{{if .VoxelDiffers}}voxel size differs from the campaign's {{$.VoxelSize}}{{if .Drift}}; {{end}}{{end}}{{if .Drift}}threshold drift: {{.DriftNote}}{{end}}</td></tr>{{end}}
+<th>sample y</th><th>sample x</th><th>sample r</th><th>grey drift (of contrast)</th><th>flag</th></tr>{{range .Settings}}
+<tr data-settings="{{.Step}}"{{if .Drift}} class="drift"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td{{if .VoxelDiffers}} class="differs"{{end}}>{{.Voxel}}{{if .VoxelAssumed}} (assumed: the scan gave none){{end}}</td><td class="step">{{.Filter}}</td><td class="step">{{.Method}}</td><td class="thr">{{.Thresholds}}</td><td class="step"{{with .PhasesNote}} title="{{.}}"{{end}}>{{.Phases}}</td><td>{{.SampleY}}</td><td>{{.SampleX}}</td><td>{{.SampleR}}</td><td class="step">{{.GreyDrift}}</td><td class="step">{{if .VoxelDiffers}}voxel size differs from the campaign's {{$.VoxelSize}}{{if .Drift}}; {{end}}{{end}}{{if .Drift}}threshold drift: {{.DriftNote}}{{end}}</td></tr>{{end}}
 </table>{{else}}<p>No steps.</p>{{end}}
 </section>
 

@@ -343,3 +343,54 @@ func TestUncertaintyCells(t *testing.T) {
 		t.Error("series table lacks the Pc cells with standard errors")
 	}
 }
+
+// TestCampaignThresholdsShown: in threshold scope campaign the report shows
+// the campaign thresholds (source, values, phase levels), the histogram
+// they came from as a figure with a line per threshold, each step's grey
+// drift as a fraction of the contrast, and flags a step whose drift went
+// beyond the bound.
+func TestCampaignThresholdsShown(t *testing.T) {
+	rows := campaign(4)
+	rows[2].DriftNFraction, rows[2].DriftWFraction, rows[2].DriftSFraction = fp(-0.021), fp(-0.034), fp(-0.06)
+	beyond, within := true, false
+	rows[2].DriftBeyond = &within
+	rows[3].DriftSFraction, rows[3].DriftBeyond = fp(-0.56), &beyond
+	counts := make([]int64, 64)
+	for i := range counts {
+		counts[i] = int64(1000 * (math.Exp(-sq(float64(i-14)/3)) + math.Exp(-sq(float64(i-24)/3)) + math.Exp(-sq(float64(i-40)/3))))
+	}
+	ct := &CampaignThresholds{Source: "first-step", Step: "s001", Order: "nws", T: []float64{19124.7, 32062.5},
+		Levels: []*float64{fp(14069.8), fp(24179.6), nil}, Lo: 0, Width: 1024, Counts: counts}
+	page := string(render(t, Input{Params: Params{Campaign: "c", VoxelSize: 2.5e-6}, Rows: rows, FixedThresholds: ct,
+		Steps: []StepSettings{{Step: "s003", Method: "campaign", Thresholds: []float64{18000, 29000}}}}))
+	sec := regexp.MustCompile(`(?s)<section id="campaign-thresholds">(.*?)</section>`).FindStringSubmatch(page)
+	if sec == nil {
+		t.Fatal("no campaign-thresholds section")
+	}
+	for _, want := range []string{"19124.7, 32062.5", "first-step", "step s001", "nonwetting 14070", "wetting 24180", "solid not measured",
+		`<figure id="fig-campaign-histogram">`, "<polyline", ">T1 19125<", ">T2 32062<"} {
+		if !strings.Contains(sec[1], want) {
+			t.Errorf("campaign section lacks %q", want)
+		}
+	}
+	if !strings.Contains(page, `campaign thresholds 19124.7, 32062.5 (first-step)`) {
+		t.Errorf("parameters do not name the campaign thresholds")
+	}
+	got := map[string]string{}
+	for _, m := range regexp.MustCompile(`(?s)<tr data-settings="([^"]+)"( class="drift")?>(.*?)</tr>`).FindAllStringSubmatch(page, -1) {
+		got[m[1]] = m[2] + m[3]
+	}
+	if !strings.Contains(got["s002"], "n -2.1 %, w -3.4 %, s -6.0 %") || strings.HasPrefix(got["s002"], ` class="drift"`) {
+		t.Errorf("s002 (drift within the bound): %s", got["s002"])
+	}
+	if !strings.HasPrefix(got["s003"], ` class="drift"`) || !strings.Contains(got["s003"], "s -56.0 %") || !strings.Contains(got["s003"], "threshold shift capped") {
+		t.Errorf("s003 (drift beyond the bound) not flagged: %s", got["s003"])
+	}
+	// Scope step: the section says so and draws nothing.
+	page = string(render(t, Input{Params: Params{Campaign: "c"}, Rows: rows}))
+	if strings.Contains(page, "fig-campaign-histogram") || !strings.Contains(page, "Thresholds per step") {
+		t.Errorf("scope step: campaign section wrong")
+	}
+}
+
+func sq(x float64) float64 { return x * x }

@@ -26,7 +26,7 @@ func settingsTable(rows []series.Row, steps []StepSettings, h float64) ([]settin
 		r := &rows[i]
 		s, ok := by[r.Step]
 		t := settingsRow{Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64), Voxel: "—", Filter: "—", Method: "—",
-			Thresholds: "—", Phases: "—", SampleY: "—", SampleX: "—", SampleR: "—"}
+			Thresholds: "—", Phases: "—", SampleY: "—", SampleX: "—", SampleR: "—", GreyDrift: driftText(r)}
 		if r.VoxelSize != nil && *r.VoxelSize > 0 {
 			t.Voxel = strconv.FormatFloat(*r.VoxelSize*1e6, 'g', 4, 64)
 			t.VoxelDiffers = h > 0 && math.Abs(*r.VoxelSize-h) > 1e-6*h
@@ -57,6 +57,15 @@ func settingsTable(rows []series.Row, steps []StepSettings, h float64) ([]settin
 		out[i] = t
 	}
 	rule := flagDrift(rows, by, out)
+	for i := range rows {
+		if b := rows[i].DriftBeyond; b != nil && *b {
+			out[i].Drift = true
+			if out[i].DriftNote != "" {
+				out[i].DriftNote += "; "
+			}
+			out[i].DriftNote += "phase grey levels drifted beyond 25 % of the contrast: threshold shift capped"
+		}
+	}
 	return out, rule
 }
 

@@ -201,6 +201,9 @@ func TestCampaignDrift(t *testing.T) {
 	}
 	d := prep.Thresholds.Campaign.Drift
 	t.Logf("gain 0.85: drift %s shift %v beyond %v: %s; S_n %+.4f", fmtPtrs(d.Delta), d.Shift, d.Beyond, d.Note, snwOf(res)-scenes[5].snw)
+	if res.GreyDriftBeyond == nil || !*res.GreyDriftBeyond || res.GreyDriftSolid == nil || *res.GreyDriftSolid != *d.Delta[2] || res.GreyDriftNote != d.Note {
+		t.Errorf("gain 0.85: result drift %v %v %q, want beyond, the solid drift %v and the note", res.GreyDriftBeyond, res.GreyDriftSolid, res.GreyDriftNote, *d.Delta[2])
+	}
 	if !d.Beyond || d.Note == "" || math.Abs(math.Abs(d.Shift[1])-segment.DriftMax**ct.Contrast[1]) > 1e-9 {
 		t.Errorf("gain 0.85: beyond %v, shift %v, note %q; want flagged with the w|s shift capped at %.0f", d.Beyond, d.Shift, d.Note, segment.DriftMax**ct.Contrast[1])
 	}

@@ -242,8 +242,32 @@ func wholePass2(grey volume.Any, c campaign.Config, solid *volume.Labels, prep P
 	res, err := measure.Combine(parts, whole, vs, mo)
 	if err == nil {
 		res.PhasesDetected, res.PhasesNote = prep.Thresholds.Phases.InScan(), prep.Thresholds.Phases.Describe()
+		SetDrift(res, prep.Thresholds)
 	}
 	return labels, res, err
+}
+
+// SetDrift copies the grey-level drift of a step in threshold scope
+// "campaign" (th.Campaign) into its result: per phase in grey units and as
+// a fraction of the contrast, and whether a shift was capped.
+func SetDrift(res *measure.Result, th segment.Thresholds) {
+	c := th.Campaign
+	if c == nil || c.Pending {
+		return
+	}
+	for k := 0; k < len(c.Order) && k < len(c.Drift.Delta); k++ {
+		d, f := c.Drift.Delta[k], c.Drift.Fraction[k]
+		switch c.Order[k] {
+		case 'n':
+			res.GreyDriftNonwetting, res.GreyDriftNonwettingFraction = d, f
+		case 'w':
+			res.GreyDriftWetting, res.GreyDriftWettingFraction = d, f
+		case 's':
+			res.GreyDriftSolid, res.GreyDriftSolidFraction = d, f
+		}
+	}
+	beyond := c.Drift.Beyond
+	res.GreyDriftBeyond, res.GreyDriftNote = &beyond, c.Drift.Note
 }
 
 func forTiles(t volume.Tiling, workers int, f func(core volume.Box) error) error {

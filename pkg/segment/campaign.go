@@ -449,6 +449,6 @@ func CampaignStep(h Hist, own Thresholds, stored *CampaignThresholds, p Params, 
 		return Thresholds{}, nil, err
 	}
 	th.Method = "campaign"
-	th.Campaign = &StepCampaign{Source: stored.Source, From: stored.Step, T: append([]float64(nil), stored.T...), Drift: d}
+	th.Campaign = &StepCampaign{Source: stored.Source, From: stored.Step, Order: stored.Order, T: append([]float64(nil), stored.T...), Drift: d}
 	return th, fresh, nil
 }

@@ -171,9 +171,11 @@ type Thresholds struct {
 // StepCampaign records, in a step's thresholds, the campaign thresholds it
 // followed and the drift measured.
 type StepCampaign struct {
-	Source string    `json:"source"`
-	From   string    `json:"from_step"`
-	T      []float64 `json:"t"`
+	Source string `json:"source"`
+	From   string `json:"from_step"`
+	// Order lists the classes of T and of the drift arrays in grey order.
+	Order string    `json:"order,omitempty"`
+	T     []float64 `json:"t"`
 	// Pending is true while no step has fixed the campaign thresholds yet
 	// (this step holds fewer phases): the step used its own split.
 	Pending bool  `json:"pending,omitempty"`

@@ -59,9 +59,13 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	capillary_pressure_trapped_pa, capillary_pressure_trapped_se_pa,
 //	contact_angle_mean_se_deg, trapped_ganglia_count,
 //	trapped_ganglia_pc_p10_pa, trapped_ganglia_pc_median_pa,
-//	trapped_ganglia_pc_p90_pa
+//	trapped_ganglia_pc_p90_pa,
+//	grey_drift_nonwetting, grey_drift_wetting, grey_drift_solid (grey
+//	units), grey_drift_nonwetting_fraction, grey_drift_wetting_fraction,
+//	grey_drift_solid_fraction (of the smallest campaign contrast),
+//	grey_drift_beyond
 //
-// The last four come from the result's trapped_ganglia_curvature object
+// The four trapped_ganglia_* columns come from the result's trapped_ganglia_curvature object
 // (series.json keeps the whole object).
 //
 // Null values are empty cells; booleans are `true`/`false`.
@@ -109,6 +113,13 @@ var Columns = []Column{
 	fcol("trapped_ganglia_pc_p10_pa", "Pa", func(r *Row) *float64 { return r.Trapped().PcP10 }),
 	fcol("trapped_ganglia_pc_median_pa", "Pa", func(r *Row) *float64 { return r.Trapped().PcMedian }),
 	fcol("trapped_ganglia_pc_p90_pa", "Pa", func(r *Row) *float64 { return r.Trapped().PcP90 }),
+	fcol("grey_drift_nonwetting", "grey", func(r *Row) *float64 { return r.DriftN }),
+	fcol("grey_drift_wetting", "grey", func(r *Row) *float64 { return r.DriftW }),
+	fcol("grey_drift_solid", "grey", func(r *Row) *float64 { return r.DriftS }),
+	fcol("grey_drift_nonwetting_fraction", "1", func(r *Row) *float64 { return r.DriftNFraction }),
+	fcol("grey_drift_wetting_fraction", "1", func(r *Row) *float64 { return r.DriftWFraction }),
+	fcol("grey_drift_solid_fraction", "1", func(r *Row) *float64 { return r.DriftSFraction }),
+	{Key: "grey_drift_beyond", Unit: "bool", kind: kindBool, get: func(r *Row) any { return r.DriftBeyond }},
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

@@ -76,6 +76,14 @@ type Row struct {
 	PcTrapped       *float64 `json:"capillary_pressure_trapped_pa"`
 	PcTrappedSE     *float64 `json:"capillary_pressure_trapped_se_pa"`
 	AngleMeanSE     *float64 `json:"contact_angle_mean_se_deg"`
+	// Grey-level drift (threshold scope campaign; null otherwise).
+	DriftN         *float64 `json:"grey_drift_nonwetting"`
+	DriftW         *float64 `json:"grey_drift_wetting"`
+	DriftS         *float64 `json:"grey_drift_solid"`
+	DriftNFraction *float64 `json:"grey_drift_nonwetting_fraction"`
+	DriftWFraction *float64 `json:"grey_drift_wetting_fraction"`
+	DriftSFraction *float64 `json:"grey_drift_solid_fraction"`
+	DriftBeyond    *bool    `json:"grey_drift_beyond"`
 	// AngleHist counts contact-angle samples in 1° bins through the wetting
 	// phase: AngleHist[i] holds angles in [i, i+1) degrees (180 bins). It
 	// appears in series.json only, never in the CSV.

@@ -90,6 +90,9 @@ const (
 	StepEvent_KIND_BREAKTHROUGH StepEvent_Kind = 3
 	// Saturation has stopped changing within tolerance.
 	StepEvent_KIND_STEADY_STATE StepEvent_Kind = 4
+	// A phase grey level drifted beyond the bound the campaign thresholds
+	// follow (threshold scope campaign): the shift was capped.
+	StepEvent_KIND_GREY_DRIFT StepEvent_Kind = 5
 )
 
 // Enum value maps for StepEvent_Kind.
@@ -100,6 +103,7 @@ var (
 		2: "KIND_FAILED",
 		3: "KIND_BREAKTHROUGH",
 		4: "KIND_STEADY_STATE",
+		5: "KIND_GREY_DRIFT",
 	}
 	StepEvent_Kind_value = map[string]int32{
 		"KIND_UNSPECIFIED":  0,
@@ -107,6 +111,7 @@ var (
 		"KIND_FAILED":       2,
 		"KIND_BREAKTHROUGH": 3,
 		"KIND_STEADY_STATE": 4,
+		"KIND_GREY_DRIFT":   5,
 	}
 )
 
@@ -1137,7 +1142,7 @@ const file_sluice_v1_tile_proto_rawDesc = "" +
 	"param_hash\x18\x06 \x01(\tR\tparamHash\x12/\n" +
 	"\bpriority\x18\a \x01(\x0e2\x13.sluice.v1.PriorityR\bpriority\x12;\n" +
 	"\vingested_at\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\n" +
-	"ingestedAt\"\xca\x03\n" +
+	"ingestedAt\"\xe0\x03\n" +
 	"\tStepEvent\x12\x1a\n" +
 	"\bcampaign\x18\x01 \x01(\tR\bcampaign\x12\x12\n" +
 	"\x04step\x18\x02 \x01(\tR\x04step\x12-\n" +
@@ -1150,13 +1155,14 @@ const file_sluice_v1_tile_proto_rawDesc = "" +
 	"\x02at\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\x02at\x1a9\n" +
 	"\vValuesEntry\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x14\n" +
-	"\x05value\x18\x02 \x01(\x01R\x05value:\x028\x01\"o\n" +
+	"\x05value\x18\x02 \x01(\x01R\x05value:\x028\x01\"\x84\x01\n" +
 	"\x04Kind\x12\x14\n" +
 	"\x10KIND_UNSPECIFIED\x10\x00\x12\x12\n" +
 	"\x0eKIND_COMPLETED\x10\x01\x12\x0f\n" +
 	"\vKIND_FAILED\x10\x02\x12\x15\n" +
 	"\x11KIND_BREAKTHROUGH\x10\x03\x12\x15\n" +
-	"\x11KIND_STEADY_STATE\x10\x04\"\x98\x02\n" +
+	"\x11KIND_STEADY_STATE\x10\x04\x12\x13\n" +
+	"\x0fKIND_GREY_DRIFT\x10\x05\"\x98\x02\n" +
 	"\n" +
 	"DeadLetter\x12'\n" +
 	"\x04task\x18\x01 \x01(\v2\x13.sluice.v1.TileTaskR\x04task\x12\x15\n" +

@@ -31,6 +31,7 @@ import (
 	"sluice/pkg/events"
 	"sluice/pkg/layout"
 	"sluice/pkg/measure"
+	"sluice/pkg/scan"
 	"sluice/pkg/series"
 	"sluice/pkg/telemetry"
 	"sluice/pkg/web"
@@ -464,6 +465,7 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 	if ph := plan.Thresholds.Phases; ph.Fluids != "" {
 		res.PhasesDetected, res.PhasesNote = ph.InScan(), ph.Describe()
 	}
+	scan.SetDrift(res, plan.Thresholds)
 	b, err := json.MarshalIndent(res, "", "  ")
 	if err != nil {
 		return err
@@ -754,8 +756,11 @@ func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows [
 			continue
 		}
 		kind := sluicepb.StepEvent_KIND_STEADY_STATE
-		if e.Kind == events.Breakthrough {
+		switch e.Kind {
+		case events.Breakthrough:
 			kind = sluicepb.StepEvent_KIND_BREAKTHROUGH
+		case events.GreyDrift:
+			kind = sluicepb.StepEvent_KIND_GREY_DRIFT
 		}
 		if a.Publisher != nil {
 			err := a.Publisher.PublishEvent(ctx, EventID(c, e), &sluicepb.StepEvent{Campaign: c.Name(), Step: e.Step, Kind: kind, TimeS: e.Time, Detail: e.Detail})

@@ -3,8 +3,10 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"flag"
 	"fmt"
+	iofs "io/fs"
 	"os"
 	"path/filepath"
 	"time"
@@ -14,6 +16,7 @@ import (
 	"sluice/pkg/layout"
 	"sluice/pkg/plots"
 	"sluice/pkg/report"
+	"sluice/pkg/segment"
 	"sluice/pkg/series"
 	"sluice/pkg/store"
 )
@@ -207,6 +210,21 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 	for _, r := range rs {
 		rejected = append(rejected, report.Rejected{Step: r.Step, File: r.File, Reason: r.Reason, Attempts: r.Attempts, At: r.At})
 	}
+	var fixed *report.CampaignThresholds
+	if rec.Config.Segment.ThresholdScope == segment.ScopeCampaign {
+		key, err := c.Thresholds(rec.Current)
+		if err != nil {
+			return err
+		}
+		var ct segment.CampaignThresholds
+		switch err := campaign.GetJSON(ctx, st, key, &ct); {
+		case err == nil:
+			fixed = &report.CampaignThresholds{Source: ct.Source, Step: ct.Step, Order: ct.Order, T: ct.T, Levels: ct.Levels,
+				Lo: ct.Hist.Lo, Width: ct.Hist.Width, Counts: ct.Hist.Counts}
+		case !errors.Is(err, iofs.ErrNotExist):
+			return err // a record that cannot be read is named, not left out
+		}
+	}
 	var cautions []string
 	if rec.Config.Measure.ContactWallGap == 0 && anyAngles(rows) {
 		cautions = append(cautions, "Contact angles: "+greyAngleNote+".")
@@ -215,7 +233,7 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 	if err != nil {
 		return err
 	}
-	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, Checks: report.PhysicalChecks(rows, p.IFT), Cautions: cautions, Generated: time.Now()})
+	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, FixedThresholds: fixed, Checks: report.PhysicalChecks(rows, p.IFT), Cautions: cautions, Generated: time.Now()})
 	if cerr := f.Close(); err == nil {
 		err = cerr
 	}
