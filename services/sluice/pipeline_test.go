@@ -101,11 +101,34 @@ func compareResults(t *testing.T, label string, got, want *measure.Result) {
 		"curvature_mean": {f(got.CurvMean), f(want.CurvMean), 1e-9}, "pc": {f(got.Pc), f(want.Pc), 1e-9},
 		"largest_fraction": {f(got.LargestFraction), f(want.LargestFraction), 1e-12},
 		"angle_mean":       {f(got.AngleMean), f(want.AngleMean), 1e-6},
+		// Connected and trapped interfaces apart, the trapped ganglia's own
+		// Pc, and the block standard errors
+		// (docs/capillary-pressure-uncertainty.md).
+		"pc_connected": {f(got.PcConnected), f(want.PcConnected), 1e-9}, "pc_trapped": {f(got.PcTrapped), f(want.PcTrapped), 1e-9},
+		"pc_se": {f(got.PcSE), f(want.PcSE), 1e-9}, "pc_connected_se": {f(got.PcConnectedSE), f(want.PcConnectedSE), 1e-9},
+		"pc_trapped_se": {f(got.PcTrappedSE), f(want.PcTrappedSE), 1e-9}, "angle_mean_se": {f(got.AngleMeanSE), f(want.AngleMeanSE), 1e-6},
+		"trapped_ganglia_pc_median": {f(gmed(got)), f(gmed(want)), 1e-9},
 	} {
 		if !(v[0] == v[1] || math.Abs(v[0]-v[1]) <= v[2]*math.Max(math.Abs(v[0]), math.Abs(v[1]))) {
 			t.Errorf("%s: %s = %.12g, whole volume %.12g", label, k, v[0], v[1])
 		}
 	}
+}
+
+// fv prints a nullable value.
+func fv(p *float64) any {
+	if p == nil {
+		return "null"
+	}
+	return *p
+}
+
+// gmed is the median of the trapped ganglia's own Pc, nil when none.
+func gmed(r *measure.Result) *float64 {
+	if r.TrappedGanglia == nil {
+		return nil
+	}
+	return r.TrappedGanglia.PcMedian
 }
 
 // TestPipelineTilingInvariance runs scans through the real pipeline
@@ -128,6 +151,11 @@ func TestPipelineTilingInvariance(t *testing.T) {
 	if want.GangliaCount < 2 || want.AngleSamples == 0 {
 		t.Fatalf("scene too simple: %d ganglia, %d angle samples", want.GangliaCount, want.AngleSamples)
 	}
+	if want.PcConnected == nil && want.PcTrapped == nil {
+		t.Fatal("scene has neither connected nor trapped interface")
+	}
+	t.Logf("whole volume: Pc %v ± %v, connected %v ± %v, trapped %v ± %v, θ %v ± %v", fv(want.Pc), fv(want.PcSE),
+		fv(want.PcConnected), fv(want.PcConnectedSE), fv(want.PcTrapped), fv(want.PcTrappedSE), fv(want.AngleMean), fv(want.AngleMeanSE))
 	for _, tile := range []int{64, 30, 21, 23} { // 1, 8, 27 (21, 21, 18 per axis) and 27 uneven tiles; the default halo is 20
 		t.Run(fmt.Sprintf("tile%d", tile), func(t *testing.T) {
 			data := t.TempDir()
