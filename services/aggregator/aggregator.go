@@ -27,6 +27,7 @@ import (
 	"sync"
 	"time"
 
+	"sluice/internal/usermsg"
 	"sluice/pkg/campaign"
 	"sluice/pkg/events"
 	"sluice/pkg/layout"
@@ -838,7 +839,9 @@ func (a *Aggregator) StepFailed(ctx context.Context, dl *sluicepb.DeadLetter) er
 		a.dropInvalid(fmt.Errorf("aggregator: dead letter of task %s/%s hash %q: %v", t.Campaign, t.Step, t.ParamHash, err))
 		return nil
 	}
-	f := Failure{Tile: t.Tile, Reason: dl.Reason, Deliveries: dl.Deliveries, Worker: dl.WorkerId, At: dl.At.AsTime()}
+	// The reason is shown to people (live page, status, report): one line
+	// without sluice's package prefixes, the step and campaign as given.
+	f := Failure{Tile: t.Tile, Reason: usermsg.Clean(dl.Reason, "", t.Campaign, t.Step), Deliveries: dl.Deliveries, Worker: dl.WorkerId, At: dl.At.AsTime()}
 	if err := campaign.PutJSON(ctx, a.Store, campaign.FailureKey(step, t.ParamHash), f); err != nil {
 		return fmt.Errorf("aggregator: recording the failure of %s: %w", step.Dir(), err)
 	}

@@ -85,7 +85,7 @@ func TestDeadLettersSurviveAggregatorRestart(t *testing.T) {
 		done := make(chan error, 1)
 		go func() {
 			done <- q.Work(wctx, func(context.Context, *sluicepb.TileTask) error {
-				return queue.Permanent(errors.New("label volume unreadable"))
+				return queue.Permanent(errors.New("volio: label volume unreadable")) // shown without the package prefix
 			}, queue.WorkOptions{WorkerID: "w1"})
 		}()
 		waitUntil(t, "the dead letter of step "+step, func() bool {
