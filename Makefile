@@ -32,7 +32,7 @@ test: setup proto-check ## set up, then run every test, the concurrent packages 
 	$(MAKE) test-scalar
 	$(MAKE) fuzz-ci
 
-test-scalar: ## run pkg/filter's tests built without GOEXPERIMENT=simd (the scalar path)
+test-scalar: ## run pkg/filter's tests built without GOEXPERIMENT=simd (the scalar paths)
 	GOEXPERIMENT= $(GO) test $(TESTFLAGS) ./pkg/filter/
 
 test-go: ## run the Go tests only, without set-up

@@ -74,6 +74,9 @@ func (s *medianScratch) size(nTri, nPlanes int) {
 // core.Min[2]−1 … core.Max[2], the edge planes taken from the clamped
 // column) and one output row.
 func median3Rows[T Integer](in *volume.Volume[T], core volume.Box, emit func(z, y int, row []T)) {
+	if useVector && median3RowsVector(in, core, emit) {
+		return
+	}
 	ib := in.Box
 	s := ib.Size()
 	nyx := s[1] * s[2]

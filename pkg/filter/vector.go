@@ -1,15 +1,22 @@
 package filter
 
 // Vector instructions. Built with GOEXPERIMENT=simd on amd64 (see
-// vector_amd64.go), the Gaussian's row sums run on 256-bit float64 lanes
-// (simd/archsimd) when the CPU has AVX2; otherwise, and in a plain build,
-// the scalar loops of gaussian.go run. Both give the same bits: every lane
-// performs the same float64 multiplies and adds, in the same order, as the
-// scalar loop (no fused multiply–add on either side; GOAMD64=v1, the
-// default, never fuses, and the vector code uses separate Mul and Add).
-// TestGaussianVectorIdentical compares the two paths voxel for voxel.
+// vector_amd64.go) and run on a CPU with AVX2, two loops use 256-bit lanes
+// of simd/archsimd; otherwise, and in a plain build, the scalar loops run.
+//
+//   - The Gaussian's row sums, on four float64 lanes. Both paths give the
+//     same bits: every lane performs the same float64 multiplies and adds,
+//     in the same order, as the scalar loop (no fused multiply–add on
+//     either side; GOAMD64=v1, the default, never fuses, and the vector
+//     code uses separate Mul and Add). TestGaussianVectorIdentical.
+//   - The exact 3×3×3 median of uint16 volumes (Median3Integer,
+//     Median3Rows), on sixteen uint16 lanes: a sorting network per column
+//     of 9 and a pruned merge network selecting the 14th of 27, both
+//     generated and checked by the 0–1 principle in mediannet_test.go.
+//     Integer min and max are exact: TestMedianVectorIdentical.
 
-// VectorPath names the row-sum code the Gaussian uses in this process:
+// VectorPath names the code the Gaussian and the uint16 median use in this
+// process:
 // "AVX2 (simd/archsimd)", or "scalar" with the reason.
 func VectorPath() string {
 	switch {

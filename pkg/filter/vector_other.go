@@ -2,6 +2,8 @@
 
 package filter
 
+import "sluice/pkg/volume"
+
 // Without GOEXPERIMENT=simd (or off amd64) only the scalar path exists.
 const (
 	vectorBuilt = false
@@ -9,3 +11,7 @@ const (
 )
 
 func symmetricRowVector[S, D real](dst []D, w []float64, base []S, at []int) bool { return false }
+
+func median3RowsVector[T Integer](in *volume.Volume[T], core volume.Box, emit func(z, y int, row []T)) bool {
+	return false
+}

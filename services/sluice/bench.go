@@ -75,40 +75,53 @@ func runBenchStages(args []string) int {
 	if _, err := filter.Median3(f32, grey.Box); err != nil {
 		return fail(exitFailure, "bench: %v", err)
 	}
-	row("median 3×3×3", time.Since(t0), procs)
-	// The Gaussian on the path in use (vector instructions when built with
-	// GOEXPERIMENT=simd on an AVX2 CPU) and, when that is the vector path,
-	// on the scalar path too (same bits): three runs each, alternating, the
-	// median shown.
+	row("median 3×3×3 float32", time.Since(t0), procs)
+	// The exact uint16 median and the Gaussian on the path in use (vector
+	// instructions when built with GOEXPERIMENT=simd on an AVX2 CPU) and,
+	// when that is the vector path, on the scalar path too (same results):
+	// three runs each, alternating, the median shown.
 	path := filter.VectorPath()
-	vector := filter.UseVector(false)
-	var tv, ts []time.Duration
-	for i := 0; i < 3; i++ {
-		for _, on := range []bool{true, false} {
-			if on && !vector {
-				continue
-			}
-			filter.UseVector(on)
-			t0 = time.Now()
-			_, err := filter.Gaussian(f32, grey.Box, 1, filter.DefaultTruncate)
-			if on {
-				tv = append(tv, time.Since(t0))
-			} else {
-				ts = append(ts, time.Since(t0))
-			}
-			if err != nil {
-				filter.UseVector(vector)
-				return fail(exitFailure, "bench: %v", err)
+	bothPaths := func(name string, fn func() error) error {
+		vector := filter.UseVector(false)
+		defer filter.UseVector(vector)
+		var tv, ts []time.Duration
+		for i := 0; i < 3; i++ {
+			for _, on := range []bool{true, false} {
+				if on && !vector {
+					continue
+				}
+				filter.UseVector(on)
+				t0 := time.Now()
+				if err := fn(); err != nil {
+					return err
+				}
+				if on {
+					tv = append(tv, time.Since(t0))
+				} else {
+					ts = append(ts, time.Since(t0))
+				}
 			}
 		}
+		if vector {
+			slices.Sort(tv)
+			row(name+", "+strings.SplitN(path, " (", 2)[0], tv[1], procs)
+		}
+		slices.Sort(ts)
+		row(name+", scalar", ts[1], procs)
+		return nil
 	}
-	filter.UseVector(vector)
-	if vector {
-		slices.Sort(tv)
-		row("Gaussian σ=1, "+strings.SplitN(path, " (", 2)[0], tv[1], procs)
+	if err := bothPaths("median 3×3×3 uint16", func() error {
+		_, err := filter.Median3Integer(grey, grey.Box)
+		return err
+	}); err != nil {
+		return fail(exitFailure, "bench: %v", err)
 	}
-	slices.Sort(ts)
-	row("Gaussian σ=1, scalar", ts[1], procs)
+	if err := bothPaths("Gaussian σ=1", func() error {
+		_, err := filter.Gaussian(f32, grey.Box, 1, filter.DefaultTruncate)
+		return err
+	}); err != nil {
+		return fail(exitFailure, "bench: %v", err)
+	}
 	if *nlm {
 		t0 = time.Now()
 		if _, err := (filter.NLM{PatchRadius: 1, SearchRadius: 2, Sigma: p.NoiseSigma()}).Apply(f32, grey.Box); err != nil {
@@ -148,6 +161,6 @@ func runBenchStages(args []string) int {
 	}
 	row("measure labels: counts, Minkowski, clusters", time.Since(t0), *workers)
 	tw.Flush()
-	fmt.Fprintf(stdout, "(%d CPUs; per-core figures divide by the goroutines used; Gaussian row sums: %s)\n", procs, path)
+	fmt.Fprintf(stdout, "(%d CPUs; per-core figures divide by the goroutines used; median and Gaussian: %s)\n", procs, path)
 	return exitOK
 }
