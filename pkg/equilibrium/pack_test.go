@@ -13,7 +13,10 @@ import (
 // packState builds the demo's grain pack (pkg/scenario, edge n, grain
 // radius gr, seed 1), the full-morphology state at r_c and the equilibrium
 // state at Pc/σ = 2/r_c and θ relaxed from it.
-func packState(t *testing.T, n int, gr, rc, theta float64) (c *scenario.Campaign, fm, eq []bool) {
+//
+// strict fails the test when the relaxation does not converge; otherwise
+// the state at the time limit is returned and its speed logged.
+func packState(t *testing.T, n int, gr, rc, theta float64, strict bool) (c *scenario.Campaign, fm, eq []bool) {
 	t.Helper()
 	c = &scenario.Campaign{Shape: [3]int{n, n, n}, Steps: 8, Seed: 1}
 	c.Rock.MeanRadius = gr
@@ -35,10 +38,11 @@ func packState(t *testing.T, n int, gr, rc, theta float64) (c *scenario.Campaign
 	}
 	t0 := time.Now()
 	st, err := s.Relax(2 / rc)
-	if err != nil || !st.Converged {
+	if err != nil || (strict && !st.Converged) {
 		t.Fatalf("relaxation: %+v, %v", st, err)
 	}
-	t.Logf("%d³ pack, grains %g, r_c %.2f, θ %g°: %d steps in %v", n, gr, rc, theta, st.Steps, time.Since(t0).Round(time.Millisecond))
+	t.Logf("%d³ pack, grains %g, r_c %.2f, θ %g°: %d steps in %v, converged %v (mean interface speed %.1e voxel per unit time)",
+		n, gr, rc, theta, st.Steps, time.Since(t0).Round(time.Millisecond), st.Converged, st.Speed)
 	return c, fm, s.Nonwetting()
 }
 
@@ -61,7 +65,7 @@ func TestFullMorphologyLimit(t *testing.T) {
 		t.Fatal(err)
 	}
 	rc := c0.Rc(3)
-	c, fm, eq := packState(t, 64, 20, rc, 0)
+	c, fm, eq := packState(t, 64, 20, rc, 0, true)
 	d := c.Drain()
 	sf, se := d.Saturation(fm), d.Saturation(eq)
 	t.Logf("S_n full morphology %.3f, equilibrium %.3f (%+.3f)", sf, se, se-sf)
@@ -77,13 +81,22 @@ var eqChain = flag.Bool("eqchain", false, "log measured Pc and θ of equilibrium
 // of a 96³ pack: the area-weighted κ against the prescribed Pc/σ and the
 // contact-angle mean against the prescribed θ. A measurement for the
 // report, not a check (several minutes on 2 cores).
+//
+// Measured 2026-12-05 (θ 45°, states relaxed from full morphology at r_c):
+//   - grains 40, r_c 16 (Pc/σ 0.125/voxel: spheres of radius 16, corner
+//     arcs of radius 8; stopped at the time limit 4000, mean interface speed
+//     4.9e-4): S_n 0.852; κ measured −3.6 %; θ mean 46.7° (sd 11.2°).
+//   - grains 34, r_c 9 (radii 9 and 4.5; converged): S_n 0.934; κ measured
+//     −39.9 %; θ mean 54.5° (sd 17.2°).
+// κ is the area-weighted mean over all w–n interface (measure defaults), not
+// the connected phase alone.
 func TestMeasurementChainTable(t *testing.T) {
 	if !*eqChain {
 		t.Skip("run with -eqchain")
 	}
-	for _, run := range []struct{ gr, rc, theta float64 }{{34, 9, 45}, {40, 16, 45}} {
+	for _, run := range []struct{ gr, rc, theta float64 }{{40, 16, 45}, {34, 9, 45}} {
 		theta, rc := run.theta, run.rc
-		c, fm, eq := packState(t, 96, run.gr, rc, theta)
+		c, fm, eq := packState(t, 96, run.gr, rc, theta, false)
 		d := c.Drain()
 		lab := d.Labels(eq, c.Codes.Wetting, c.Codes.Nonwetting)
 		r, err := measure.Volume(lab, measure.Defaults(), 96, 0)
