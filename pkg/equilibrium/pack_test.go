@@ -88,6 +88,7 @@ var eqChain = flag.Bool("eqchain", false, "log measured Pc and θ of equilibrium
 //     4.9e-4): S_n 0.852; κ measured −3.6 %; θ mean 46.7° (sd 11.2°).
 //   - grains 34, r_c 9 (radii 9 and 4.5; converged): S_n 0.934; κ measured
 //     −39.9 %; θ mean 54.5° (sd 17.2°).
+//
 // κ is the area-weighted mean over all w–n interface (measure defaults), not
 // the connected phase alone.
 func TestMeasurementChainTable(t *testing.T) {
