@@ -1,5 +1,6 @@
-// Package volio reads and writes grey-value and label volumes in three
-// formats: raw binary, stacks of 2-D TIFF slices, and Zarr v2 arrays.
+// Package volio reads and writes grey-value and label volumes: raw binary,
+// stacks of 2-D TIFF slices and multi-page TIFF files, Zarr v2 arrays, and
+// (read only, in builds with HDF5 support) 3-D datasets of HDF5 files.
 //
 // Every reader first reads a small header, checks shape × dtype against the
 // file size and against Options.MaxVoxels, and only then allocates (the
@@ -76,6 +77,26 @@
 // Storage goes through Bucket, a two-method key-value interface; Dir is a
 // Bucket on a local directory with atomic writes. An object store adapter
 // only needs Get and Put.
+//
+// # HDF5
+//
+// A file starting with the HDF5 signature (at offset 0 or after a user
+// block of 512·2^k bytes) is read through the HDF5 C library by a small cgo
+// binding of our own (hdf5_cgo.go, build tag hdf5; `make build` sets it when
+// pkg-config finds hdf5). A build without it refuses such a file in one line
+// saying how to get one that reads it. The dataset is Options.Dataset, else
+// the NeXus plottable data (root default → entry default → NXdata signal),
+// else /exchange/data (Data Exchange). It must be 3-D; uint8 and uint16 are
+// read as stored, int8, int16, float32 and float64 as float32 (HDF5 converts
+// from any byte order); wider integers and other classes are refused. Every
+// filter of the dataset must be loadable (H5Zfilter_avail, which loads
+// plugins from HDF5_PLUGIN_PATH or the library's plugin directory) before
+// it is opened. Slabs and bands are hyperslab reads; a chunked dataset gets
+// a chunk cache of one layer of chunks (at most 256 MiB), so thin bands do
+// not decompress a chunk twice. Voxel size and time come from the dataset's
+// attributes only with their units (see h5Meta); a unitless voxel_size or
+// time is an error (a unitless voxel_size is ignored when Options.VoxelSize
+// is given).
 //
 // # Non-finite grey values
 //

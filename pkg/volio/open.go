@@ -37,6 +37,10 @@ type Options struct {
 	// A scan handed over for measurement is complete, so a missing chunk
 	// there is a transfer that did not finish; the CLI and ingest set it.
 	RequireChunks bool
+	// Dataset is the path of the 3-D dataset inside an HDF5 file
+	// ("/entry/data/data"); empty means the NeXus default/signal
+	// attributes, else /exchange/data.
+	Dataset string
 }
 
 func (o Options) limit() int64 {
@@ -48,7 +52,7 @@ func (o Options) limit() int64 {
 
 // Header describes a volume without its voxels.
 type Header struct {
-	Format    string // "raw", "tiff" or "zarr"
+	Format    string // "raw", "tiff", "zarr" or "hdf5"
 	Shape     [3]int // (nz, ny, nx)
 	DType     volume.DType
 	VoxelSize float64 // metres; 0 if unknown
@@ -82,6 +86,9 @@ type BandReader interface {
 //   - a directory containing .zarray: a Zarr v2 array;
 //   - any other directory: a stack of 2-D TIFF slices;
 //   - a file ending in .tif or .tiff: its pages, one per z slice;
+//   - a file starting with the HDF5 signature: a 3-D dataset in it
+//     (Options.Dataset; by default NeXus default/signal, else
+//     /exchange/data), read when sluice was built with HDF5 support;
 //   - any other file: raw voxels, described by <path>.sluice.json or opt
 //     (a path ending in .sluice.json names the raw file beside it).
 func Open(path string, opt Options) (volume.Any, error) {
@@ -121,6 +128,12 @@ func OpenStream(path string, opt Options) (Stream, error) {
 	}
 	if isTIFFName(path) {
 		return openStackFiles(path, []string{path}, false, opt)
+	}
+	if isHDF5(path) {
+		return openHDF5(path, opt)
+	}
+	if opt.Dataset != "" {
+		return nil, fileErr(path, ErrFormat, "a dataset (%s) was named, but the file is not HDF5 (no HDF5 signature)", opt.Dataset)
 	}
 	return openRaw(path, opt)
 }

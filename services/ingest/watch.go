@@ -405,11 +405,11 @@ func (w *Watcher) Scan() ([]Arrival, error) {
 }
 
 // StepName derives a step name from a file name: lower case, extension
-// (.raw, .zarr, .tif …) dropped, characters outside [a-z0-9._-] replaced by
+// (.raw, .zarr, .tif, .h5 …) dropped, characters outside [a-z0-9._-] replaced by
 // '-'.
 func StepName(file string) (string, error) {
 	base := strings.ToLower(filepath.Base(file))
-	for _, ext := range []string{".raw", ".zarr", ".tiff", ".tif", ".vol", ".bin"} {
+	for _, ext := range []string{".raw", ".zarr", ".tiff", ".tif", ".vol", ".bin", ".h5", ".hdf5", ".nxs", ".hdf"} {
 		base = strings.TrimSuffix(base, ext)
 	}
 	b := []byte(base)

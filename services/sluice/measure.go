@@ -20,6 +20,7 @@ import (
 // inputFlags are the flags shared by every command that reads a volume.
 type inputFlags struct {
 	shape, dtype, byteOrder, voxelSize string
+	dataset                            string
 	maxVoxels                          int64
 }
 
@@ -28,6 +29,7 @@ func (f *inputFlags) register(fs *flag.FlagSet) {
 	fs.StringVar(&f.dtype, "dtype", "", "voxel type of a raw file: uint8, uint16 or float32")
 	fs.StringVar(&f.byteOrder, "byte-order", "little", "byte order of a raw file: little or big")
 	fs.StringVar(&f.voxelSize, "voxel-size", "", "voxel edge with its unit (m, mm, um or µm, nm), e.g. 2.5um; a bare number is refused (default: the config's voxel_size, else the file's metadata)")
+	fs.StringVar(&f.dataset, "dataset", "", "`path` of the 3-D dataset in an HDF5 file, e.g. /entry/data/data (default: the NeXus default/signal attributes, else /exchange/data)")
 	fs.Int64Var(&f.maxVoxels, "max-voxels", 4_000_000_000, "refuse volumes with more voxels than this")
 }
 
@@ -35,7 +37,7 @@ func (f *inputFlags) register(fs *flag.FlagSet) {
 func (f *inputFlags) options() (volio.Options, error) {
 	// A scan handed to sluice is complete: a missing Zarr chunk is an
 	// unfinished transfer, not voxels at the fill value.
-	opt := volio.Options{MaxVoxels: f.maxVoxels, ByteOrder: f.byteOrder, RequireChunks: true}
+	opt := volio.Options{MaxVoxels: f.maxVoxels, ByteOrder: f.byteOrder, RequireChunks: true, Dataset: f.dataset}
 	if f.shape != "" {
 		s, err := parseShape(f.shape)
 		if err != nil {
