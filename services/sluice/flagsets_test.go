@@ -18,7 +18,7 @@ var (
 	httpGroup     = []string{"http", "http-token-file"}
 	policyGroup   = []string{"ack-wait", "max-deliver"}
 	embedGroup    = []string{"data", "expose-nats", "nats-users-file", "expose-nats-tls-cert", "expose-nats-tls-key", "expose-nats-tls-client-ca"}
-	inputGroup    = []string{"shape", "dtype", "byte-order", "voxel-size", "max-voxels"}
+	inputGroup    = []string{"shape", "dtype", "byte-order", "voxel-size", "dataset", "max-voxels"}
 	segGroup      = append([]string{"config"}, segOnlyFlags...)
 	measureGroup  = []string{"solid", "wetting", "nonwetting", "ift", "connectivity", "flow-axis", "exclude", "curvature-sigma", "tile", "workers"}
 	watchGroup    = []string{"campaign", "config", "watch", "create-watch", "settle", "times", "time-from-mtime"}
