@@ -19,7 +19,10 @@
 //     many phases the step holds (DecidePhases, phases.go: Otsu's split
 //     separation and a far-side excess test on the merged histogram, or
 //     Params.Fluids): a step with one fluid gets one threshold fewer and
-//     is never forced into three phases.
+//     is never forced into three phases. In threshold scope "campaign"
+//     (Params.ThresholdScope) CampaignStep then replaces them with the
+//     campaign's thresholds, shifted for the measured grey-level drift
+//     (campaign.go; docs/segmentation-thresholds.md).
 //  3. Every tile: Segment(grey core+halo, core, th, p, mask) returns the
 //     labels of the core.
 //
