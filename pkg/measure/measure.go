@@ -15,7 +15,11 @@
 //	curvature sums and histogram       add (floating-point rounding only)
 //	contact-angle sums and histogram   add (exact histogram, rounding for sums)
 //	clusters                           not additive: tile labels and face planes
-//	                                   are merged with union-find (cluster.Merge)
+//	                                   are merged with union-find (cluster.Join)
+//	curvature per ganglion             add per whole-volume ganglion after the
+//	                                   union-find (cluster.Tile.CurvArea, CurvForeign
+//	                                   placed through the owner tile's Rim)
+//	block sums of the standard errors  add per block of a fixed lattice (blockse)
 //
 // The result equals the whole-volume result whatever the tiling, provided
 // each tile is read with a halo of at least Options.Halo() voxels, and it

@@ -308,8 +308,23 @@ func printTable(w io.Writer, path string, r *measure.Result, voxelAssumed bool) 
 	fmt.Fprintf(tw, "specific area w–n\t%s\t1/mm\n", f(r.SpecificWN, 1e-3, "%.4g"))
 	fmt.Fprintf(tw, "curvature κ w–n mean / median\t%s / %s\t1/mm\n", f(r.CurvMean, 1e-3, "%.4g"), f(r.CurvMedian, 1e-3, "%.4g"))
 	fmt.Fprintf(tw, "capillary pressure σκ mean / median\t%s / %s\tkPa\n", f(r.Pc, 1e-3, "%.4g"), f(r.PcMedian, 1e-3, "%.4g"))
+	// pm writes a mean ± its standard error (the SE left out when null).
+	pm := func(p, se *float64, scale float64, format string) string {
+		if p == nil || se == nil {
+			return f(p, scale, format)
+		}
+		return f(p, scale, format) + " ± " + f(se, scale, format)
+	}
+	fmt.Fprintf(tw, "capillary pressure mean ± SE\t%s\tkPa (SE: spread between blocks of %.4g µm)\n", pm(r.Pc, r.PcSE, 1e-3, "%.4g"), r.BlockEdge*1e6)
+	fmt.Fprintf(tw, "capillary pressure connected / trapped ganglia\t%s / %s\tkPa (connected: touching the inlet or outlet face)\n",
+		pm(r.PcConnected, r.PcConnectedSE, 1e-3, "%.4g"), pm(r.PcTrapped, r.PcTrappedSE, 1e-3, "%.4g"))
+	if g := r.TrappedGanglia; g != nil {
+		fmt.Fprintf(tw, "trapped ganglia, own Pc p10 / median / p90\t%s / %s / %s\tkPa (%d ganglia with ≥ %.4g µm² of interface, %d smaller left out)\n",
+			f(g.PcP10, 1e-3, "%.4g"), f(g.PcMedian, 1e-3, "%.4g"), f(g.PcP90, 1e-3, "%.4g"), g.Count, g.MinArea*1e12, g.Below)
+	}
 	fmt.Fprintf(tw, "contact angle (through wetting) mean / median / sd\t%s / %s / %s\t° (%d samples)\n",
 		f(r.AngleMean, 1, "%.1f"), f(r.AngleMedian, 1, "%.1f"), f(r.AngleStd, 1, "%.1f"), r.AngleSamples)
+	fmt.Fprintf(tw, "contact angle mean ± SE\t%s\t°\n", pm(r.AngleMean, r.AngleMeanSE, 1, "%.1f"))
 	fmt.Fprintf(tw, "Euler characteristic n / w / s\t%d / %d / %d\t%d-connected\n", r.EulerNonwetting, r.EulerWetting, r.EulerSolid, r.Connectivity)
 	fmt.Fprintf(tw, "ganglia\t%d\tclusters\n", r.GangliaCount)
 	fmt.Fprintf(tw, "largest ganglion\t%s\tof nonwetting volume\n", f(r.LargestFraction, 1, "%.4f"))
