@@ -4,7 +4,8 @@ package filter
 // vector_amd64.go) and run on a CPU with AVX2, two loops use 256-bit lanes
 // of simd/archsimd; otherwise, and in a plain build, the scalar loops run.
 //
-//   - The Gaussian's row sums, on four float64 lanes. Both paths give the
+//   - The Gaussian's row sums, on four float64 lanes (eight where the CPU
+//     has AVX-512, for whole blocks of 16 voxels). Both paths give the
 //     same bits: every lane performs the same float64 multiplies and adds,
 //     in the same order, as the scalar loop (no fused multiply–add on
 //     either side; GOAMD64=v1, the default, never fuses, and the vector
@@ -16,8 +17,8 @@ package filter
 //     Integer min and max are exact: TestMedianVectorIdentical.
 
 // VectorPath names the code the Gaussian and the uint16 median use in this
-// process:
-// "AVX2 (simd/archsimd)", or "scalar" with the reason.
+// process: "AVX-512 …", "AVX2 (simd/archsimd)", or "scalar" with the
+// reason.
 func VectorPath() string {
 	switch {
 	case !vectorBuilt:
@@ -26,6 +27,8 @@ func VectorPath() string {
 		return "scalar (CPU without AVX2)"
 	case !useVector:
 		return "scalar (vector path switched off)"
+	case use512:
+		return "AVX-512 (simd/archsimd; the median on AVX2 lanes)"
 	}
 	return "AVX2 (simd/archsimd)"
 }

@@ -8,7 +8,10 @@ import "sluice/pkg/volume"
 const (
 	vectorBuilt = false
 	vectorCPU   = false
+	has512      = false
 )
+
+var use512 = false
 
 func symmetricRowVector[S, D real](dst []D, w []float64, base []S, at []int) bool { return false }
 

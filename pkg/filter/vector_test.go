@@ -31,7 +31,7 @@ import (
 // order agrees with ours), so the test pins output bits, not the float64
 // operation sequence.
 func TestGaussianVectorIdentical(t *testing.T) {
-	if vectorBuilt && vectorCPU && !strings.HasPrefix(VectorPath(), "AVX2") {
+	if vectorBuilt && vectorCPU && !strings.HasPrefix(VectorPath(), "AVX") {
 		t.Fatalf("built with the vector path on an AVX2 CPU, but the path in use is %q", VectorPath())
 	}
 	t.Logf("path in use: %s", VectorPath())
@@ -63,19 +63,27 @@ func TestGaussianVectorIdentical(t *testing.T) {
 				t.Fatal(err)
 			}
 			UseVector(true)
-			got, err := Gaussian(in, core, c.sigma, c.truncate)
-			if err != nil {
-				t.Fatal(err)
-			}
-			n := 0
-			for i := range want.Pix {
-				if math.Float32bits(got.Pix[i]) != math.Float32bits(want.Pix[i]) {
-					n++
+			// Both widths of the vector loops where the CPU has them.
+			for _, wide := range []bool{false, true} {
+				if wide && !has512 {
+					continue
+				}
+				use512 = wide
+				got, err := Gaussian(in, core, c.sigma, c.truncate)
+				if err != nil {
+					t.Fatal(err)
+				}
+				n := 0
+				for i := range want.Pix {
+					if math.Float32bits(got.Pix[i]) != math.Float32bits(want.Pix[i]) {
+						n++
+					}
+				}
+				if n > 0 {
+					t.Errorf("σ %g truncate %g core %d %v, AVX-512 %v: %d of %d voxels differ between the vector and the scalar path", c.sigma, c.truncate, ci, core, wide, n, len(want.Pix))
 				}
 			}
-			if n > 0 {
-				t.Errorf("σ %g truncate %g core %d %v: %d of %d voxels differ between the vector and the scalar path", c.sigma, c.truncate, ci, core, n, len(want.Pix))
-			}
+			use512 = has512
 		}
 	}
 }
@@ -85,20 +93,21 @@ func TestGaussianVectorIdentical(t *testing.T) {
 // machine) on a 128³ core with its halo: σ 1 truncate 4 (radius 4, the
 // grey filter) and σ 1.5 truncate 3 (radius 5, the curvature smoothing).
 // It reports the median of each path in MVox/s and ns/voxel of wall time,
-// ns/voxel of the thread's user CPU time (which moves much less when other
+// ns/voxel of the thread's CPU time (which moves much less when other
 // processes share the cores; a GC runs before each call so that none runs
 // inside) and the ratio of each. Run with -cpu 1: Gaussian then runs on
 // the calling goroutine, locked to its thread.
 func BenchmarkGaussianPaths(b *testing.B) {
 	defer UseVector(UseVector(true))
-	runtime.LockOSThread()
-	defer runtime.UnlockOSThread()
 	for _, c := range []struct{ sigma, truncate float64 }{{1, 4}, {1.5, 3}} {
 		r := GaussianRadius(c.sigma, c.truncate)
 		const n = 128
 		v := randomVolume(n+2*r, n+2*r, n+2*r, 5)
 		core := volume.BoxOf(n, n, n).Translate([3]int{r, r, r})
 		b.Run(fmt.Sprintf("sigma=%g/radius=%d", c.sigma, r), func(b *testing.B) {
+			// Locked here: a sub-benchmark runs on a goroutine of its own.
+			runtime.LockOSThread()
+			defer runtime.UnlockOSThread()
 			var wall, cpu [2][]float64 // [scalar, vector]
 			for i := 0; i < b.N; i++ {
 				for k, vec := range []bool{false, true} {
@@ -127,14 +136,16 @@ func BenchmarkGaussianPaths(b *testing.B) {
 	}
 }
 
-// cpuSeconds is the user CPU time of the calling thread (Linux
-// RUSAGE_THREAD = 1, which package syscall does not name).
+// cpuSeconds is the CPU time (user + system) of the calling thread (Linux
+// RUSAGE_THREAD = 1, which package syscall does not name). Their sum is
+// the thread's exact run time; the kernel splits it between user and
+// system by sampled ticks, so either alone is unreliable for short runs.
 func cpuSeconds() float64 {
 	var ru syscall.Rusage
 	if err := syscall.Getrusage(1, &ru); err != nil {
 		return math.NaN()
 	}
-	return float64(ru.Utime.Nano()) / 1e9
+	return float64(ru.Utime.Nano()+ru.Stime.Nano()) / 1e9
 }
 
 // TestMedianVectorIdentical: the vector path of the uint16 median (sorting
