@@ -62,8 +62,8 @@
 // A 3-D array per the Zarr storage specification version 2
 // (zarr.readthedocs.io, "Zarr Storage Specification Version 2"): a .zarray
 // JSON document (zarr_format 2, shape, chunks, dtype "|u1", "<u2", ">u2",
-// "<f4" or ">f4", compressor null or {"id": "zstd", "level": N} — zlib and
-// gzip are also read — fill_value, order "C", filters null,
+// "<f4" or ">f4", compressor null or {"id": "zstd", "level": N} — zlib,
+// gzip and blosc are also read — fill_value, order "C", filters null,
 // dimension_separator "." or "/") and one key per chunk, "iz.iy.ix" or
 // "iz/iy/ix". Chunks are always stored at full chunk shape, edge chunks
 // padded with the fill value; missing chunks read as the fill value, unless
@@ -73,6 +73,11 @@
 // "/" separators, little-endian dtypes and .zattrs holding "voxel_size"
 // ("2.5um") and "time_s" besides any caller attributes. The zstd codec is
 // the Zstandard frame format of RFC 8878 (github.com/klauspost/compress/zstd).
+// Blosc chunks (zarr-python's default compressor) are decoded by our own
+// reader of the Blosc 1 chunk format (blosc.go): header, block offsets,
+// split streams, byte and bit unshuffle, with the inner codecs blosclz (our
+// decoder), lz4 and lz4hc (github.com/pierrec/lz4/v4), zlib (standard
+// library) and zstd; snappy is refused.
 //
 // Storage goes through Bucket, a two-method key-value interface; Dir is a
 // Bucket on a local directory with atomic writes. An object store adapter

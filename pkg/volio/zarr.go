@@ -36,7 +36,7 @@ type ZarrMeta struct {
 	// writes little-endian ("<u2", "<f4"; "|u1").
 	BigEndian bool
 	// Compressor is "" (none, "compressor": null) or "zstd"; arrays
-	// compressed with "zlib" or "gzip" can be read but not created.
+	// compressed with "zlib", "gzip" or "blosc" can be read but not created.
 	Compressor string
 	// Level is the compressor level (zstd 1..22; 0 means 3). Our encoder
 	// (klauspost/compress) maps 1-2 to its fastest, 3-5 to its default,
@@ -162,12 +162,12 @@ func parseZarray(name string, data []byte) (ZarrMeta, error) {
 			return bad("compressor %s: %v", c, err)
 		}
 		switch comp.ID {
-		case "zstd", "zlib", "gzip":
+		case "zstd", "zlib", "gzip", "blosc":
 			m.Compressor = comp.ID
 		default:
-			return bad("compressor %q not supported (want null, zstd, zlib or gzip)", comp.ID)
+			return bad("compressor %q not supported (want null, zstd, zlib, gzip or blosc)", comp.ID)
 		}
-		if comp.Level != nil {
+		if comp.Level != nil && comp.ID != "blosc" {
 			l, err := comp.Level.Int64()
 			if err != nil || l < -1<<17 || l > 22 {
 				return bad("compressor level %s", comp.Level.String())
@@ -502,6 +502,21 @@ func (z *Zarr) decodeChunk(key string, data []byte) ([]byte, error) {
 		out, err = dec.DecodeAll(data, make([]byte, 0, want))
 		if err != nil {
 			return nil, fileErr(z.where(key), ErrFormat, "zstd chunk: %v", err)
+		}
+	case "blosc":
+		// The Blosc header names its own inner codec, shuffle and typesize;
+		// the .zarray's cname/clevel/shuffle only say how it was written.
+		dec, err := z.decoder()
+		if err != nil {
+			return nil, fileErr(z.where(key), ErrFormat, "zstd: %v", err)
+		}
+		out, err = bloscDecode(data, want, dec)
+		if err != nil {
+			kind := ErrFormat
+			if errors.Is(err, errBloscShort) {
+				kind = ErrTruncated
+			}
+			return nil, fileErr(z.where(key), kind, "blosc chunk: %v", err)
 		}
 	case "zlib", "gzip":
 		var r io.ReadCloser

@@ -98,7 +98,7 @@ func TestBadInputFiles(t *testing.T) {
 		{"zarr-bad-json", []string{filepath.Join("zarr-bad-json", ".zarray"), "bad .zarray"}},
 		{"zarr-chunks-over-shape", []string{filepath.Join("zarr-chunks-over-shape", ".zarray"), "chunks [64 8 8] larger than shape [4 8 8]"}},
 		{"zarr-unknown-dtype", []string{filepath.Join("zarr-unknown-dtype", ".zarray"), `dtype "<i8"`}},
-		{"zarr-unknown-compressor", []string{filepath.Join("zarr-unknown-compressor", ".zarray"), `compressor "blosc" not supported`}},
+		{"zarr-unknown-compressor", []string{filepath.Join("zarr-unknown-compressor", ".zarray"), `compressor "bz2" not supported`}},
 		{"zarr-missing-chunk", []string{filepath.Join("zarr-missing-chunk", "1", "0", "0"), "missing chunk 1.0.0"}},
 	}
 	for _, c := range cases {

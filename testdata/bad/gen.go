@@ -135,7 +135,7 @@ func main() {
 	write("zarr-chunks-over-shape/.zarray", []byte(fmt.Sprintf(zarray, "[4, 8, 8]", "[64, 8, 8]", "<u2", "null")))
 	write("zarr-chunks-over-shape/0/0/0", make([]byte, 64*8*8*2))
 	write("zarr-unknown-dtype/.zarray", []byte(fmt.Sprintf(zarray, "[4, 8, 8]", "[4, 8, 8]", "<i8", "null")))
-	write("zarr-unknown-compressor/.zarray", []byte(fmt.Sprintf(zarray, "[4, 8, 8]", "[4, 8, 8]", "<u2", `{"id": "blosc", "cname": "lz4", "clevel": 5, "shuffle": 1}`)))
+	write("zarr-unknown-compressor/.zarray", []byte(fmt.Sprintf(zarray, "[4, 8, 8]", "[4, 8, 8]", "<u2", `{"id": "bz2", "level": 5}`)))
 	write("zarr-missing-chunk/.zarray", []byte(fmt.Sprintf(zarray, "[8, 8, 8]", "[4, 8, 8]", "<u2", "null")))
 	write("zarr-missing-chunk/0/0/0", all[:4*8*8*2]) // chunk 1/0/0 never arrived
 
