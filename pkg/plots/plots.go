@@ -721,6 +721,7 @@ func (b *builder) ganglia() Figure {
 var eventStyles = map[events.Kind]draw.LineStyle{
 	events.Breakthrough: {Color: color.Black, Width: vg.Points(1), Dashes: []vg.Length{vg.Points(4), vg.Points(2)}},
 	events.SteadyState:  {Color: Palette.Slate, Width: vg.Points(1.2), Dashes: []vg.Length{vg.Points(1), vg.Points(2)}},
+	events.GreyDrift:    {Color: Palette.Umber, Width: vg.Points(1)},
 }
 
 func (b *builder) markEvents(p *plot.Plot) {

@@ -176,7 +176,8 @@ function banners() {
   const b = [];
   const failed = state.steps.filter(s => s.status === "failed");
   const inflight = state.steps.filter(s => s.status === "processing" || s.status === "ingested");
-  for (const e of state.events) b.push(["banner-event", `${e.kind === "breakthrough" ? "Breakthrough" : "Steady state"} at step ${e.step} (t = ${fmt(e.time_s, 0)} s): ${e.detail || ""}`]);
+  const kindText = {breakthrough: "Breakthrough", steady_state: "Steady state", grey_drift: "Grey-level drift beyond the bound"};
+  for (const e of state.events) b.push(["banner-event", `${kindText[e.kind] || e.kind} at step ${e.step} (t = ${fmt(e.time_s, 0)} s): ${e.detail || ""}`]);
   for (const f of failed) b.push(["banner-fail", `Step ${f.step} failed: ${f.reason}`]);
   if (state.rejected.length) b.push(["banner-fail", `${state.rejected.length} scan${state.rejected.length > 1 ? "s" : ""} rejected at ingest (not measured): ` +
     state.rejected.map(x => esc(x.step)).join(", ") + " — reasons under “Rejected scans”."]);
