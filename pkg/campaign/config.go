@@ -52,6 +52,12 @@ type Config struct {
 	SampleMargin float64 `json:"sample_margin" yaml:"sample_margin"`
 	// Measure configures the measurements.
 	Measure Measure `json:"measure" yaml:"measure"`
+	// HDF5Dataset is the path of the scan's 3-D dataset in HDF5 inputs
+	// (e.g. "/entry/data/data"); empty: the NeXus default/signal
+	// attributes, else /exchange/data. --dataset overrides it. It says
+	// where the voxels are, not how they are measured, so it is not part of
+	// the parameter hash.
+	HDF5Dataset string `json:"hdf5_dataset,omitempty" yaml:"hdf5_dataset,omitempty"`
 	// Events are the steady-state tolerances of the live view (defaults
 	// K = 3 steps, |ΔS_w| ≤ 0.005, |ΔPc|/Pc ≤ 0.02). They do not change
 	// measurements, so they are not part of the parameter hash.
@@ -270,11 +276,12 @@ func (c Config) MeasureOptions() (measure.Options, error) {
 
 // Hash returns the parameter hash: the first 16 hex digits of the SHA-256
 // of the canonical JSON of every result-changing value (all of Config but
-// Tile and Events). Two runs with equal hashes and software versions give the same
+// Tile, Events and HDF5Dataset). Two runs with equal hashes and software versions give the same
 // series.
 func (c Config) Hash() string {
 	c.Tile = 0
 	c.Events = Events{}
+	c.HDF5Dataset = ""
 	if c.Segment.ThresholdScope == segment.ScopeStep {
 		c.Segment.ThresholdScope = "" // the default, spelt out
 	}

@@ -61,3 +61,39 @@ lab.tofile(os.path.join(d, "lab.raw"))
 		}
 	}
 }
+
+// The config's hdf5_dataset names the dataset when --dataset does not;
+// --dataset overrides it.
+func TestMeasureHDF5DatasetFromConfig(t *testing.T) {
+	if out, err := exec.Command(refPython, "-c", "import numpy, h5py").CombinedOutput(); err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatalf("numpy/h5py unavailable in %s: %s", refPython, out)
+		}
+		t.Skipf("numpy/h5py unavailable in %s: %s", refPython, out)
+	}
+	dir := t.TempDir()
+	pythonRef(t, `
+import sys, os, numpy as np, h5py
+lab = np.full((20, 20, 20), 1, "u1"); lab[5:12, 5:12, 5:12] = 2; lab[:, :2, :] = 0
+with h5py.File(os.path.join(sys.argv[1], "two.h5"), "w") as f:
+    f.create_dataset("a/labels", data=lab)
+    f.create_dataset("b/labels", data=np.where(lab == 2, 1, lab).astype("u1"))
+`, dir)
+	cfg := filepath.Join(dir, "c.yaml")
+	if err := os.WriteFile(cfg, []byte("voxel_size: 2um\nhdf5_dataset: /a/labels\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	file := filepath.Join(dir, "two.h5")
+	a := measureJSON(t, "--labels", "--config", cfg, file)
+	if a["saturation_nonwetting"].(float64) <= 0 {
+		t.Errorf("config's dataset /a/labels: saturation_nonwetting %v, want > 0", a["saturation_nonwetting"])
+	}
+	b := measureJSON(t, "--labels", "--config", cfg, "--dataset", "/b/labels", file)
+	if b["saturation_nonwetting"].(float64) != 0 {
+		t.Errorf("--dataset /b/labels: saturation_nonwetting %v, want 0", b["saturation_nonwetting"])
+	}
+	code, _, errs := runCLI(t, "measure", "--labels", "--voxel-size", "2um", file)
+	if code != 2 || !strings.Contains(errs, "name the dataset with --dataset") {
+		t.Errorf("no dataset named: exit %d %q", code, errs)
+	}
+}

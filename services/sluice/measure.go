@@ -62,6 +62,15 @@ func (f *inputFlags) options() (volio.Options, error) {
 	return opt, nil
 }
 
+// withDataset gives HDF5 reads the config's hdf5_dataset unless --dataset
+// named one.
+func withDataset(opt volio.Options, cfg campaign.Config) volio.Options {
+	if opt.Dataset == "" {
+		opt.Dataset = cfg.HDF5Dataset
+	}
+	return opt
+}
+
 // resolveVoxelSize sets the voxel edge of v, read from path: --voxel-size
 // when given on the command line, else the config's voxel_size, else the
 // file's metadata (checked for plausibility like the others). It returns
@@ -210,6 +219,7 @@ func runMeasure(args []string) int {
 	if err != nil {
 		return fail(exitBadInput, "measure: %v", err)
 	}
+	ropt = withDataset(ropt, cfg)
 	v, err := volio.Open(path, ropt)
 	if err == nil && !*labels {
 		err = volio.CheckFinite(path, v)

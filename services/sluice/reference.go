@@ -61,6 +61,7 @@ func runReference(args []string) int {
 	if err != nil {
 		return fail(exitBadInput, "reference: %s: %v", path, err)
 	}
+	ropt = withDataset(ropt, cfg)
 	grey, err := volio.Open(path, ropt)
 	if err != nil {
 		return fail(exitBadInput, "%v", err)

@@ -430,6 +430,7 @@ func startRun(ctx context.Context, st runStore, pub ingest.Publisher, req reproc
 	}
 	hash := cfg.Hash()
 	sum.Hash, sum.Current = hash, hash == rec.Current
+	req.ReadOpt = withDataset(req.ReadOpt, cfg)
 	if err := campaign.PutJSON(ctx, st, campaign.RunConfigKey(c, hash), cfg); err != nil {
 		return sum, fmt.Errorf("campaign %s: %w", c.Name(), err)
 	}

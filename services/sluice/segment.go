@@ -189,6 +189,7 @@ func segmentFile(path string, in inputFlags, set map[string]bool, sf segFlags, c
 	if err != nil {
 		return nil, scan.Prepared{}, fail(exitBadInput, "segment: %s: %v", path, err)
 	}
+	ropt = withDataset(ropt, cfg)
 	v, err := volio.Open(path, ropt)
 	if err == nil {
 		err = volio.CheckFinite(path, v)

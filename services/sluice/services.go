@@ -253,6 +253,7 @@ func startIngest(ctx context.Context, f ingestFlags, in inputFlags, st ingest.St
 	if err != nil {
 		return nil, err
 	}
+	ropt = withDataset(ropt, cfg)
 	if cfg.VoxelSize == "" && ropt.VoxelSize == 0 {
 		log.Warn("no voxel_size in the campaign config and no --voxel-size: a scan without one in its own metadata will be refused", "campaign", f.campaign)
 	}
