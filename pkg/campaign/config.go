@@ -96,6 +96,12 @@ type Measure struct {
 	ContactSolidSigma float64 `json:"contact_solid_sigma" yaml:"contact_solid_sigma"`
 	ContactMinFaces   int     `json:"contact_min_faces" yaml:"contact_min_faces"`
 	ContactWallGap    float64 `json:"contact_wall_gap,omitempty" yaml:"contact_wall_gap,omitempty"`
+	// FrontThreshold is the nonwetting saturation a bin of the saturation
+	// profile must exceed to count as reached by the displacement front
+	// (0 = default 0.05; pkg/measure profile.go). It changes front_position_m,
+	// so it is part of the parameter hash (omitted when 0, so hashes of
+	// campaigns written before it existed stay the same).
+	FrontThreshold float64 `json:"front_threshold,omitempty" yaml:"front_threshold,omitempty"`
 	// SkipCurvature and SkipContact turn the expensive measurements off.
 	SkipCurvature bool `json:"skip_curvature" yaml:"skip_curvature"`
 	SkipContact   bool `json:"skip_contact" yaml:"skip_contact"`
@@ -268,6 +274,7 @@ func (c Config) MeasureOptions() (measure.Options, error) {
 	o.Curvature = curvature.Options{Sigma: c.Measure.CurvatureSigma, Exclude: ex}
 	o.Contact = contact.Options{Radius: c.Measure.ContactRadius, SolidSigma: c.Measure.ContactSolidSigma, MinFaces: c.Measure.ContactMinFaces, WallGap: c.Measure.ContactWallGap}
 	o.SkipCurvature, o.SkipContact = c.Measure.SkipCurvature, c.Measure.SkipContact
+	o.FrontThreshold = c.Measure.FrontThreshold
 	if err := o.Validate(); err != nil {
 		return o, fmt.Errorf("campaign: %w", err)
 	}

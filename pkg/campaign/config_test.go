@@ -56,6 +56,7 @@ func TestHashCoversResultsOnly(t *testing.T) {
 		"connectivty": func(c *Config) { c.Measure.Connectivity = 6 },
 		"voxel size":  func(c *Config) { c.VoxelSize = "2um" },
 		"wall gap":    func(c *Config) { c.Measure.ContactWallGap = 3 },
+		"front":       func(c *Config) { c.Measure.FrontThreshold = 0.1 },
 	} {
 		c := Default()
 		change(&c)

@@ -62,9 +62,12 @@ type Options struct {
 	FlowAxis int
 	// IFT is the interfacial tension σ in N/m; 0 leaves capillary pressure
 	// out.
-	IFT       float64
-	Curvature curvature.Options
-	Contact   contact.Options
+	IFT float64
+	// FrontThreshold is the nonwetting saturation a profile bin must
+	// exceed to count as reached by the front (0 = DefaultFrontThreshold).
+	FrontThreshold float64
+	Curvature      curvature.Options
+	Contact        contact.Options
 	// Skip turns off the expensive measurements (for quick looks).
 	SkipCurvature, SkipContact bool
 	// Workers is the number of goroutines MeasureTile uses inside one tile
@@ -92,6 +95,9 @@ func (o Options) Validate() error {
 	}
 	if o.FlowAxis < 0 || o.FlowAxis > 2 {
 		return fmt.Errorf("measure: flow axis must be 0 (z), 1 (y) or 2 (x), not %d", o.FlowAxis)
+	}
+	if err := validFrontThreshold(o.FrontThreshold); err != nil {
+		return err
 	}
 	if o.IFT < 0 || math.IsNaN(o.IFT) {
 		return fmt.Errorf("measure: interfacial tension must be ≥ 0 N/m, not %g", o.IFT)
@@ -147,6 +153,10 @@ type Partial struct {
 	// blockse: the standard errors of the connected and trapped Pc. Nil
 	// when curvature was not measured or not attributed.
 	GangliaBlocks []OwnedBlock `json:"ganglia_blocks,omitempty"`
+	// Profile holds the voxel counts per slice along the flow axis (the
+	// saturation profile, profile.go). Nil in tile results written before
+	// it existed; Combine then leaves the profile out.
+	Profile *ProfilePartial `json:"profile,omitempty"`
 }
 
 // OwnedBlock is the curvature sum W = Σw, X = Σκw (voxel², voxel) of the
@@ -222,6 +232,7 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 	}
 	run(func() {
 		countPhases(p, lab, core, wet, non)
+		p.Profile = measureProfile(lab, core, opt.FlowAxis, wet, non)
 		po, io := paddedOrigins(core, whole), interiorOrigins(core, whole)
 		for i, s := range [3]*phase.Set{solid, wet, non} {
 			p.Padded[i] = morph.Cells(lab, s, po)

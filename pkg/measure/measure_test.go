@@ -87,6 +87,10 @@ func TestTilingInvariance(t *testing.T) {
 		if got.AngleSamples != whole.AngleSamples {
 			t.Errorf("tile %v: %d angle samples vs %d", tile, got.AngleSamples, whole.AngleSamples)
 		}
+		// The saturation profile is made of exact counts.
+		if a, b := mustJSON(got.SatProfile), mustJSON(whole.SatProfile); a != b || got.SatProfile == nil || fp(got.FrontPosition) != fp(whole.FrontPosition) {
+			t.Errorf("tile %v: saturation profile or front differs", tile)
+		}
 		// Sums.
 		for name, pair := range map[string][2]float64{
 			"area_wn": {got.AreaWN, whole.AreaWN}, "area_ws": {got.AreaWS, whole.AreaWS}, "area_ns": {got.AreaNS, whole.AreaNS},
@@ -149,4 +153,12 @@ func TestJSONKeys(t *testing.T) {
 	if s := *r.SatWetting + *r.SatNonwetting; math.Abs(s-1) > 1e-15 {
 		t.Errorf("saturations add to %g", s)
 	}
+}
+
+func mustJSON(v any) string {
+	b, err := json.Marshal(v)
+	if err != nil {
+		panic(err)
+	}
+	return string(b)
 }

@@ -113,6 +113,14 @@ type Result struct {
 	Connectivity    int      `json:"connectivity"`
 	FlowAxis        string   `json:"flow_axis"`
 
+	// FrontPosition is the distance of the displacement front from the
+	// inlet face (m; profile.go states the definition); null without a
+	// front or without a profile.
+	FrontPosition *float64 `json:"front_position_m"`
+	// SatProfile is the saturation and porosity profile along the flow
+	// axis; null when a tile carried no per-slice counts.
+	SatProfile *Profile `json:"saturation_profile"`
+
 	// Minkowski holds the four functionals of each phase.
 	Minkowski map[string]Functionals `json:"minkowski"`
 	// Clusters is the full cluster summary.
@@ -182,6 +190,12 @@ func (p *Partial) Add(q *Partial) {
 		}
 		p.Curvature.Add(q.Curvature)
 	}
+	if q.Profile != nil {
+		if p.Profile == nil {
+			p.Profile = new(ProfilePartial)
+		}
+		p.Profile.Add(q.Profile)
+	}
 	if q.Contact != nil {
 		if p.Contact == nil {
 			p.Contact = new(contact.Partial)
@@ -245,9 +259,13 @@ func Combine(parts []*Partial, whole volume.Box, voxelSize float64, opt Options)
 	var sum Partial
 	tiles := make([]*cluster.Tile, 0, len(parts))
 	covered := 0
+	profiles := 0
 	for _, p := range parts {
 		if p == nil {
 			return nil, fmt.Errorf("measure: missing tile result")
+		}
+		if p.Profile != nil {
+			profiles++
 		}
 		sum.Add(p)
 		tiles = append(tiles, p.Clusters)
@@ -266,6 +284,11 @@ func Combine(parts []*Partial, whole volume.Box, voxelSize float64, opt Options)
 	}
 	cs := cluster.Summarize(m.Ganglia, co)
 	r := finish(&sum, cs, whole, voxelSize, opt)
+	if profiles == len(parts) { // a profile from only some tiles would be wrong: leave it out
+		if r.SatProfile, r.FrontPosition, err = finishProfile(sum.Profile, whole, r.VoxelSize, opt); err != nil {
+			return nil, err
+		}
+	}
 	if sum.Curvature != nil {
 		if g, ok := splitGanglia(parts, m); ok {
 			r.setGanglia(g, opt)

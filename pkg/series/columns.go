@@ -63,7 +63,7 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	grey_drift_nonwetting, grey_drift_wetting, grey_drift_solid (grey
 //	units), grey_drift_nonwetting_fraction, grey_drift_wetting_fraction,
 //	grey_drift_solid_fraction (of the smallest campaign contrast),
-//	grey_drift_beyond
+//	grey_drift_beyond, front_position_m, front_velocity_m_per_s
 //
 // The four trapped_ganglia_* columns come from the result's trapped_ganglia_curvature object
 // (series.json keeps the whole object).
@@ -120,6 +120,8 @@ var Columns = []Column{
 	fcol("grey_drift_wetting_fraction", "1", func(r *Row) *float64 { return r.DriftWFraction }),
 	fcol("grey_drift_solid_fraction", "1", func(r *Row) *float64 { return r.DriftSFraction }),
 	{Key: "grey_drift_beyond", Unit: "bool", kind: kindBool, get: func(r *Row) any { return r.DriftBeyond }},
+	fcol("front_position_m", "m", func(r *Row) *float64 { return r.FrontPosition }),
+	fcol("front_velocity_m_per_s", "m/s", func(r *Row) *float64 { return r.FrontVelocity }),
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

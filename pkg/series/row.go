@@ -84,6 +84,11 @@ type Row struct {
 	DriftWFraction *float64 `json:"grey_drift_wetting_fraction"`
 	DriftSFraction *float64 `json:"grey_drift_solid_fraction"`
 	DriftBeyond    *bool    `json:"grey_drift_beyond"`
+	// FrontPosition is the displacement front's distance from the inlet
+	// face (m, pkg/measure.Result); FrontVelocity its rate of change from
+	// the previous row (m/s), derived by Sort (see FrontVelocities).
+	FrontPosition *float64 `json:"front_position_m"`
+	FrontVelocity *float64 `json:"front_velocity_m_per_s"`
 	// AngleHist counts contact-angle samples in 1° bins through the wetting
 	// phase: AngleHist[i] holds angles in [i, i+1) degrees (180 bins). It
 	// appears in series.json only, never in the CSV.

@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"io/fs"
+	"math"
 	"os"
 	"path/filepath"
 	"sort"
@@ -61,7 +62,8 @@ func EncodeJSON(rows []Row) ([]byte, error) {
 	return append(b, '\n'), nil
 }
 
-// Sort orders rows by time, then by step name.
+// Sort orders rows by time, then by step name, and derives the front
+// velocities of the new order (FrontVelocities).
 func Sort(rows []Row) {
 	sort.SliceStable(rows, func(i, j int) bool {
 		if rows[i].Time != rows[j].Time {
@@ -69,6 +71,32 @@ func Sort(rows []Row) {
 		}
 		return rows[i].Step < rows[j].Step
 	})
+	FrontVelocities(rows)
+}
+
+// FrontVelocities sets each row's front_velocity_m_per_s from the row
+// before it (rows sorted by time): v_i = (x_i − x_{i−1}) / (t_i − t_{i−1}),
+// x the front position, t the step time (a finite difference between
+// consecutive steps; negative when the front recedes). Null for the first
+// row, when either step has no front, or when the times do not increase.
+// A value stored earlier is always replaced, so reprocessing or a step
+// arriving out of order leaves every velocity consistent with its
+// neighbours.
+func FrontVelocities(rows []Row) {
+	for i := range rows {
+		rows[i].FrontVelocity = nil
+		if i == 0 {
+			continue
+		}
+		a, b := &rows[i-1], &rows[i]
+		if a.FrontPosition == nil || b.FrontPosition == nil || !(b.Time > a.Time) {
+			continue
+		}
+		v := (*b.FrontPosition - *a.FrontPosition) / (b.Time - a.Time)
+		if !math.IsNaN(v) && !math.IsInf(v, 0) {
+			b.FrontVelocity = &v
+		}
+	}
 }
 
 // Merge returns rows with row upserted: the row of the same step, if any,
@@ -113,6 +141,7 @@ func Save(ctx context.Context, s Store, campaign string, rows []Row) error {
 	if err != nil {
 		return err
 	}
+	Sort(rows)
 	jb, err := EncodeJSON(rows)
 	if err != nil {
 		return err

@@ -90,6 +90,13 @@ func compareResults(t *testing.T, label string, got, want *measure.Result) {
 	if got.Percolates != want.Percolates {
 		t.Errorf("%s: percolation differs", label)
 	}
+	// The saturation profile and the front are exact counts.
+	if a, _ := json.Marshal(got.SatProfile); want.SatProfile == nil || string(a) != func() string { b, _ := json.Marshal(want.SatProfile); return string(b) }() {
+		t.Errorf("%s: saturation profile differs", label)
+	}
+	if (got.FrontPosition == nil) != (want.FrontPosition == nil) || (want.FrontPosition != nil && *got.FrontPosition != *want.FrontPosition) {
+		t.Errorf("%s: front position differs", label)
+	}
 	f := func(p *float64) float64 {
 		if p == nil {
 			return math.NaN()
