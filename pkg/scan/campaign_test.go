@@ -115,6 +115,9 @@ func TestCampaignThresholdsAccuracy(t *testing.T) {
 		t.Errorf("brine-only first step: %+v, want pending with its own split", c)
 	}
 	for i := 1; i < len(scenes); i++ {
+		if ph := camp.prep[i].Thresholds.Phases; ph.Decided != segment.DecidedCampaign || !strings.Contains(ph.Describe(), "campaign thresholds") {
+			t.Errorf("step %d: phases %+v (%s), want decided by the campaign thresholds", i, ph, ph.Describe())
+		}
 		if fmt.Sprint(camp.th[i]) != fmt.Sprint(ct.T) {
 			t.Errorf("step %d: thresholds %v, want the campaign's %v (no drift in these scans)", i, camp.th[i], ct.T)
 		}

@@ -55,6 +55,11 @@ import (
 // that, and at CNR 5 it is 0.1 σ, a few misclassified voxels in ten
 // thousand. Below it the thresholds stay exactly the campaign's.
 
+// DecidedCampaign is Phases.Decided of a step segmented with campaign
+// thresholds: every class is segmented, whatever phases the step holds (a
+// phase that is absent gets only the few voxels of the noise tail).
+const DecidedCampaign = "campaign"
+
 // Threshold scopes of Params.ThresholdScope.
 const (
 	ScopeStep     = "step"
@@ -449,6 +454,7 @@ func CampaignStep(h Hist, own Thresholds, stored *CampaignThresholds, p Params, 
 		return Thresholds{}, nil, err
 	}
 	th.Method = "campaign"
+	th.Phases.Decided = DecidedCampaign
 	th.Campaign = &StepCampaign{Source: stored.Source, From: stored.Step, Order: stored.Order, T: append([]float64(nil), stored.T...), Drift: d}
 	return th, fresh, nil
 }

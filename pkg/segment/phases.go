@@ -291,7 +291,8 @@ type Phases struct {
 	Fluids string `json:"fluids"`
 	// Decided is "histogram" when the test decided, "config" when
 	// Params.Fluids stated it, "undecided" when the histogram could not
-	// tell (both fluids kept).
+	// tell (both fluids kept), "campaign" (DecidedCampaign) for campaign
+	// thresholds.
 	Decided string `json:"decided"`
 	// Splits are the splits tested: the whole histogram and its two sides
 	// (single-scan mode) or the pore-space histogram (reference mode).
@@ -314,6 +315,9 @@ func (p Phases) OneFluid() bool { return p.Fluids == FluidsWetting || p.Fluids =
 func (p Phases) Describe() string {
 	if p.Decided == "undecided" {
 		return fmt.Sprintf("both fluids assumed: rock and pore do not separate cleanly in the histogram (separation R %s < %.1f), so it cannot tell whether one fluid is missing", fmtR(p.Splits), MinSeparation)
+	}
+	if p.Decided == DecidedCampaign {
+		return "campaign thresholds: the rock and both fluid classes are segmented whatever this step holds"
 	}
 	if !p.OneFluid() {
 		return fmt.Sprintf("both fluids present (%s)", p.Decided)
