@@ -49,7 +49,10 @@
 // z slice in file order; every page must have the first page's size, bit
 // depth and sample format, and the whole chain of IFDs is read and checked
 // against the voxel limit before any voxel is (a loop in the chain is an
-// error). A slice of a stack directory must hold one page.
+// error). A slice of a stack directory must hold one page. BigTIFF (magic
+// 43, 64-bit offsets, 20-byte IFD entries, LONG8 values) is read by our
+// baseline reader when uncompressed or Deflate in strips; other BigTIFF
+// encodings are refused when the file is opened.
 // Voxel size and time, which TIFF tags do not carry, come from an optional
 // stack.sluice.json inside the directory ({"shape", "dtype", "voxel_size",
 // "time_s"}, all optional; shape and dtype must agree with the slices) or

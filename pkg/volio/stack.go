@@ -166,7 +166,7 @@ func onePageErr(name string, limit int64) error {
 	if f, err := os.Open(name); err == nil {
 		if fi, err := f.Stat(); err == nil {
 			if t, err := readTIFFInfo(f, fi.Size(), limit); err == nil {
-				n = fmt.Sprint(countPages(f, fi.Size(), t.order, t.next, 2))
+				n = fmt.Sprint(countPages(f, fi.Size(), t.order, t.big, t.next, 2))
 			}
 		}
 		f.Close()
@@ -352,7 +352,7 @@ func (s *stackStream) readPages(v volume.Any, z0, z1 int) error {
 	for z := z0; z < z1; z++ {
 		// The file may have changed since it was opened: read the page's
 		// IFD again and check it against the header.
-		t, err := readIFD(f, fi.Size(), s.limit, s.info.order, s.pages[z])
+		t, err := readIFD(f, fi.Size(), s.limit, s.info.order, s.info.big, s.pages[z])
 		if err == nil && (t.width != s.h.Shape[2] || t.height != s.h.Shape[1] || t.dtype() != s.h.DType) {
 			err = fmt.Errorf("%w: page is %d×%d %v, page 1 is %d×%d %v", ErrFormat, t.width, t.height, t.dtype(), s.h.Shape[2], s.h.Shape[1], s.h.DType)
 		}

@@ -46,11 +46,13 @@ const (
 
 	typeShort = 3
 	typeLong  = 4
+	typeLong8 = 16 // BigTIFF
 )
 
 // tiffInfo is what we need from one image file directory (one page).
 type tiffInfo struct {
 	order         binary.ByteOrder
+	big           bool // BigTIFF: 8-byte offsets and counts, 20-byte IFD entries
 	width, height int
 	bits          int
 	spp           int
@@ -89,6 +91,10 @@ func compressionName(c int) string {
 		return " (JPEG)"
 	case 34712:
 		return " (JPEG 2000)"
+	case compLZW:
+		return " (LZW)"
+	case compPackBits:
+		return " (PackBits)"
 	}
 	return ""
 }
@@ -106,73 +112,128 @@ var errTIFFShort = errors.New("short")
 // given size. It checks every offset against size and the image against
 // limit voxels before anything proportional to the image is allocated.
 func readTIFFInfo(r io.ReaderAt, size int64, limit int64) (tiffInfo, error) {
-	order, ifd, err := readTIFFHeader(r, size)
+	order, ifd, big, err := readTIFFHeader(r, size)
 	if err != nil {
 		return tiffInfo{}, err
 	}
-	return readIFD(r, size, limit, order, ifd)
+	return readIFD(r, size, limit, order, big, ifd)
 }
 
-// readTIFFHeader reads the byte order and the offset of the first IFD.
-func readTIFFHeader(r io.ReaderAt, size int64) (binary.ByteOrder, int64, error) {
-	var hdr [8]byte
+// readTIFFHeader reads the byte order, the offset of the first IFD and
+// whether the file is a BigTIFF (magic 43, offset size 8, a 16-byte header
+// with a 64-bit IFD offset; BigTIFF design by Aware Systems, adopted by
+// libtiff 4).
+func readTIFFHeader(r io.ReaderAt, size int64) (binary.ByteOrder, int64, bool, error) {
+	var hdr [16]byte
 	if size < 8 {
-		return nil, 0, fmt.Errorf("%w: file of %d bytes is shorter than a TIFF header", ErrTruncated, size)
+		return nil, 0, false, fmt.Errorf("%w: file of %d bytes is shorter than a TIFF header", ErrTruncated, size)
 	}
-	if _, err := r.ReadAt(hdr[:], 0); err != nil {
-		return nil, 0, err
+	if _, err := r.ReadAt(hdr[:8], 0); err != nil {
+		return nil, 0, false, err
 	}
 	var order binary.ByteOrder
+	big := false
 	switch string(hdr[:4]) {
 	case "II*\x00":
 		order = binary.LittleEndian
 	case "MM\x00*":
 		order = binary.BigEndian
-	case "II+\x00", "MM\x00+":
-		return nil, 0, fmt.Errorf("%w: BigTIFF is not supported", ErrFormat)
+	case "II+\x00":
+		order, big = binary.LittleEndian, true
+	case "MM\x00+":
+		order, big = binary.BigEndian, true
 	default:
-		return nil, 0, fmt.Errorf("%w: not a TIFF file (magic % x)", ErrFormat, hdr[:4])
+		return nil, 0, false, fmt.Errorf("%w: not a TIFF file (magic % x)", ErrFormat, hdr[:4])
 	}
-	return order, int64(order.Uint32(hdr[4:])), nil
+	if !big {
+		return order, int64(order.Uint32(hdr[4:])), false, nil
+	}
+	if size < 16 {
+		return nil, 0, false, fmt.Errorf("%w: file of %d bytes is shorter than a BigTIFF header", ErrTruncated, size)
+	}
+	if _, err := r.ReadAt(hdr[:], 0); err != nil {
+		return nil, 0, false, err
+	}
+	if order.Uint16(hdr[4:]) != 8 || order.Uint16(hdr[6:]) != 0 {
+		return nil, 0, false, fmt.Errorf("%w: BigTIFF offset size %d, want 8", ErrFormat, order.Uint16(hdr[4:]))
+	}
+	off := order.Uint64(hdr[8:])
+	if off > uint64(size) {
+		return nil, 0, false, fmt.Errorf("%w: IFD offset %d outside the file of %d bytes", ErrTruncated, off, size)
+	}
+	return order, int64(off), true, nil
 }
 
 // readIFD parses the image file directory at offset ifd (TIFF 6.0 section
 // 2) and validates its image as readTIFFInfo does; the result's next is the
 // offset of the following IFD, 0 at the end of the chain.
-func readIFD(r io.ReaderAt, size int64, limit int64, order binary.ByteOrder, ifd int64) (tiffInfo, error) {
-	t := tiffInfo{order: order, ifd: ifd}
-	if ifd < 8 || ifd+2 > size {
+func readIFD(r io.ReaderAt, size int64, limit int64, order binary.ByteOrder, big bool, ifd int64) (tiffInfo, error) {
+	t := tiffInfo{order: order, big: big, ifd: ifd}
+	// Classic TIFF: a 2-byte entry count, 12-byte entries with 4-byte
+	// counts and values, a 4-byte next offset; BigTIFF: 8, 20, 8 and 8.
+	cs, es, vs := int64(2), int64(12), int64(4)
+	if big {
+		cs, es, vs = 8, 20, 8
+	}
+	if ifd < 8 || ifd+cs > size {
 		return t, fmt.Errorf("%w: IFD offset %d outside the file of %d bytes", ErrTruncated, ifd, size)
 	}
-	var nb [2]byte
-	if _, err := r.ReadAt(nb[:], ifd); err != nil {
+	var nb [8]byte
+	if _, err := r.ReadAt(nb[:cs], ifd); err != nil {
 		return t, err
 	}
-	n := int64(t.order.Uint16(nb[:]))
-	if n == 0 || ifd+2+12*n > size {
+	var n int64
+	if big {
+		u := t.order.Uint64(nb[:])
+		if u > uint64(size) {
+			u = uint64(size)
+		}
+		n = int64(u)
+	} else {
+		n = int64(t.order.Uint16(nb[:]))
+	}
+	if n == 0 || n > 1<<16 || ifd+cs+es*n > size {
 		return t, fmt.Errorf("%w: IFD of %d entries at %d does not fit in %d bytes", ErrTruncated, n, ifd, size)
 	}
 	// The entries and the offset of the next IFD; a file that ends right
 	// after the entries has no next IFD.
-	entries := make([]byte, 12*n+4)
-	if ifd+2+12*n+4 > size {
-		entries = entries[:12*n]
+	entries := make([]byte, es*n+vs)
+	if ifd+cs+es*n+vs > size {
+		entries = entries[:es*n]
 	}
-	if _, err := r.ReadAt(entries, ifd+2); err != nil {
+	if _, err := r.ReadAt(entries, ifd+cs); err != nil {
 		return t, err
 	}
-	if len(entries) > int(12*n) {
-		t.next = int64(t.order.Uint32(entries[12*n:]))
+	if len(entries) > int(es*n) {
+		if big {
+			nx := t.order.Uint64(entries[es*n:])
+			if nx > uint64(size) {
+				return t, fmt.Errorf("%w: next IFD offset %d outside the file of %d bytes", ErrTruncated, nx, size)
+			}
+			t.next = int64(nx)
+		} else {
+			t.next = int64(t.order.Uint32(entries[12*n:]))
+		}
 	}
 	// Defaults of TIFF 6.0; a missing PhotometricInterpretation is read as
 	// black-is-zero, the usual meaning for grey scientific images.
 	t.spp, t.sampleFormat, t.compression, t.photometric, t.predictor = 1, sampleUint, compNone, photoBlackIsZero, 1
 	bitsSeen := false
 	for i := int64(0); i < n; i++ {
-		e := entries[12*i : 12*i+12]
+		e := entries[es*i : es*i+es]
 		tag := t.order.Uint16(e)
 		typ := t.order.Uint16(e[2:])
-		count := int64(t.order.Uint32(e[4:]))
+		var count int64
+		valueAt := 8 // where the value or its offset starts in the entry
+		if big {
+			c := t.order.Uint64(e[4:])
+			if c > uint64(size) {
+				c = uint64(size) + 1 // refused below as too many values
+			}
+			count, valueAt = int64(c), 12
+		} else {
+			count = int64(t.order.Uint32(e[4:]))
+		}
 		// values reads the entry's SHORT or LONG values; max bounds count.
 		values := func(max int64) ([]uint64, error) {
 			var sz int64
@@ -181,15 +242,26 @@ func readIFD(r io.ReaderAt, size int64, limit int64, order binary.ByteOrder, ifd
 				sz = 2
 			case typeLong:
 				sz = 4
+			case typeLong8:
+				sz = 8
 			default:
-				return nil, fmt.Errorf("%w: tag %d has type %d, want SHORT or LONG", ErrFormat, tag, typ)
+				return nil, fmt.Errorf("%w: tag %d has type %d, want SHORT, LONG or LONG8", ErrFormat, tag, typ)
 			}
 			if count < 1 || count > max {
 				return nil, fmt.Errorf("%w: tag %d has %d values, want 1 to %d", ErrFormat, tag, count, max)
 			}
-			raw := e[8:12]
-			if count*sz > 4 {
-				off := int64(t.order.Uint32(e[8:]))
+			raw := e[valueAt : valueAt+int(vs)]
+			if count*sz > vs {
+				var off int64
+				if big {
+					o := t.order.Uint64(e[valueAt:])
+					if o > uint64(size) {
+						return nil, fmt.Errorf("%w: tag %d values at %d beyond the file of %d bytes", ErrTruncated, tag, o, size)
+					}
+					off = int64(o)
+				} else {
+					off = int64(t.order.Uint32(e[8:]))
+				}
 				if off+count*sz > size {
 					return nil, fmt.Errorf("%w: tag %d values at %d+%d beyond the file of %d bytes", ErrTruncated, tag, off, count*sz, size)
 				}
@@ -200,10 +272,13 @@ func readIFD(r io.ReaderAt, size int64, limit int64, order binary.ByteOrder, ifd
 			}
 			out := make([]uint64, count)
 			for k := range out {
-				if sz == 2 {
+				switch sz {
+				case 2:
 					out[k] = uint64(t.order.Uint16(raw[2*k:]))
-				} else {
+				case 4:
 					out[k] = uint64(t.order.Uint32(raw[4*k:]))
+				default:
+					out[k] = t.order.Uint64(raw[8*k:])
 				}
 			}
 			return out, nil
@@ -285,6 +360,10 @@ func readIFD(r io.ReaderAt, size int64, limit int64, order binary.ByteOrder, ifd
 	if t.photometric == photoWhiteIsZero && t.bits == 32 {
 		return t, fmt.Errorf("%w: white-is-zero float image", ErrFormat)
 	}
+	if t.big && !t.ownPath() {
+		// golang.org/x/image/tiff reads classic TIFF only: refuse at open.
+		return t, fmt.Errorf("%w: BigTIFF with compression %d%s, predictor %d or tiles is not supported (BigTIFF is read uncompressed or Deflate, in strips)", ErrFormat, t.compression, compressionName(t.compression), t.predictor)
+	}
 	if !t.tiled {
 		if t.rowsPerStrip < 1 || t.rowsPerStrip > t.height {
 			t.rowsPerStrip = t.height
@@ -322,7 +401,7 @@ func readTIFFPages(r io.ReaderAt, size int64, limit int64) (tiffInfo, []int64, e
 		if _, ok := mulLimit([3]int{page, first.height, first.width}, limit); !ok {
 			return first, nil, fmt.Errorf("%w: %d or more pages of %d×%d pixels exceed the limit of %d voxels", ErrTooLarge, page, first.width, first.height, limit)
 		}
-		t, err := readIFD(r, size, limit, first.order, next)
+		t, err := readIFD(r, size, limit, first.order, first.big, next)
 		if err != nil {
 			return first, nil, pageErr(page, err)
 		}
@@ -332,7 +411,7 @@ func readTIFFPages(r io.ReaderAt, size int64, limit int64) (tiffInfo, []int64, e
 				what = " (a reduced-resolution copy)"
 			}
 			return first, nil, fmt.Errorf("%w: page %d of %d is %d×%d %v%s, page 1 is %d×%d %v; every page is one z slice and must match the first",
-				ErrFormat, page, countPages(r, size, first.order, next, page), t.width, t.height, t.dtype(), what, first.width, first.height, first.dtype())
+				ErrFormat, page, countPages(r, size, first.order, first.big, next, page), t.width, t.height, t.dtype(), what, first.width, first.height, first.dtype())
 		}
 		seen[next] = page
 		ifds = append(ifds, next)
@@ -344,23 +423,44 @@ func readTIFFPages(r io.ReaderAt, size int64, limit int64) (tiffInfo, []int64, e
 // countPages counts the pages of the chain from the IFD at off (page
 // number page) for an error message, stopping at a loop, a bad offset or
 // 1<<20 pages.
-func countPages(r io.ReaderAt, size int64, order binary.ByteOrder, off int64, page int) int {
+func countPages(r io.ReaderAt, size int64, order binary.ByteOrder, big bool, off int64, page int) int {
+	cs, es, vs := int64(2), int64(12), int64(4)
+	if big {
+		cs, es, vs = 8, 20, 8
+	}
 	seen := map[int64]bool{}
-	for off >= 8 && off+2 <= size && !seen[off] && page < 1<<20 {
+	for off >= 8 && off+cs <= size && !seen[off] && page < 1<<20 {
 		seen[off] = true
-		var nb [2]byte
-		if _, err := r.ReadAt(nb[:], off); err != nil {
+		var nb [8]byte
+		if _, err := r.ReadAt(nb[:cs], off); err != nil {
 			break
 		}
-		at := off + 2 + 12*int64(order.Uint16(nb[:]))
-		var b [4]byte
-		if at+4 > size {
+		var n uint64
+		if big {
+			n = order.Uint64(nb[:])
+		} else {
+			n = uint64(order.Uint16(nb[:]))
+		}
+		if n > uint64(size) {
 			break
 		}
-		if _, err := r.ReadAt(b[:], at); err != nil {
+		at := off + cs + es*int64(n)
+		var b [8]byte
+		if at+vs > size {
 			break
 		}
-		off = int64(order.Uint32(b[:]))
+		if _, err := r.ReadAt(b[:vs], at); err != nil {
+			break
+		}
+		if big {
+			u := order.Uint64(b[:])
+			if u > uint64(size) {
+				break
+			}
+			off = int64(u)
+		} else {
+			off = int64(order.Uint32(b[:]))
+		}
 		if off == 0 {
 			break
 		}
@@ -414,6 +514,10 @@ func decodeTIFF(r io.ReaderAt, size int64, t tiffInfo, v volume.Any, z int) erro
 	}
 	if t.bits == 32 {
 		return fmt.Errorf("%w: float TIFF with compression %d, predictor %d or tiles is not supported", ErrFormat, t.compression, t.predictor)
+	}
+	if t.big {
+		// golang.org/x/image/tiff reads classic TIFF only.
+		return fmt.Errorf("%w: BigTIFF with compression %d%s, predictor %d or tiles is not supported (BigTIFF is read uncompressed or Deflate, in strips)", ErrFormat, t.compression, compressionName(t.compression), t.predictor)
 	}
 	// x/image/tiff parses the IFD again; check its idea of the size before
 	// it allocates.
@@ -654,7 +758,7 @@ func decodeTIFFBytes(data []byte, limit int64) (volume.Any, error) {
 	v := newVolume(t.dtype(), volume.BoxOf(len(ifds), t.height, t.width), 0)
 	for z, ifd := range ifds {
 		if z > 0 {
-			if t, err = readIFD(r, size, limit, t.order, ifd); err != nil {
+			if t, err = readIFD(r, size, limit, t.order, t.big, ifd); err != nil {
 				return nil, pageErr(z+1, err)
 			}
 		}

@@ -218,7 +218,8 @@ func TestTIFFErrors(t *testing.T) {
 		{write("cut.tif", good[:200]), Options{}, ErrTruncated, "beyond the file"},
 		{write("tiny.tif", good[:5]), Options{}, ErrTruncated, "shorter than a TIFF header"},
 		{write("garbage.tif", []byte("this is not a TIFF file at all")), Options{}, ErrFormat, "not a TIFF file"},
-		{write("bigtiff.tif", []byte("II+\x00\x08\x00\x00\x00\x00\x00\x00\x00\x00\x00\x00\x00")), Options{}, ErrFormat, "BigTIFF"},
+		{write("bigtiff.tif", []byte("II+\x00\x08\x00\x00\x00\x00\x00\x00\x00\x00\x00\x00\x00")), Options{}, ErrTruncated, "IFD offset 0 outside"},
+		{write("bigtiff-offsize.tif", []byte("II+\x00\x04\x00\x00\x00\x10\x00\x00\x00\x00\x00\x00\x00")), Options{}, ErrFormat, "BigTIFF offset size 4"},
 		{write("rgb.tif", rgb.Bytes()), Options{}, ErrFormat, "samples per pixel"},
 		{write("wide.tif", big), Options{MaxVoxels: 100000}, ErrTooLarge, "exceeds the limit"},
 	}

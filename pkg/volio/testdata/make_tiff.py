@@ -30,3 +30,7 @@ pil[0].save("pil_u8_pages_lzw.tif", save_all=True, append_images=pil[1:], compre
 with tifffile.TiffWriter("tifffile_pages_narrow.tif") as w:
     for p in (u8, u8, u8[:, :4]):
         w.write(p, photometric="minisblack", contiguous=False)
+# BigTIFF seeds for FuzzTIFF: three uint8 pages; big-endian Deflate uint16.
+b = (np.arange(3 * 6 * 5) % 251).astype("u1").reshape(3, 6, 5)
+tifffile.imwrite("tifffile_u1_bigtiff_pages.tif", b, photometric="minisblack", bigtiff=True)
+tifffile.imwrite("tifffile_u2_be_bigtiff_zlib.tif", b.astype("u2") * 200, photometric="minisblack", bigtiff=True, byteorder=">", compression="zlib")
