@@ -21,6 +21,10 @@
 // has no bar.
 //
 //	ganglia             nonwetting ganglia count and largest-ganglion volume fraction against time
+//	saturation_profile  time × position map of the nonwetting saturation along the flow
+//	                    axis (one column per step, reaching halfway to its neighbours;
+//	                    white S_n = 0 to dark blue S_n = 1, colour bar below; bins without
+//	                    pore space blank) with the front position (mm from the inlet) on top
 //
 // Every figure's title names the campaign and the run (short parameter
 // hash). Time axes are in s, min or h chosen by the campaign's length (see
@@ -71,7 +75,7 @@ const AngleBin = 5
 
 // Names lists the figures in the order Build returns them.
 var Names = []string{"saturation", "capillary_pressure", "curvature", "specific_area",
-	"pc_saturation", "area_saturation", "contact_angle", "ganglia"}
+	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile"}
 
 // Unit texts of the figures' axes, written the same way in the report
 // and on the live page. Dimensionless quantities carry "–".
@@ -122,7 +126,10 @@ type Figure struct {
 	TimeUnit string
 	panels   []*plot.Plot
 	specs    []axes
-	empty    bool
+	// heights, when set, are the fractions of the figure height of each
+	// panel, top first (panels are then drawn without aligning their axes).
+	heights []float64
+	empty   bool
 }
 
 // axes says how a panel's axes are finished: fixed ranges stay as set,
@@ -137,7 +144,7 @@ func Build(rows []series.Row, evs []events.Event, run Run) []Figure {
 	b := builder{rows: rows, evs: evs, unit: unit, perUnit: per}
 	figs := []Figure{
 		b.saturation(), b.pressure(), b.curvature(), b.area(),
-		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(),
+		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(),
 	}
 	for i := range figs {
 		f := &figs[i]
@@ -313,6 +320,18 @@ func (f *Figure) draw(c draw.Canvas) {
 	c.Fill(c.Rectangle.Path())
 	if len(f.panels) == 1 {
 		f.panels[0].Draw(c)
+		return
+	}
+	if len(f.heights) == len(f.panels) {
+		top := c.Max.Y
+		full := c.Max.Y - c.Min.Y
+		for i, p := range f.panels {
+			sub := c
+			sub.Max.Y = top
+			sub.Min.Y = top - vg.Length(f.heights[i])*full
+			top = sub.Min.Y
+			p.Draw(sub)
+		}
 		return
 	}
 	grid := make([][]*plot.Plot, len(f.panels))

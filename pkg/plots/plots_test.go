@@ -1,6 +1,7 @@
 package plots
 
 import (
+	"encoding/json"
 	"bytes"
 	"encoding/xml"
 	"fmt"
@@ -48,6 +49,24 @@ func drainage(n, nullPc int) []series.Row {
 			h[d] = int64(100 * math.Exp(-math.Pow(float64(d)-60-float64(i), 2)/200))
 		}
 		rows[i].AngleHist = h
+		// A front advancing through 8 bins of 0.5 mm: S_n 1 behind it.
+		reach := 1 + int(7*f)
+		prof := `{"axis":"z","bin_width_m":0.0005,"front_threshold":0.05,"position_m":[`
+		sn := ""
+		for k := 0; k < 8; k++ {
+			if k > 0 {
+				prof += ","
+				sn += ","
+			}
+			prof += fmt.Sprint((float64(k) + 0.5) * 0.0005)
+			if k < reach {
+				sn += "1"
+			} else {
+				sn += "0"
+			}
+		}
+		rows[i].Extra = map[string]json.RawMessage{"saturation_profile": json.RawMessage(prof + `],"saturation_nonwetting":[` + sn + `]}`)}
+		rows[i].FrontPosition = fp(float64(reach) * 0.0005)
 	}
 	return rows
 }

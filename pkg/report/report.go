@@ -142,6 +142,9 @@ type tableRow struct {
 	Unresolved                      bool
 }
 
+// frontRow is one line of the front table.
+type frontRow struct{ Step, Time, Position, Velocity string }
+
 // settingsRow is one line of the per-step segmentation table.
 type settingsRow struct {
 	Step, Time, Voxel, Filter, Method, Thresholds, Phases, PhasesNote, SampleY, SampleX, SampleR string
@@ -152,17 +155,22 @@ type settingsRow struct {
 
 type page struct {
 	Input
-	Settings       []settingsRow
-	CampaignTh     *campaignView
-	AreaUnit       string
-	DriftRule      string
-	DriftFlagged   int
-	VoxelSize      string
-	IFT            string
-	Thresholds     string
-	Table          []tableRow
-	Figures        []figure
-	Distributions  []figure
+	Settings      []settingsRow
+	CampaignTh    *campaignView
+	AreaUnit      string
+	DriftRule     string
+	DriftFlagged  int
+	VoxelSize     string
+	IFT           string
+	Thresholds    string
+	Table         []tableRow
+	Figures       []figure
+	Distributions []figure
+	// Profile is the saturation-profile map; Fronts the front position
+	// and velocity per step; FrontThreshold the threshold of the front.
+	Profile        []figure
+	Fronts         []frontRow
+	FrontThreshold string
 	ChecksPassed   int
 	ChecksFailed   int
 	ChecksNotEval  int
@@ -229,6 +237,7 @@ func Write(w io.Writer, in Input) error {
 	for i := range rows {
 		pg.Table = append(pg.Table, tabulate(&rows[i], in.VoxelSize))
 	}
+	pg.Fronts, pg.FrontThreshold = fronts(rows)
 	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps, in.VoxelSize)
 	pg.CampaignTh = viewCampaign(in.FixedThresholds)
 	for _, s := range pg.Settings {
@@ -249,6 +258,8 @@ func Write(w io.Writer, in Input) error {
 			SVG: template.HTML(svg)}
 		if f.Name == "contact_angle" || f.Name == "curvature" {
 			pg.Distributions = append(pg.Distributions, fg)
+		} else if f.Name == "saturation_profile" {
+			pg.Profile = append(pg.Profile, fg)
 		} else {
 			pg.Figures = append(pg.Figures, fg)
 		}
@@ -257,6 +268,29 @@ func Write(w io.Writer, in Input) error {
 		return fmt.Errorf("report: %w", err)
 	}
 	return nil
+}
+
+// fronts tabulates the front position (mm) and velocity (µm/s) of every
+// step, and returns the front threshold of the profiles ("0.05" when no
+// row carries a profile).
+func fronts(rows []series.Row) ([]frontRow, string) {
+	f := func(p *float64, scale float64, prec int) string {
+		if p == nil {
+			return "—"
+		}
+		return strconv.FormatFloat(*p*scale, 'f', prec, 64)
+	}
+	thr := "0.05"
+	var out []frontRow
+	for i := range rows {
+		r := &rows[i]
+		if p := r.Profile(); p != nil {
+			thr = strconv.FormatFloat(p.FrontThreshold, 'g', -1, 64)
+		}
+		out = append(out, frontRow{Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64),
+			Position: f(r.FrontPosition, 1e3, 3), Velocity: f(r.FrontVelocity, 1e6, 3)})
+	}
+	return out, thr
 }
 
 func tabulate(r *series.Row, h float64) tableRow {
@@ -427,6 +461,25 @@ of interface, and their count.</p>
 <tr data-step="{{.Step}}"{{if .Unresolved}} class="unresolved"{{end}}><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.Sw}}</td><td>{{.Phi}}</td><td>{{.Pc}}</td><td>{{.PcConnected}}</td><td>{{.PcTrapped}}</td><td>{{.Trapped}}</td><td>{{.KMean}}</td><td>{{.KMedian}}</td><td class="rvox">{{.RVox}}</td><td>{{.AWN}}</td><td>{{.AMean}}</td><td>{{.AMedian}}</td><td>{{.AStd}}</td><td>{{.ASamples}}</td><td>{{.Ganglia}}</td><td>{{.Largest}}</td><td>{{.Perc}}</td></tr>{{end}}
 </table>
 </section>
+
+<section id="profile">
+<h2>Saturation profile and displacement front</h2>
+<p>The profile is the nonwetting saturation S_n = n/(n + w) of each slice normal to the flow axis, over the pore
+voxels inside the sample, against the distance from the inlet face (the low end of the flow axis); slices are
+grouped into at most 256 bins of whole slices. The front position is the far edge of the farthest bin from the
+inlet whose S_n exceeds {{.FrontThreshold}} (campaign setting measure.front_threshold), blank when no bin does; its
+velocity is the change of the front position between consecutive steps divided by the change of their times,
+blank for the first step and next to a step without a front. The front resolves one bin: a finger or a few
+ganglia beyond the bulk of the displacement move it as much as a sharp front does.</p>
+<table id="front-table">
+<tr><th>step</th><th>t (s)</th><th>front (mm)</th><th>front velocity (µm/s)</th></tr>{{range .Fronts}}
+<tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.Position}}</td><td>{{.Velocity}}</td></tr>{{end}}
+</table>
+{{range .Profile}}<figure id="{{.ID}}">
+{{.SVG}}
+<figcaption>{{.Caption}}</figcaption>
+</figure>
+{{end}}</section>
 
 <section id="plots">
 <h2>Figures</h2>

@@ -257,3 +257,30 @@ func F(p *float64) float64 {
 	}
 	return *p
 }
+
+// Profile is the part of a result's saturation_profile object
+// (pkg/measure.Profile) the figures and the report use: bin centres from
+// the inlet face (m), the bin width (m) and S_n per bin (null where the
+// bin holds no pore space).
+type Profile struct {
+	Axis           string     `json:"axis"`
+	BinWidth       float64    `json:"bin_width_m"`
+	Position       []float64  `json:"position_m"`
+	SatNonwetting  []*float64 `json:"saturation_nonwetting"`
+	FrontThreshold float64    `json:"front_threshold"`
+}
+
+// Profile decodes the row's saturation_profile object, kept verbatim in
+// Extra; nil when absent, unreadable or inconsistent (bins and positions
+// of different lengths, a non-positive bin width).
+func (r *Row) Profile() *Profile {
+	b, ok := r.Extra["saturation_profile"]
+	if !ok {
+		return nil
+	}
+	var p Profile
+	if json.Unmarshal(b, &p) != nil || len(p.Position) == 0 || len(p.Position) != len(p.SatNonwetting) || !(p.BinWidth > 0) {
+		return nil
+	}
+	return &p
+}
