@@ -93,3 +93,38 @@ func TestPageTimeUnitMatchesFigures(t *testing.T) {
 		}
 	}
 }
+
+// TestPageProfilePoints runs the page's profilePts (app.js) in Node: the
+// latest step with a saturation_profile gives [distance (mm), S_n] points
+// from the bin centres (Source: the rows below, m → mm by hand), null S_n
+// kept as a gap; steps without a profile are skipped.
+func TestPageProfilePoints(t *testing.T) {
+	node, err := exec.LookPath("node")
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatal("node is not installed (scripts/setup-test-env installs it)")
+		}
+		t.Skip("node is not installed")
+	}
+	b, err := static.ReadFile("static/app.js")
+	if err != nil {
+		t.Fatal(err)
+	}
+	fn := regexp.MustCompile(`(?s)\nfunction profilePts\(series\) \{.*?\n\}\n`).FindString(string(b))
+	if fn == "" {
+		t.Fatal("app.js has no function profilePts(series)")
+	}
+	script := "function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }\n" + fn +
+		`const s = [{ step: "a", saturation_profile: { axis: "x", position_m: [0.0005, 0.0015], saturation_nonwetting: [1, 0.25] } },
+		  { step: "b", saturation_profile: { axis: "x", position_m: [0.0005, 0.0015, 0.0025], saturation_nonwetting: [0.5, null, 0] } },
+		  { step: "c" }];
+		console.log(JSON.stringify(profilePts(s)), JSON.stringify(profilePts([{ step: "d" }])));`
+	out, err := exec.Command(node, "-e", script).CombinedOutput()
+	if err != nil {
+		t.Fatalf("node: %v\n%s", err, out)
+	}
+	want := `{"step":"b","axis":"x","pts":[[0.5,0.5],[1.5,null],[2.5,0]]} {"step":"","axis":"z","pts":[]}`
+	if got := strings.TrimSpace(string(out)); got != want {
+		t.Errorf("profilePts: %s\nwant %s", got, want)
+	}
+}

@@ -115,6 +115,20 @@ let TU = { name: "s", s: 1 };
 function col(key, scale = 1) { return state.series.map(r => [r.time_s / TU.s, num(r[key]) === null ? null : r[key] * scale]); }
 function pair(kx, ky, sy = 1) { return state.series.map(r => [num(r[kx]), num(r[ky]) === null ? null : r[ky] * sy]); }
 
+// profilePts returns the saturation profile of the latest step that has one
+// as [distance from the inlet (mm), S_n] points (bin centres; null S_n where a
+// bin holds no pore space), with that step's name and the flow axis.
+function profilePts(series) {
+  for (let i = series.length - 1; i >= 0; i--) {
+    const p = series[i].saturation_profile;
+    if (p && Array.isArray(p.position_m) && Array.isArray(p.saturation_nonwetting)) {
+      return { step: series[i].step, axis: p.axis || "z",
+        pts: p.position_m.map((x, k) => [x * 1e3, num(p.saturation_nonwetting[k])]) };
+    }
+  }
+  return { step: "", axis: "z", pts: [] };
+}
+
 function draw() {
   TU = timeUnit();
   const tl = `time t (${TU.name})`;
@@ -139,6 +153,10 @@ function draw() {
     "contact angle θ through wetting phase (°)", `fraction of samples per degree (${U.angleDensity})`, { xmin: 0, xmax: 180, ymin: 0 });
   plot(qs("plot-ganglia"), [{ name: "ganglia", color: C.b, marker: "square", pts: col("ganglia_count") }], tl, `number of ganglia (${U.none})`, { ymin: 0 });
   plot(qs("plot-largest"), [{ name: "largest cluster / all nonwetting", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], tl, `largest ganglion fraction (${U.none})`, { ymin: 0, ymax: 1 });
+  plot(qs("plot-front"), [{ name: "front", color: C.c, marker: "square", pts: col("front_position_m", 1e3) }], tl, "front from inlet (mm)", { ymin: 0 });
+  const prof = profilePts(state.series);
+  qs("profile-step").textContent = prof.step ? `(step ${prof.step})` : "";
+  plot(qs("plot-profile"), [{ name: "S_n", color: C.b, marker: "circle", pts: prof.pts }], `distance from inlet along ${prof.axis} (mm)`, `S_n (${U.none})`, { ymin: 0, ymax: 1, xmin: 0 });
   const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s / TU.s, s.latency_s]);
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], tl, "ingest → series (s)", { ymin: 0 });
   summary(last);
