@@ -339,6 +339,10 @@ func printTable(w io.Writer, path string, r *measure.Result, voxelAssumed bool) 
 	fmt.Fprintf(tw, "ganglia\t%d\tclusters\n", r.GangliaCount)
 	fmt.Fprintf(tw, "largest ganglion\t%s\tof nonwetting volume\n", f(r.LargestFraction, 1, "%.4f"))
 	fmt.Fprintf(tw, "nonwetting percolates (%s)\t%v\t\n", r.FlowAxis, r.Percolates)
+	if p := r.SatProfile; p != nil {
+		fmt.Fprintf(tw, "front from the inlet (%s)\t%s\tmm (far edge of the farthest of %d bins of %.4g µm with S_n > %g)\n",
+			p.Axis, f(r.FrontPosition, 1e3, "%.4g"), len(p.Position), p.BinWidth*1e6, p.FrontThreshold)
+	}
 	tw.Flush()
 	if r.AngleNote != "" {
 		fmt.Fprintf(w, "note: contact angle: %s\n", r.AngleNote)
