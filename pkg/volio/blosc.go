@@ -209,6 +209,26 @@ func bloscInner(codec int, src, dst []byte, zdec *zstd.Decoder) error {
 // element is stored as it is.
 func byteUnshuffle(dst, src []byte, typesize int) {
 	n := len(src) / typesize
+	switch typesize {
+	case 2: // uint16 scans: two planes interleaved, without the general loop's index arithmetic
+		lo, hi, d := src[:n], src[n:2*n], dst[:2*n]
+		for i := range lo {
+			d[2*i] = lo[i]
+			d[2*i+1] = hi[i]
+		}
+		copy(dst[2*n:], src[2*n:])
+		return
+	case 4:
+		p0, p1, p2, p3, d := src[:n], src[n:2*n], src[2*n:3*n], src[3*n:4*n], dst[:4*n]
+		for i := range p0 {
+			d[4*i] = p0[i]
+			d[4*i+1] = p1[i]
+			d[4*i+2] = p2[i]
+			d[4*i+3] = p3[i]
+		}
+		copy(dst[4*n:], src[4*n:])
+		return
+	}
 	for j := 0; j < typesize; j++ {
 		plane := src[j*n : (j+1)*n]
 		for i, c := range plane {
