@@ -1,8 +1,8 @@
 package plots
 
 import (
-	"encoding/json"
 	"bytes"
+	"encoding/json"
 	"encoding/xml"
 	"fmt"
 	"image/color"

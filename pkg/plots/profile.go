@@ -95,14 +95,7 @@ func (b *builder) profile() Figure {
 		}
 		thr = p.FrontThreshold
 		lo, hi := span(ts, i)
-		for k, s := range p.SatNonwetting {
-			if s == nil {
-				continue
-			}
-			y := p.Position[k] * 1e3
-			w := p.BinWidth * 1e3 / 2
-			cs = append(cs, cell{x0: lo, x1: hi, y0: y - w, y1: y + w, c: ProfileColour(*s)})
-		}
+		cs = append(cs, profileCells(p, lo, hi)...)
 	}
 	top := newPlot(title, b.timeLabel(), "distance from the inlet along "+axis+" (mm)")
 	n := len(cs)
@@ -130,4 +123,21 @@ func (b *builder) profile() Figure {
 	bar.HideY()
 	return Figure{Name: "saturation_profile", Title: title, TimeUnit: b.unit, panels: []*plot.Plot{top, bar},
 		specs: []axes{spec, {fixedX: true, fixedY: true}}, heights: []float64{0.8, 0.2}, empty: n == 0}
+}
+
+// profileCells returns the cells of one step's profile between times lo
+// and hi (axis units), positions in mm: bin k starts at k bin widths from
+// the inlet and ends as far past its centre (so a thinner last bin ends at
+// the end of the sample); bins without pore space have no cell.
+func profileCells(p *series.Profile, lo, hi float64) cells {
+	var cs cells
+	for k, s := range p.SatNonwetting {
+		if s == nil {
+			continue
+		}
+		y0 := float64(k) * p.BinWidth * 1e3
+		y1 := 2*p.Position[k]*1e3 - y0
+		cs = append(cs, cell{x0: lo, x1: hi, y0: y0, y1: y1, c: ProfileColour(*s)})
+	}
+	return cs
 }

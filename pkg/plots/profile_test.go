@@ -3,6 +3,7 @@ package plots
 import (
 	"encoding/json"
 	"fmt"
+	"math"
 	"testing"
 
 	"sluice/pkg/series"
@@ -38,6 +39,15 @@ func TestProfileMap(t *testing.T) {
 	}
 	if c := ProfileColour(1); c != Palette.Ink {
 		t.Errorf("S_n 1 is %v, want Ink", c)
+	}
+	// A thinner last bin: 7 slices of 1 µm in bins of 3 give bins [0, 3),
+	// [3, 6) and [6, 7) µm (centres 1.5, 4.5, 6.5 µm), the last null-free.
+	one := 1.0
+	cs := profileCells(&series.Profile{BinWidth: 3e-6, Position: []float64{1.5e-6, 4.5e-6, 6.5e-6},
+		SatNonwetting: []*float64{&one, nil, &one}}, 0, 1)
+	if len(cs) != 2 || math.Abs(cs[0].y0) > 1e-15 || math.Abs(cs[0].y1-3e-3) > 1e-15 ||
+		math.Abs(cs[1].y0-6e-3) > 1e-15 || math.Abs(cs[1].y1-7e-3) > 1e-15 {
+		t.Errorf("cells %+v, want [0, 3e-3] and [6e-3, 7e-3] mm", cs)
 	}
 	if lo, hi := span([]float64{0, 60, 180}, 1); lo != 30 || hi != 120 {
 		t.Errorf("span of the middle step: %g…%g", lo, hi)
