@@ -61,6 +61,7 @@ var compared = []quantity{
 	{"contact_angle_mean", "θ mean", "°", 1, fq(func(r *series.Row) *float64 { return r.AngleMean })},
 	{"ganglia_count", "ganglia", "", 1, iq(func(r *series.Row) *int64 { return r.GangliaCount })},
 	{"euler_nonwetting", "χ_n", "", 1, iq(func(r *series.Row) *int64 { return r.EulerNonwetting })},
+	{"front_position", "front", "mm", 1e3, fq(func(r *series.Row) *float64 { return r.FrontPosition })},
 }
 
 // stepDiff is one step present in both runs: values of A and B per
