@@ -755,6 +755,10 @@ func TestPoisonTile(t *testing.T) {
 			want = append(want, r)
 		}
 	}
+	// The front velocity is a difference between consecutive rows of the
+	// series (series.FrontVelocities): with the poisoned step missing, the
+	// step after it is measured against the one before it.
+	series.FrontVelocities(want)
 	compareRows(t, rows, want)
 
 	// The aggregator's API and `sluice status` name the reason.
