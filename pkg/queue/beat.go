@@ -133,6 +133,13 @@ func (b *beater) goodbye() {
 // do not decode or name no worker are ignored. It returns an error only
 // when the subscription cannot be made.
 func (q *Queue) WatchWorkers(ctx context.Context, fn func(*pb.WorkerBeat)) error {
+	return q.watchWorkers(ctx, fn, nil)
+}
+
+// watchWorkers is WatchWorkers that calls subscribed, when not nil, once
+// the subscription is registered on the connection (tests flush after it so
+// that no beat is sent before the server knows the subscription).
+func (q *Queue) watchWorkers(ctx context.Context, fn func(*pb.WorkerBeat), subscribed func()) error {
 	sub, err := q.nc.Subscribe(SubjectWorkerBeat, func(m *nats.Msg) {
 		b := new(pb.WorkerBeat)
 		if proto.Unmarshal(m.Data, b) != nil || b.WorkerId == "" {
@@ -142,6 +149,9 @@ func (q *Queue) WatchWorkers(ctx context.Context, fn func(*pb.WorkerBeat)) error
 	})
 	if err != nil {
 		return fmt.Errorf("queue: subscribe to worker beats: %w", err)
+	}
+	if subscribed != nil {
+		subscribed()
 	}
 	<-ctx.Done()
 	_ = sub.Unsubscribe()

@@ -56,10 +56,14 @@ func TestWorkerBeats(t *testing.T) {
 	var heard beatLog
 	wctx, wstop := context.WithCancel(context.Background())
 	defer wstop()
-	go watcher.WatchWorkers(wctx, heard.add)
+	subscribed := make(chan struct{})
+	go watcher.watchWorkers(wctx, heard.add, func() { close(subscribed) })
 	// A beat sent before the subscription reached the server is lost (core
-	// NATS); flushing the watcher's connection makes sure it is there.
-	waitFor(t, "watcher subscribed", func() bool { return watcher.nc.NumSubscriptions() == 1 })
+	// NATS); flushing the watcher's connection after the subscription is
+	// registered makes sure it is there. (Counting the connection's
+	// subscriptions does not tell: JetStream requests made in Open already
+	// hold one.)
+	<-subscribed
 	if err := watcher.nc.Flush(); err != nil {
 		t.Fatal(err)
 	}
@@ -129,8 +133,9 @@ func TestNoBeatsWhenOff(t *testing.T) {
 	var heard beatLog
 	wctx, wstop := context.WithCancel(context.Background())
 	defer wstop()
-	go watcher.WatchWorkers(wctx, heard.add)
-	waitFor(t, "watcher subscribed", func() bool { return watcher.nc.NumSubscriptions() == 1 })
+	subscribed := make(chan struct{})
+	go watcher.watchWorkers(wctx, heard.add, func() { close(subscribed) })
+	<-subscribed
 	watcher.nc.Flush()
 	ctx := context.Background()
 	if _, err := q.PublishTask(ctx, task("beats", "s1", 0, pb.Priority_PRIORITY_LIVE)); err != nil {
