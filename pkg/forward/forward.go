@@ -12,7 +12,12 @@
 //     wall the wall level, outside it the air level;
 //  2. point-spread blur: a Gaussian of standard deviation Blur voxels
 //     (pkg/filter.Gaussian, mode 'nearest', truncate 4) — this makes the
-//     partial-volume voxels at every interface;
+//     partial-volume voxels at every interface; with a Shift (the sample
+//     drifted in the scanner) the Gaussian is centred Shift voxels away,
+//     so the blurred image is that of the sample moved by Shift: the scan
+//     shows at p what the unshifted one shows at p − Shift (the kernel is
+//     sampled at the voxel offsets k − Shift, |k − Shift| ≤ ⌈4·Blur⌉ + 1,
+//     normalised to sum 1, source indices clamped as in mode 'nearest');
 //  3. slow intensity drift along z: a gain 1 + Drift·(z − z_mid)/NZ;
 //  4. ring-like streaks: an offset Rings·g_k added to every voxel whose
 //     distance from the rotation axis lies in [k, k+1), g_k independent
@@ -81,6 +86,11 @@ type Params struct {
 	Rings float64
 	// Seed fixes noise and rings.
 	Seed uint64
+	// Shift moves the sample (phases, cell wall, air) by (z, y, x) voxels
+	// against the scanner's grid: thermal or mechanical drift between
+	// scans. Noise, rings and the intensity drift stay with the scanner. A
+	// sub-voxel shift needs Blur > 0 (the shifted PSF makes it).
+	Shift [3]float64
 }
 
 // Default returns a uint16-scaled scan of a gas/oil–brine experiment:
@@ -127,6 +137,14 @@ func (p Params) Validate() error {
 	if p.CNR > 0 && p.Wetting == p.Nonwetting {
 		return fmt.Errorf("forward: CNR needs different wetting and nonwetting levels")
 	}
+	for _, d := range p.Shift {
+		if math.IsNaN(d) || math.IsInf(d, 0) {
+			return fmt.Errorf("forward: shift %v must be finite", p.Shift)
+		}
+		if p.Blur == 0 && d != math.Trunc(d) {
+			return fmt.Errorf("forward: a sub-voxel shift %v needs blur > 0", p.Shift)
+		}
+	}
 	if p.Sample != nil && !(p.Sample.Radius > 0 && p.Sample.Wall >= 0) {
 		return fmt.Errorf("forward: sample radius %g must be > 0 and wall %g >= 0", p.Sample.Radius, p.Sample.Wall)
 	}
@@ -169,7 +187,10 @@ func Render(lab *volume.Labels, p Params) (*volume.Volume[float32], error) {
 			}
 		}
 	}
-	if p.Blur > 0 {
+	switch {
+	case p.Shift != [3]float64{}:
+		img = shiftedBlur(img, p.Blur, filter.DefaultTruncate, p.Shift)
+	case p.Blur > 0:
 		var err error
 		if img, err = filter.Gaussian(img, b, p.Blur, filter.DefaultTruncate); err != nil {
 			return nil, fmt.Errorf("forward: %w", err)
@@ -229,6 +250,88 @@ func Render(lab *volume.Labels, p Params) (*volume.Volume[float32], error) {
 	}
 	wg.Wait()
 	return img, nil
+}
+
+// shiftedBlur returns img convolved with a Gaussian of standard deviation
+// sigma centred at d (voxels, z, y, x), axis by axis: out(p) =
+// Σ_k w(k) img(p − k) with w(k) ∝ exp(−(k − d)²/2σ²) over |k − d| ≤
+// ⌈truncate·σ⌉ + 1, normalised to sum 1, img's indices clamped to its box
+// (mode 'nearest'). sigma 0 (integer d only, checked by Validate) is a pure
+// index shift.
+func shiftedBlur(img *volume.Volume[float32], sigma, truncate float64, d [3]float64) *volume.Volume[float32] {
+	b := img.Box
+	s := b.Size()
+	cur := make([]float64, len(img.Pix))
+	for i, v := range img.Pix {
+		cur[i] = float64(v)
+	}
+	stride := [3]int{s[1] * s[2], s[2], 1}
+	for a := 0; a < 3; a++ {
+		// Taps k = k0 … k0+len(w)−1.
+		var w []float64
+		var k0 int
+		if sigma == 0 {
+			w, k0 = []float64{1}, int(d[a])
+		} else {
+			r := math.Ceil(truncate*sigma) + 1
+			k0 = int(math.Ceil(d[a] - r))
+			k1 := int(math.Floor(d[a] + r))
+			var sum float64
+			for k := k0; k <= k1; k++ {
+				u := (float64(k) - d[a]) / sigma
+				w = append(w, math.Exp(-u*u/2))
+				sum += w[len(w)-1]
+			}
+			for i := range w {
+				w[i] /= sum
+			}
+		}
+		next := make([]float64, len(cur))
+		n := s[a]
+		parallel(len(cur)/n, func(lo, hi int) {
+			for line := lo; line < hi; line++ {
+				// The line's first voxel: line enumerates the other two axes.
+				var start int
+				switch a {
+				case 0:
+					start = line
+				case 1:
+					start = (line/s[2])*s[1]*s[2] + line%s[2]
+				case 2:
+					start = line * s[2]
+				}
+				for p := 0; p < n; p++ {
+					var v float64
+					for j, wj := range w {
+						q := min(max(p-(k0+j), 0), n-1)
+						v += wj * cur[start+q*stride[a]]
+					}
+					next[start+p*stride[a]] = v
+				}
+			}
+		})
+		cur = next
+	}
+	out := volume.New[float32](b, img.VoxelSize)
+	for i, v := range cur {
+		out.Pix[i] = float32(v)
+	}
+	return out
+}
+
+// parallel runs f over [0, n) cut into one range per CPU.
+func parallel(n int, f func(lo, hi int)) {
+	w := max(1, min(runtime.GOMAXPROCS(0), n))
+	var wg sync.WaitGroup
+	for i := 0; i < w; i++ {
+		lo, hi := i*n/w, (i+1)*n/w
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			f(lo, hi)
+		}()
+	}
+	wg.Wait()
 }
 
 // Uint16 rounds a rendered image to uint16, clipping to [0, 65535].
