@@ -68,3 +68,12 @@ type ReferenceShape struct {
 	// From names the scan that fixed it.
 	From string `json:"from"`
 }
+
+// WaitingKey returns the key of the note that another step waits for this
+// step's completion under a parameter hash ({"step": name}): the
+// aggregator computes a step's pore-filling events only once the previous
+// step's labels are complete, and completes the waiting step when this one
+// is done or failed.
+func WaitingKey(s layout.Step, hash string) string {
+	return s.Dir() + "runs/" + hash + "/waiting.json"
+}

@@ -9,6 +9,7 @@ import (
 	"sluice/pkg/cluster"
 	"sluice/pkg/contact"
 	"sluice/pkg/curvature"
+	"sluice/pkg/filling"
 	"sluice/pkg/morph"
 	"sluice/pkg/volume"
 )
@@ -120,6 +121,12 @@ type Result struct {
 	// SatProfile is the saturation and porosity profile along the flow
 	// axis; null when a tile carried no per-slice counts.
 	SatProfile *Profile `json:"saturation_profile"`
+
+	// PoreFilling holds the pore-filling events between the previous step
+	// of the run and this one (package filling). A property of two steps,
+	// not of one volume: set by the aggregator on step results, absent from
+	// `sluice measure --json`.
+	PoreFilling *filling.Result `json:"pore_filling,omitempty"`
 
 	// Minkowski holds the four functionals of each phase.
 	Minkowski map[string]Functionals `json:"minkowski"`

@@ -95,7 +95,26 @@ type Options struct {
 	// given (measure's 1 µm fallback): no bar is drawn for it either.
 	VoxelSize        float64
 	VoxelSizeAssumed bool
+	// Marks are points to highlight (the centroids of the largest
+	// pore-filling events), drawn on every slice at their projection.
+	Marks []Mark
 }
+
+// Mark is a highlighted voxel: drawn on each slice at its projection onto
+// the slice plane as a hollow square (drainage) or diamond (imbibition),
+// MarkRadius pixels from centre to edge, black with a white inner line so
+// it shows on dark and light grey alike. The scale strip says what the
+// marks are, at its right end.
+type Mark struct {
+	At         [3]int
+	Imbibition bool
+}
+
+// MarkRadius is the half-width of a mark in pixels.
+const MarkRadius = 6
+
+// MarkNote is the explanation of the marks written in the scale strip.
+const MarkNote = "[] drainage, <> imbibition: largest events"
 
 // Defaults returns the default codes, α = 0.45, scale 1, centre point.
 func Defaults() Options { return Options{Codes: phase.Default(), Alpha: 0.45, Scale: 1} }
@@ -335,9 +354,61 @@ func render(box volume.Box, at func(z, y, x int) float64, label func(z, y, x int
 		}
 		x0 += size[s.across]*o.Scale + Margin
 	}
+	x0 = Margin
+	for _, s := range slices {
+		clip := image.Rect(x0, top, x0+size[s.across]*o.Scale, top+size[s.down]*o.Scale)
+		for _, m := range o.Marks {
+			if !box.Contains(m.At[0], m.At[1], m.At[2]) {
+				continue
+			}
+			cx := x0 + (m.At[s.across]-box.Min[s.across])*o.Scale + o.Scale/2
+			cy := top + (m.At[s.down]-box.Min[s.down])*o.Scale + o.Scale/2
+			drawMark(img, clip, cx, cy, m.Imbibition)
+		}
+		x0 += size[s.across]*o.Scale + Margin
+	}
 	o.scaleBar(img, top+max(size[0], size[1])*o.Scale+Margin, size[2])
+	if len(o.Marks) > 0 {
+		text(img, w-Margin-7*len(MarkNote), top+max(size[0], size[1])*o.Scale+Margin+12, MarkNote)
+	}
 	o.legend(img)
 	return img, nil
+}
+
+// drawMark draws a mark centred on (cx, cy), clipped to clip: the outline
+// in black at radius MarkRadius and in white one pixel inside it.
+func drawMark(img *image.NRGBA, clip image.Rectangle, cx, cy int, diamond bool) {
+	set := func(x, y int, c color.NRGBA) {
+		if (image.Point{x, y}).In(clip) {
+			img.SetNRGBA(x, y, c)
+		}
+	}
+	black, white := color.NRGBA{0, 0, 0, 0xFF}, color.NRGBA{0xFF, 0xFF, 0xFF, 0xFF}
+	for _, ring := range []struct {
+		r int
+		c color.NRGBA
+	}{{MarkRadius, black}, {MarkRadius - 1, white}} {
+		r := ring.r
+		for d := -r; d <= r; d++ {
+			if diamond {
+				e := r - abs(d)
+				set(cx+d, cy-e, ring.c)
+				set(cx+d, cy+e, ring.c)
+				continue
+			}
+			set(cx+d, cy-r, ring.c)
+			set(cx+d, cy+r, ring.c)
+			set(cx-r, cy+d, ring.c)
+			set(cx+r, cy+d, ring.c)
+		}
+	}
+}
+
+func abs(v int) int {
+	if v < 0 {
+		return -v
+	}
+	return v
 }
 
 // scaleBar draws the scale strip whose top row is y0, under the z-slice

@@ -63,10 +63,15 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	grey_drift_nonwetting, grey_drift_wetting, grey_drift_solid (grey
 //	units), grey_drift_nonwetting_fraction, grey_drift_wetting_fraction,
 //	grey_drift_solid_fraction (of the smallest campaign contrast),
-//	grey_drift_beyond, front_position_m, front_velocity_m_per_s
+//	grey_drift_beyond, front_position_m, front_velocity_m_per_s,
+//	pore_filling_drainage_count, pore_filling_imbibition_count,
+//	pore_filling_drainage_volume_m3, pore_filling_imbibition_volume_m3,
+//	pore_filling_drainage_rate_per_s, pore_filling_imbibition_rate_per_s
 //
 // The four trapped_ganglia_* columns come from the result's trapped_ganglia_curvature object
-// (series.json keeps the whole object).
+// (series.json keeps the whole object); the six pore_filling_* columns from
+// the pore_filling object (the events since the previous step, package
+// filling).
 //
 // Null values are empty cells; booleans are `true`/`false`.
 var Columns = []Column{
@@ -122,6 +127,12 @@ var Columns = []Column{
 	{Key: "grey_drift_beyond", Unit: "bool", kind: kindBool, get: func(r *Row) any { return r.DriftBeyond }},
 	fcol("front_position_m", "m", func(r *Row) *float64 { return r.FrontPosition }),
 	fcol("front_velocity_m_per_s", "m/s", func(r *Row) *float64 { return r.FrontVelocity }),
+	icol("pore_filling_drainage_count", "1", func(r *Row) *int64 { return r.fillingKind(true).Count }),
+	icol("pore_filling_imbibition_count", "1", func(r *Row) *int64 { return r.fillingKind(false).Count }),
+	fcol("pore_filling_drainage_volume_m3", "m3", func(r *Row) *float64 { return r.fillingKind(true).VolumeM3 }),
+	fcol("pore_filling_imbibition_volume_m3", "m3", func(r *Row) *float64 { return r.fillingKind(false).VolumeM3 }),
+	fcol("pore_filling_drainage_rate_per_s", "1/s", func(r *Row) *float64 { return r.fillingKind(true).RatePerS }),
+	fcol("pore_filling_imbibition_rate_per_s", "1/s", func(r *Row) *float64 { return r.fillingKind(false).RatePerS }),
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

@@ -284,3 +284,59 @@ func (r *Row) Profile() *Profile {
 	}
 	return &p
 }
+
+// FillingKind is one kind of pore-filling event of a result's pore_filling
+// object (pkg/filling.Kind).
+type FillingKind struct {
+	Count     *int64          `json:"count"`
+	VolumeM3  *float64        `json:"volume_m3"`
+	RatePerS  *float64        `json:"rate_per_s"`
+	Histogram []int64         `json:"volume_histogram"`
+	BinLowM3  []float64       `json:"volume_bin_low_m3"`
+	Largest   []FillingListed `json:"largest"`
+}
+
+// FillingListed is one of the largest events of a kind.
+type FillingListed struct {
+	Voxels    int64      `json:"voxels"`
+	VolumeM3  float64    `json:"volume_m3"`
+	CentroidM [3]float64 `json:"centroid_zyx_m"`
+}
+
+// PoreFilling is the part of a result's pore_filling object
+// (pkg/filling.Result) the CSV, the figures and the report use: the events
+// between the previous step and this one.
+type PoreFilling struct {
+	PreviousStep *string      `json:"previous_step"`
+	IntervalS    *float64     `json:"interval_s"`
+	Drainage     *FillingKind `json:"drainage"`
+	Imbibition   *FillingKind `json:"imbibition"`
+	Note         string       `json:"note"`
+}
+
+// Filling decodes the row's pore_filling object, kept verbatim in Extra;
+// nil when absent or unreadable.
+func (r *Row) Filling() *PoreFilling {
+	b, ok := r.Extra["pore_filling"]
+	if !ok {
+		return nil
+	}
+	var p PoreFilling
+	if json.Unmarshal(b, &p) != nil {
+		return nil
+	}
+	return &p
+}
+
+// fillingKind returns one kind of the row's events; never nil.
+func (r *Row) fillingKind(drainage bool) *FillingKind {
+	if p := r.Filling(); p != nil {
+		if drainage && p.Drainage != nil {
+			return p.Drainage
+		}
+		if !drainage && p.Imbibition != nil {
+			return p.Imbibition
+		}
+	}
+	return &FillingKind{}
+}

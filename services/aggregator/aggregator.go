@@ -79,6 +79,11 @@ type Aggregator struct {
 	arrived   map[string]map[int32]bool // tiles seen per (step, hash) tile prefix
 	lastLat   float64
 	workers   map[string]heardWorker // by worker id (WorkerBeat)
+	// plannedSeen (plan keys found) and manifests (by step directory) are
+	// caches of write-once objects for finding a step's previous step
+	// (filling.go); guarded by writing.
+	plannedSeen map[string]bool
+	manifests   map[string]campaign.Manifest
 }
 
 type campaignState struct {
@@ -431,10 +436,18 @@ func (a *Aggregator) forget(prefix string) {
 func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string, keys []string, d *sluicepb.TileDone) error {
 	a.writing.Lock()
 	defer a.writing.Unlock()
+	return a.completeLocked(ctx, step, hash, keys)
+}
+
+// completeLocked is complete for a caller holding a.writing. A step whose
+// previous step is still in progress is put off (see filling.go) and
+// completed when that one is done or failed.
+func (a *Aggregator) completeLocked(ctx context.Context, step layout.Step, hash string, keys []string) error {
 	if b, err := a.Store.Get(ctx, campaign.RunResultKey(step, hash)); err == nil && len(b) > 0 {
 		// Already completed (a redelivered or repeated tile): nothing to do,
-		// the series row exists.
-		return nil
+		// the series row exists; a step that waited for this one may not
+		// have been completed yet (a crash right after the run result).
+		return a.completeWaiting(ctx, step, hash)
 	}
 	var man campaign.Manifest
 	if err := campaign.GetJSON(ctx, a.Store, step.Manifest(), &man); err != nil {
@@ -467,6 +480,16 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 		res.PhasesDetected, res.PhasesNote = ph.InScan(), ph.Describe()
 	}
 	scan.SetDrift(res, plan.Thresholds)
+	pf, wait, err := a.poreFilling(ctx, step, hash, man, plan)
+	if err != nil {
+		return fmt.Errorf("aggregator: %s: pore-filling events: %w", step.Dir(), err)
+	}
+	if wait != "" {
+		a.Log.Info("step waits for the previous step's labels (pore-filling events)", "campaign", step.Campaign().Name(),
+			"step", step.Name(), "previous_step", wait, "param_hash", hash)
+		return nil
+	}
+	res.PoreFilling = pf
 	b, err := json.MarshalIndent(res, "", "  ")
 	if err != nil {
 		return err
@@ -526,7 +549,7 @@ func (a *Aggregator) complete(ctx context.Context, step layout.Step, hash string
 	a.Log.Info("step complete", "campaign", step.Campaign().Name(), "step", step.Name(), "param_hash", hash,
 		"tiles", plan.Tiles, "saturation_nonwetting", series.F(row.SatNonwetting), "latency_s", fmt.Sprintf("%.2f", latency))
 	a.publish("step", map[string]any{"campaign": step.Campaign().Name(), "step": step.Name(), "param_hash": hash})
-	return nil
+	return a.completeWaiting(ctx, step, hash)
 }
 
 // CompletedEventID is the message id of the completion event of a step
@@ -859,7 +882,10 @@ func (a *Aggregator) StepFailed(ctx context.Context, dl *sluicepb.DeadLetter) er
 	}
 	a.mu.Unlock()
 	a.publish("progress", map[string]any{"campaign": t.Campaign, "step": t.Step, "failed": true})
-	return nil
+	// A step waiting for this one's labels completes now, without events.
+	a.writing.Lock()
+	defer a.writing.Unlock()
+	return a.completeWaiting(ctx, step, t.ParamHash)
 }
 
 func (a *Aggregator) updateGauges(c string, rows []series.Row) {

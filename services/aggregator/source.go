@@ -228,6 +228,9 @@ func (a *Aggregator) Preview(ctx context.Context, c, s string, point [3]int) ([]
 	// Campaign scans always carry their voxel size (ingest refuses a scan
 	// without one); 0 would draw "no scale bar" rather than a wrong one.
 	o.VoxelSize = m.VoxelSize
+	if b, err := a.Store.Get(ctx, st.Result()); err == nil {
+		o.Marks = FillingMarks(b, m.VoxelSize, PreviewMarks)
+	}
 	img, err := preview.RenderPlanes(whole, planes, lplanes, o)
 	if err != nil {
 		return nil, err
