@@ -25,6 +25,9 @@
 //	                    axis (one column per step, reaching halfway to its neighbours;
 //	                    white S_n = 0 to dark blue S_n = 1, colour bar below; bins without
 //	                    pore space blank) with the front position (mm from the inlet) on top
+//	pore_filling        drainage and imbibition pore-filling event rates (1/s) against time,
+//	                    and the event-volume distribution of the latest step with events
+//	                    (bins that double, x = log₁₀ of the bin's low edge in µm³)
 //
 // Every figure's title names the campaign and the run (short parameter
 // hash). Time axes are in s, min or h chosen by the campaign's length (see
@@ -75,7 +78,7 @@ const AngleBin = 5
 
 // Names lists the figures in the order Build returns them.
 var Names = []string{"saturation", "capillary_pressure", "curvature", "specific_area",
-	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile"}
+	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile", "pore_filling"}
 
 // Unit texts of the figures' axes, written the same way in the report
 // and on the live page. Dimensionless quantities carry "–".
@@ -144,7 +147,7 @@ func Build(rows []series.Row, evs []events.Event, run Run) []Figure {
 	b := builder{rows: rows, evs: evs, unit: unit, perUnit: per}
 	figs := []Figure{
 		b.saturation(), b.pressure(), b.curvature(), b.area(),
-		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(),
+		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(), b.filling(),
 	}
 	for i := range figs {
 		f := &figs[i]

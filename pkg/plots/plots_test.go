@@ -66,6 +66,16 @@ func drainage(n, nullPc int) []series.Row {
 			}
 		}
 		rows[i].Extra = map[string]json.RawMessage{"saturation_profile": json.RawMessage(prof + `],"saturation_nonwetting":[` + sn + `]}`)}
+		// Pore-filling events: none before the first step, then i drainage
+		// events of 1–2 voxels (1 µm³) per 40 s and one imbibition event.
+		pf := `{"previous_step":null,"interval_s":null,"connectivity":26,"drainage":null,"imbibition":null,"note":"first step"}`
+		if i > 0 {
+			pf = fmt.Sprintf(`{"previous_step":"s%03d","interval_s":40,"connectivity":26,`+
+				`"drainage":{"count":%d,"voxels":%d,"volume_m3":%g,"rate_per_s":%g,"volume_histogram":[%d],"volume_bin_low_m3":[1e-18],"largest":[]},`+
+				`"imbibition":{"count":1,"voxels":1,"volume_m3":1e-18,"rate_per_s":0.025,"volume_histogram":[1],"volume_bin_low_m3":[1e-18],"largest":[]}}`,
+				i-1, i, i, float64(i)*1e-18, float64(i)/40, i)
+		}
+		rows[i].Extra["pore_filling"] = json.RawMessage(pf)
 		rows[i].FrontPosition = fp(float64(reach) * 0.0005)
 	}
 	return rows

@@ -145,6 +145,13 @@ type tableRow struct {
 // frontRow is one line of the front table.
 type frontRow struct{ Step, Time, Position, Velocity string }
 
+// fillingRow is one line of the pore-filling table.
+type fillingRow struct {
+	Step, Time, Previous, Interval                    string
+	DCount, DVolume, DRate, IMCount, IMVolume, IMRate string
+	Largest, Note                                     string
+}
+
 // settingsRow is one line of the per-step segmentation table.
 type settingsRow struct {
 	Step, Time, Voxel, Filter, Method, Thresholds, Phases, PhasesNote, SampleY, SampleX, SampleR string
@@ -168,8 +175,12 @@ type page struct {
 	Distributions []figure
 	// Profile is the saturation-profile map; Fronts the front position
 	// and velocity per step; FrontThreshold the threshold of the front.
-	Profile        []figure
-	Fronts         []frontRow
+	Profile []figure
+	Fronts  []frontRow
+	// Filling is the pore-filling events figure; FillingRows the events
+	// per step.
+	Filling        []figure
+	FillingRows    []fillingRow
 	FrontThreshold string
 	ChecksPassed   int
 	ChecksFailed   int
@@ -238,6 +249,7 @@ func Write(w io.Writer, in Input) error {
 		pg.Table = append(pg.Table, tabulate(&rows[i], in.VoxelSize))
 	}
 	pg.Fronts, pg.FrontThreshold = fronts(rows)
+	pg.FillingRows = fillingTable(rows)
 	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps, in.VoxelSize)
 	pg.CampaignTh = viewCampaign(in.FixedThresholds)
 	for _, s := range pg.Settings {
@@ -260,6 +272,8 @@ func Write(w io.Writer, in Input) error {
 			pg.Distributions = append(pg.Distributions, fg)
 		} else if f.Name == "saturation_profile" {
 			pg.Profile = append(pg.Profile, fg)
+		} else if f.Name == "pore_filling" {
+			pg.Filling = append(pg.Filling, fg)
 		} else {
 			pg.Figures = append(pg.Figures, fg)
 		}
@@ -291,6 +305,61 @@ func fronts(rows []series.Row) ([]frontRow, string) {
 			Position: f(r.FrontPosition, 1e3, 3), Velocity: f(r.FrontVelocity, 1e6, 3)})
 	}
 	return out, thr
+}
+
+// fillingTable tabulates the pore-filling events of every step: counts,
+// volumes (µm³, so that single-voxel events stay visible) and rates
+// (1/s) of drainage and imbibition, and the largest event (volume and
+// centroid in mm).
+func fillingTable(rows []series.Row) []fillingRow {
+	f := func(p *float64, scale float64, prec int) string {
+		if p == nil {
+			return "—"
+		}
+		return strconv.FormatFloat(*p*scale, 'f', prec, 64)
+	}
+	c := func(p *int64) string {
+		if p == nil {
+			return "—"
+		}
+		return strconv.FormatInt(*p, 10)
+	}
+	var out []fillingRow
+	for i := range rows {
+		r := &rows[i]
+		p := r.Filling()
+		fr := fillingRow{Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64), Previous: "—", Interval: "—",
+			DCount: "—", DVolume: "—", DRate: "—", IMCount: "—", IMVolume: "—", IMRate: "—", Largest: "—"}
+		if p == nil {
+			out = append(out, fr)
+			continue
+		}
+		fr.Note = p.Note
+		if p.PreviousStep != nil {
+			fr.Previous = *p.PreviousStep
+		}
+		fr.Interval = f(p.IntervalS, 1, 1)
+		var best *series.FillingListed
+		kind := ""
+		if d := p.Drainage; d != nil {
+			fr.DCount, fr.DVolume, fr.DRate = c(d.Count), f(d.VolumeM3, 1e18, 0), f(d.RatePerS, 1, 4)
+			if len(d.Largest) > 0 {
+				best, kind = &d.Largest[0], "drainage"
+			}
+		}
+		if m := p.Imbibition; m != nil {
+			fr.IMCount, fr.IMVolume, fr.IMRate = c(m.Count), f(m.VolumeM3, 1e18, 0), f(m.RatePerS, 1, 4)
+			if len(m.Largest) > 0 && (best == nil || m.Largest[0].Voxels > best.Voxels) {
+				best, kind = &m.Largest[0], "imbibition"
+			}
+		}
+		if best != nil {
+			fr.Largest = fmt.Sprintf("%s, %s µm³ at (%.3f, %.3f, %.3f) mm", kind, strconv.FormatFloat(best.VolumeM3*1e18, 'f', 0, 64),
+				best.CentroidM[0]*1e3, best.CentroidM[1]*1e3, best.CentroidM[2]*1e3)
+		}
+		out = append(out, fr)
+	}
+	return out
 }
 
 func tabulate(r *series.Row, h float64) tableRow {
@@ -476,6 +545,27 @@ ganglia beyond the bulk of the displacement move it as much as a sharp front doe
 <tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.Position}}</td><td>{{.Velocity}}</td></tr>{{end}}
 </table>
 {{range .Profile}}<figure id="{{.ID}}">
+{{.SVG}}
+<figcaption>{{.Caption}}</figcaption>
+</figure>
+{{end}}</section>
+
+<section id="pore-filling">
+<h2>Pore-filling events</h2>
+<p>A pore-filling event is a connected region of pore voxels whose fluid changed between the previous step of the
+run and this one (26-connectivity, whole volume: regions are joined across tiles): drainage where wetting became
+nonwetting (w→n), imbibition where nonwetting became wetting (n→w). Voxels that are solid or outside the sample in
+either step are never events, so a change of the segmented solid is not counted. The previous step is the step
+measured under the same parameters that comes last before this one in time; the first step has none. Volumes are
+voxel counts times the voxel volume; the rate is the number of events over the time between the two steps; the
+largest event's centroid is the mean position of its voxels' centres. Events faster than the time between
+scans merge: one region may be several pore fillings, and a pore that filled and emptied again in between is
+not seen.</p>
+<table id="filling-table">
+<tr><th>step</th><th>t (s)</th><th>previous</th><th>Δt (s)</th><th>drainage events</th><th>drainage volume (µm³)</th><th>drainage rate (1/s)</th><th>imbibition events</th><th>imbibition volume (µm³)</th><th>imbibition rate (1/s)</th><th>largest event</th></tr>{{range .FillingRows}}
+<tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.Previous}}</td><td>{{.Interval}}</td><td>{{.DCount}}</td><td>{{.DVolume}}</td><td>{{.DRate}}</td><td>{{.IMCount}}</td><td>{{.IMVolume}}</td><td>{{.IMRate}}</td><td>{{.Largest}}{{if .Note}} ({{.Note}}){{end}}</td></tr>{{end}}
+</table>
+{{range .Filling}}<figure id="{{.ID}}">
 {{.SVG}}
 <figcaption>{{.Caption}}</figcaption>
 </figure>

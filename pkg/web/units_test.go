@@ -128,3 +128,40 @@ func TestPageProfilePoints(t *testing.T) {
 		t.Errorf("profilePts: %s\nwant %s", got, want)
 	}
 }
+
+// TestPageFillingPoints runs the page's fillingPts (app.js) in Node: the
+// rates of every step as stored (null for the first step), and the latest
+// step's volume distribution at x = log10(bin low edge in µm³) (Source: by
+// hand, 1e-18 m³ = 1 µm³ → 0, 1e-17 m³ → 1), the shorter histogram padded
+// with zeros.
+func TestPageFillingPoints(t *testing.T) {
+	node, err := exec.LookPath("node")
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatal("node is not installed (scripts/setup-test-env installs it)")
+		}
+		t.Skip("node is not installed")
+	}
+	b, err := static.ReadFile("static/app.js")
+	if err != nil {
+		t.Fatal(err)
+	}
+	fn := regexp.MustCompile(`(?s)\nfunction fillingPts\(series\) \{.*?\n\}\n`).FindString(string(b))
+	if fn == "" {
+		t.Fatal("app.js has no function fillingPts(series)")
+	}
+	script := "function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }\n" + fn +
+		`const s = [{ step: "a", time_s: 0, pore_filling: { previous_step: null, drainage: null, imbibition: null } },
+		  { step: "b", time_s: 10, pore_filling: { drainage: { rate_per_s: 0.3, volume_histogram: [2, 1], volume_bin_low_m3: [1e-18, 1e-17] },
+		    imbibition: { rate_per_s: 0, volume_histogram: [], volume_bin_low_m3: [] } } },
+		  { step: "c", time_s: 20 }];
+		console.log(JSON.stringify(fillingPts(s), (k, v) => typeof v === "number" ? Math.round(v * 1e9) / 1e9 : v));`
+	out, err := exec.Command(node, "-e", script).CombinedOutput()
+	if err != nil {
+		t.Fatalf("node: %v\n%s", err, out)
+	}
+	want := `{"drainage":[[0,null],[10,0.3],[20,null]],"imbibition":[[0,null],[10,0],[20,null]],"step":"b","histD":[[0,2],[1,1]],"histI":[[0,0],[1,0]]}`
+	if got := strings.TrimSpace(string(out)); got != want {
+		t.Errorf("fillingPts: %s\nwant %s", got, want)
+	}
+}

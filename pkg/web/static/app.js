@@ -129,6 +129,27 @@ function profilePts(series) {
   return { step: "", axis: "z", pts: [] };
 }
 
+// fillingPts returns the pore-filling event rates (1/s) of every step as
+// [time (s), rate] points for drainage and imbibition (null where a step has
+// none), and the event-volume distribution of the latest step with events as
+// [log10(bin low edge / µm³), events] points, with that step's name.
+function fillingPts(series) {
+  const rate = (r, k) => { const p = r.pore_filling; return p && p[k] ? num(p[k].rate_per_s) : null; };
+  const out = { drainage: series.map(r => [r.time_s, rate(r, "drainage")]),
+    imbibition: series.map(r => [r.time_s, rate(r, "imbibition")]), step: "", histD: [], histI: [] };
+  for (let i = series.length - 1; i >= 0; i--) {
+    const p = series[i].pore_filling;
+    if (!p || !p.drainage || !p.imbibition) continue;
+    const d = p.drainage, m = p.imbibition;
+    const low = (m.volume_bin_low_m3 || []).length > (d.volume_bin_low_m3 || []).length ? m.volume_bin_low_m3 : d.volume_bin_low_m3;
+    if (!low || low.length === 0) continue;
+    const hist = h => low.map((v, k) => [Math.log10(v * 1e18), (h && k < h.length) ? h[k] : 0]);
+    out.step = series[i].step; out.histD = hist(d.volume_histogram); out.histI = hist(m.volume_histogram);
+    break;
+  }
+  return out;
+}
+
 function draw() {
   TU = timeUnit();
   const tl = `time t (${TU.name})`;
@@ -157,6 +178,13 @@ function draw() {
   const prof = profilePts(state.series);
   qs("profile-step").textContent = prof.step ? `(step ${prof.step})` : "";
   plot(qs("plot-profile"), [{ name: "S_n", color: C.b, marker: "circle", pts: prof.pts }], `distance from inlet along ${prof.axis} (mm)`, `S_n (${U.none})`, { ymin: 0, ymax: 1, xmin: 0 });
+  const fill = fillingPts(state.series);
+  const perTU = pts => pts.map(([t, v]) => [t / TU.s, v]);
+  plot(qs("plot-filling"), [{ name: "drainage (w→n)", color: C.b, marker: "circle", pts: perTU(fill.drainage) },
+    { name: "imbibition (n→w)", color: C.a, marker: "square", pts: perTU(fill.imbibition) }], tl, "pore-filling events per second (1/s)", { ymin: 0 });
+  qs("filling-step").textContent = fill.step ? `(volumes: step ${fill.step})` : "";
+  plot(qs("plot-filling-hist"), [{ name: "drainage", color: C.b, marker: "circle", pts: fill.histD },
+    { name: "imbibition", color: C.a, marker: "square", pts: fill.histI }], "event volume log₁₀(V / µm³), bins of ×2", `events per bin (${U.none})`, { ymin: 0 });
   const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s / TU.s, s.latency_s]);
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], tl, "ingest → series (s)", { ymin: 0 });
   summary(last);
