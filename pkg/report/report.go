@@ -560,7 +560,8 @@ measured under the same parameters that comes last before this one in time; the 
 voxel counts times the voxel volume; the rate is the number of events over the time between the two steps; the
 largest event's centroid is the mean position of its voxels' centres. Events faster than the time between
 scans merge: one region may be several pore fillings, and a pore that filled and emptied again in between is
-not seen.</p>
+not seen. Segmentation noise at the fluid–fluid interface flips single voxels and small clusters between steps
+even at rest: they are counted, and fill the smallest bins of the volume distribution (compare steady steps).</p>
 <table id="filling-table">
 <tr><th>step</th><th>t (s)</th><th>previous</th><th>Δt (s)</th><th>drainage events</th><th>drainage volume (µm³)</th><th>drainage rate (1/s)</th><th>imbibition events</th><th>imbibition volume (µm³)</th><th>imbibition rate (1/s)</th><th>largest event</th></tr>{{range .FillingRows}}
 <tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.Previous}}</td><td>{{.Interval}}</td><td>{{.DCount}}</td><td>{{.DVolume}}</td><td>{{.DRate}}</td><td>{{.IMCount}}</td><td>{{.IMVolume}}</td><td>{{.IMRate}}</td><td>{{.Largest}}{{if .Note}} ({{.Note}}){{end}}</td></tr>{{end}}
