@@ -20,6 +20,10 @@
 // blockse; docs/capillary-pressure-uncertainty.md); a point without one
 // has no bar.
 //
+//	contact_angles      the contact angle of each step three ways side by side against time:
+//	                    geometric (median with the 25–75 % range of the step's distribution,
+//	                    and mean ± SE) and thermodynamic (energy balance with the previous
+//	                    step, ± SE from the connected Pc)
 //	ganglia             nonwetting ganglia count and largest-ganglion volume fraction against time
 //	saturation_profile  time × position map of the nonwetting saturation along the flow
 //	                    axis (one column per step, reaching halfway to its neighbours;
@@ -78,7 +82,7 @@ const AngleBin = 5
 
 // Names lists the figures in the order Build returns them.
 var Names = []string{"saturation", "capillary_pressure", "curvature", "specific_area",
-	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile", "pore_filling"}
+	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile", "pore_filling", "contact_angles"}
 
 // Unit texts of the figures' axes, written the same way in the report
 // and on the live page. Dimensionless quantities carry "–".
@@ -147,7 +151,7 @@ func Build(rows []series.Row, evs []events.Event, run Run) []Figure {
 	b := builder{rows: rows, evs: evs, unit: unit, perUnit: per}
 	figs := []Figure{
 		b.saturation(), b.pressure(), b.curvature(), b.area(),
-		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(), b.filling(),
+		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(), b.filling(), b.wettability(),
 	}
 	for i := range figs {
 		f := &figs[i]

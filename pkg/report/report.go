@@ -182,6 +182,9 @@ type page struct {
 	Filling        []figure
 	FillingRows    []fillingRow
 	FrontThreshold string
+	// Angles is the wettability table; Wettability its figure.
+	Angles         []angleRow
+	Wettability    []figure
 	ChecksPassed   int
 	ChecksFailed   int
 	ChecksNotEval  int
@@ -250,6 +253,7 @@ func Write(w io.Writer, in Input) error {
 	}
 	pg.Fronts, pg.FrontThreshold = fronts(rows)
 	pg.FillingRows = fillingTable(rows)
+	pg.Angles = angleTable(rows)
 	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps, in.VoxelSize)
 	pg.CampaignTh = viewCampaign(in.FixedThresholds)
 	for _, s := range pg.Settings {
@@ -274,6 +278,8 @@ func Write(w io.Writer, in Input) error {
 			pg.Profile = append(pg.Profile, fg)
 		} else if f.Name == "pore_filling" {
 			pg.Filling = append(pg.Filling, fg)
+		} else if f.Name == "contact_angles" {
+			pg.Wettability = append(pg.Wettability, fg)
 		} else {
 			pg.Figures = append(pg.Figures, fg)
 		}
@@ -567,6 +573,35 @@ even at rest: they are counted, and fill the smallest bins of the volume distrib
 <tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.Previous}}</td><td>{{.Interval}}</td><td>{{.DCount}}</td><td>{{.DVolume}}</td><td>{{.DRate}}</td><td>{{.IMCount}}</td><td>{{.IMVolume}}</td><td>{{.IMRate}}</td><td>{{.Largest}}{{if .Note}} ({{.Note}}){{end}}</td></tr>{{end}}
 </table>
 {{range .Filling}}<figure id="{{.ID}}">
+{{.SVG}}
+<figcaption>{{.Caption}}</figcaption>
+</figure>
+{{end}}</section>
+
+<section id="wettability">
+<h2>Wettability: geometric and thermodynamic contact angles</h2>
+<p>All angles are measured through the wetting phase. The <b>geometric</b> angle is measured at every sample
+point of the three-phase contact line, between the w–n interface and the solid surface in the plane normal to
+the line (sluice's own method, science.md §4; published automated methods: AlRatrout et al. 2017, <i>Adv. Water
+Resour.</i> 109:158; Scanziani et al. 2017, <i>J. Colloid Interface Sci.</i> 496:51); the table gives its mean
+± standard error over spatial blocks and the median with the 25–75 % range of the step's distribution. The
+<b>thermodynamic</b> angle is the angle that makes the energy balance of the change since the previous step
+hold (Blunt, Lin, Akai &amp; Bijeljic 2019, <i>J. Colloid Interface Sci.</i> 552:59):
+cos θ<sub>t</sub> = (P<sub>c</sub>·ΔV<sub>n</sub>/σ − ΔA<sub>wn</sub>) / ΔA<sub>ns</sub>, the work done in
+displacing wetting by nonwetting fluid going into the w–n interface and, by Young's equation, into the
+replacement of wetting by nonwetting fluid on the solid. ΔV<sub>n</sub>, ΔA<sub>wn</sub> and ΔA<sub>ns</sub> are
+the changes of the nonwetting volume and the interfacial areas between the two steps, P<sub>c</sub> the mean of
+the two steps' capillary pressure of the connected nonwetting phase (the phase at the pressure the pumps impose;
+trapped ganglia keep the curvature they had when cut off), σ the interfacial tension. It assumes both steps are
+at equilibrium; its standard error carries that of P<sub>c</sub> only. It is blank for the first step, without a
+connected P<sub>c</sub> or σ, and when |cos θ<sub>t</sub>| &gt; 1 (the cosine is still shown): no angle balances
+the energy, because the steps were not at equilibrium or the change of A<sub>ns</sub> is small against the errors
+of the areas. Large steps bias it: the mean of two P<sub>c</sub> stands for ∫P<sub>c</sub> dV.</p>
+<table id="angle-table">
+<tr><th>step</th><th>t (s)</th><th>geometric mean (°)</th><th>geometric median (25–75 %) (°)</th><th>thermodynamic (°)</th><th>cos θ<sub>t</sub></th></tr>{{range .Angles}}
+<tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.GeoMean}}</td><td>{{.GeoMedian}}</td><td>{{.Thermo}}</td><td>{{.ThermoCos}}</td></tr>{{end}}
+</table>
+{{range .Wettability}}<figure id="{{.ID}}">
 {{.SVG}}
 <figcaption>{{.Caption}}</figcaption>
 </figure>

@@ -66,7 +66,9 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	grey_drift_beyond, front_position_m, front_velocity_m_per_s,
 //	pore_filling_drainage_count, pore_filling_imbibition_count,
 //	pore_filling_drainage_volume_m3, pore_filling_imbibition_volume_m3,
-//	pore_filling_drainage_rate_per_s, pore_filling_imbibition_rate_per_s
+//	pore_filling_drainage_rate_per_s, pore_filling_imbibition_rate_per_s,
+//	contact_angle_thermodynamic_deg, contact_angle_thermodynamic_se_deg,
+//	contact_angle_thermodynamic_cos
 //
 // The four trapped_ganglia_* columns come from the result's trapped_ganglia_curvature object
 // (series.json keeps the whole object); the six pore_filling_* columns from
@@ -133,6 +135,9 @@ var Columns = []Column{
 	fcol("pore_filling_imbibition_volume_m3", "m3", func(r *Row) *float64 { return r.fillingKind(false).VolumeM3 }),
 	fcol("pore_filling_drainage_rate_per_s", "1/s", func(r *Row) *float64 { return r.fillingKind(true).RatePerS }),
 	fcol("pore_filling_imbibition_rate_per_s", "1/s", func(r *Row) *float64 { return r.fillingKind(false).RatePerS }),
+	fcol("contact_angle_thermodynamic_deg", "deg", func(r *Row) *float64 { return r.AngleThermo }),
+	fcol("contact_angle_thermodynamic_se_deg", "deg", func(r *Row) *float64 { return r.AngleThermoSE }),
+	fcol("contact_angle_thermodynamic_cos", "1", func(r *Row) *float64 { return r.AngleThermoCos }),
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

@@ -89,6 +89,14 @@ type Row struct {
 	// the previous row (m/s), derived by Sort (see FrontVelocities).
 	FrontPosition *float64 `json:"front_position_m"`
 	FrontVelocity *float64 `json:"front_velocity_m_per_s"`
+	// AngleThermo is the thermodynamic contact angle through the wetting
+	// phase from the change since the previous row (degrees), AngleThermoSE
+	// its standard error from that of the connected Pc, AngleThermoCos its
+	// cosine (kept when |cos| > 1 leaves no angle); derived by Sort (see
+	// ThermodynamicAngles).
+	AngleThermo    *float64 `json:"contact_angle_thermodynamic_deg"`
+	AngleThermoSE  *float64 `json:"contact_angle_thermodynamic_se_deg"`
+	AngleThermoCos *float64 `json:"contact_angle_thermodynamic_cos"`
 	// AngleHist counts contact-angle samples in 1° bins through the wetting
 	// phase: AngleHist[i] holds angles in [i, i+1) degrees (180 bins). It
 	// appears in series.json only, never in the CSV.

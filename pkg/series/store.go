@@ -63,7 +63,8 @@ func EncodeJSON(rows []Row) ([]byte, error) {
 }
 
 // Sort orders rows by time, then by step name, and derives the front
-// velocities of the new order (FrontVelocities).
+// velocities (FrontVelocities) and thermodynamic contact angles
+// (ThermodynamicAngles) of the new order.
 func Sort(rows []Row) {
 	sort.SliceStable(rows, func(i, j int) bool {
 		if rows[i].Time != rows[j].Time {
@@ -72,6 +73,7 @@ func Sort(rows []Row) {
 		return rows[i].Step < rows[j].Step
 	})
 	FrontVelocities(rows)
+	ThermodynamicAngles(rows)
 }
 
 // FrontVelocities sets each row's front_velocity_m_per_s from the row

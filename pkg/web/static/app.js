@@ -150,6 +150,16 @@ function fillingPts(series) {
   return out;
 }
 
+// anglePts returns the contact angles of every step against time (in units of
+// tuS seconds), in degrees through the wetting phase: the geometric mean and
+// median measured at the contact line, and the thermodynamic angle from the
+// energy balance with the previous step (null where not computed).
+function anglePts(series, tuS) {
+  const at = key => series.map(r => [r.time_s / tuS, num(r[key])]);
+  return { mean: at("contact_angle_mean_deg"), median: at("contact_angle_median_deg"),
+    thermo: at("contact_angle_thermodynamic_deg") };
+}
+
 function draw() {
   TU = timeUnit();
   const tl = `time t (${TU.name})`;
@@ -172,6 +182,11 @@ function draw() {
     { name: "all steps", color: C.d, bars: true, alpha: 0.6, pts: run.map((c, i) => [i, nrun ? c / nrun : 0]) },
     { name: "latest step", color: C.c, marker: "circle", line: true, pts: nl ? lh.map((c, i) => [i + 0.5, c / nl]) : [] }],
     "contact angle θ through wetting phase (°)", `fraction of samples per degree (${U.angleDensity})`, { xmin: 0, xmax: 180, ymin: 0 });
+  const ang = anglePts(state.series, TU.s);
+  plot(qs("plot-angles"), [
+    { name: "geometric mean", color: C.c, marker: "circle", pts: ang.mean },
+    { name: "geometric median", color: C.d, marker: "triangle", pts: ang.median },
+    { name: "thermodynamic", color: C.a, marker: "square", pts: ang.thermo }], tl, "contact angle θ through wetting phase (°)", { ymin: 0, ymax: 180 });
   plot(qs("plot-ganglia"), [{ name: "ganglia", color: C.b, marker: "square", pts: col("ganglia_count") }], tl, `number of ganglia (${U.none})`, { ymin: 0 });
   plot(qs("plot-largest"), [{ name: "largest cluster / all nonwetting", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], tl, `largest ganglion fraction (${U.none})`, { ymin: 0, ymax: 1 });
   plot(qs("plot-front"), [{ name: "front", color: C.c, marker: "square", pts: col("front_position_m", 1e3) }], tl, "front from inlet (mm)", { ymin: 0 });
