@@ -1,5 +1,6 @@
 // Package volio reads and writes grey-value and label volumes: raw binary,
-// stacks of 2-D TIFF slices and multi-page TIFF files, Zarr v2 arrays, and
+// stacks of 2-D TIFF slices and multi-page TIFF files, Zarr v2 arrays, Zarr
+// v3 arrays (read only), and
 // (read only, in builds with HDF5 support) 3-D datasets of HDF5 files.
 //
 // Every reader first reads a small header, checks shape × dtype against the
@@ -85,6 +86,34 @@
 // Storage goes through Bucket, a two-method key-value interface; Dir is a
 // Bucket on a local directory with atomic writes. An object store adapter
 // only needs Get and Put.
+//
+// # Zarr v3
+//
+// A directory holding zarr.json (Zarr core specification 3.0,
+// zarr-specs.readthedocs.io) with node_type "array" is read by our own
+// reader (zarr3.go): shape of 3 dimensions (z, y, x); data_type uint8 and
+// uint16 read as stored, int8, int16, float32 and float64 read as float32
+// (float64 rounded to nearest); chunk_grid "regular"; chunk_key_encoding
+// "default" ("c/iz/iy/ix", separator "/" or ".") or "v2" ("iz.iy.ix");
+// fill_value as a number, "NaN", "Infinity", "-Infinity" or a hex bit
+// pattern; dimension_names (refused when they are z, y, x in another
+// order); "attributes" with voxel_size and time_s as for Zarr v2. Codecs:
+// transpose (any permutation; composed), bytes (little or big endian), then
+// gzip (RFC 1952), zstd (RFC 8878), blosc (the Blosc reader above; the
+// chunk's header, not the metadata, says how it was compressed) and crc32c
+// (CRC-32C appended little endian, checked); or sharding_indexed in place
+// of bytes: inner chunks of chunk_shape with their own codec chain (no
+// nested sharding), the index of (offset, nbytes) uint64 pairs per inner
+// chunk in C order at the start or end of the shard, encoded with bytes and
+// optionally crc32c (checked); an entry of two 2^64−1 is an empty chunk.
+// ReadBox reads only the chunks — for sharded arrays each touched shard's
+// index and then only the inner chunks — that the box meets, so bands and
+// slabs are read with memory bounded by the band and one chunk per reader.
+// A missing chunk or shard reads as the fill value even with
+// Options.RequireChunks: Zarr v3 writers omit chunks that hold only the
+// fill value. Anything else (other codecs, grids, data types, extension
+// metadata without must_understand false, storage transformers) is refused
+// with ErrFormat naming zarr.json.
 //
 // # HDF5
 //

@@ -52,7 +52,7 @@ func (o Options) limit() int64 {
 
 // Header describes a volume without its voxels.
 type Header struct {
-	Format    string // "raw", "tiff", "zarr" or "hdf5"
+	Format    string // "raw", "tiff", "zarr" (v2), "zarr3" or "hdf5"
 	Shape     [3]int // (nz, ny, nx)
 	DType     volume.DType
 	VoxelSize float64 // metres; 0 if unknown
@@ -84,6 +84,7 @@ type BandReader interface {
 
 // Open reads a whole volume from path, detecting the format:
 //   - a directory containing .zarray: a Zarr v2 array;
+//   - a directory containing zarr.json: a Zarr v3 array;
 //   - any other directory: a stack of 2-D TIFF slices;
 //   - a file ending in .tif or .tiff: its pages, one per z slice;
 //   - a file starting with the HDF5 signature: a 3-D dataset in it
@@ -121,8 +122,15 @@ func OpenStream(path string, opt Options) (Stream, error) {
 		return nil, osErr(path, err)
 	}
 	if fi.IsDir() {
-		if _, err := os.Stat(filepath.Join(path, ".zarray")); err == nil {
+		_, v2 := os.Stat(filepath.Join(path, ".zarray"))
+		_, v3 := os.Stat(filepath.Join(path, zarr3Name))
+		switch {
+		case v2 == nil && v3 == nil:
+			return nil, fileErr(path, ErrFormat, "holds both .zarray (Zarr v2) and zarr.json (Zarr v3): remove the one that does not belong")
+		case v2 == nil:
 			return openZarrStream(path, opt)
+		case v3 == nil:
+			return openZarr3Stream(path, opt)
 		}
 		return openStack(path, opt)
 	}
@@ -138,9 +146,15 @@ func OpenStream(path string, opt Options) (Stream, error) {
 	return openRaw(path, opt)
 }
 
+// boxReader is a Zarr array, v2 or v3.
+type boxReader interface {
+	ReadBox(ctx context.Context, box volume.Box) (volume.Any, error)
+	bucketName() string
+}
+
 // zarrStream adapts a Zarr array to Stream.
 type zarrStream struct {
-	z *Zarr
+	z boxReader
 	h Header
 }
 
@@ -163,12 +177,30 @@ func openZarrStream(path string, opt Options) (Stream, error) {
 	return &zarrStream{z: z, h: Header{Format: "zarr", Shape: m.Shape, DType: m.DType, VoxelSize: vs, TimeS: m.TimeS, HasTime: m.HasTime}}, nil
 }
 
+func openZarr3Stream(path string, opt Options) (Stream, error) {
+	z, err := OpenZarr3(path)
+	if err != nil {
+		return nil, err
+	}
+	z.limit = opt.limit()
+	m := z.Meta()
+	if _, ok := mulLimit(m.Shape, opt.limit()); !ok {
+		return nil, fileErr(path, ErrTooLarge, "Zarr array of %d×%d×%d voxels exceeds the limit of %d",
+			m.Shape[0], m.Shape[1], m.Shape[2], opt.limit())
+	}
+	vs := m.VoxelSize
+	if vs == 0 {
+		vs = opt.VoxelSize
+	}
+	return &zarrStream{z: z, h: Header{Format: "zarr3", Shape: m.Shape, DType: m.DType, VoxelSize: vs, TimeS: m.TimeS, HasTime: m.HasTime}}, nil
+}
+
 func (s *zarrStream) Header() Header { return s.h }
 func (s *zarrStream) Close() error   { return nil }
 
 func (s *zarrStream) ReadSlab(z0, z1 int) (volume.Any, error) {
 	if z0 < 0 || z1 > s.h.Shape[0] || z0 >= z1 {
-		return nil, fileErr(string(s.z.bucketName()), ErrFormat, "slab %d:%d outside 0:%d", z0, z1, s.h.Shape[0])
+		return nil, fileErr(s.z.bucketName(), ErrFormat, "slab %d:%d outside 0:%d", z0, z1, s.h.Shape[0])
 	}
 	v, err := s.z.ReadBox(context.Background(), volume.Box{Min: [3]int{z0, 0, 0}, Max: [3]int{z1, s.h.Shape[1], s.h.Shape[2]}})
 	if err != nil {
@@ -181,7 +213,7 @@ func (s *zarrStream) ReadSlab(z0, z1 int) (volume.Any, error) {
 // ReadBand reads the chunks of a band of rows (see BandReader).
 func (s *zarrStream) ReadBand(z0, z1, y0, y1 int) (volume.Any, error) {
 	if z0 < 0 || z1 > s.h.Shape[0] || z0 >= z1 || y0 < 0 || y1 > s.h.Shape[1] || y0 >= y1 {
-		return nil, fileErr(string(s.z.bucketName()), ErrFormat, "band %d:%d × %d:%d outside 0:%d × 0:%d", z0, z1, y0, y1, s.h.Shape[0], s.h.Shape[1])
+		return nil, fileErr(s.z.bucketName(), ErrFormat, "band %d:%d × %d:%d outside 0:%d × 0:%d", z0, z1, y0, y1, s.h.Shape[0], s.h.Shape[1])
 	}
 	v, err := s.z.ReadBox(context.Background(), volume.Box{Min: [3]int{z0, y0, 0}, Max: [3]int{z1, y1, s.h.Shape[2]}})
 	if err != nil {

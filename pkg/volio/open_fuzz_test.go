@@ -85,7 +85,7 @@ func FuzzZarrDir(f *testing.F) {
 		if n := v.Bounds().Voxels(); n > fuzzLimit {
 			t.Fatalf("read %d voxels over the limit %d", n, fuzzLimit)
 		}
-		z := s.(*zarrStream).z
+		z := s.(*zarrStream).z.(*Zarr)
 		if g := z.Grid(); g != [3]int{1, 1, 1} {
 			t.Fatalf("read a %v grid from one chunk file with chunks required", g)
 		}

@@ -100,6 +100,9 @@ func TestBadInputFiles(t *testing.T) {
 		{"zarr-unknown-dtype", []string{filepath.Join("zarr-unknown-dtype", ".zarray"), `dtype "<i8"`}},
 		{"zarr-unknown-compressor", []string{filepath.Join("zarr-unknown-compressor", ".zarray"), `compressor "bz2" not supported`}},
 		{"zarr-missing-chunk", []string{filepath.Join("zarr-missing-chunk", "1", "0", "0"), "missing chunk 1.0.0"}},
+		{"zarr3-4d", []string{filepath.Join("zarr3-4d", "zarr.json"), "array has 4 dimensions (shape [2 4 8 8]), want 3"}},
+		{"zarr3-unknown-codec", []string{filepath.Join("zarr3-unknown-codec", "zarr.json"), `codec "bz2" not supported`}},
+		{"zarr3-bad-crc", []string{filepath.Join("zarr3-bad-crc", "c", "0", "0", "0"), "crc32c checksum mismatch"}},
 	}
 	for _, c := range cases {
 		code, _, errs := runCLI(t, "measure", "--no-sample", bad(c.file))

@@ -139,6 +139,17 @@ func main() {
 	write("zarr-missing-chunk/.zarray", []byte(fmt.Sprintf(zarray, "[8, 8, 8]", "[4, 8, 8]", "<u2", "null")))
 	write("zarr-missing-chunk/0/0/0", all[:4*8*8*2]) // chunk 1/0/0 never arrived
 
+	// Zarr v3 arrays.
+	zarr3 := `{"zarr_format": 3, "node_type": "array", "shape": %s, "data_type": "uint16",
+ "chunk_grid": {"name": "regular", "configuration": {"chunk_shape": %s}},
+ "chunk_key_encoding": {"name": "default", "configuration": {"separator": "/"}},
+ "fill_value": 0, "codecs": [{"name": "bytes", "configuration": {"endian": "little"}}%s], "attributes": {}}
+`
+	write("zarr3-4d/zarr.json", []byte(fmt.Sprintf(zarr3, "[2, 4, 8, 8]", "[1, 4, 8, 8]", "")))
+	write("zarr3-unknown-codec/zarr.json", []byte(fmt.Sprintf(zarr3, "[4, 8, 8]", "[4, 8, 8]", `, {"name": "bz2", "configuration": {"level": 5}}`)))
+	write("zarr3-bad-crc/zarr.json", []byte(fmt.Sprintf(zarr3, "[4, 8, 8]", "[4, 8, 8]", `, {"name": "crc32c"}`)))
+	write("zarr3-bad-crc/c/0/0/0", append(all[:4*8*8*2:4*8*8*2], 0, 0, 0, 0)) // checksum 0: wrong
+
 	// Task messages.
 	write("task-garbage.bin", []byte{0x0a, 0xff, 0xff, 0xff, 0xff, 0x0f, 0x12, 0x03, 'a', 'b'})
 	tk := &sluicepb.TileTask{Campaign: "bad", Step: "scan-0001", Tile: 7, TileCount: 8, ParamHash: "0123456789abcdef",
