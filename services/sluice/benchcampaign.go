@@ -28,6 +28,7 @@ import (
 	"sluice/pkg/campaign"
 	"sluice/pkg/forward"
 	"sluice/pkg/layout"
+	"sluice/pkg/scan"
 	"sluice/pkg/scenario"
 	"sluice/pkg/series"
 	"sluice/pkg/volio"
@@ -40,11 +41,11 @@ const benchCampaignName = "bench"
 
 // benchCampaignOptions are the flags of `sluice bench campaign`.
 type benchCampaignOptions struct {
-	size, steps, tile, workers, procs, base, ahead int
-	seed                                           uint64
-	data                                           string
-	keep, json                                     bool
-	timeout                                        time.Duration
+	size, steps, tile, workers, procs, procCores, base, ahead int
+	seed                                                      uint64
+	data                                                      string
+	keep, json                                                bool
+	timeout                                                   time.Duration
 }
 
 // benchStepResult is one step of the benchmark campaign.
@@ -76,6 +77,9 @@ type benchProcess struct {
 	PID       int     `json:"pid"`
 	PeakRSSMB float64 `json:"peak_rss_mb"`
 	Source    string  `json:"source"` // how it was read
+	// GoMaxProcs is the worker process's GOMAXPROCS as its /metrics
+	// reports it (go_sched_gomaxprocs_threads); 0 when not read.
+	GoMaxProcs int `json:"gomaxprocs,omitempty"`
 }
 
 // benchCampaignReport is what `sluice bench campaign` prints (--json).
@@ -83,9 +87,11 @@ type benchCampaignReport struct {
 	Size          int               `json:"size"`
 	Steps         int               `json:"steps"`
 	Tile          int               `json:"tile"`
+	Halo          int               `json:"halo"` // grey halo read around each tile core (voxels)
 	TilesPerStep  int               `json:"tiles_per_step"`
 	Workers       int               `json:"workers_per_process"`
-	Procs         int               `json:"worker_processes"` // 0: workers inside the node
+	Procs         int               `json:"worker_processes"`            // 0: workers inside the node
+	ProcCores     int               `json:"cores_per_process,omitempty"` // GOMAXPROCS of each worker process; 0: all
 	CPUs          int               `json:"cpus"`
 	VoxelsPerStep int64             `json:"voxels_per_step"`
 	BytesPerStep  int64             `json:"bytes_per_step"`
@@ -111,6 +117,7 @@ func runBenchCampaign(args []string) int {
 	fs.IntVar(&o.tile, "tile", 256, "tile edge in voxels (Zarr chunk edge)")
 	fs.IntVar(&o.workers, "workers", runtime.GOMAXPROCS(0), "tiles processed at once per worker process (or in the node)")
 	fs.IntVar(&o.procs, "procs", 0, "run the workers as this many separate `sluice worker` processes (0: inside the node)")
+	fs.IntVar(&o.procCores, "proc-cores", 0, "with --procs: cores (GOMAXPROCS) given to each worker process (0: all of the machine's)")
 	fs.IntVar(&o.base, "base", 128, "edge of the rendered grain pack that is mirrored to --size")
 	fs.IntVar(&o.ahead, "ahead", 2, "scans written ahead of the last series row (beamline back-pressure)")
 	fs.Uint64Var(&o.seed, "seed", 1, "rock seed")
@@ -121,8 +128,8 @@ func runBenchCampaign(args []string) int {
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
-	if o.size < 16 || o.steps < 1 || o.tile < 8 || o.workers < 1 || o.procs < 0 || o.base < 32 || o.ahead < 1 {
-		return fail(exitBadInput, "bench campaign: need --size ≥ 16, --steps ≥ 1, --tile ≥ 8, --workers ≥ 1, --procs ≥ 0, --base ≥ 32, --ahead ≥ 1")
+	if o.size < 16 || o.steps < 1 || o.tile < 8 || o.workers < 1 || o.procs < 0 || o.procCores < 0 || o.base < 32 || o.ahead < 1 {
+		return fail(exitBadInput, "bench campaign: need --size ≥ 16, --steps ≥ 1, --tile ≥ 8, --workers ≥ 1, --procs ≥ 0, --proc-cores ≥ 0, --base ≥ 32, --ahead ≥ 1")
 	}
 	ctx, stop := signalContext()
 	defer stop()
@@ -185,6 +192,10 @@ func benchCampaign(ctx context.Context, o benchCampaignOptions) (*benchCampaignR
 		return nil, err
 	}
 	hash := cfg.Hash()
+	halo, err := scan.Halo(cfg)
+	if err != nil {
+		return nil, err
+	}
 	// The base scans (up to 12 fluid states, 2·base³ bytes each) are
 	// rendered before the node starts and the scenario is dropped, so the
 	// node's memory holds the pipeline, not the renderer.
@@ -229,7 +240,7 @@ func benchCampaign(ctx context.Context, o benchCampaignOptions) (*benchCampaignR
 		}
 	}()
 	for i := 0; i < o.procs; i++ {
-		c, err := startBenchWorker(node.nats, filepath.Join(data, "store"), o.workers, i)
+		c, err := startBenchWorker(node.nats, filepath.Join(data, "store"), o.workers, o.procCores, i)
 		if err != nil {
 			return nil, err
 		}
@@ -238,7 +249,7 @@ func benchCampaign(ctx context.Context, o benchCampaignOptions) (*benchCampaignR
 
 	n := o.size
 	tiling := volume.Tiling{Whole: volume.Box{Max: [3]int{n, n, n}}, Tile: [3]int{o.tile, o.tile, o.tile}}
-	rep := &benchCampaignReport{Size: n, Steps: o.steps, Tile: o.tile, TilesPerStep: tiling.Len(), Workers: o.workers, Procs: o.procs,
+	rep := &benchCampaignReport{Size: n, Steps: o.steps, Tile: o.tile, Halo: halo, TilesPerStep: tiling.Len(), Workers: o.workers, Procs: o.procs, ProcCores: o.procCores,
 		CPUs: runtime.NumCPU(), VoxelsPerStep: int64(n) * int64(n) * int64(n)}
 	rep.BytesPerStep = rep.VoxelsPerStep * 2
 	storeRoot := filepath.Join(data, "store")
@@ -382,6 +393,13 @@ func benchCampaign(ctx context.Context, o benchCampaignOptions) (*benchCampaignR
 			urls = append(urls, "http://"+c.http+"/metrics")
 		}
 	}
+	for _, c := range children {
+		v, err := scrapeGauge("http://"+c.http+"/metrics", "go_sched_gomaxprocs_threads")
+		if err != nil {
+			return nil, err
+		}
+		c.gomaxprocs = int(v)
+	}
 	work := map[string][2]float64{}
 	for _, u := range urls {
 		m, err := scrapeStageSums(u, "sluice_tile_stage_duration_seconds")
@@ -414,7 +432,7 @@ func benchCampaign(ctx context.Context, o benchCampaignOptions) (*benchCampaignR
 		if err != nil {
 			return nil, err
 		}
-		rep.Processes = append(rep.Processes, benchProcess{Role: fmt.Sprintf("worker %d", i+1), PID: c.cmd.Process.Pid, PeakRSSMB: float64(kb) / 1024, Source: "getrusage ru_maxrss of the child"})
+		rep.Processes = append(rep.Processes, benchProcess{Role: fmt.Sprintf("worker %d", i+1), PID: c.cmd.Process.Pid, PeakRSSMB: float64(kb) / 1024, Source: "getrusage ru_maxrss of the child", GoMaxProcs: c.gomaxprocs})
 	}
 	children = nil
 	if o.keep {
@@ -485,14 +503,15 @@ func writeBenchScan(dir, name string, base *volume.Volume[uint16], t, voxelSize 
 
 // benchChild is a `sluice worker` process.
 type benchChild struct {
-	cmd    *exec.Cmd
-	http   string
-	waited bool
+	cmd        *exec.Cmd
+	http       string
+	waited     bool
+	gomaxprocs int
 }
 
 // startBenchWorker starts `sluice worker` (this executable) against the
 // node's NATS listener and store.
-func startBenchWorker(natsURL, store string, concurrency, i int) (*benchChild, error) {
+func startBenchWorker(natsURL, store string, concurrency, cores, i int) (*benchChild, error) {
 	if natsURL == "" {
 		return nil, errors.New("the node exposes no NATS listener for worker processes")
 	}
@@ -509,6 +528,11 @@ func startBenchWorker(natsURL, store string, concurrency, i int) (*benchChild, e
 	cmd := exec.Command(exe, "worker", "--nats", natsURL, "--store", store, "--http", addr,
 		"--concurrency", strconv.Itoa(concurrency), "--id", fmt.Sprintf("bench-worker-%d", i+1))
 	cmd.Stderr = os.Stderr
+	if cores > 0 {
+		// The Go runtime reads GOMAXPROCS from the environment; the worker
+		// sizes its tile-internal goroutines from runtime.GOMAXPROCS.
+		cmd.Env = append(os.Environ(), "GOMAXPROCS="+strconv.Itoa(cores))
+	}
 	if err := cmd.Start(); err != nil {
 		return nil, err
 	}
@@ -560,6 +584,25 @@ func vmHWM(path string) (int64, error) {
 
 // scrapeStageSums reads the _sum and _count of a histogram labelled by
 // stage from a Prometheus text exposition: stage → [sum, count].
+// scrapeGauge reads one unlabelled sample from a Prometheus text page.
+func scrapeGauge(url, metric string) (float64, error) {
+	r, err := http.Get(url)
+	if err != nil {
+		return 0, err
+	}
+	defer r.Body.Close()
+	b, err := io.ReadAll(io.LimitReader(r.Body, 16<<20))
+	if err != nil {
+		return 0, err
+	}
+	for _, l := range strings.Split(string(b), "\n") {
+		if v, ok := strings.CutPrefix(l, metric+" "); ok {
+			return strconv.ParseFloat(strings.TrimSpace(v), 64)
+		}
+	}
+	return 0, fmt.Errorf("%s: no %s sample", url, metric)
+}
+
 func scrapeStageSums(url, metric string) (map[string][2]float64, error) {
 	r, err := http.Get(url)
 	if err != nil {
@@ -628,9 +671,12 @@ func printBenchCampaign(w io.Writer, r *benchCampaignReport) {
 	where := "inside the node"
 	if r.Procs > 0 {
 		where = fmt.Sprintf("in %d worker processes", r.Procs)
+		if r.ProcCores > 0 {
+			where += fmt.Sprintf(" of %d core(s) each", r.ProcCores)
+		}
 	}
-	fmt.Fprintf(w, "\n%d steps of %d³ uint16 (%.0f MB each), %d tiles of %d³ per step, %d workers %s, %d CPUs\n",
-		r.Steps, r.Size, float64(r.BytesPerStep)/1e6, r.TilesPerStep, r.Tile, r.Workers, where, r.CPUs)
+	fmt.Fprintf(w, "\n%d steps of %d³ uint16 (%.0f MB each), %d tiles of %d³ (halo %d) per step, %d workers %s, %d CPUs\n",
+		r.Steps, r.Size, float64(r.BytesPerStep)/1e6, r.TilesPerStep, r.Tile, r.Halo, r.Workers, where, r.CPUs)
 	fmt.Fprintf(w, "series rows: %d\n", r.SeriesRows)
 	fmt.Fprintf(w, "throughput: %.2f MVox/s sustained (%.1f s from the first marker to the last series row)\n", r.MVoxPerS, r.WallS)
 	fmt.Fprintf(w, "latency marker → series row: p50 %.2f s, p95 %.2f s\n\n", r.LatencyP50S, r.LatencyP95S)

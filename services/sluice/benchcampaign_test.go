@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"sluice/pkg/series"
@@ -97,5 +98,37 @@ func TestNearestRank(t *testing.T) {
 	}
 	if got := nearestRank([]float64{3}, 95); got != 3 {
 		t.Errorf("p95 of one value = %g, want 3", got)
+	}
+}
+
+// TestBenchCampaignProcs: with --procs the workers run as separate `sluice
+// worker` processes, and --proc-cores limits each to that many cores
+// (GOMAXPROCS as the worker's own /metrics reports it); every step still
+// gets its series row.
+func TestBenchCampaignProcs(t *testing.T) {
+	t.Setenv("SLUICE_TEST_AS_CLI", "1") // the worker processes are this test binary (TestMain)
+	code, out, errs := runCLI(t, "bench", "campaign", "--size", "64", "--steps", "2", "--tile", "32", "--base", "64",
+		"--procs", "2", "--proc-cores", "1", "--workers", "1", "--json")
+	if code != exitOK {
+		t.Fatalf("exit %d\n%s\n%s", code, out, errs)
+	}
+	var r benchCampaignReport
+	if err := json.Unmarshal([]byte(out), &r); err != nil {
+		t.Fatalf("report is not JSON: %v\n%s", err, out)
+	}
+	if r.Procs != 2 || r.ProcCores != 1 || r.SeriesRows != 2 || r.Halo <= 0 {
+		t.Errorf("report: %d processes, %d cores each, %d series rows, halo %d; want 2, 1, 2, > 0", r.Procs, r.ProcCores, r.SeriesRows, r.Halo)
+	}
+	workers := 0
+	for _, p := range r.Processes {
+		if strings.HasPrefix(p.Role, "worker") {
+			workers++
+			if p.GoMaxProcs != 1 {
+				t.Errorf("%s: GOMAXPROCS %d, want 1", p.Role, p.GoMaxProcs)
+			}
+		}
+	}
+	if workers != 2 {
+		t.Errorf("%d worker processes reported, want 2: %+v", workers, r.Processes)
 	}
 }
