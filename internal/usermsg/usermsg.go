@@ -17,7 +17,7 @@ var Packages = []string{
 	"aggregator", "blockse", "campaign", "cluster", "contact", "curvature", "distance", "equilibrium", "events", "filling", "filter",
 	"forward", "ingest", "layout", "levelset", "measure", "mesh", "morph", "phase", "plots",
 	"preview", "queue", "register", "report", "scan", "scenario", "segment", "series", "store", "synth",
-	"telemetry", "volio", "volume", "web", "worker",
+	"telemetry", "tracking", "volio", "volume", "web", "worker",
 }
 
 var isPackage = func() map[string]bool {

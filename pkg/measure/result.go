@@ -11,6 +11,7 @@ import (
 	"sluice/pkg/curvature"
 	"sluice/pkg/filling"
 	"sluice/pkg/morph"
+	"sluice/pkg/tracking"
 	"sluice/pkg/volume"
 )
 
@@ -127,6 +128,10 @@ type Result struct {
 	// not of one volume: set by the aggregator on step results, absent from
 	// `sluice measure --json`.
 	PoreFilling *filling.Result `json:"pore_filling,omitempty"`
+	// GanglionTracking links this step's nonwetting ganglia to the
+	// previous step's (package tracking); set by the aggregator like
+	// PoreFilling.
+	GanglionTracking *tracking.Result `json:"ganglion_tracking,omitempty"`
 
 	// Minkowski holds the four functionals of each phase.
 	Minkowski map[string]Functionals `json:"minkowski"`

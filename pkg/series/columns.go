@@ -68,12 +68,16 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	pore_filling_drainage_volume_m3, pore_filling_imbibition_volume_m3,
 //	pore_filling_drainage_rate_per_s, pore_filling_imbibition_rate_per_s,
 //	contact_angle_thermodynamic_deg, contact_angle_thermodynamic_se_deg,
-//	contact_angle_thermodynamic_cos
+//	contact_angle_thermodynamic_cos,
+//	tracking_one_to_one, tracking_splits, tracking_merges,
+//	tracking_appeared, tracking_vanished, tracking_trapped_saturation,
+//	tracking_trapped_moved_fraction, tracking_trapped_lifetime_mean_s
 //
 // The four trapped_ganglia_* columns come from the result's trapped_ganglia_curvature object
 // (series.json keeps the whole object); the six pore_filling_* columns from
 // the pore_filling object (the events since the previous step, package
-// filling).
+// filling); the eight tracking_* columns from the ganglion_tracking object
+// (package tracking).
 //
 // Null values are empty cells; booleans are `true`/`false`.
 var Columns = []Column{
@@ -138,6 +142,14 @@ var Columns = []Column{
 	fcol("contact_angle_thermodynamic_deg", "deg", func(r *Row) *float64 { return r.AngleThermo }),
 	fcol("contact_angle_thermodynamic_se_deg", "deg", func(r *Row) *float64 { return r.AngleThermoSE }),
 	fcol("contact_angle_thermodynamic_cos", "1", func(r *Row) *float64 { return r.AngleThermoCos }),
+	icol("tracking_one_to_one", "1", func(r *Row) *int64 { return r.Tracking().OneToOne }),
+	icol("tracking_splits", "1", func(r *Row) *int64 { return r.Tracking().Splits }),
+	icol("tracking_merges", "1", func(r *Row) *int64 { return r.Tracking().Merges }),
+	icol("tracking_appeared", "1", func(r *Row) *int64 { return r.Tracking().Appeared }),
+	icol("tracking_vanished", "1", func(r *Row) *int64 { return r.Tracking().Vanished }),
+	fcol("tracking_trapped_saturation", "1", func(r *Row) *float64 { return r.Tracking().TrappedSaturation }),
+	fcol("tracking_trapped_moved_fraction", "1", func(r *Row) *float64 { return r.Tracking().TrappedMovedFraction }),
+	fcol("tracking_trapped_lifetime_mean_s", "s", func(r *Row) *float64 { return r.Tracking().LifetimeMeanS }),
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

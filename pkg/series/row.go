@@ -348,3 +348,34 @@ func (r *Row) fillingKind(drainage bool) *FillingKind {
 	}
 	return &FillingKind{}
 }
+
+// Tracking is the part of a result's ganglion_tracking object
+// (pkg/tracking.Result) the CSV shows; null fields when absent.
+type Tracking struct {
+	OneToOne             *int64   `json:"one_to_one"`
+	Splits               *int64   `json:"splits"`
+	Merges               *int64   `json:"merges"`
+	Appeared             *int64   `json:"appeared"`
+	Vanished             *int64   `json:"vanished"`
+	TrappedSaturation    *float64 `json:"trapped_saturation"`
+	TrappedMovedFraction *float64 `json:"trapped_moved_fraction"`
+	LifetimeMeanS        *float64 `json:"trapped_lifetime_mean_s"`
+}
+
+// Tracking decodes the row's ganglion_tracking object, kept verbatim in
+// Extra; the zero value when absent or unreadable. Counts are null when the
+// object says why tracking was not possible (a note).
+func (r *Row) Tracking() Tracking {
+	var g Tracking
+	b, ok := r.Extra["ganglion_tracking"]
+	if !ok {
+		return g
+	}
+	var note struct {
+		Note string `json:"note"`
+	}
+	if json.Unmarshal(b, &note) != nil || note.Note != "" || json.Unmarshal(b, &g) != nil {
+		return Tracking{}
+	}
+	return g
+}

@@ -480,7 +480,7 @@ func (a *Aggregator) completeLocked(ctx context.Context, step layout.Step, hash 
 		res.PhasesDetected, res.PhasesNote = ph.InScan(), ph.Describe()
 	}
 	scan.SetDrift(res, plan.Thresholds)
-	pf, wait, err := a.poreFilling(ctx, step, hash, man, plan)
+	pf, gt, wait, err := a.stepPair(ctx, step, hash, man, plan)
 	if err != nil {
 		return fmt.Errorf("aggregator: %s: pore-filling events: %w", step.Dir(), err)
 	}
@@ -489,7 +489,7 @@ func (a *Aggregator) completeLocked(ctx context.Context, step layout.Step, hash 
 			"step", step.Name(), "previous_step", wait, "param_hash", hash)
 		return nil
 	}
-	res.PoreFilling = pf
+	res.PoreFilling, res.GanglionTracking = pf, gt
 	b, err := json.MarshalIndent(res, "", "  ")
 	if err != nil {
 		return err

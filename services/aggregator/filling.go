@@ -10,15 +10,17 @@ import (
 	"strings"
 
 	"sluice/pkg/campaign"
+	"sluice/pkg/cluster"
 	"sluice/pkg/filling"
 	"sluice/pkg/layout"
 	"sluice/pkg/preview"
+	"sluice/pkg/tracking"
 	"sluice/pkg/volio"
 	"sluice/pkg/volume"
 )
 
-// Pore-filling events (package filling) compare a step with the step before
-// it, so they are computed here, when a step completes, and not by the
+// Pore-filling events (package filling) and ganglion tracking (package
+// tracking) compare a step with the step before it, so they are computed here, when a step completes, and not by the
 // workers: a worker of step k would need the labels of step k−1 for its
 // box, which another worker may still be writing, and a worker cannot wait
 // for that without spending deliveries (a slow or dead-lettered tile of
@@ -123,14 +125,15 @@ func (a *Aggregator) cachedManifest(ctx context.Context, s layout.Step) (campaig
 	return m, nil
 }
 
-// poreFilling returns the pore-filling events of step (manifest man, plan
-// plan under hash) against its previous step, or the name of the previous
-// step it must wait for (with the waiting note written). Callers hold
-// a.writing.
-func (a *Aggregator) poreFilling(ctx context.Context, step layout.Step, hash string, man campaign.Manifest, plan campaign.Plan) (*filling.Result, string, error) {
+// stepPair returns the pore-filling events and the ganglion tracking of
+// step against its previous step (tracking nil for the first step), or the
+// name of the previous step it must wait for (with the waiting note
+// written). Both come from one pass over the two steps' labels. Callers
+// hold a.writing.
+func (a *Aggregator) stepPair(ctx context.Context, step layout.Step, hash string, man campaign.Manifest, plan campaign.Plan) (*filling.Result, *tracking.Result, string, error) {
 	prev, pman, ok, err := a.previousStep(ctx, step, hash, man.TimeS)
 	if err != nil || !ok {
-		return filling.First(), "", err
+		return filling.First(), nil, "", err
 	}
 	exists := func(key string) (bool, error) {
 		_, err := a.Store.Get(ctx, key)
@@ -141,61 +144,93 @@ func (a *Aggregator) poreFilling(ctx context.Context, step layout.Step, hash str
 	}
 	done, err := exists(campaign.RunResultKey(prev, hash))
 	if err != nil {
-		return nil, "", err
+		return nil, nil, "", err
 	}
 	if !done {
 		failed, err := exists(campaign.FailureKey(prev, hash))
 		if err != nil {
-			return nil, "", err
+			return nil, nil, "", err
 		}
 		if failed {
-			return filling.Without(prev.Name(), fmt.Sprintf("previous step %s failed: no events computed", prev.Name())), "", nil
+			why := fmt.Sprintf("previous step %s failed: no events computed", prev.Name())
+			return filling.Without(prev.Name(), why), tracking.Without(prev.Name(), why), "", nil
 		}
 		if err := campaign.PutJSON(ctx, a.Store, campaign.WaitingKey(prev, hash), waiting{Step: step.Name()}); err != nil {
-			return nil, "", err
+			return nil, nil, "", err
 		}
-		return nil, prev.Name(), nil
+		return nil, nil, prev.Name(), nil
 	}
 	if pman.Shape != man.Shape {
-		return filling.Without(prev.Name(), fmt.Sprintf("previous step %s has shape %v, this step %v: no events computed", prev.Name(), pman.Shape, man.Shape)), "", nil
+		why := fmt.Sprintf("previous step %s has shape %v, this step %v: no events computed", prev.Name(), pman.Shape, man.Shape)
+		return filling.Without(prev.Name(), why), tracking.Without(prev.Name(), why), "", nil
 	}
 	pz, err := a.labelsOf(ctx, prev, hash)
 	if errors.Is(err, fs.ErrNotExist) {
-		return filling.Without(prev.Name(), fmt.Sprintf("the labels of step %s are not stored: no events computed", prev.Name())), "", nil
+		why := fmt.Sprintf("the labels of step %s are not stored: no events computed", prev.Name())
+		return filling.Without(prev.Name(), why), tracking.Without(prev.Name(), why), "", nil
 	}
 	if err != nil {
-		return nil, "", err
+		return nil, nil, "", err
 	}
 	cz, err := a.labelsOf(ctx, step, hash)
 	if errors.Is(err, fs.ErrNotExist) {
-		return filling.Without(prev.Name(), fmt.Sprintf("the labels of step %s are not stored: no events computed", step.Name())), "", nil
+		why := fmt.Sprintf("the labels of step %s are not stored: no events computed", step.Name())
+		return filling.Without(prev.Name(), why), tracking.Without(prev.Name(), why), "", nil
 	}
 	if err != nil {
-		return nil, "", err
+		return nil, nil, "", err
 	}
 	whole := man.Whole()
 	codes := plan.Config.Segment.Codes
+	mo, err := plan.Config.MeasureOptions()
+	if err != nil {
+		return nil, nil, "", err
+	}
+	copt := cluster.Options{Connectivity: mo.Connectivity, FlowAxis: mo.FlowAxis}
 	var tiles []*filling.Tile
+	var links []*tracking.Tile
 	for _, core := range plan.Tiling(man).Cores() {
 		p, err := readLabels(ctx, pz, core)
 		if err != nil {
-			return nil, "", fmt.Errorf("aggregator: labels of step %s: %w", prev.Name(), err)
+			return nil, nil, "", fmt.Errorf("aggregator: labels of step %s: %w", prev.Name(), err)
 		}
 		c, err := readLabels(ctx, cz, core)
 		if err != nil {
-			return nil, "", fmt.Errorf("aggregator: labels of step %s: %w", step.Name(), err)
+			return nil, nil, "", fmt.Errorf("aggregator: labels of step %s: %w", step.Name(), err)
 		}
 		t, err := filling.TileOf(p, c, core, whole, codes)
 		if err != nil {
-			return nil, "", err
+			return nil, nil, "", err
 		}
 		tiles = append(tiles, t)
+		lt, err := tracking.TileOf(p, c, core, whole, codes, copt)
+		if err != nil {
+			return nil, nil, "", err
+		}
+		links = append(links, lt)
 	}
 	d, im, err := filling.Join(tiles, whole)
 	if err != nil {
-		return nil, "", err
+		return nil, nil, "", err
 	}
-	return filling.Between(prev.Name(), d, im, man.VoxelSize, man.TimeS-pman.TimeS), "", nil
+	l, err := tracking.Join(links, whole, copt)
+	if err != nil {
+		return nil, nil, "", err
+	}
+	// The previous step's trapped ganglia as its result recorded them, for
+	// their births (none recorded: born at the previous step).
+	var before struct {
+		T *tracking.Result `json:"ganglion_tracking"`
+	}
+	if err := campaign.GetJSON(ctx, a.Store, campaign.RunResultKey(prev, hash), &before); err != nil {
+		return nil, nil, "", err
+	}
+	var rec []tracking.Trapped
+	if before.T != nil {
+		rec = before.T.Trapped
+	}
+	return filling.Between(prev.Name(), d, im, man.VoxelSize, man.TimeS-pman.TimeS),
+		tracking.Track(l, prev.Name(), pman.TimeS, step.Name(), man.TimeS, rec), "", nil
 }
 
 // waiting is the content of campaign.WaitingKey.
@@ -226,7 +261,7 @@ func readLabels(ctx context.Context, z *volio.Zarr, box volume.Box) (*volume.Lab
 	return l, nil
 }
 
-// completeWaiting completes the step waiting for step (see poreFilling),
+// completeWaiting completes the step waiting for step (see stepPair),
 // if any. Callers hold a.writing.
 func (a *Aggregator) completeWaiting(ctx context.Context, step layout.Step, hash string) error {
 	var w waiting

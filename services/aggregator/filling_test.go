@@ -15,6 +15,7 @@ import (
 	"sluice/pkg/preview"
 	"sluice/pkg/series"
 	"sluice/pkg/store"
+	"sluice/pkg/tracking"
 	"sluice/pkg/volio"
 	"sluice/pkg/volume"
 	"sluice/proto/sluicepb"
@@ -24,7 +25,7 @@ import (
 // tiles, each with its label array and tile results, as the workers leave
 // them:
 //
-//	s1 (t = 10 s)  wetting, a solid wall at x < 2
+//	s1 (t = 10 s)  wetting, a solid wall at x < 2, a trapped nonwetting box G (z 2–3, y 12–13, x 4–5) kept throughout
 //	s2 (t = 20 s)  + drainage of the box z 6–9, y 6–9, x 6–9 (64 voxels, in all eight tiles)
 //	s3 (t = 30 s)  its half z 6–7 imbibed (32 voxels), and a drainage of z 12–13, y 2–3, x 12–13 (8 voxels)
 type fillingEnv struct {
@@ -69,6 +70,7 @@ func newFillingEnv(t *testing.T) *fillingEnv {
 	}
 	fill([6]int{0, 16, 0, 16, 0, 16}, 1)
 	fill([6]int{0, 16, 0, 16, 0, 2}, 0)
+	fill([6]int{2, 4, 12, 14, 4, 6}, 2) // G: trapped and unchanged in every step
 	for i, name := range fillingSteps {
 		switch i {
 		case 1:
@@ -198,6 +200,26 @@ func TestFillingInOrder(t *testing.T) {
 			t.Errorf("s3 imbibition centroid %v m, want (7, 8, 8) µm", c)
 		}
 	}
+	// Ganglion tracking (Source: by construction): s2's box is one trapped
+	// ganglion that appeared (born s2); in s3 its remaining half z 8–9 (32
+	// voxels) is its one-to-one successor, moved, still born s2 (lifetime
+	// 10 s), the new 8-voxel box appeared, and G is born s1 (read back from
+	// s2's result: lifetime 20 s); trapped saturation (32 + 8 + 8) /
+	// (16³ − 512 wall voxels) = 48/3584.
+	s3, _ := e.c.Step("s3")
+	var r3 struct {
+		T *tracking.Result `json:"ganglion_tracking"`
+	}
+	if err := campaign.GetJSON(context.Background(), e.st, campaign.RunResultKey(s3, e.hash), &r3); err != nil || r3.T == nil {
+		t.Fatalf("s3 tracking: %v", err)
+	}
+	g := r3.T
+	if g.OneToOne != 2 || g.Appeared != 1 || g.Splits+g.Merges+g.Vanished != 0 || len(g.Trapped) != 3 ||
+		g.Trapped[0].BornStep != "s2" || g.Trapped[0].LifetimeS != 10 || !g.Trapped[0].Moved ||
+		g.Trapped[1].BornStep != "s1" || g.Trapped[1].LifetimeS != 20 || g.Trapped[1].Moved || g.Trapped[2].BornStep != "s3" ||
+		g.TrappedMovedFraction == nil || *g.TrappedMovedFraction != 0.5 || g.TrappedSaturation == nil || *g.TrappedSaturation != 48.0/3584 {
+		t.Errorf("s3 tracking %+v", g)
+	}
 	rows, err := series.Load(context.Background(), e.st, "c")
 	if err != nil {
 		t.Fatal(err)
@@ -216,6 +238,9 @@ func TestFillingInOrder(t *testing.T) {
 		col[h] = i
 	}
 	last := strings.Split(lines[3], ",")
+	if last[col["tracking_one_to_one"]] != "2" || last[col["tracking_trapped_moved_fraction"]] != "0.5" || last[col["tracking_appeared"]] != "1" {
+		t.Errorf("CSV tracking columns: %s", lines[3])
+	}
 	if last[col["pore_filling_drainage_count"]] != "1" || last[col["pore_filling_imbibition_count"]] != "1" ||
 		last[col["pore_filling_imbibition_rate_per_s"]] != "0.1" || strings.Split(lines[1], ",")[col["pore_filling_drainage_count"]] != "" {
 		t.Errorf("CSV:\n%s", csv)
