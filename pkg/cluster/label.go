@@ -101,6 +101,16 @@ type Tile struct {
 	// of that nonwetting piece, which lies in another tile's Rim; Join
 	// adds the sums to the ganglion there.
 	CurvForeign []Foreign `json:"curv_foreign,omitempty"`
+	// Euler8[i-1] is 8 times the share of local component i in the Euler
+	// characteristic of its ganglion: the 2×2×2 cell weights (package
+	// morph, with the tile's connectivity) of the cells this tile owns,
+	// each cell's set voxels split by the component they belong to (set by
+	// package measure with the curvature attribution; cells whose set
+	// voxels all lie outside the core go to CurvForeign like the curvature
+	// sums). Nil when not measured or in results written before it
+	// existed. Adds over the tiles of a ganglion in Join; the sum over all
+	// ganglia is 8 × the phase's Euler characteristic.
+	Euler8 []int64 `json:"euler8,omitempty"`
 	// RimDepth is the number of core layers on each side kept in Rim: the
 	// local ids of planes 0..RimDepth−1 from each of the six faces, plane
 	// (2a+side)·RimDepth + d at depth d from face 2a+side, laid out as
@@ -115,6 +125,8 @@ type Foreign struct {
 	At        [3]int  `json:"at"`
 	Area      float64 `json:"area"`
 	KappaArea float64 `json:"kappa_area"`
+	// Euler8 is 8 × an Euler-characteristic share (see Tile.Euler8).
+	Euler8 int64 `json:"euler8,omitempty"`
 }
 
 // HasCurvature reports whether the tile carries per-component curvature

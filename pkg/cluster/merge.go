@@ -23,7 +23,16 @@ type Ganglion struct {
 	// when Merged.Curvature is set.
 	CurvArea      float64 `json:"curv_area,omitempty"`
 	CurvKappaArea float64 `json:"curv_kappa_area,omitempty"`
+	// Euler8 is 8 × the ganglion's Euler characteristic (connectivity of
+	// the clusters), the sum of the tiles' Tile.Euler8 shares. Valid only
+	// when Merged.Euler is set.
+	Euler8 int64 `json:"euler8,omitempty"`
 }
+
+// Euler returns the ganglion's Euler characteristic (components − tunnels
+// + cavities, with the connectivity of the clusters); valid only when
+// Merged.Euler is set.
+func (g Ganglion) Euler() int64 { return g.Euler8 / 8 }
 
 // Connected reports whether the ganglion touches the inlet or the outlet
 // face: the definition Summary uses for connected and trapped volume.
@@ -45,6 +54,10 @@ type Merged struct {
 	// CurvatureErr says why Curvature is false although every tile carried
 	// sums (a sum that could not be placed); empty otherwise.
 	CurvatureErr string
+	// Euler reports whether every tile carried per-component Euler shares
+	// (Tile.Euler8) besides the curvature sums, so that Ganglion.Euler8
+	// holds each ganglion's whole Euler characteristic.
+	Euler bool
 }
 
 // forest is a disjoint-set forest with union by size and path compression
@@ -116,10 +129,11 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 	for i := range index {
 		index[i] = -1
 	}
-	m := &Merged{Local: make([][]int32, len(tiles)), Curvature: true}
+	m := &Merged{Local: make([][]int32, len(tiles)), Curvature: true, Euler: true}
 	for t, tl := range tiles {
 		curv := tl.HasCurvature()
 		m.Curvature = m.Curvature && curv
+		m.Euler = m.Euler && curv && len(tl.Euler8) == len(tl.Sizes)
 		m.Local[t] = make([]int32, len(tl.Sizes))
 		for i, sz := range tl.Sizes {
 			r := uf.find(int32(base[t]) + int32(i) + 1)
@@ -135,6 +149,9 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 			if curv && len(tl.CurvArea) > 0 {
 				m.Ganglia[g].CurvArea += tl.CurvArea[i]
 				m.Ganglia[g].CurvKappaArea += tl.CurvKappaArea[i]
+			}
+			if len(tl.Euler8) == len(tl.Sizes) {
+				m.Ganglia[g].Euler8 += tl.Euler8[i]
 			}
 			m.Local[t][i] = g
 		}
@@ -175,15 +192,16 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 				if err != nil {
 					// Inconsistent tile results: report no per-ganglion
 					// curvature rather than a partial one.
-					m.Curvature = false
+					m.Curvature, m.Euler = false, false
 					m.CurvatureErr = fmt.Sprintf("tile %d: curvature sum at %v: %v", t, f.At, err)
 					for i := range m.Ganglia {
-						m.Ganglia[i].CurvArea, m.Ganglia[i].CurvKappaArea = 0, 0
+						m.Ganglia[i].CurvArea, m.Ganglia[i].CurvKappaArea, m.Ganglia[i].Euler8 = 0, 0, 0
 					}
 					break foreign
 				}
 				m.Ganglia[g].CurvArea += f.Area
 				m.Ganglia[g].CurvKappaArea += f.KappaArea
+				m.Ganglia[g].Euler8 += f.Euler8
 			}
 		}
 	}
@@ -282,6 +300,9 @@ func checkTiles(tiles []*Tile, whole volume.Box, opt Options) error {
 		}
 		if (len(tl.CurvArea) != 0 || len(tl.CurvKappaArea) != 0) && (len(tl.CurvArea) != len(tl.Sizes) || len(tl.CurvKappaArea) != len(tl.Sizes)) {
 			return fmt.Errorf("cluster: tile %d has %d sizes, %d and %d curvature sums", t, len(tl.Sizes), len(tl.CurvArea), len(tl.CurvKappaArea))
+		}
+		if len(tl.Euler8) != 0 && len(tl.Euler8) != len(tl.Sizes) {
+			return fmt.Errorf("cluster: tile %d has %d sizes, %d Euler shares", t, len(tl.Sizes), len(tl.Euler8))
 		}
 		n := tl.Core.Size()
 		if tl.RimDepth < 0 || len(tl.Rim) != 6*tl.RimDepth {

@@ -260,7 +260,7 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 	}
 	wg.Wait()
 	if attribute {
-		attributeGanglia(p, att, look, lab, non, core.Grow(rim).Intersect(lab.Box), opt.clusterOptions())
+		attributeGanglia(p, att, look, lab, non, core.Grow(rim).Intersect(lab.Box), whole, opt.clusterOptions())
 	}
 	look.Release()
 	return p, nil
@@ -275,7 +275,10 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 // otherwise to Clusters.CurvForeign, named by the piece's first voxel in
 // raster order, which lies in the rim of the tile owning it
 // (cluster.Resolver).
-func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Lookup, lab *volume.Labels, non *phase.Set, box volume.Box, co cluster.Options) {
+//
+// It also splits the Euler characteristic of the nonwetting phase by
+// ganglion (Clusters.Euler8, eulerShares).
+func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Lookup, lab *volume.Labels, non *phase.Set, box, whole volume.Box, co cluster.Options) {
 	t := p.Clusters
 	t.CurvArea = make([]float64, len(t.Sizes))
 	t.CurvKappaArea = make([]float64, len(t.Sizes))
@@ -347,6 +350,15 @@ func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Look
 		s.W += a.W
 		s.X += a.K
 	}
+	eulerShares(t, look, lab, non, whole, co, extOwner, func(piece int32, e8 int64) {
+		i, ok := foreign[piece]
+		if !ok {
+			i = len(t.CurvForeign)
+			foreign[piece] = i
+			t.CurvForeign = append(t.CurvForeign, cluster.Foreign{At: ext.First(piece)})
+		}
+		t.CurvForeign[i].Euler8 += e8
+	})
 	ext.Release()
 	p.GangliaBlocks = make([]OwnedBlock, 0, len(acc))
 	for _, s := range acc {
@@ -370,6 +382,124 @@ func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Look
 		}
 		return 0
 	})
+}
+
+// eulerShares sets t.Euler8: 8 × each local component's share of the Euler
+// characteristic of its ganglion. Every 2×2×2 cell the tile owns in the
+// padded image (the cells of measure's Padded histogram) holding some but
+// not all nonwetting voxels has its set voxels split by the nonwetting
+// piece (labelled on the attribution box, owner) each belongs to, and each
+// piece's sub-configuration weighs 8χ by the connectivity's table (package
+// morph). With 26-connectivity the set voxels of a cell are all neighbours,
+// so one piece holds them and the cell weight goes whole to it; with
+// 6-connectivity the weight adds over pieces that share no face, which
+// different pieces never do. So the shares of all ganglia add up to the
+// phase's 8χ exactly, and each ganglion's to its own 8χ (Ohser & Mücklich
+// 2000, ch. 4: the Euler characteristic of a union of disjoint bodies is
+// the sum of theirs). A piece reaching the core gives its share to a local
+// component of the same ganglion; another goes to foreign (a piece of a
+// neighbouring tile, placed through its rim by cluster.Join).
+func eulerShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, non *phase.Set, whole volume.Box, co cluster.Options,
+	owner func(v [3]int) (local, piece int32), foreign func(piece int32, e8 int64)) {
+	core := t.Core
+	t.Euler8 = make([]int64, len(t.Sizes))
+	_, _, _, w := morph.Weights()
+	dual := co.Connectivity != 6 // 26: w26[c] = w6[255 − c]
+	po := paddedOrigins(t.Core, whole)
+	// Indicator of the cells' voxels (origins + 1 on the high side); voxels
+	// outside the image or the tile data read 0.
+	vb := po
+	for a := 0; a < 3; a++ {
+		vb.Max[a]++
+	}
+	nv := vb.Size()
+	ind := make([]uint8, nv[0]*nv[1]*nv[2])
+	in := vb.Intersect(whole).Intersect(lab.Box)
+	for z := in.Min[0]; z < in.Max[0]; z++ {
+		for y := in.Min[1]; y < in.Max[1]; y++ {
+			src := lab.Pix[lab.Index(z, y, in.Min[2]):][:in.Max[2]-in.Min[2]]
+			dst := ind[((z-vb.Min[0])*nv[1]+y-vb.Min[1])*nv[2]+in.Min[2]-vb.Min[2]:][:len(src)]
+			for i, v := range src {
+				if non[v] {
+					dst[i] = 1
+				}
+			}
+		}
+	}
+	var off [8]int
+	for b := 0; b < 8; b++ {
+		off[b] = (b>>2&1*nv[1]+b>>1&1)*nv[2] + b&1
+	}
+	no := po.Size()
+	for z := 0; z < no[0]; z++ {
+		for y := 0; y < no[1]; y++ {
+			row := (z*nv[1] + y) * nv[2]
+			for x := 0; x < no[2]; x++ {
+				i := row + x
+				c := 0
+				for b := 0; b < 8; b++ {
+					c |= int(ind[i+off[b]]) << b
+				}
+				if c == 0 || c == 255 {
+					continue // weight 0 either way
+				}
+				var pieces, locals [8]int32
+				var masks [8]int
+				n := 0
+				// A cell inside the core needs only the tile's own labels:
+				// with 26-connectivity one set voxel names the ganglion of
+				// all; with 6, voxels of different local components share
+				// no face. Otherwise the pieces of the attribution box
+				// name the owners of all its voxels.
+				var vs [8][3]int
+				inCore := true
+				for b := 0; b < 8; b++ {
+					vs[b] = [3]int{vb.Min[0] + z + b>>2&1, vb.Min[1] + y + b>>1&1, vb.Min[2] + x + b&1}
+					if c>>b&1 == 1 && !core.Contains(vs[b][0], vs[b][1], vs[b][2]) {
+						inCore = false
+					}
+				}
+				for b := 0; b < 8; b++ {
+					if c>>b&1 == 0 {
+						continue
+					}
+					var l, pc int32
+					if inCore {
+						l = look.At(vs[b][0], vs[b][1], vs[b][2])
+						pc = -l
+					} else {
+						l, pc = owner(vs[b])
+					}
+					if dual {
+						pieces[0], locals[0], masks[0], n = pc, l, c, 1
+						break
+					}
+					k := 0
+					for k < n && pieces[k] != pc {
+						k++
+					}
+					if k == n {
+						pieces[k], locals[k] = pc, l
+						n++
+					}
+					masks[k] |= 1 << b
+				}
+				for k := 0; k < n; k++ {
+					e8 := w[masks[k]]
+					if dual {
+						e8 = w[255-masks[k]]
+					}
+					switch {
+					case e8 == 0:
+					case locals[k] > 0:
+						t.Euler8[locals[k]-1] += e8
+					default:
+						foreign(pieces[k], e8)
+					}
+				}
+			}
+		}
+	}
 }
 
 // countPhases fills p.Counts over core.
