@@ -32,6 +32,8 @@
 //	pore_filling        drainage and imbibition pore-filling event rates (1/s) against time,
 //	                    and the event-volume distribution of the latest step with events
 //	                    (bins that double, x = log₁₀ of the bin's low edge in µm³)
+//	ganglion_tracking   trapped saturation and the fraction of trapped ganglia that moved
+//	                    (top), ganglion splits and merges per step (bottom), against time
 //
 // Every figure's title names the campaign and the run (short parameter
 // hash). Time axes are in s, min or h chosen by the campaign's length (see
@@ -82,7 +84,7 @@ const AngleBin = 5
 
 // Names lists the figures in the order Build returns them.
 var Names = []string{"saturation", "capillary_pressure", "curvature", "specific_area",
-	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile", "pore_filling", "contact_angles"}
+	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile", "pore_filling", "contact_angles", "ganglion_tracking"}
 
 // Unit texts of the figures' axes, written the same way in the report
 // and on the live page. Dimensionless quantities carry "–".
@@ -151,7 +153,7 @@ func Build(rows []series.Row, evs []events.Event, run Run) []Figure {
 	b := builder{rows: rows, evs: evs, unit: unit, perUnit: per}
 	figs := []Figure{
 		b.saturation(), b.pressure(), b.curvature(), b.area(),
-		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(), b.filling(), b.wettability(),
+		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(), b.filling(), b.wettability(), b.tracking(),
 	}
 	for i := range figs {
 		f := &figs[i]

@@ -76,6 +76,10 @@ func drainage(n, nullPc int) []series.Row {
 				i-1, i, i, float64(i)*1e-18, float64(i)/40, i)
 		}
 		rows[i].Extra["pore_filling"] = json.RawMessage(pf)
+		if i > 0 {
+			rows[i].Extra["ganglion_tracking"] = json.RawMessage(fmt.Sprintf(`{"previous_step":"s%03d","one_to_one":3,"splits":%d,"merges":1,"appeared":0,"vanished":0,`+
+				`"trapped_saturation":%g,"trapped_moved_fraction":0.5,"trapped_lifetime_mean_s":%d,"trapped":[]}`, i-1, i%3, 0.01*float64(i), 40*i))
+		}
 		rows[i].FrontPosition = fp(float64(reach) * 0.0005)
 	}
 	return rows

@@ -15,6 +15,7 @@ package report
 
 import (
 	"bytes"
+	"encoding/json"
 	"fmt"
 	"html/template"
 	"io"
@@ -179,8 +180,11 @@ type page struct {
 	Fronts  []frontRow
 	// Filling is the pore-filling events figure; FillingRows the events
 	// per step.
-	Filling        []figure
-	FillingRows    []fillingRow
+	Filling     []figure
+	FillingRows []fillingRow
+	// Tracking is the ganglion-tracking figure; TrackingRows its table.
+	Tracking       []figure
+	TrackingRows   []trackingRow
 	FrontThreshold string
 	// Angles is the wettability table; Wettability its figure.
 	Angles         []angleRow
@@ -253,6 +257,7 @@ func Write(w io.Writer, in Input) error {
 	}
 	pg.Fronts, pg.FrontThreshold = fronts(rows)
 	pg.FillingRows = fillingTable(rows)
+	pg.TrackingRows = trackingTable(rows)
 	pg.Angles = angleTable(rows)
 	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps, in.VoxelSize)
 	pg.CampaignTh = viewCampaign(in.FixedThresholds)
@@ -278,6 +283,8 @@ func Write(w io.Writer, in Input) error {
 			pg.Profile = append(pg.Profile, fg)
 		} else if f.Name == "pore_filling" {
 			pg.Filling = append(pg.Filling, fg)
+		} else if f.Name == "ganglion_tracking" {
+			pg.Tracking = append(pg.Tracking, fg)
 		} else if f.Name == "contact_angles" {
 			pg.Wettability = append(pg.Wettability, fg)
 		} else {
@@ -311,6 +318,72 @@ func fronts(rows []series.Row) ([]frontRow, string) {
 			Position: f(r.FrontPosition, 1e3, 3), Velocity: f(r.FrontVelocity, 1e6, 3)})
 	}
 	return out, thr
+}
+
+// trackingRow is one line of the ganglion-tracking table.
+type trackingRow struct {
+	Step, Time, Previous, Links, Trapped, Moved, Lifetime, Oldest, Note string
+}
+
+// trackingTable tabulates the ganglion tracking of every step: the links
+// (one-to-one / splits / merges / appeared / vanished), the trapped
+// saturation, the fraction of trapped ganglia that moved, the mean lifetime
+// and the longest-lived trapped ganglion.
+func trackingTable(rows []series.Row) []trackingRow {
+	var out []trackingRow
+	for i := range rows {
+		r := &rows[i]
+		tr := trackingRow{Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64), Previous: "—", Links: "—",
+			Trapped: "—", Moved: "—", Lifetime: "—", Oldest: "—"}
+		b, ok := r.Extra["ganglion_tracking"]
+		var g struct {
+			Previous *string  `json:"previous_step"`
+			One      int      `json:"one_to_one"`
+			Split    int      `json:"splits"`
+			Merge    int      `json:"merges"`
+			Appear   int      `json:"appeared"`
+			Vanish   int      `json:"vanished"`
+			Sat      *float64 `json:"trapped_saturation"`
+			Moved    *float64 `json:"trapped_moved_fraction"`
+			Life     *float64 `json:"trapped_lifetime_mean_s"`
+			Trapped  []struct {
+				Voxels    int64   `json:"voxels"`
+				BornStep  string  `json:"born_step"`
+				LifetimeS float64 `json:"lifetime_s"`
+			} `json:"trapped"`
+			Note string `json:"note"`
+		}
+		if !ok || json.Unmarshal(b, &g) != nil {
+			out = append(out, tr)
+			continue
+		}
+		if g.Previous != nil {
+			tr.Previous = *g.Previous
+		}
+		tr.Note = g.Note
+		if g.Note == "" {
+			tr.Links = fmt.Sprintf("%d / %d / %d / %d / %d", g.One, g.Split, g.Merge, g.Appear, g.Vanish)
+		}
+		f := func(p *float64, prec int) string {
+			if p == nil {
+				return "—"
+			}
+			return strconv.FormatFloat(*p, 'f', prec, 64)
+		}
+		tr.Trapped, tr.Moved, tr.Lifetime = f(g.Sat, 4), f(g.Moved, 3), f(g.Life, 1)
+		best := -1
+		for k, t := range g.Trapped {
+			if best < 0 || t.LifetimeS > g.Trapped[best].LifetimeS {
+				best = k
+			}
+		}
+		if best >= 0 {
+			t := g.Trapped[best]
+			tr.Oldest = fmt.Sprintf("%d voxels, since %s (%s s)", t.Voxels, t.BornStep, strconv.FormatFloat(t.LifetimeS, 'f', 1, 64))
+		}
+		out = append(out, tr)
+	}
+	return out
 }
 
 // fillingTable tabulates the pore-filling events of every step: counts,
@@ -573,6 +646,27 @@ even at rest: they are counted, and fill the smallest bins of the volume distrib
 <tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.Previous}}</td><td>{{.Interval}}</td><td>{{.DCount}}</td><td>{{.DVolume}}</td><td>{{.DRate}}</td><td>{{.IMCount}}</td><td>{{.IMVolume}}</td><td>{{.IMRate}}</td><td>{{.Largest}}{{if .Note}} ({{.Note}}){{end}}</td></tr>{{end}}
 </table>
 {{range .Filling}}<figure id="{{.ID}}">
+{{.SVG}}
+<figcaption>{{.Caption}}</figcaption>
+</figure>
+{{end}}</section>
+
+<section id="ganglion-tracking">
+<h2>Ganglion tracking</h2>
+<p>The nonwetting ganglia (connected clusters, the measurement's connectivity, whole volume) of the previous step
+and of this one are linked where they share voxels: one-to-one (one earlier ganglion, one later ganglion, no
+other link of either), split (an earlier ganglion linked to several later ones), merge (a later ganglion linked to
+several earlier ones), appeared (a later ganglion without earlier one), vanished (an earlier ganglion without later
+one). A ganglion is trapped when it touches neither the inlet nor the outlet face. A trapped ganglion keeps the
+birth of a trapped predecessor it is linked to one-to-one and is born anew after a split, a merge or on appearing;
+ganglia present when tracking starts count as born then, so lifetimes are lower bounds. The trapped saturation is
+the trapped nonwetting volume over the pore volume; a trapped ganglion moved when its one-to-one trapped
+predecessor had other voxels (segmentation noise at its surface counts as a move).</p>
+<table id="tracking-table">
+<tr><th>step</th><th>t (s)</th><th>previous</th><th>one-to-one / splits / merges / appeared / vanished</th><th>trapped saturation</th><th>trapped ganglia moved (fraction)</th><th>mean lifetime (s)</th><th>longest-lived trapped ganglion</th></tr>{{range .TrackingRows}}
+<tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.Previous}}</td><td>{{.Links}}</td><td>{{.Trapped}}</td><td>{{.Moved}}</td><td>{{.Lifetime}}</td><td>{{.Oldest}}{{if .Note}} ({{.Note}}){{end}}</td></tr>{{end}}
+</table>
+{{range .Tracking}}<figure id="{{.ID}}">
 {{.SVG}}
 <figcaption>{{.Caption}}</figcaption>
 </figure>

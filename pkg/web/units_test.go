@@ -200,3 +200,37 @@ func TestPageAnglePoints(t *testing.T) {
 		t.Errorf("anglePts: %s\nwant %s", got, want)
 	}
 }
+
+// TestPageTrackingPoints runs the page's trackingPts (app.js) in Node: the
+// trapped saturation and moved fraction as stored (Source: the rows
+// below), null without tracking or when the object carries a note.
+func TestPageTrackingPoints(t *testing.T) {
+	node, err := exec.LookPath("node")
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatal("node is not installed (scripts/setup-test-env installs it)")
+		}
+		t.Skip("node is not installed")
+	}
+	b, err := static.ReadFile("static/app.js")
+	if err != nil {
+		t.Fatal(err)
+	}
+	fn := regexp.MustCompile(`(?s)\nfunction trackingPts\(series\) \{.*?\n\}\n`).FindString(string(b))
+	if fn == "" {
+		t.Fatal("app.js has no function trackingPts(series)")
+	}
+	script := "function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }\n" + fn +
+		`const s = [{ step: "a", time_s: 0 },
+		  { step: "b", time_s: 10, ganglion_tracking: { trapped_saturation: 0.125, trapped_moved_fraction: 0.5 } },
+		  { step: "c", time_s: 20, ganglion_tracking: { trapped_saturation: 0, trapped_moved_fraction: null, note: "previous step b failed" } }];
+		console.log(JSON.stringify(trackingPts(s)));`
+	out, err := exec.Command(node, "-e", script).CombinedOutput()
+	if err != nil {
+		t.Fatalf("node: %v\n%s", err, out)
+	}
+	want := `{"trapped":[[0,null],[10,0.125],[20,null]],"moved":[[0,null],[10,0.5],[20,null]]}`
+	if got := strings.TrimSpace(string(out)); got != want {
+		t.Errorf("trackingPts: %s\nwant %s", got, want)
+	}
+}

@@ -160,6 +160,15 @@ function anglePts(series, tuS) {
     thermo: at("contact_angle_thermodynamic_deg") };
 }
 
+// trackingPts returns the trapped saturation and the fraction of trapped
+// ganglia that moved since the previous step as [time (s), value] points
+// (null where a step has no tracking or its object carries a note).
+function trackingPts(series) {
+  const v = (r, k) => { const g = r.ganglion_tracking; return g && !g.note ? num(g[k]) : null; };
+  return { trapped: series.map(r => [r.time_s, v(r, "trapped_saturation")]),
+    moved: series.map(r => [r.time_s, v(r, "trapped_moved_fraction")]) };
+}
+
 function draw() {
   TU = timeUnit();
   const tl = `time t (${TU.name})`;
@@ -200,6 +209,9 @@ function draw() {
   qs("filling-step").textContent = fill.step ? `(volumes: step ${fill.step})` : "";
   plot(qs("plot-filling-hist"), [{ name: "drainage", color: C.b, marker: "circle", pts: fill.histD },
     { name: "imbibition", color: C.a, marker: "square", pts: fill.histI }], "event volume log₁₀(V / µm³), bins of ×2", `events per bin (${U.none})`, { ymin: 0 });
+  const trk = trackingPts(state.series);
+  plot(qs("plot-tracking"), [{ name: "trapped saturation", color: C.b, marker: "circle", pts: perTU(trk.trapped) },
+    { name: "trapped ganglia that moved", color: C.a, marker: "square", pts: perTU(trk.moved) }], tl, `fraction (${U.none})`, { ymin: 0, ymax: 1 });
   const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s / TU.s, s.latency_s]);
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], tl, "ingest → series (s)", { ymin: 0 });
   summary(last);
