@@ -688,7 +688,8 @@ the changes of the nonwetting volume and the interfacial areas between the two s
 the two steps' capillary pressure of the connected nonwetting phase (the phase at the pressure the pumps impose;
 trapped ganglia keep the curvature they had when cut off), σ the interfacial tension. It assumes both steps are
 at equilibrium; its standard error carries that of P<sub>c</sub> only. It is blank for the first step, without a
-connected P<sub>c</sub> or σ, and when |cos θ<sub>t</sub>| &gt; 1 (the cosine is still shown): no angle balances
+connected P<sub>c</sub> or σ, when A<sub>ns</sub> changed by less than 1 % (segmentation noise between steps at
+rest reaches 0.4 %), and when |cos θ<sub>t</sub>| &gt; 1 (the cosine is still shown): no angle balances
 the energy, because the steps were not at equilibrium or the change of A<sub>ns</sub> is small against the errors
 of the areas. Large steps bias it: the mean of two P<sub>c</sub> stands for ∫P<sub>c</sub> dV.</p>
 <table id="angle-table">

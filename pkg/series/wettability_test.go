@@ -87,6 +87,8 @@ func TestThermodynamicAngleAnalytic(t *testing.T) {
 		"other σ":         func(r *Row) { s := 0.07; r.IFT = &s },
 		"no voxel count":  func(r *Row) { delete(r.Extra, "voxels_nonwetting") },
 		"same A_ns":       func(r *Row) { v := 0.0; r.AreaNS = &v },
+		// Below MinAreaChange: A_ns 0.5 % apart (the step grows it by 2 %).
+		"A_ns change 0.5 %": func(r *Row) { v := *r.AreaNS * 1.015; r.AreaNS = &v },
 	} {
 		rows := []Row{analyticRow("s1", 0, r1, 60, h, sigma, nil), analyticRow("s2", 60, r1*1.01, 60, h, sigma, nil)}
 		spoil(&rows[0])
