@@ -16,7 +16,7 @@ import "strings"
 var Packages = []string{
 	"aggregator", "blockse", "campaign", "cluster", "contact", "curvature", "distance", "equilibrium", "events", "filling", "filter",
 	"forward", "ingest", "layout", "levelset", "measure", "mesh", "morph", "phase", "plots",
-	"preview", "queue", "register", "report", "scan", "scenario", "segment", "series", "store", "synth",
+	"preview", "queue", "register", "report", "riglog", "scan", "scenario", "segment", "series", "store", "synth",
 	"telemetry", "tracking", "volio", "volume", "web", "worker",
 }
 

@@ -23,6 +23,7 @@ import (
 	"sluice/pkg/curvature"
 	"sluice/pkg/events"
 	"sluice/pkg/measure"
+	"sluice/pkg/riglog"
 	"sluice/pkg/segment"
 	"sluice/pkg/volume"
 )
@@ -62,6 +63,14 @@ type Config struct {
 	// K = 3 steps, |ΔS_w| ≤ 0.005, |ΔPc|/Pc ≤ 0.02). They do not change
 	// measurements, so they are not part of the parameter hash.
 	Events Events `json:"events" yaml:"events"`
+	// RigLog maps the columns of the flow rig's CSV log (time, injected
+	// volume or rate, pressures, temperature) with their units, and sets
+	// the clock offset, the interpolation and what the derived quantities
+	// need (viscosity, cross-section, pore volume); package riglog. It
+	// changes series values (pore volumes injected, capillary number), so
+	// it is part of the parameter hash; absent, the hash is that of a
+	// campaign written before it existed.
+	RigLog *riglog.Config `json:"rig_log,omitempty" yaml:"rig_log,omitempty"`
 }
 
 // Events tune the experiment-event detection (package events).
@@ -164,6 +173,11 @@ func (c Config) Validate() error {
 	mo, err := c.MeasureOptions()
 	if err != nil {
 		return err
+	}
+	if c.RigLog != nil {
+		if err := c.RigLog.Validate(); err != nil {
+			return fmt.Errorf("campaign: %w", err)
+		}
 	}
 	if err := c.EventOptions().Validate(); err != nil {
 		return fmt.Errorf("campaign: events: %w", err)

@@ -41,6 +41,7 @@ func (c Config) Set(assignments []string) (Config, error) {
 		return c, fmt.Errorf("campaign: --set: %w", err)
 	}
 	out := c
+	out.RigLog = c.RigLog.Clone() // decoded into below: c keeps its own
 	if e := unknownKey(b, reflect.TypeOf(c)); e != nil {
 		return c, fmt.Errorf("config: --set: %w", e)
 	}

@@ -108,6 +108,19 @@ type Result struct {
 	EulerWetting    int64 `json:"euler_wetting"`
 	EulerSolid      int64 `json:"euler_solid"`
 
+	// Geometric state of the fluids (McClure, Armstrong, Berrill, Schlüter,
+	// Berg, Gray & Miller 2018, Phys. Rev. Fluids 3:084306): with S_w
+	// (saturation_wetting), a_wn (specific_area_wn_per_m) and χ_n
+	// (euler_nonwetting), the integral of the mean curvature
+	// H = (k1 + k2)/2 over the w–n interface, J_wn = ∫H dA (m), in the
+	// convention of the Minkowski functional M = ∫H dS (science.md: a ball
+	// of radius r has 4πr), normal out of the nonwetting phase. It is
+	// estimated as A_wn·κ̄/2 (geometric.go), and given per bulk volume as
+	// well, like χ_n. Null without the curvature measurement.
+	MeanCurvIntegralWN      *float64 `json:"mean_curvature_integral_wn_m"`
+	SpecificMeanCurvWN      *float64 `json:"specific_mean_curvature_integral_wn_per_m2"`
+	SpecificEulerNonwetting *float64 `json:"specific_euler_nonwetting_per_m3"`
+
 	GangliaCount    int      `json:"ganglia_count"`
 	LargestFraction *float64 `json:"ganglion_largest_fraction"`
 	Percolates      bool     `json:"nonwetting_percolates"`
@@ -467,6 +480,8 @@ func finish(s *Partial, cs cluster.Summary, whole volume.Box, h float64, opt Opt
 			r.AngleNote = noAngleNote(c)
 		}
 	}
+
+	r.setGeometricState(s.Curvature != nil)
 
 	r.GangliaCount = cs.Count
 	if cs.Total > 0 {

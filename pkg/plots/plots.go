@@ -34,6 +34,14 @@
 //	                    (bins that double, x = log₁₀ of the bin's low edge in µm³)
 //	ganglion_tracking   trapped saturation and the fraction of trapped ganglia that moved
 //	                    (top), ganglion splits and merges per step (bottom), against time
+//	geometric_state     trajectory of the geometric state (McClure et al. 2018, Phys. Rev.
+//	                    Fluids 3:084306): J_wn = ∫H dA over the w–n interface and χ_n,
+//	                    each per bulk volume, against S_w in two stacked panels (a_wn
+//	                    against S_w is area_saturation), the latest step ringed
+//	experiment_log      the rig log (package riglog): the rig's differential-pressure
+//	                    transducer and the image Pc of the connected nonwetting ganglia
+//	                    (± SE) against time (kPa), and S_w against the pore volumes
+//	                    injected (empty without a rig log)
 //
 // Every figure's title names the campaign and the run (short parameter
 // hash). Time axes are in s, min or h chosen by the campaign's length (see
@@ -84,7 +92,8 @@ const AngleBin = 5
 
 // Names lists the figures in the order Build returns them.
 var Names = []string{"saturation", "capillary_pressure", "curvature", "specific_area",
-	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile", "pore_filling", "contact_angles", "ganglion_tracking"}
+	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile", "pore_filling", "contact_angles", "ganglion_tracking",
+	"geometric_state", "experiment_log"}
 
 // Unit texts of the figures' axes, written the same way in the report
 // and on the live page. Dimensionless quantities carry "–".
@@ -154,6 +163,7 @@ func Build(rows []series.Row, evs []events.Event, run Run) []Figure {
 	figs := []Figure{
 		b.saturation(), b.pressure(), b.curvature(), b.area(),
 		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(), b.filling(), b.wettability(), b.tracking(),
+		b.geometric(), b.experimentLog(),
 	}
 	for i := range figs {
 		f := &figs[i]

@@ -39,6 +39,14 @@ func drainage(n, nullPc int) []series.Row {
 		rows[i].SpecificWN = fp(2000 * f * (1 - f) * 4)
 		rows[i].SpecificWS = fp(12000 - 3000*f)
 		rows[i].SpecificNS = fp(500 * f)
+		// Geometric state: J_wn per bulk volume 1/m², χ_n per bulk volume 1/m³.
+		rows[i].SpecificMeanCurvWN = fp(2e6 * f * (1 - f))
+		rows[i].SpecificEulerNonwetting = fp(-3e9 * f)
+		// Experiment log: the transducer reads 10 % above the image Pc;
+		// 1.2 pore volumes injected by the last step.
+		rows[i].RigDiffPressure = fp(1.1 * 0.03 * k)
+		rows[i].PcConnected = fp(0.03 * k)
+		rows[i].PoreVolumesInjected = fp(1.2 * f)
 		g := int64(1 + i%5)
 		rows[i].GangliaCount = &g
 		rows[i].LargestFraction = fp(0.3 + 0.6*f)

@@ -122,6 +122,8 @@ type Input struct {
 	// FixedThresholds is the campaign's threshold record in threshold scope
 	// "campaign" (nil: scope step, or not fixed yet).
 	FixedThresholds *CampaignThresholds
+	// RigLog is the campaign's rig log (nil: none).
+	RigLog *RigLog
 	// Cautions are shown after the ones every report carries (Cautions),
 	// e.g. about a setting of this campaign.
 	Cautions  []string
@@ -152,6 +154,31 @@ type fillingRow struct {
 	DCount, DVolume, DRate, IMCount, IMVolume, IMRate string
 	Largest, Note                                     string
 }
+
+// RigLog describes the campaign's rig log for the report (package riglog);
+// nil when the campaign has none.
+type RigLog struct {
+	// File is the log's file name as it was read; Records its records.
+	File    string
+	Records int
+	// Interpolation ("linear" or "previous") and the clock offset (s)
+	// added to the log's times.
+	Interpolation string
+	ClockOffsetS  float64
+	// ViscosityPaS of the injected fluid (0: not given, no Ca).
+	ViscosityPaS float64
+	// PoreVolumeFrom and AreaFrom say where the pore volume and the
+	// cross-section came from (riglog.Geometry).
+	PoreVolumeFrom, AreaFrom string
+	// Note, when set, says why the log could not be applied.
+	Note string
+}
+
+// rigRow is one line of the experiment-log table.
+type rigRow struct{ Step, Time, PV, Rate, Flux, Ca, DP, PcImage, PorePress, Confining, Temp string }
+
+// stateRow is one line of the geometric-state table.
+type stateRow struct{ Step, Time, Sw, AWN, J, JV, Chi, ChiV string }
 
 // settingsRow is one line of the per-step segmentation table.
 type settingsRow struct {
@@ -187,8 +214,18 @@ type page struct {
 	TrackingRows   []trackingRow
 	FrontThreshold string
 	// Angles is the wettability table; Wettability its figure.
-	Angles         []angleRow
-	Wettability    []figure
+	Angles      []angleRow
+	Wettability []figure
+	// Geometric is the geometric-state trajectory; States its table.
+	Geometric []figure
+	States    []stateRow
+	// Experiment is the rig-log figure, Rig its table, RigPoreVolume and
+	// RigArea the values used (text).
+	Experiment     []figure
+	Rig            []rigRow
+	RigPoreVolume  string
+	RigArea        string
+	RigInfo        *RigLog
 	ChecksPassed   int
 	ChecksFailed   int
 	ChecksNotEval  int
@@ -259,6 +296,9 @@ func Write(w io.Writer, in Input) error {
 	pg.FillingRows = fillingTable(rows)
 	pg.TrackingRows = trackingTable(rows)
 	pg.Angles = angleTable(rows)
+	pg.States = states(rows)
+	pg.Rig, pg.RigPoreVolume, pg.RigArea = rigTable(rows)
+	pg.RigInfo = in.RigLog
 	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps, in.VoxelSize)
 	pg.CampaignTh = viewCampaign(in.FixedThresholds)
 	for _, s := range pg.Settings {
@@ -287,6 +327,10 @@ func Write(w io.Writer, in Input) error {
 			pg.Tracking = append(pg.Tracking, fg)
 		} else if f.Name == "contact_angles" {
 			pg.Wettability = append(pg.Wettability, fg)
+		} else if f.Name == "geometric_state" {
+			pg.Geometric = append(pg.Geometric, fg)
+		} else if f.Name == "experiment_log" {
+			pg.Experiment = append(pg.Experiment, fg)
 		} else {
 			pg.Figures = append(pg.Figures, fg)
 		}
@@ -437,6 +481,62 @@ func fillingTable(rows []series.Row) []fillingRow {
 				best.CentroidM[0]*1e3, best.CentroidM[1]*1e3, best.CentroidM[2]*1e3)
 		}
 		out = append(out, fr)
+	}
+	return out
+}
+
+// rigTable tabulates the experiment log at every step: pore volumes
+// injected, rate (ml/min), Darcy flux (µm/s), Ca, transducer Δp and image
+// Pc of the connected ganglia (kPa), pore and confining pressure (MPa),
+// temperature (°C); and the pore volume (mm³) and cross-section (mm²) used
+// ("—" when no step has them).
+func rigTable(rows []series.Row) ([]rigRow, string, string) {
+	f := func(p *float64, scale, shift float64, format byte, prec int) string {
+		if p == nil {
+			return "—"
+		}
+		return strconv.FormatFloat(*p*scale+shift, format, prec, 64)
+	}
+	var out []rigRow
+	pv, area := "—", "—"
+	for i := range rows {
+		r := &rows[i]
+		if pv == "—" && r.RigPoreVolume != nil {
+			pv = f(r.RigPoreVolume, 1e9, 0, 'g', 4)
+		}
+		if area == "—" && r.RigArea != nil {
+			area = f(r.RigArea, 1e6, 0, 'g', 4)
+		}
+		out = append(out, rigRow{Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64),
+			PV: f(r.PoreVolumesInjected, 1, 0, 'f', 3), Rate: f(r.RigRate, 6e7, 0, 'g', 4), Flux: f(r.DarcyFlux, 1e6, 0, 'g', 4),
+			Ca: f(r.CapillaryNumber, 1, 0, 'e', 2), DP: f(r.RigDiffPressure, 1e-3, 0, 'f', 3), PcImage: f(r.PcConnected, 1e-3, 0, 'f', 3),
+			PorePress: f(r.RigPorePressure, 1e-6, 0, 'g', 4), Confining: f(r.RigConfiningPressure, 1e-6, 0, 'g', 4),
+			Temp: f(r.RigTemperature, 1, -273.15, 'f', 2)})
+	}
+	return out, pv, area
+}
+
+// states tabulates the geometric state of every step: S_w, a_wn
+// (mm²/mm³), J_wn (mm) and per bulk volume (mm/mm³), χ_n and per bulk
+// volume (1/mm³).
+func states(rows []series.Row) []stateRow {
+	f := func(p *float64, scale float64, format byte, prec int) string {
+		if p == nil {
+			return "—"
+		}
+		return strconv.FormatFloat(*p*scale, format, prec, 64)
+	}
+	var out []stateRow
+	for i := range rows {
+		r := &rows[i]
+		chi := "—"
+		if r.EulerNonwetting != nil {
+			chi = strconv.FormatInt(*r.EulerNonwetting, 10)
+		}
+		out = append(out, stateRow{Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64),
+			Sw: f(r.SatWetting, 1, 'f', 4), AWN: f(r.SpecificWN, 1e-3, 'f', 3),
+			J: f(r.MeanCurvIntegralWN, 1e3, 'g', 4), JV: f(r.SpecificMeanCurvWN, 1e-6, 'g', 4),
+			Chi: chi, ChiV: f(r.SpecificEulerNonwetting, 1e-9, 'g', 4)})
 	}
 	return out
 }
@@ -672,6 +772,34 @@ predecessor had other voxels (segmentation noise at its surface counts as a move
 </figure>
 {{end}}</section>
 
+<section id="experiment-log">
+<h2>Experiment log</h2>
+{{with .RigInfo}}<p data-rig-log="{{.File}}">Rig log <strong>{{.File}}</strong> ({{.Records}} records), read with the column mapping and units of the
+campaign configuration (rig_log) and converted to SI. Its times plus {{.ClockOffsetS}} s give the scans' clock; the log is
+interpolated at each step's time {{if eq .Interpolation "previous"}}as the value of the last record at or before it{{else}}linearly
+between the records around it{{end}}, and a step outside the log's time span gets no value.{{with .Note}} <span class="fail">{{.}}</span>{{end}}</p>{{else}}<p>No rig log:
+the campaign's configuration has no rig_log section or no log was stored (<code>sluice run --rig-log FILE</code> while watching,
+<code>sluice rig-log CAMPAIGN FILE</code> afterwards).</p>{{end}}
+<p>Pore volumes injected = V/V_p, V the volume injected since the log's first record (the injected-volume column, or the pump rate
+integrated by the trapezoid rule), V_p the pore volume ({{.RigPoreVolume}} mm³{{with .RigInfo}}{{with .PoreVolumeFrom}}: {{.}}{{end}}{{end}}).
+Darcy flux v = q/A, q the flow rate, A the cross-section of the sample normal to the flow ({{.RigArea}} mm²{{with .RigInfo}}{{with .AreaFrom}}: {{.}}{{end}}{{end}}).
+Capillary number Ca = μv/σ, μ the viscosity of the injected fluid{{with .RigInfo}}{{if .ViscosityPaS}} ({{.ViscosityPaS}} Pa·s){{end}}{{end}} and σ the
+interfacial tension: the usual definition with the Darcy flux (common practice; some authors use the interstitial velocity
+v/φ, which gives Ca/φ). The image Pc is σκ over the interfaces of the nonwetting ganglia connected to the inlet or outlet face, set next to
+the rig's differential-pressure transducer as Armstrong, Porter &amp; Wildenschild 2012 (Adv. Water Resour. 46:55) compare them:
+the transducer adds the viscous pressure drop and sees the phases' pressures at the end faces, so the two agree only near
+capillary equilibrium.</p>
+<table id="rig-table">
+<tr><th>step</th><th>t (s)</th><th>PV injected</th><th>q (ml/min)</th><th>v (µm/s)</th><th>Ca</th><th>Δp transducer (kPa)</th>
+<th>image Pc connected (kPa)</th><th>pore p (MPa)</th><th>confining p (MPa)</th><th>T (°C)</th></tr>{{range .Rig}}
+<tr data-step="{{.Step}}"><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.PV}}</td><td>{{.Rate}}</td><td>{{.Flux}}</td><td>{{.Ca}}</td><td>{{.DP}}</td><td>{{.PcImage}}</td><td>{{.PorePress}}</td><td>{{.Confining}}</td><td>{{.Temp}}</td></tr>{{end}}
+</table>
+{{range .Experiment}}<figure id="{{.ID}}">
+{{.SVG}}
+<figcaption>{{.Caption}}</figcaption>
+</figure>
+{{end}}</section>
+
 <section id="wettability">
 <h2>Wettability: geometric and thermodynamic contact angles</h2>
 <p>All angles are measured through the wetting phase. The <b>geometric</b> angle is measured at every sample
@@ -697,6 +825,27 @@ of the areas. Large steps bias it: the mean of two P<sub>c</sub> stands for ∫P
 <tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.GeoMean}}</td><td>{{.GeoMedian}}</td><td>{{.Thermo}}</td><td>{{.ThermoCos}}</td></tr>{{end}}
 </table>
 {{range .Wettability}}<figure id="{{.ID}}">
+{{.SVG}}
+<figcaption>{{.Caption}}</figcaption>
+</figure>
+{{end}}</section>
+
+<section id="geometric-state">
+<h2>Geometric state</h2>
+<p>The state of the fluids as four measures of the nonwetting phase and the w–n interface (McClure, Armstrong,
+Berrill, Schlüter, Berg, Gray &amp; Miller 2018, Phys. Rev. Fluids 3:084306): the wetting saturation S_w; the
+specific interfacial area a_wn = A_wn/V (V the bulk volume of the sample); the integral of the mean curvature
+H = (k1 + k2)/2 over the w–n interface, J_wn = ∫H dA, normal out of the nonwetting phase (a nonwetting ball of
+radius r has J = 4πr: the convention of the Minkowski functional M = ∫H dS); and the Euler characteristic χ_n of the
+nonwetting phase ({{if .Connectivity}}{{.Connectivity}}{{else}}26{{end}}-connected: components − tunnels + cavities).
+J_wn is estimated as A_wn·κ̄/2, κ̄ the area-weighted mean total curvature of the interface away from the solid, so
+it takes the interface next to the solid to have the mean curvature of the rest. The paper finds these four measures
+related by one state function where Pc(S_w) alone is hysteretic; the figure follows each step's state in time.</p>
+<table id="state-table">
+<tr><th>step</th><th>t (s)</th><th>S_w</th><th>a_wn ({{.AreaUnit}})</th><th>J_wn (mm)</th><th>J_wn/V (mm/mm³)</th><th>χ_n</th><th>χ_n/V (1/mm³)</th></tr>{{range .States}}
+<tr data-step="{{.Step}}"><td class="step">{{.Step}}</td><td>{{.Time}}</td><td>{{.Sw}}</td><td>{{.AWN}}</td><td>{{.J}}</td><td>{{.JV}}</td><td>{{.Chi}}</td><td>{{.ChiV}}</td></tr>{{end}}
+</table>
+{{range .Geometric}}<figure id="{{.ID}}">
 {{.SVG}}
 <figcaption>{{.Caption}}</figcaption>
 </figure>

@@ -71,7 +71,13 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	contact_angle_thermodynamic_cos,
 //	tracking_one_to_one, tracking_splits, tracking_merges,
 //	tracking_appeared, tracking_vanished, tracking_trapped_saturation,
-//	tracking_trapped_moved_fraction, tracking_trapped_lifetime_mean_s
+//	tracking_trapped_moved_fraction, tracking_trapped_lifetime_mean_s,
+//	mean_curvature_integral_wn_m, specific_mean_curvature_integral_wn_per_m2,
+//	specific_euler_nonwetting_per_m3,
+//	rig_injected_volume_m3, pore_volumes_injected, rig_rate_m3_per_s,
+//	darcy_flux_m_per_s, capillary_number, rig_differential_pressure_pa,
+//	rig_pore_pressure_pa, rig_confining_pressure_pa, rig_temperature_k,
+//	rig_pore_volume_m3, rig_cross_section_m2 (the experiment log, pkg/riglog)
 //
 // The four trapped_ganglia_* columns come from the result's trapped_ganglia_curvature object
 // (series.json keeps the whole object); the six pore_filling_* columns from
@@ -150,6 +156,20 @@ var Columns = []Column{
 	fcol("tracking_trapped_saturation", "1", func(r *Row) *float64 { return r.Tracking().TrappedSaturation }),
 	fcol("tracking_trapped_moved_fraction", "1", func(r *Row) *float64 { return r.Tracking().TrappedMovedFraction }),
 	fcol("tracking_trapped_lifetime_mean_s", "s", func(r *Row) *float64 { return r.Tracking().LifetimeMeanS }),
+	fcol("mean_curvature_integral_wn_m", "m", func(r *Row) *float64 { return r.MeanCurvIntegralWN }),
+	fcol("specific_mean_curvature_integral_wn_per_m2", "1/m2", func(r *Row) *float64 { return r.SpecificMeanCurvWN }),
+	fcol("specific_euler_nonwetting_per_m3", "1/m3", func(r *Row) *float64 { return r.SpecificEulerNonwetting }),
+	fcol("rig_injected_volume_m3", "m3", func(r *Row) *float64 { return r.RigVolume }),
+	fcol("pore_volumes_injected", "1", func(r *Row) *float64 { return r.PoreVolumesInjected }),
+	fcol("rig_rate_m3_per_s", "m3/s", func(r *Row) *float64 { return r.RigRate }),
+	fcol("darcy_flux_m_per_s", "m/s", func(r *Row) *float64 { return r.DarcyFlux }),
+	fcol("capillary_number", "1", func(r *Row) *float64 { return r.CapillaryNumber }),
+	fcol("rig_differential_pressure_pa", "Pa", func(r *Row) *float64 { return r.RigDiffPressure }),
+	fcol("rig_pore_pressure_pa", "Pa", func(r *Row) *float64 { return r.RigPorePressure }),
+	fcol("rig_confining_pressure_pa", "Pa", func(r *Row) *float64 { return r.RigConfiningPressure }),
+	fcol("rig_temperature_k", "K", func(r *Row) *float64 { return r.RigTemperature }),
+	fcol("rig_pore_volume_m3", "m3", func(r *Row) *float64 { return r.RigPoreVolume }),
+	fcol("rig_cross_section_m2", "m2", func(r *Row) *float64 { return r.RigArea }),
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

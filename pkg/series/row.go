@@ -97,6 +97,29 @@ type Row struct {
 	AngleThermo    *float64 `json:"contact_angle_thermodynamic_deg"`
 	AngleThermoSE  *float64 `json:"contact_angle_thermodynamic_se_deg"`
 	AngleThermoCos *float64 `json:"contact_angle_thermodynamic_cos"`
+	// Geometric state (pkg/measure geometric.go; McClure et al. 2018, Phys.
+	// Rev. Fluids 3:084306): J_wn = ∫H dA over the w–n interface (m), its
+	// density and χ_n's density per bulk volume.
+	MeanCurvIntegralWN      *float64 `json:"mean_curvature_integral_wn_m"`
+	SpecificMeanCurvWN      *float64 `json:"specific_mean_curvature_integral_wn_per_m2"`
+	SpecificEulerNonwetting *float64 `json:"specific_euler_nonwetting_per_m3"`
+	// Experiment log at the step's time (pkg/riglog, which defines them):
+	// injected volume since the log's first record (m³), pore volumes
+	// injected, flow rate (m³/s), Darcy flux q/A (m/s), capillary number
+	// μv/σ, the rig's differential, pore and confining pressure (Pa) and
+	// temperature (K), and the pore volume (m³) and cross-section (m²)
+	// used. Null without a rig log or outside its time span.
+	RigVolume            *float64 `json:"rig_injected_volume_m3"`
+	PoreVolumesInjected  *float64 `json:"pore_volumes_injected"`
+	RigRate              *float64 `json:"rig_rate_m3_per_s"`
+	DarcyFlux            *float64 `json:"darcy_flux_m_per_s"`
+	CapillaryNumber      *float64 `json:"capillary_number"`
+	RigDiffPressure      *float64 `json:"rig_differential_pressure_pa"`
+	RigPorePressure      *float64 `json:"rig_pore_pressure_pa"`
+	RigConfiningPressure *float64 `json:"rig_confining_pressure_pa"`
+	RigTemperature       *float64 `json:"rig_temperature_k"`
+	RigPoreVolume        *float64 `json:"rig_pore_volume_m3"`
+	RigArea              *float64 `json:"rig_cross_section_m2"`
 	// AngleHist counts contact-angle samples in 1° bins through the wetting
 	// phase: AngleHist[i] holds angles in [i, i+1) degrees (180 bins). It
 	// appears in series.json only, never in the CSV.

@@ -32,7 +32,8 @@ func TestPageUnitsMatchFigures(t *testing.T) {
 		units[kv[1]] = kv[2]
 	}
 	for key, want := range map[string]string{"none": plots.UnitDimensionless, "pressure": plots.UnitPressure,
-		"area": plots.UnitSpecificArea, "angleDensity": plots.UnitAngleDensity} {
+		"area": plots.UnitSpecificArea, "angleDensity": plots.UnitAngleDensity,
+		"meanCurvDensity": plots.UnitMeanCurvDensity, "eulerDensity": plots.UnitEulerDensity} {
 		if units[key] != want {
 			t.Errorf("page unit %s = %q, figures write %q", key, units[key], want)
 		}
@@ -232,5 +233,38 @@ func TestPageTrackingPoints(t *testing.T) {
 	want := `{"trapped":[[0,null],[10,0.125],[20,null]],"moved":[[0,null],[10,0.5],[20,null]]}`
 	if got := strings.TrimSpace(string(out)); got != want {
 		t.Errorf("trackingPts: %s\nwant %s", got, want)
+	}
+}
+
+// TestPageRigSummary runs the page's rigSummary (app.js) in Node: pore
+// volumes injected to 3 decimals, Ca in e-notation, the transducer in kPa
+// (Source: the row below, Pa → kPa by hand), dashes without a rig log.
+func TestPageRigSummary(t *testing.T) {
+	node, err := exec.LookPath("node")
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatal("node is not installed (scripts/setup-test-env installs it)")
+		}
+		t.Skip("node is not installed")
+	}
+	b, err := static.ReadFile("static/app.js")
+	if err != nil {
+		t.Fatal(err)
+	}
+	fn := regexp.MustCompile(`(?s)\nfunction rigSummary\(r\) \{.*?\n\}\n`).FindString(string(b))
+	if fn == "" {
+		t.Fatal("app.js has no function rigSummary(r)")
+	}
+	script := "function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }\n" +
+		"function fmt(v, d) { return v === null || v === undefined ? \"—\" : Number(v).toFixed(d); }\n" + fn +
+		`console.log(JSON.stringify(rigSummary({ pore_volumes_injected: 0.5, capillary_number: 6.88385e-8, rig_differential_pressure_pa: 3000 })),
+		  JSON.stringify(rigSummary({ pore_volumes_injected: null })));`
+	out, err := exec.Command(node, "-e", script).CombinedOutput()
+	if err != nil {
+		t.Fatalf("node: %v\n%s", err, out)
+	}
+	want := `[["PV injected","0.500"],["Ca","6.88e-8"],["Δp transducer","3.00 kPa"]] [["PV injected","—"],["Ca","—"],["Δp transducer","—"]]`
+	if got := strings.TrimSpace(string(out)); got != want {
+		t.Errorf("rigSummary: %s\nwant %s", got, want)
 	}
 }

@@ -32,6 +32,7 @@ import (
 	"sluice/pkg/events"
 	"sluice/pkg/layout"
 	"sluice/pkg/measure"
+	"sluice/pkg/riglog"
 	"sluice/pkg/scan"
 	"sluice/pkg/series"
 	"sluice/pkg/telemetry"
@@ -78,6 +79,7 @@ type Aggregator struct {
 	tileTimes []time.Time               // recent tile arrivals, for tiles/s
 	arrived   map[string]map[int32]bool // tiles seen per (step, hash) tile prefix
 	lastLat   float64
+	rigErr    map[string]string      // the last rig-log error logged per campaign
 	workers   map[string]heardWorker // by worker id (WorkerBeat)
 	// plannedSeen (plan keys found) and manifests (by step directory) are
 	// caches of write-once objects for finding a step's previous step
@@ -505,7 +507,7 @@ func (a *Aggregator) completeLocked(ctx context.Context, step layout.Step, hash 
 	// exists), so a crash or an error anywhere before it leaves the step to
 	// be completed again when its result is redelivered, and what it
 	// repeats gives the same bytes or, for events, the same message ids.
-	runRows, err := a.upsertRun(ctx, step.Campaign(), hash, row)
+	runRows, err := a.upsertRun(ctx, step.Campaign(), hash, row, plan.Config.RigLog)
 	if err != nil {
 		return err
 	}
@@ -514,7 +516,7 @@ func (a *Aggregator) completeLocked(ctx context.Context, step layout.Step, hash 
 		if err := a.Store.Put(ctx, step.Result(), b); err != nil {
 			return err
 		}
-		if rows, err = series.Upsert(ctx, a.Store, step.Campaign().Name(), row); err != nil {
+		if rows, err = a.upsertCurrent(ctx, step.Campaign(), row, plan.Config.RigLog); err != nil {
 			return err
 		}
 	}
@@ -718,8 +720,49 @@ func (a *Aggregator) CompleteStep(ctx context.Context, campaignName, stepName, h
 	return true, a.complete(ctx, step, hash, keys, nil)
 }
 
-// upsertRun writes the row into the run-scoped series.
-func (a *Aggregator) upsertRun(ctx context.Context, c layout.Campaign, hash string, row series.Row) ([]series.Row, error) {
+// applyRig sets the experiment-log columns of rows from the campaign's
+// stored rig log (campaign.ApplyRigLog). A log that cannot be read leaves
+// them null and is logged, once per distinct error: the step's
+// measurement does not depend on it.
+func (a *Aggregator) applyRig(ctx context.Context, c layout.Campaign, cfg *riglog.Config, rows []series.Row) {
+	err := campaign.ApplyRigLog(ctx, a.Store, c, cfg, rows)
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if err == nil {
+		delete(a.rigErr, c.Name())
+		return
+	}
+	if a.rigErr == nil {
+		a.rigErr = map[string]string{}
+	}
+	if a.rigErr[c.Name()] != err.Error() {
+		a.rigErr[c.Name()] = err.Error()
+		a.Log.Warn("rig log not applied to the series", "campaign", c.Name(), "error", err.Error())
+	}
+}
+
+// upsertCurrent writes the row into the campaign's series (the contract
+// paths), with the experiment-log columns of every row set again from the
+// rig log.
+func (a *Aggregator) upsertCurrent(ctx context.Context, c layout.Campaign, row series.Row, rig *riglog.Config) ([]series.Row, error) {
+	if err := row.Validate(); err != nil {
+		return nil, err
+	}
+	rows, err := series.Load(ctx, a.Store, c.Name())
+	if err != nil {
+		return nil, err
+	}
+	rows = series.Merge(rows, row)
+	a.applyRig(ctx, c, rig, rows)
+	if err := series.Save(ctx, a.Store, c.Name(), rows); err != nil {
+		return nil, err
+	}
+	return rows, nil
+}
+
+// upsertRun writes the row into the run-scoped series, with the
+// experiment-log columns of every row set again from the rig log.
+func (a *Aggregator) upsertRun(ctx context.Context, c layout.Campaign, hash string, row series.Row, rig *riglog.Config) ([]series.Row, error) {
 	jk, ck := campaign.RunSeriesKeys(c, hash)
 	var rows []series.Row
 	if b, err := a.Store.Get(ctx, jk); err == nil {
@@ -730,6 +773,7 @@ func (a *Aggregator) upsertRun(ctx context.Context, c layout.Campaign, hash stri
 		return nil, err
 	}
 	rows = series.Merge(rows, row)
+	a.applyRig(ctx, c, rig, rows)
 	jb, err := series.EncodeJSON(rows)
 	if err != nil {
 		return nil, err

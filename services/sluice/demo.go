@@ -77,7 +77,12 @@ func runDemo(args []string) int {
 		return fail(exitFailure, "demo: %v", err)
 	}
 	nf := nodeFlags{data: *data, http: *httpAddr, ackWait: 30 * time.Second, maxDeliver: 5}
-	f := ingestFlags{campaign: "demo-drainage", config: cfgPath, watch: incoming}
+	rigPath := filepath.Join(*data, "rig", "rig-log.csv")
+	rig, err := newDemoRig(rigPath, sc)
+	if err != nil {
+		return fail(exitFailure, "demo: %v", err)
+	}
+	f := ingestFlags{campaign: "demo-drainage", config: cfgPath, watch: incoming, rigLog: rigPath}
 	{
 		st, err := nf.openStore(ctx)
 		if err != nil {
@@ -127,13 +132,19 @@ func runDemo(args []string) int {
 			for ctx.Err() == nil && written-len(rowsDone()) >= 2 {
 				time.Sleep(200 * time.Millisecond)
 			}
+			// The rig logs on past the scan's time, so the step's
+			// values are interpolated between records.
+			if err := rig.writeUntil(sc.Truth(i).TimeS + 2*demoRigEvery); err != nil {
+				genc <- err
+				return
+			}
 			if err := writeScan(incoming, sc, i, cyl); err != nil {
 				genc <- err
 				return
 			}
 			written++
 		}
-		genc <- nil
+		genc <- rig.writeUntil(sc.Truth(*steps-1).TimeS + sc.Interval)
 	}()
 	var genErr error
 	tick := time.NewTicker(500 * time.Millisecond)
@@ -167,6 +178,10 @@ func runDemo(args []string) int {
 		return fail(exitFailure, "demo: writing scans: %v", genErr)
 	}
 	wall := time.Since(start)
+	if err := settleDemoRig(ctx, st, f.campaign, rigPath); err != nil {
+		nstop()
+		return fail(exitFailure, "demo: rig log: %v", err)
+	}
 	rows := rowsDone()
 	code := summarizeDemo(ctx, stdout, *data, f.campaign, sc, rows, wall, node.url)
 	if *serve && ctx.Err() == nil {
@@ -223,6 +238,7 @@ func demoConfig(sc *scenario.Campaign, tile int) campaign.Config {
 	cfg.Segment.Sample.Y, cfg.Segment.Sample.X, cfg.Segment.Sample.Radius = float64(sc.Shape[1]-1)/2, float64(sc.Shape[2]-1)/2, sc.Rock.CoreRadius
 	e := demoEvents()
 	cfg.Events = campaign.Events{SteadySteps: e.K, MaxDeltaSw: e.MaxDeltaSw, MaxRelDeltaPc: e.MaxRelDeltaPc}
+	cfg.RigLog = demoRigConfig()
 	return cfg
 }
 
@@ -236,6 +252,7 @@ func singleScanConfig(sc *scenario.Campaign, tile int) campaign.Config {
 	cfg.Segment.Fixed = []float64{(lv.Nonwetting + lv.Wetting) / 2, (lv.Wetting + lv.Solid) / 2}
 	cfg.Segment.PartialVolume = campaign.Default().Segment.PartialVolume
 	cfg.Segment.Assign = campaign.Default().Segment.Assign // no blur correction: the watershed is the better one
+	cfg.RigLog = nil                                       // no rig log: these configurations measure scans only
 	return cfg
 }
 
@@ -348,6 +365,12 @@ func summarizeDemo(ctx context.Context, w io.Writer, data, name string, sc *scen
 	fmt.Fprintln(w, "\nPc is σ times the area-weighted mean curvature of all w–n interface. In full-morphology drainage states")
 	fmt.Fprintln(w, "only the terminal menisci are spheres of radius r_c (Pc = 2σ/r_c); interfaces wrapping brine in corners")
 	fmt.Fprintln(w, "and around grain contacts are closer to tubes (κ ≈ 1/r_c), so the image average sits below 2σ/r_c.")
+	if n := len(rows); n > 0 {
+		r := rows[n-1]
+		fmt.Fprintf(w, "\nrig log (demo pump and transducer): step %s at %s pore volumes injected, Ca %s, transducer %s, image Pc of the connected gas %s\n",
+			r.Step, fmtPtr(r.PoreVolumesInjected, 1, "%.3f"), fmtPtr(r.CapillaryNumber, 1, "%.2e"), fmtPtr(r.RigDiffPressure, 1e-3, "%.2f kPa"),
+			fmtPtr(r.PcConnected, 1e-3, "%.2f kPa"))
+	}
 	evs, _ := events.Detect(rows, demoEvents())
 	fmt.Fprintln(w)
 	bt := sc.Breakthrough()

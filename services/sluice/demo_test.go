@@ -80,6 +80,24 @@ func TestDemoSmall(t *testing.T) {
 			t.Errorf("report's row for step %s lacks its plan's thresholds %s and sample %+v:\n%s", r.Step, want, th.Sample, m)
 		}
 	}
+	// The demo's rig log (demorig.go) gives every step pore volumes
+	// injected, a capillary number and the transducer's pressure, and the
+	// report and figures show them. Mass balance: the gas held in the core
+	// is at most what the pump injected (S_n·V_p ≤ V_injected; 0.01 of
+	// the pore volume for segmentation noise).
+	for _, r := range rows {
+		if r.PoreVolumesInjected == nil || r.CapillaryNumber == nil || r.RigDiffPressure == nil || r.RigTemperature == nil {
+			t.Fatalf("step %s lacks experiment-log values: PV %v, Ca %v, Δp %v, T %v", r.Step, r.PoreVolumesInjected, r.CapillaryNumber, r.RigDiffPressure, r.RigTemperature)
+		}
+		if sn := series.F(r.SatNonwetting); sn > *r.PoreVolumesInjected+0.01 {
+			t.Errorf("step %s holds S_n %.3f of the pore volume but only %.3f pore volumes were injected", r.Step, sn, *r.PoreVolumesInjected)
+		}
+	}
+	for _, w := range []string{`id="rig-table"`, "rig-log.csv", `id="fig-experiment_log"`, `id="fig-geometric_state"`, `id="state-table"`} {
+		if !strings.Contains(string(page), w) {
+			t.Errorf("report lacks %s", w)
+		}
+	}
 	// Drainage: the nonwetting phase only invades, so its saturation never
 	// falls from one step to the next (common practice: a drainage series
 	// is monotone in S_nw up to segmentation noise; 0.01 allows for that).

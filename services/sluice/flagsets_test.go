@@ -21,7 +21,7 @@ var (
 	inputGroup    = []string{"shape", "dtype", "byte-order", "voxel-size", "dataset", "max-voxels"}
 	segGroup      = append([]string{"config"}, segOnlyFlags...)
 	measureGroup  = []string{"solid", "wetting", "nonwetting", "ift", "connectivity", "flow-axis", "exclude", "curvature-sigma", "tile", "workers"}
-	watchGroup    = []string{"campaign", "config", "watch", "create-watch", "settle", "times", "time-from-mtime"}
+	watchGroup    = []string{"campaign", "config", "watch", "create-watch", "settle", "times", "time-from-mtime", "rig-log"}
 	campaignGroup = []string{"data", "store"}
 )
 
@@ -53,6 +53,8 @@ var commandFlags = map[string][]string{
 	"reprocess": join(embedGroup, storeGroup, natsGroup, httpGroup, policyGroup, inputGroup,
 		[]string{"steps", "set", "config", "from", "times", "no-wait", "switch", "workers"}),
 	"switch": join(campaignGroup, []string{"run", "partial"}),
+	// rig-log reads and rewrites the store only.
+	"rig-log": campaignGroup,
 	// queue-policy talks to NATS only: no store, no HTTP.
 	"queue-policy": join(natsGroup, policyGroup),
 	// status reads the store (and dead letters from NATS): it serves no

@@ -336,6 +336,8 @@ func printTable(w io.Writer, path string, r *measure.Result, voxelAssumed bool) 
 		f(r.AngleMean, 1, "%.1f"), f(r.AngleMedian, 1, "%.1f"), f(r.AngleStd, 1, "%.1f"), r.AngleSamples)
 	fmt.Fprintf(tw, "contact angle mean ± SE\t%s\t°\n", pm(r.AngleMean, r.AngleMeanSE, 1, "%.1f"))
 	fmt.Fprintf(tw, "Euler characteristic n / w / s\t%d / %d / %d\t%d-connected\n", r.EulerNonwetting, r.EulerWetting, r.EulerSolid, r.Connectivity)
+	fmt.Fprintf(tw, "mean curvature integral J_wn = ∫H dA (w–n)\t%s\tmm (%s mm/mm³ of bulk volume; a ball of radius r: 4πr)\n",
+		f(r.MeanCurvIntegralWN, 1e3, "%.4g"), f(r.SpecificMeanCurvWN, 1e-6, "%.4g"))
 	fmt.Fprintf(tw, "ganglia\t%d\tclusters\n", r.GangliaCount)
 	fmt.Fprintf(tw, "largest ganglion\t%s\tof nonwetting volume\n", f(r.LargestFraction, 1, "%.4f"))
 	fmt.Fprintf(tw, "nonwetting percolates (%s)\t%v\t\n", r.FlowAxis, r.Percolates)

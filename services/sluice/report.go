@@ -229,11 +229,12 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 	if rec.Config.Measure.ContactWallGap == 0 && anyAngles(rows) {
 		cautions = append(cautions, "Contact angles: "+greyAngleNote+".")
 	}
+	rig := rigReport(ctx, st, c, rec.Config.RigLog, rows)
 	f, err := os.Create(path + ".tmp")
 	if err != nil {
 		return err
 	}
-	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, FixedThresholds: fixed, Checks: report.PhysicalChecks(rows, p.IFT), Cautions: cautions, Generated: time.Now()})
+	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, FixedThresholds: fixed, Checks: report.PhysicalChecks(rows, p.IFT), RigLog: rig, Cautions: cautions, Generated: time.Now()})
 	if cerr := f.Close(); err == nil {
 		err = cerr
 	}

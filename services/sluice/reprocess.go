@@ -621,6 +621,9 @@ type switchSummary struct {
 	From, To string
 	Rows     int
 	Dropped  []string // steps without a result in the run (with partial)
+	// RigLog, when not empty, says why the rig log could not be applied to
+	// the series (its columns are then null).
+	RigLog string
 }
 
 // switchRun makes hash the campaign's current run: campaign.json first (so
@@ -700,6 +703,11 @@ func switchRun(ctx context.Context, st runStore, name, run string, partial bool)
 		if err := st.Put(ctx, step.Result(), b); err != nil {
 			return sum, fmt.Errorf("campaign %s step %s: %w", name, s, err)
 		}
+	}
+	// The experiment-log columns as the new current run reads the stored
+	// rig log (its own rig_log mapping, offset and interpolation).
+	if err := campaign.ApplyRigLog(ctx, st, c, cfg.RigLog, done); err != nil {
+		sum.RigLog = usermsg.Clean(err.Error(), "")
 	}
 	if err := series.Save(ctx, st, name, done); err != nil {
 		return sum, err
@@ -991,6 +999,9 @@ func runReprocess(args []string) int {
 			return fail(exitFailure, "reprocess: %v", err)
 		}
 		fmt.Fprintf(stdout, "campaign %s now uses run %s (was %s): %d series rows\n", req.Campaign, s.To, s.From, s.Rows)
+		if s.RigLog != "" {
+			fmt.Fprintf(stdout, "rig log not applied: %s\n", s.RigLog)
+		}
 	}
 	if len(sum.Rejected) > 0 {
 		return rejectedExit()
@@ -1027,5 +1038,8 @@ func runSwitch(args []string) int {
 		fmt.Fprintf(stdout, "; %d steps without a result left the series", len(s.Dropped))
 	}
 	fmt.Fprintln(stdout)
+	if s.RigLog != "" {
+		fmt.Fprintf(stdout, "rig log not applied: %s\n", s.RigLog)
+	}
 	return exitOK
 }

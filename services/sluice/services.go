@@ -16,6 +16,7 @@ import (
 
 	"github.com/prometheus/client_golang/prometheus"
 
+	"sluice/internal/usermsg"
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
 	"sluice/pkg/queue"
@@ -187,6 +188,9 @@ type ingestFlags struct {
 	// poll is the watcher's scan interval (0: its default, 1 s); tests
 	// shorten it so that a scan's five attempts take milliseconds.
 	poll time.Duration
+	// rigLog is --rig-log FILE: the flow rig's CSV log, followed while
+	// the directory is watched.
+	rigLog string
 }
 
 func (f *ingestFlags) register(fs *flag.FlagSet, single bool) {
@@ -197,6 +201,7 @@ func (f *ingestFlags) register(fs *flag.FlagSet, single bool) {
 	fs.DurationVar(&f.settle, "settle", 0, "also accept scans without a marker once unchanged for this long (e.g. 30s)")
 	fs.StringVar(&f.times, "times", "", "CSV `FILE` with the header step,time_s giving steps' experiment times in seconds (wins over markers and headers; re-read when it changes)")
 	fs.BoolVar(&f.timeFromMTime, "time-from-mtime", false, "date a scan that has no time from --times, its marker or its header by its file modification time, in seconds from that of the campaign's first scan so dated (without it such a scan is rejected)")
+	fs.StringVar(&f.rigLog, "rig-log", "", "follow the flow rig's CSV `FILE` (columns mapped in the campaign config's rig_log section) while watching, and store it for the series (pore volumes injected, capillary number, transducer pressures)")
 	if single {
 		fs.StringVar(&f.step, "step", "", "step name for a single FILE (default: from the file name)")
 		fs.Var(&f.timeS, "time", "experiment time of the step in `seconds` (default: its --times row, else the scan's marker {\"time_s\": …}, else its header, else with --time-from-mtime its modification time; refused when none gives one)")
@@ -246,7 +251,11 @@ func startIngest(ctx context.Context, f ingestFlags, in inputFlags, st ingest.St
 	if err != nil {
 		return nil, err
 	}
-	if _, err := ingest.EnsureCampaign(ctx, st, f.campaign, cfg, Version, ""); err != nil {
+	rec, err := ingest.EnsureCampaign(ctx, st, f.campaign, cfg, Version, "")
+	if err != nil {
+		return nil, err
+	}
+	if err := checkRigLog(f, rec.Config); err != nil {
 		return nil, err
 	}
 	ropt, err := in.options()
@@ -270,6 +279,22 @@ func watchAndIngest(ctx context.Context, ing *ingest.Ingester, f ingestFlags, lo
 		}
 	}
 	times := &liveTimes{path: f.times}
+	if f.rigLog != "" {
+		c, err := layout.NewCampaign(f.campaign)
+		if err != nil {
+			return err
+		}
+		cfg, err := rigConfig(ctx, ing.Store, c)
+		if err != nil {
+			return err
+		}
+		rt := &rigTail{path: f.rigLog, st: ing.Store, c: c, cfg: cfg, log: log}
+		go func() {
+			if err := tailRigLog(ctx, rt, f.poll); err != nil {
+				log.Error("rig log no longer followed", "file", f.rigLog, "error", usermsg.Clean(err.Error(), ""))
+			}
+		}()
+	}
 	return w.Run(ctx, func(a ingest.Arrival) error {
 		t0 := time.Now()
 		req := ingest.Request{Campaign: f.campaign, Step: a.Step, Path: a.Path, TimeS: a.TimeS, HasTime: a.HasTime, TimeFrom: "marker",

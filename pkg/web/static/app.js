@@ -8,7 +8,7 @@
 // amber, dark magenta, light sky) and every series also has its own marker.
 // Axis units, written as the report's figures write them (pkg/plots Unit…;
 // a test in pkg/web holds the two together).
-const U = { none: "–", pressure: "kPa", area: "mm²/mm³ of bulk volume", angleDensity: "1/°" };
+const U = { none: "–", pressure: "kPa", area: "mm²/mm³ of bulk volume", angleDensity: "1/°", meanCurvDensity: "mm/mm³", eulerDensity: "1/mm³" };
 
 const C = { a: "#1d3f8f", b: "#d98a00", c: "#8c2d73", d: "#4aa3d8", grid: "#e4e4e4", axis: "#555" };
 
@@ -169,6 +169,17 @@ function trackingPts(series) {
     moved: series.map(r => [r.time_s, v(r, "trapped_moved_fraction")]) };
 }
 
+// rigSummary returns the experiment-log items of the summary for a series
+// row: pore volumes injected, capillary number and the transducer's
+// differential pressure (kPa), "—" where the row has none (no rig log, or
+// the step outside its time span).
+function rigSummary(r) {
+  const ca = num(r.capillary_number);
+  return [["PV injected", fmt(num(r.pore_volumes_injected), 3)],
+    ["Ca", ca === null ? "—" : ca.toExponential(2)],
+    ["Δp transducer", num(r.rig_differential_pressure_pa) === null ? "—" : fmt(r.rig_differential_pressure_pa * 1e-3, 2) + " kPa"]];
+}
+
 function draw() {
   TU = timeUnit();
   const tl = `time t (${TU.name})`;
@@ -212,6 +223,16 @@ function draw() {
   const trk = trackingPts(state.series);
   plot(qs("plot-tracking"), [{ name: "trapped saturation", color: C.b, marker: "circle", pts: perTU(trk.trapped) },
     { name: "trapped ganglia that moved", color: C.a, marker: "square", pts: perTU(trk.moved) }], tl, `fraction (${U.none})`, { ymin: 0, ymax: 1 });
+  // Experiment log (rig CSV): transducer Δp next to the image Pc of the connected
+  // ganglia (Armstrong, Porter & Wildenschild 2012), and S_w against pore volumes injected.
+  plot(qs("plot-rig-p"), [
+    { name: "Δp transducer", color: C.a, marker: "circle", pts: col("rig_differential_pressure_pa", 1e-3) },
+    { name: "image Pc connected", color: C.b, marker: "square", pts: col("capillary_pressure_connected_pa", 1e-3) }], tl, `pressure (${U.pressure})`);
+  plot(qs("plot-rig-pv"), [{ name: "S_w", color: C.d, marker: "triangle", pts: pair("pore_volumes_injected", "saturation_wetting") }],
+    `pore volumes injected (${U.none})`, `S_w (${U.none})`, { xmin: 0, ymin: 0, ymax: 1 });
+  // Geometric state (McClure et al. 2018): J_wn and χ_n per bulk volume against S_w.
+  plot(qs("plot-jwn"), [{ name: "J_wn(S_w)", color: C.b, marker: "square", pts: pair("saturation_wetting", "specific_mean_curvature_integral_wn_per_m2", 1e-6) }], `S_w (${U.none})`, `J_wn/V (${U.meanCurvDensity})`, { xmin: 0, xmax: 1 });
+  plot(qs("plot-chi"), [{ name: "χ_n(S_w)", color: C.d, marker: "triangle", pts: pair("saturation_wetting", "specific_euler_nonwetting_per_m3", 1e-9) }], `S_w (${U.none})`, `χ_n/V (${U.eulerDensity})`, { xmin: 0, xmax: 1 });
   const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s / TU.s, s.latency_s]);
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], tl, "ingest → series (s)", { ymin: 0 });
   summary(last);
@@ -228,7 +249,8 @@ function summary(r) {
     ["S_w", fmt(r.saturation_wetting, 3)], ["Pc ± SE", r.capillary_pressure_pa === null ? "— (no σ)" : pm(r.capillary_pressure_pa, r.capillary_pressure_se_pa, 1e-3, 2) + " kPa"],
     ["Pc connected ± SE", r.capillary_pressure_connected_pa == null ? "—" : pm(r.capillary_pressure_connected_pa, r.capillary_pressure_connected_se_pa, 1e-3, 2) + " kPa"],
     ["θ mean ± SE (sd)", pm(r.contact_angle_mean_deg, r.contact_angle_mean_se_deg, 1, 1) + "° (" + fmt(r.contact_angle_std_deg, 1) + "°)"],
-    ["ganglia", r.ganglia_count], ["percolating", r.nonwetting_percolates ? "yes" : "no"], ["voxel", fmt(r.voxel_size_m * 1e6, 2) + " µm"]];
+    ["ganglia", r.ganglia_count], ["percolating", r.nonwetting_percolates ? "yes" : "no"], ["voxel", fmt(r.voxel_size_m * 1e6, 2) + " µm"],
+    ...rigSummary(r)];
   s.innerHTML = items.map(([k, v]) => `<div>${k}<b>${v}</b></div>`).join("");
 }
 
