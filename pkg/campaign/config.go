@@ -23,6 +23,7 @@ import (
 	"sluice/pkg/curvature"
 	"sluice/pkg/events"
 	"sluice/pkg/measure"
+	"sluice/pkg/register"
 	"sluice/pkg/riglog"
 	"sluice/pkg/segment"
 	"sluice/pkg/volume"
@@ -59,6 +60,12 @@ type Config struct {
 	// where the voxels are, not how they are measured, so it is not part of
 	// the parameter hash.
 	HDF5Dataset string `json:"hdf5_dataset,omitempty" yaml:"hdf5_dataset,omitempty"`
+	// Register configures the drift registration of each step to the
+	// reference scan (docs/registration.md). It runs in reference-scan mode
+	// (segment.reference: true) unless register.off is true, never
+	// otherwise. Left out of the JSON when all zero, so the hashes of
+	// campaigns written before it existed stay the same.
+	Register Register `json:"register,omitzero" yaml:"register,omitempty"`
 	// Events are the steady-state tolerances of the live view (defaults
 	// K = 3 steps, |ΔS_w| ≤ 0.005, |ΔPc|/Pc ≤ 0.02). They do not change
 	// measurements, so they are not part of the parameter hash.
@@ -71,6 +78,38 @@ type Config struct {
 	// it is part of the parameter hash; absent, the hash is that of a
 	// campaign written before it existed.
 	RigLog *riglog.Config `json:"rig_log,omitempty" yaml:"rig_log,omitempty"`
+}
+
+// Register configures drift registration (package register).
+type Register struct {
+	// Off turns registration off in reference-scan mode.
+	Off bool `json:"off,omitempty" yaml:"off,omitempty"`
+	// MaxShift is the largest shift (voxels, along any axis) taken as
+	// ordinary drift (0 = DefaultMaxShift): a step whose shift exceeds it is
+	// marked (registration_beyond) and raises a registration_shift event.
+	// It is resampled by its shift all the same.
+	MaxShift float64 `json:"max_shift,omitempty" yaml:"max_shift,omitempty"`
+	// Region bounds the edge of the central box the shift is estimated on
+	// (voxels, 0 = register.DefaultRegion, 128): along each axis the
+	// largest power of two up to it and the scan's extent.
+	Region int `json:"region,omitempty" yaml:"region,omitempty"`
+}
+
+// DefaultMaxShift is the default register.max_shift in voxels: a sample
+// that creeps by more than a few voxels between scans has moved, not
+// drifted (common practice for a mounted core; not a published value).
+const DefaultMaxShift = 5
+
+// Registers reports whether steps are registered to the reference scan:
+// reference-scan mode without register.off.
+func (c Config) Registers() bool { return c.Segment.Reference && !c.Register.Off }
+
+// RegisterLimit returns register.max_shift or its default.
+func (c Config) RegisterLimit() float64 {
+	if c.Register.MaxShift > 0 {
+		return c.Register.MaxShift
+	}
+	return DefaultMaxShift
 }
 
 // Events tune the experiment-event detection (package events).
@@ -154,6 +193,12 @@ func (c Config) Validate() error {
 	}
 	if c.SampleMargin < 0 {
 		return fmt.Errorf("campaign: sample_margin %g must be >= 0", c.SampleMargin)
+	}
+	if r := c.Register; !(r.MaxShift >= 0 && r.MaxShift <= 1000) {
+		return fmt.Errorf("campaign: register.max_shift %g out of range [0, 1000] voxels (0: the default %d)", r.MaxShift, DefaultMaxShift)
+	}
+	if r := c.Register.Region; r != 0 && (r < register.MinRegion || r > 1024) {
+		return fmt.Errorf("campaign: register.region %d out of range %d..1024 voxels (0: the default %d)", r, register.MinRegion, register.DefaultRegion)
 	}
 	// The measurement packages read σ ≤ 0 as "use the default"; in a
 	// config file it is a mistake, not a request for the default.

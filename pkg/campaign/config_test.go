@@ -162,3 +162,50 @@ func TestContactWallGapKey(t *testing.T) {
 		}
 	}
 }
+
+// TestRegisterConfig: register.* is read, checked and enters the parameter
+// hash; all zero it is left out of the JSON, so the hashes of campaigns
+// written before it existed stay the same; registration runs only in
+// reference-scan mode.
+func TestRegisterConfig(t *testing.T) {
+	b, err := json.Marshal(Default())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if strings.Contains(string(b), "register") {
+		t.Errorf("default config JSON holds a register key: %s", b)
+	}
+	c, err := Parse("c.yaml", []byte("segment: {reference: true}\nregister: {max_shift: 3, region: 64}\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !c.Registers() || c.RegisterLimit() != 3 || c.Register.Region != 64 {
+		t.Errorf("register %+v: registers %v, limit %g", c.Register, c.Registers(), c.RegisterLimit())
+	}
+	ref := Default()
+	ref.Segment.Reference = true
+	if !ref.Registers() || ref.RegisterLimit() != DefaultMaxShift || Default().Registers() {
+		t.Error("registration must be on by default in reference-scan mode only, with the default limit")
+	}
+	h := ref.Hash()
+	for name, change := range map[string]func(*Config){
+		"off":       func(c *Config) { c.Register.Off = true },
+		"max_shift": func(c *Config) { c.Register.MaxShift = 2 },
+		"region":    func(c *Config) { c.Register.Region = 64 },
+	} {
+		c := ref
+		change(&c)
+		if c.Hash() == h {
+			t.Errorf("register.%s does not change the parameter hash", name)
+		}
+	}
+	off, err := Parse("c.yaml", []byte("segment: {reference: true}\nregister: {off: true}\n"))
+	if err != nil || off.Registers() {
+		t.Errorf("register.off: registers %v, %v", off.Registers(), err)
+	}
+	for _, bad := range []string{"register: {region: 8}\n", "register: {max_shift: -1}\n", "register: {of: true}\n"} {
+		if _, err := Parse("c.yaml", []byte(bad)); err == nil || !strings.Contains(err.Error(), "c.yaml") || strings.Contains(err.Error(), "\n") {
+			t.Errorf("%q: %v, want one line naming c.yaml", bad, err)
+		}
+	}
+}

@@ -3,6 +3,7 @@ package campaign
 import (
 	"time"
 
+	"sluice/pkg/register"
 	"sluice/pkg/segment"
 	"sluice/pkg/volume"
 )
@@ -48,12 +49,16 @@ type Plan struct {
 	Thresholds segment.Thresholds `json:"thresholds"`
 	// Tile is the tile edge; Tiles the number of tiles; Halo the grey halo
 	// workers read around each core.
-	Tile      int       `json:"tile"`
-	Tiles     int       `json:"tiles"`
-	Halo      int       `json:"halo"`
-	Priority  string    `json:"priority"`
-	PlannedAt time.Time `json:"planned_at"`
-	Version   string    `json:"software_version"`
+	Tile  int `json:"tile"`
+	Tiles int `json:"tiles"`
+	Halo  int `json:"halo"`
+	// Registration is the step's drift registration to the reference
+	// scan (Config.Registers; nil otherwise): pass 1 and every tile read
+	// the step resampled onto the reference grid by Registration.Applied.
+	Registration *register.Result `json:"registration,omitempty"`
+	Priority     string           `json:"priority"`
+	PlannedAt    time.Time        `json:"planned_at"`
+	Version      string           `json:"software_version"`
 }
 
 // Tiling returns the tiling of the plan over the manifest's scan.

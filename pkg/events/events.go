@@ -34,6 +34,11 @@
 // with grey_drift_beyond true whose previous row with a known value had it
 // false, or which has no such previous row.
 //
+// Registration shift. In reference-scan mode a step whose shift against
+// the reference scan exceeds register.max_shift along some axis has
+// registration_beyond = true; an event is reported at every onset, as for
+// grey drift.
+//
 // Detection is a pure function of the series and the options: running it
 // again on the same series gives the same events, and each event has an ID
 // (kind/step) that downstream publishers use to deduplicate. Defaults
@@ -59,7 +64,22 @@ const (
 	Breakthrough Kind = "breakthrough"
 	SteadyState  Kind = "steady_state"
 	GreyDrift    Kind = "grey_drift"
+	// RegistrationShift: a step moved against the reference scan by more
+	// than the campaign's limit.
+	RegistrationShift Kind = "registration_shift"
 )
+
+// Kinds lists every event kind.
+var Kinds = []Kind{Breakthrough, SteadyState, GreyDrift, RegistrationShift}
+
+func knownKind(k Kind) bool {
+	for _, x := range Kinds {
+		if k == x {
+			return true
+		}
+	}
+	return false
+}
 
 // Event is one detected event, anchored to a step of the series.
 type Event struct {
@@ -88,7 +108,7 @@ func Decode(name string, data []byte) ([]Event, error) {
 		return nil, fmt.Errorf("events: %s: data after the list of events", name)
 	}
 	for i, e := range evs {
-		if (e.Kind != Breakthrough && e.Kind != SteadyState) || e.Step == "" {
+		if !knownKind(e.Kind) || e.Step == "" {
 			return nil, fmt.Errorf("events: %s: event %d has kind %q and step %q", name, i, e.Kind, e.Step)
 		}
 	}
@@ -195,7 +215,7 @@ func Detect(rows []series.Row, o Options) ([]Event, error) {
 	series.Sort(rs)
 	var out []Event
 	seenFalse, broke := false, false
-	prevSteady, prevBeyond := false, false
+	prevSteady, prevBeyond, prevShift := false, false, false
 	for i := range rs {
 		r := &rs[i]
 		if p := r.Percolates; p != nil && !broke {
@@ -217,6 +237,12 @@ func Detect(rows []series.Row, o Options) ([]Event, error) {
 			}
 			prevBeyond = *b
 		}
+		if b := r.RegBeyond; b != nil {
+			if *b && !prevShift {
+				out = append(out, Event{Kind: RegistrationShift, Step: r.Step, Time: r.Time, Detail: shiftDetail(r)})
+			}
+			prevShift = *b
+		}
 		w := Steady(rs, i, o)
 		if w.Steady && !prevSteady {
 			out = append(out, Event{Kind: SteadyState, Step: r.Step, Time: r.Time,
@@ -226,6 +252,18 @@ func Detect(rows []series.Row, o Options) ([]Event, error) {
 		prevSteady = w.Steady
 	}
 	return out, nil
+}
+
+// shiftDetail gives the step's shift against the reference scan.
+func shiftDetail(r *series.Row) string {
+	d := "the sample moved against the reference scan by more than the campaign's limit (register.max_shift)"
+	if r.RegZ != nil && r.RegY != nil && r.RegX != nil {
+		d += fmt.Sprintf(": shift (z, y, x) = (%+.2f, %+.2f, %+.2f) voxels", *r.RegZ, *r.RegY, *r.RegX)
+		if r.RegZM != nil && r.RegYM != nil && r.RegXM != nil {
+			d += fmt.Sprintf(" = (%+.1f, %+.1f, %+.1f) µm", *r.RegZM*1e6, *r.RegYM*1e6, *r.RegXM*1e6)
+		}
+	}
+	return d + "; the step is resampled by it all the same: check the scan"
 }
 
 // driftDetail says which phase levels drifted, as fractions of the

@@ -1,6 +1,7 @@
 package events
 
 import (
+	"encoding/json"
 	"math"
 	"math/rand"
 	"reflect"
@@ -262,7 +263,8 @@ func TestOptionsValidate(t *testing.T) {
 // one line naming the file.
 func TestDecode(t *testing.T) {
 	const name = "campaigns/c/events.json"
-	for _, ok := range []string{`null`, `[]`, `[{"kind":"breakthrough","step":"s2","time_s":20,"detail":"d"}]`} {
+	for _, ok := range []string{`null`, `[]`, `[{"kind":"breakthrough","step":"s2","time_s":20,"detail":"d"}]`,
+		`[{"kind":"grey_drift","step":"s3","time_s":30,"detail":"d"}]`, `[{"kind":"registration_shift","step":"s4","time_s":40,"detail":"d"}]`} {
 		if _, err := Decode(name, []byte(ok)); err != nil {
 			t.Errorf("Decode(%s): %v", ok, err)
 		}
@@ -297,5 +299,37 @@ func TestGreyDriftOnsets(t *testing.T) {
 	got := only(evs, GreyDrift)
 	if len(got) != 2 || got[0].Step != rows[2].Step || got[1].Step != rows[6].Step || !strings.Contains(got[0].Detail, "solid -36.0 %") {
 		t.Errorf("grey drift events %+v, want onsets at %s and %s naming the solid drift", got, rows[2].Step, rows[6].Step)
+	}
+}
+
+// TestRegistrationShiftOnsets: a registration_shift event at every step
+// whose shift goes beyond the limit after a step within it (or unknown
+// before), none while it stays beyond, none for null rows (registration
+// off); the detail gives the shift in voxels and µm.
+func TestRegistrationShiftOnsets(t *testing.T) {
+	beyond := []*bool{nil, bp(false), bp(true), bp(true), nil, bp(false), bp(true)}
+	var rows []series.Row
+	for i, b := range beyond {
+		r := row(i)
+		r.RegBeyond = b
+		if b != nil {
+			r.RegZ, r.RegY, r.RegX = fp(6.5), fp(-0.25), fp(0)
+			r.RegZM, r.RegYM, r.RegXM = fp(26e-6), fp(-1e-6), fp(0)
+		}
+		rows = append(rows, r)
+	}
+	evs, err := Detect(rows, Defaults())
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := only(evs, RegistrationShift)
+	if len(got) != 2 || got[0].Step != rows[2].Step || got[1].Step != rows[6].Step ||
+		!strings.Contains(got[0].Detail, "(+6.50, -0.25, +0.00) voxels") || !strings.Contains(got[0].Detail, "(+26.0, -1.0, +0.0) µm") {
+		t.Errorf("registration events %+v, want onsets at %s and %s giving the shift", got, rows[2].Step, rows[6].Step)
+	}
+	// What the aggregator records, it must read back.
+	b, _ := json.Marshal(evs)
+	if back, err := Decode("events.json", b); err != nil || len(back) != len(evs) {
+		t.Errorf("recorded events read back as %v, %v", back, err)
 	}
 }

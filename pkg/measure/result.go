@@ -48,9 +48,22 @@ type Result struct {
 	GreyDriftSolidFraction      *float64 `json:"grey_drift_solid_fraction,omitempty"`
 	GreyDriftBeyond             *bool    `json:"grey_drift_beyond,omitempty"`
 	GreyDriftNote               string   `json:"grey_drift_note,omitempty"`
-	Porosity                    *float64 `json:"porosity"`
-	SatWetting                  *float64 `json:"saturation_wetting"`
-	SatNonwetting               *float64 `json:"saturation_nonwetting"`
+	// Drift registration to the reference scan (reference-scan mode with
+	// register on; absent otherwise): the step's shift against the
+	// reference in voxels and metres (z, y, x; the scan shows at p what the
+	// reference shows at p − shift), the normalised phase-correlation peak
+	// and whether a component exceeds register.max_shift (pkg/register).
+	RegistrationZ      *float64 `json:"registration_z_voxels,omitempty"`
+	RegistrationY      *float64 `json:"registration_y_voxels,omitempty"`
+	RegistrationX      *float64 `json:"registration_x_voxels,omitempty"`
+	RegistrationZM     *float64 `json:"registration_z_m,omitempty"`
+	RegistrationYM     *float64 `json:"registration_y_m,omitempty"`
+	RegistrationXM     *float64 `json:"registration_x_m,omitempty"`
+	RegistrationPeak   *float64 `json:"registration_peak,omitempty"`
+	RegistrationBeyond *bool    `json:"registration_beyond,omitempty"`
+	Porosity           *float64 `json:"porosity"`
+	SatWetting         *float64 `json:"saturation_wetting"`
+	SatNonwetting      *float64 `json:"saturation_nonwetting"`
 
 	AreaWN     float64  `json:"area_wn_m2"`
 	AreaWS     float64  `json:"area_ws_m2"`

@@ -90,10 +90,15 @@ const (
 // series stores 1° bins; 5 are summed for a readable figure).
 const AngleBin = 5
 
-// Names lists the figures in the order Build returns them.
+// Names lists the figures Build always returns, in that order. The
+// Registration figure follows when a row carries a registration shift
+// (reference-scan mode with registration on).
 var Names = []string{"saturation", "capillary_pressure", "curvature", "specific_area",
 	"pc_saturation", "area_saturation", "contact_angle", "ganglia", "saturation_profile", "pore_filling", "contact_angles", "ganglion_tracking",
 	"geometric_state", "experiment_log"}
+
+// Registration is the name of the figure of the steps' drift registration.
+const Registration = "registration"
 
 // Unit texts of the figures' axes, written the same way in the report
 // and on the live page. Dimensionless quantities carry "–".
@@ -106,6 +111,7 @@ const (
 	UnitSpecificArea = "mm²/mm³ of bulk volume"
 	UnitAngle        = "°"
 	UnitAngleDensity = "1/°"
+	UnitShift        = "µm"
 )
 
 // Run names the campaign and run a figure belongs to; each figure's title
@@ -164,6 +170,9 @@ func Build(rows []series.Row, evs []events.Event, run Run) []Figure {
 		b.saturation(), b.pressure(), b.curvature(), b.area(),
 		b.pcTrajectory(), b.areaTrajectory(), b.angles(), b.ganglia(), b.profile(), b.filling(), b.wettability(), b.tracking(),
 		b.geometric(), b.experimentLog(),
+	}
+	if b.hasRegistration() {
+		figs = append(figs, b.registration())
 	}
 	for i := range figs {
 		f := &figs[i]
@@ -582,6 +591,28 @@ func (b *builder) pressure() Figure {
 	})
 }
 
+// hasRegistration reports whether any row carries a registration shift.
+func (b *builder) hasRegistration() bool {
+	for i := range b.rows {
+		if b.rows[i].RegZM != nil || b.rows[i].RegZ != nil {
+			return true
+		}
+	}
+	return false
+}
+
+// registration draws each step's shift against the reference scan, per
+// axis, in µm (pkg/register; the scan shows at p what the reference shows
+// at p − shift).
+func (b *builder) registration() Figure {
+	const toMicro = 1e6
+	return b.timePlot(Registration, "Drift registration: shift of each step against the reference scan", "shift ("+UnitShift+")", []curve{
+		{"z", b.col(func(r *series.Row) *float64 { return r.RegZM }, toMicro), nil},
+		{"y", b.col(func(r *series.Row) *float64 { return r.RegYM }, toMicro), nil},
+		{"x", b.col(func(r *series.Row) *float64 { return r.RegXM }, toMicro), nil},
+	})
+}
+
 func (b *builder) curvature() Figure {
 	return b.timePlot("curvature", "Curvature of the w–n interface", "total curvature κ ("+UnitCurvature+")", []curve{
 		{"κ mean (area-weighted) ± SE", b.col(kMean, perMetreT), b.col(kSE, perMetreT)},
@@ -757,9 +788,10 @@ func (b *builder) ganglia() Figure {
 }
 
 var eventStyles = map[events.Kind]draw.LineStyle{
-	events.Breakthrough: {Color: color.Black, Width: vg.Points(1), Dashes: []vg.Length{vg.Points(4), vg.Points(2)}},
-	events.SteadyState:  {Color: Palette.Slate, Width: vg.Points(1.2), Dashes: []vg.Length{vg.Points(1), vg.Points(2)}},
-	events.GreyDrift:    {Color: Palette.Umber, Width: vg.Points(1)},
+	events.Breakthrough:      {Color: color.Black, Width: vg.Points(1), Dashes: []vg.Length{vg.Points(4), vg.Points(2)}},
+	events.SteadyState:       {Color: Palette.Slate, Width: vg.Points(1.2), Dashes: []vg.Length{vg.Points(1), vg.Points(2)}},
+	events.GreyDrift:         {Color: Palette.Umber, Width: vg.Points(1)},
+	events.RegistrationShift: {Color: Palette.Umber, Width: vg.Points(1.2), Dashes: []vg.Length{vg.Points(6), vg.Points(2)}},
 }
 
 func (b *builder) markEvents(p *plot.Plot) {

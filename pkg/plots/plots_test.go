@@ -382,3 +382,44 @@ func TestErrorBars(t *testing.T) {
 		t.Errorf("contact-angle figure: %d two-vertex ink strokes, want the bar and its caps", got)
 	}
 }
+
+// TestRegistrationFigure: the registration figure is drawn only for a
+// series whose rows carry a shift (reference-scan mode), after the
+// others; it then holds one point per step for each axis, in µm, and its
+// axis names the unit.
+func TestRegistrationFigure(t *testing.T) {
+	const n = 9
+	rows := drainage(n, -1)
+	for _, f := range Build(rows, nil, Run{}) {
+		if f.Name == Registration {
+			t.Fatal("registration figure drawn for a series without registration")
+		}
+	}
+	for i := range rows {
+		d := 2.5 * float64(i) / (n - 1)
+		rows[i].RegZ, rows[i].RegY, rows[i].RegX = fp(0.6*d), fp(0.48*d), fp(0.64*d)
+		rows[i].RegZM, rows[i].RegYM, rows[i].RegXM = fp(0.6*d*4e-6), fp(0.48*d*4e-6), fp(0.64*d*4e-6)
+	}
+	figs := Build(rows, nil, Run{})
+	if figs[len(figs)-1].Name != Registration {
+		t.Fatalf("last figure %s, want %s", figs[len(figs)-1].Name, Registration)
+	}
+	f := byName(figs, Registration)
+	svg, _ := render(t, f)
+	for _, c := range []struct {
+		colour color.NRGBA
+		name   string
+	}{{Palette.Ink, "z"}, {Palette.Amber, "y"}, {Palette.Sky, "x"}} {
+		lines, _ := svgPaths(string(svg), c.colour)
+		if len(lines) == 0 || lines[0] != n {
+			t.Errorf("%s: lines with vertices %v, want a first line through %d steps", c.name, lines, n)
+		}
+	}
+	if !strings.Contains(string(svg), "shift (µm)") {
+		t.Error("no axis label shift (µm)")
+	}
+	// The z shift reaches 0.6 × 2.5 × 4 µm = 6 µm: the axis covers it.
+	if p := f.panels[0]; !(p.Y.Max >= 6) {
+		t.Errorf("y axis up to %g µm, want at least 6", p.Y.Max)
+	}
+}

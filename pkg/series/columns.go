@@ -77,7 +77,10 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	rig_injected_volume_m3, pore_volumes_injected, rig_rate_m3_per_s,
 //	darcy_flux_m_per_s, capillary_number, rig_differential_pressure_pa,
 //	rig_pore_pressure_pa, rig_confining_pressure_pa, rig_temperature_k,
-//	rig_pore_volume_m3, rig_cross_section_m2 (the experiment log, pkg/riglog)
+//	rig_pore_volume_m3, rig_cross_section_m2 (the experiment log, pkg/riglog),
+//	registration_z_voxels, registration_y_voxels, registration_x_voxels,
+//	registration_z_m, registration_y_m, registration_x_m,
+//	registration_peak, registration_beyond
 //
 // The four trapped_ganglia_* columns come from the result's trapped_ganglia_curvature object
 // (series.json keeps the whole object); the six pore_filling_* columns from
@@ -170,6 +173,14 @@ var Columns = []Column{
 	fcol("rig_temperature_k", "K", func(r *Row) *float64 { return r.RigTemperature }),
 	fcol("rig_pore_volume_m3", "m3", func(r *Row) *float64 { return r.RigPoreVolume }),
 	fcol("rig_cross_section_m2", "m2", func(r *Row) *float64 { return r.RigArea }),
+	fcol("registration_z_voxels", "voxel", func(r *Row) *float64 { return r.RegZ }),
+	fcol("registration_y_voxels", "voxel", func(r *Row) *float64 { return r.RegY }),
+	fcol("registration_x_voxels", "voxel", func(r *Row) *float64 { return r.RegX }),
+	fcol("registration_z_m", "m", func(r *Row) *float64 { return r.RegZM }),
+	fcol("registration_y_m", "m", func(r *Row) *float64 { return r.RegYM }),
+	fcol("registration_x_m", "m", func(r *Row) *float64 { return r.RegXM }),
+	fcol("registration_peak", "1", func(r *Row) *float64 { return r.RegPeak }),
+	{Key: "registration_beyond", Unit: "bool", kind: kindBool, get: func(r *Row) any { return r.RegBeyond }},
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

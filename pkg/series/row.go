@@ -84,6 +84,16 @@ type Row struct {
 	DriftWFraction *float64 `json:"grey_drift_wetting_fraction"`
 	DriftSFraction *float64 `json:"grey_drift_solid_fraction"`
 	DriftBeyond    *bool    `json:"grey_drift_beyond"`
+	// Drift registration to the reference scan (reference-scan mode;
+	// null otherwise): shift in voxels and metres, peak, beyond the limit.
+	RegZ      *float64 `json:"registration_z_voxels"`
+	RegY      *float64 `json:"registration_y_voxels"`
+	RegX      *float64 `json:"registration_x_voxels"`
+	RegZM     *float64 `json:"registration_z_m"`
+	RegYM     *float64 `json:"registration_y_m"`
+	RegXM     *float64 `json:"registration_x_m"`
+	RegPeak   *float64 `json:"registration_peak"`
+	RegBeyond *bool    `json:"registration_beyond"`
 	// FrontPosition is the displacement front's distance from the inlet
 	// face (m, pkg/measure.Result); FrontVelocity its rate of change from
 	// the previous row (m/s), derived by Sort (see FrontVelocities).

@@ -33,7 +33,7 @@ func TestPageUnitsMatchFigures(t *testing.T) {
 	}
 	for key, want := range map[string]string{"none": plots.UnitDimensionless, "pressure": plots.UnitPressure,
 		"area": plots.UnitSpecificArea, "angleDensity": plots.UnitAngleDensity,
-		"meanCurvDensity": plots.UnitMeanCurvDensity, "eulerDensity": plots.UnitEulerDensity} {
+		"meanCurvDensity": plots.UnitMeanCurvDensity, "eulerDensity": plots.UnitEulerDensity, "shift": plots.UnitShift} {
 		if units[key] != want {
 			t.Errorf("page unit %s = %q, figures write %q", key, units[key], want)
 		}

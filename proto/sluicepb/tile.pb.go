@@ -93,6 +93,9 @@ const (
 	// A phase grey level drifted beyond the bound the campaign thresholds
 	// follow (threshold scope campaign): the shift was capped.
 	StepEvent_KIND_GREY_DRIFT StepEvent_Kind = 5
+	// The sample moved against the reference scan by more than the
+	// campaign's limit (register.max_shift).
+	StepEvent_KIND_REGISTRATION_SHIFT StepEvent_Kind = 6
 )
 
 // Enum value maps for StepEvent_Kind.
@@ -104,14 +107,16 @@ var (
 		3: "KIND_BREAKTHROUGH",
 		4: "KIND_STEADY_STATE",
 		5: "KIND_GREY_DRIFT",
+		6: "KIND_REGISTRATION_SHIFT",
 	}
 	StepEvent_Kind_value = map[string]int32{
-		"KIND_UNSPECIFIED":  0,
-		"KIND_COMPLETED":    1,
-		"KIND_FAILED":       2,
-		"KIND_BREAKTHROUGH": 3,
-		"KIND_STEADY_STATE": 4,
-		"KIND_GREY_DRIFT":   5,
+		"KIND_UNSPECIFIED":        0,
+		"KIND_COMPLETED":          1,
+		"KIND_FAILED":             2,
+		"KIND_BREAKTHROUGH":       3,
+		"KIND_STEADY_STATE":       4,
+		"KIND_GREY_DRIFT":         5,
+		"KIND_REGISTRATION_SHIFT": 6,
 	}
 )
 
@@ -1142,7 +1147,7 @@ const file_sluice_v1_tile_proto_rawDesc = "" +
 	"param_hash\x18\x06 \x01(\tR\tparamHash\x12/\n" +
 	"\bpriority\x18\a \x01(\x0e2\x13.sluice.v1.PriorityR\bpriority\x12;\n" +
 	"\vingested_at\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\n" +
-	"ingestedAt\"\xe0\x03\n" +
+	"ingestedAt\"\xfd\x03\n" +
 	"\tStepEvent\x12\x1a\n" +
 	"\bcampaign\x18\x01 \x01(\tR\bcampaign\x12\x12\n" +
 	"\x04step\x18\x02 \x01(\tR\x04step\x12-\n" +
@@ -1155,14 +1160,15 @@ const file_sluice_v1_tile_proto_rawDesc = "" +
 	"\x02at\x18\b \x01(\v2\x1a.google.protobuf.TimestampR\x02at\x1a9\n" +
 	"\vValuesEntry\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x14\n" +
-	"\x05value\x18\x02 \x01(\x01R\x05value:\x028\x01\"\x84\x01\n" +
+	"\x05value\x18\x02 \x01(\x01R\x05value:\x028\x01\"\xa1\x01\n" +
 	"\x04Kind\x12\x14\n" +
 	"\x10KIND_UNSPECIFIED\x10\x00\x12\x12\n" +
 	"\x0eKIND_COMPLETED\x10\x01\x12\x0f\n" +
 	"\vKIND_FAILED\x10\x02\x12\x15\n" +
 	"\x11KIND_BREAKTHROUGH\x10\x03\x12\x15\n" +
 	"\x11KIND_STEADY_STATE\x10\x04\x12\x13\n" +
-	"\x0fKIND_GREY_DRIFT\x10\x05\"\x98\x02\n" +
+	"\x0fKIND_GREY_DRIFT\x10\x05\x12\x1b\n" +
+	"\x17KIND_REGISTRATION_SHIFT\x10\x06\"\x98\x02\n" +
 	"\n" +
 	"DeadLetter\x12'\n" +
 	"\x04task\x18\x01 \x01(\v2\x13.sluice.v1.TileTaskR\x04task\x12\x15\n" +

@@ -492,6 +492,7 @@ func (a *Aggregator) completeLocked(ctx context.Context, step layout.Step, hash 
 		return nil
 	}
 	res.PoreFilling, res.GanglionTracking = pf, gt
+	scan.SetRegistration(res, plan.Registration, man.VoxelSize)
 	b, err := json.MarshalIndent(res, "", "  ")
 	if err != nil {
 		return err
@@ -829,6 +830,8 @@ func (a *Aggregator) detectEvents(ctx context.Context, c layout.Campaign, rows [
 			kind = sluicepb.StepEvent_KIND_BREAKTHROUGH
 		case events.GreyDrift:
 			kind = sluicepb.StepEvent_KIND_GREY_DRIFT
+		case events.RegistrationShift:
+			kind = sluicepb.StepEvent_KIND_REGISTRATION_SHIFT
 		}
 		if a.Publisher != nil {
 			err := a.Publisher.PublishEvent(ctx, EventID(c, e), &sluicepb.StepEvent{Campaign: c.Name(), Step: e.Step, Kind: kind, TimeS: e.Time, Detail: e.Detail})

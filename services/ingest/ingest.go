@@ -23,6 +23,7 @@ import (
 	"sluice/internal/usermsg"
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
+	"sluice/pkg/register"
 	"sluice/pkg/scan"
 	"sluice/pkg/segment"
 	"sluice/pkg/telemetry"
@@ -200,11 +201,15 @@ func (in *Ingester) ingest(ctx context.Context, req Request) (*sluicepb.StepRead
 			return nil, fmt.Errorf("ingest: %s: pass 1: %w", req.Path, err)
 		}
 		in.stage("pass1", t0)
+		log := in.Log
+		if log == nil {
+			log = slog.Default()
+		}
+		if r := plan.Registration; r != nil && r.Beyond {
+			log.Warn("ingest: registration: the step moved against the reference scan by more than register.max_shift; resampled by it all the same",
+				"scan", req.Path, "shift_zyx_voxels", r.Shift, "limit_voxels", r.Limit, "peak", r.Peak)
+		}
 		if ph := plan.Thresholds.Phases; ph.OneFluid() || ph.Decided == "undecided" {
-			log := in.Log
-			if log == nil {
-				log = slog.Default()
-			}
 			log.Warn("ingest: pass 1: fewer phases than configured, or undecided", "scan", req.Path, "phases_detected", ph.InScan(), "fluids", ph.Fluids, "note", ph.Describe())
 		}
 		plan.Priority = priorityName(req.Priority)
@@ -441,6 +446,14 @@ func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign
 	if err != nil {
 		return campaign.Plan{}, err
 	}
+	var reg *register.Result
+	if cfg.Registers() {
+		if reg, err = RegisterStep(ctx, st, step, man, cfg); err != nil {
+			return campaign.Plan{}, err
+		}
+		src = scan.Registered(src, man.Whole(), reg.Applied)
+		solid = scan.RegisteredMask(solid, man.Whole(), reg.Applied)
+	}
 	hash := cfg.Hash()
 	var prep scan.Prepared
 	eff := cfg
@@ -463,9 +476,47 @@ func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign
 		return campaign.Plan{}, err
 	}
 	p := campaign.Plan{Campaign: man.Campaign, Step: man.Step, ParamHash: hash, Config: eff, Thresholds: prep.Thresholds,
-		Tile: cfg.Tile, Halo: halo, PlannedAt: time.Now().UTC(), Version: version}
+		Tile: cfg.Tile, Halo: halo, Registration: reg, PlannedAt: time.Now().UTC(), Version: version}
 	p.Tiles = p.Tiling(man).Len()
 	return p, nil
+}
+
+// RegisterStep estimates the shift of a stored step against the campaign's
+// reference scan (reference/volume.zarr, stored by `sluice reference`) by
+// phase correlation over the central region of both (package register),
+// once per step and parameter set, and decides it under the campaign's
+// limit.
+func RegisterStep(ctx context.Context, st Store, step layout.Step, man campaign.Manifest, cfg campaign.Config) (*register.Result, error) {
+	refKey := step.Campaign().ReferenceVolume()
+	ref, err := ZarrSource(ctx, st, refKey)
+	if err != nil {
+		if errors.Is(err, fs.ErrNotExist) {
+			return nil, fmt.Errorf("registration needs the reference scan's grey values at %s (`sluice reference` stores them with the solid mask); for a campaign whose reference holds only the mask, set register.off: true", refKey)
+		}
+		return nil, fmt.Errorf("registration: reference scan %s: %w", refKey, err)
+	}
+	region, err := register.Region(man.Whole(), cfg.Register.Region)
+	if err != nil {
+		return nil, err
+	}
+	rg, err := ref(region)
+	if err != nil {
+		return nil, fmt.Errorf("registration: reference scan %s: %w", refKey, err)
+	}
+	src, err := ZarrSource(ctx, st, step.Volume())
+	if err != nil {
+		return nil, err
+	}
+	g, err := src(region)
+	if err != nil {
+		return nil, err
+	}
+	est, err := register.Phase(rg, g, region)
+	if err != nil {
+		return nil, err
+	}
+	r := register.Decide(est, cfg.RegisterLimit())
+	return &r, nil
 }
 
 // campaignThresholds applies the campaign's thresholds (threshold scope

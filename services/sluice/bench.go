@@ -12,6 +12,7 @@ import (
 	"sluice/pkg/filter"
 	"sluice/pkg/forward"
 	"sluice/pkg/measure"
+	"sluice/pkg/register"
 	"sluice/pkg/scan"
 	"sluice/pkg/scenario"
 	"sluice/pkg/volume"
@@ -121,6 +122,22 @@ func runBenchStages(args []string) int {
 		return err
 	}); err != nil {
 		return fail(exitFailure, "bench: %v", err)
+	}
+	// Drift registration (reference-scan mode), per step: the estimate over
+	// the central region, and the whole scan resampled by a sub-voxel shift
+	// (the workers do it tile by tile).
+	if region, err := register.Region(grey.Box, register.DefaultRegion); err == nil {
+		t0 = time.Now()
+		if _, err := register.Phase(grey, grey, region); err != nil {
+			return fail(exitFailure, "bench: %v", err)
+		}
+		rs := region.Size()
+		row(fmt.Sprintf("registration estimate (%d×%d×%d region)", rs[0], rs[1], rs[2]), time.Since(t0), procs)
+		t0 = time.Now()
+		if _, err := register.Resample(grey, grey.Box, grey.Box, register.Shift{0.3, -0.45, 0.8}); err != nil {
+			return fail(exitFailure, "bench: %v", err)
+		}
+		row("registration resample, sub-voxel", time.Since(t0), 1)
 	}
 	if *nlm {
 		t0 = time.Now()

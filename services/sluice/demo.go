@@ -293,7 +293,7 @@ func prepareDemoCampaign(ctx context.Context, st store.Store, name string, sc *s
 	if err != nil {
 		return err
 	}
-	_, err = storeMask(ctx, st, c, mask, cfg.Tile)
+	_, err = storeReference(ctx, st, c, ref, mask, cfg.Tile)
 	return err
 }
 

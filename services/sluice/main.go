@@ -131,7 +131,7 @@ var helps = map[string]help{
 	"segment": {synopsis: "segment [flags] FILE OUT",
 		notes: "FILE is a grey volume (raw, TIFF stack or Zarr); OUT is a label volume,\nwritten as Zarr when it ends in .zarr, else as raw uint8 with a .sluice.json header."},
 	"reference": {synopsis: "reference --campaign C [--data DIR | --store LOC] [flags] FILE",
-		notes: "FILE is the reference scan; the solid mask goes to campaigns/C/reference/solid.zarr."},
+		notes: "FILE is the reference scan; the solid mask goes to campaigns/C/reference/solid.zarr, its grey values\n(what each step is registered to) to campaigns/C/reference/volume.zarr."},
 	"run":       {synopsis: "run [flags]"},
 	"ingest":    {synopsis: "ingest --campaign C --nats URL --store LOC [flags] (FILE | --watch DIR)"},
 	"worker":    {synopsis: "worker --nats URL --store LOC [flags]"},

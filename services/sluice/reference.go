@@ -73,7 +73,7 @@ func runReference(args []string) int {
 		return fail(exitBadInput, "reference: %s: %v", path, err)
 	}
 	c, _ := layout.NewCampaign(*name)
-	key, err := storeMask(ctx, st, c, mask, rec.Config.Tile)
+	key, err := storeReference(ctx, st, c, grey, mask, rec.Config.Tile)
 	if err != nil {
 		return fail(exitFailure, "reference: %v", err)
 	}
@@ -88,8 +88,8 @@ func runReference(args []string) int {
 			pore++
 		}
 	}
-	fmt.Fprintf(stdout, "threshold %.6g; solid %d, pore %d, outside %d voxels (porosity %.4f)\nsolid mask stored at %s\nset `segment: {reference: true}` in the campaign config to use it\n",
-		thr, solid, pore, out, float64(pore)/float64(max(solid+pore, 1)), key)
+	fmt.Fprintf(stdout, "threshold %.6g; solid %d, pore %d, outside %d voxels (porosity %.4f)\nsolid mask stored at %s, the scan's grey values (for drift registration) at %s\nset `segment: {reference: true}` in the campaign config to use it\n",
+		thr, solid, pore, out, float64(pore)/float64(max(solid+pore, 1)), key, c.ReferenceVolume())
 	return exitOK
 }
 
@@ -168,14 +168,26 @@ func solidMask(grey volume.Any, filterName, method string, solidDark bool, codes
 	return mask, thr, nil
 }
 
-// storeMask writes the mask as the campaign's solid.zarr.
-func storeMask(ctx context.Context, st store.Store, c layout.Campaign, mask *volume.Labels, tile int) (string, error) {
+// storeReference writes the reference scan's grey values as the
+// campaign's reference/volume.zarr (what steps are registered to, package
+// register) and then its mask as solid.zarr.
+func storeReference(ctx context.Context, st store.Store, c layout.Campaign, grey volume.Any, mask *volume.Labels, tile int) (string, error) {
 	prefix := strings.TrimSuffix(c.SolidMask(), "/")
 	if _, err := volio.OpenZarr(ctx, st, prefix); err == nil {
 		return "", errors.New(c.SolidMask() + " exists; a campaign keeps one reference mask (start a new campaign for another)")
 	}
 	s := mask.Shape()
-	z, err := volio.CreateZarr(ctx, st, prefix, volio.ZarrMeta{Shape: s, Chunks: [3]int{min(tile, s[0]), min(tile, s[1]), min(tile, s[2])},
+	chunks := [3]int{min(tile, s[0]), min(tile, s[1]), min(tile, s[2])}
+	g, err := volio.CreateZarr(ctx, st, strings.TrimSuffix(c.ReferenceVolume(), "/"), volio.ZarrMeta{Shape: grey.Bounds().Size(), Chunks: chunks,
+		DType: grey.DType(), Compressor: "zstd", VoxelSize: grey.EdgeLength(),
+		Attrs: map[string]any{"role": "reference scan", "software_version": Version}})
+	if err != nil {
+		return "", err
+	}
+	if err := g.WriteBox(ctx, grey); err != nil {
+		return "", err
+	}
+	z, err := volio.CreateZarr(ctx, st, prefix, volio.ZarrMeta{Shape: s, Chunks: chunks,
 		DType: volume.Uint8, Compressor: "zstd", VoxelSize: mask.VoxelSize,
 		Attrs: map[string]any{"role": "reference solid mask", "software_version": Version}})
 	if err != nil {

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -82,11 +83,40 @@ func TestReferenceScanMode(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
+	// Step 7: the sample crept by a known sub-voxel shift (forward model
+	// Params.Shift); registration (on by default in reference mode) puts
+	// it back onto the reference grid.
+	drift := [3]float64{1.3, -0.7, 0.45}
+	if err := writeDriftedScan(f.watch, sc, 7, demoCylinder(sc), drift); err != nil {
+		t.Fatal(err)
+	}
+	steps = append(steps, 7)
 	st, _ := nf.openStore(ctx)
 	rows := waitRows(t, st, "refmode", len(steps), 3*time.Minute)
 	for k, r := range rows {
-		if *r.Porosity != *rows[0].Porosity {
+		if r.RegZ == nil || r.RegY == nil || r.RegX == nil || r.RegZM == nil || r.RegBeyond == nil || *r.RegBeyond {
+			t.Fatalf("step %s: registration columns %v %v %v %v %v, want a shift within the limit", r.Step, r.RegZ, r.RegY, r.RegX, r.RegZM, r.RegBeyond)
+		}
+		got := [3]float64{*r.RegZ, *r.RegY, *r.RegX}
+		var want [3]float64
+		if steps[k] == 7 {
+			want = drift
+		}
+		for a := range got {
+			// Source: the forward model's shift; 0.1 voxel as pkg/register TestRecoversKnownShifts.
+			if math.Abs(got[a]-want[a]) > 0.1 {
+				t.Errorf("step %s: shift %v, forward model's %v", r.Step, got, want)
+				break
+			}
+		}
+		if math.Abs(*r.RegZM-*r.RegZ*sc.VoxelSize) > 1e-12 {
+			t.Errorf("step %s: registration_z_m %g is not %g voxels × %g m", r.Step, *r.RegZM, *r.RegZ, sc.VoxelSize)
+		}
+		if steps[k] != 7 && *r.Porosity != *rows[0].Porosity {
 			t.Errorf("step %s: porosity %.6f differs from %.6f — the rock must come from the one mask", r.Step, *r.Porosity, *rows[0].Porosity)
+		}
+		if steps[k] == 7 && math.Abs(*r.Porosity-*rows[0].Porosity) > 0.005 {
+			t.Errorf("drifted step %s: porosity %.6f, undrifted %.6f: the registered step must see the same rock", r.Step, *r.Porosity, *rows[0].Porosity)
 		}
 		lab, _, _ := sc.Step(steps[k])
 		truth := 1 - sc.Saturation(lab)
@@ -105,4 +135,23 @@ func TestReferenceScanMode(t *testing.T) {
 	if !plan.Config.Segment.Reference || len(plan.Thresholds.T) != 1 {
 		t.Errorf("plan not in reference mode: %+v", plan.Thresholds)
 	}
+}
+
+// writeDriftedScan is writeScan with the sample moved by shift voxels
+// (z, y, x) in the scanner.
+func writeDriftedScan(dir string, sc *scenario.Campaign, i int, cyl *forward.Cylinder, shift [3]float64) error {
+	lab, _, t := sc.Step(i)
+	p := forward.Default()
+	p.Sample, p.Seed, p.Shift = cyl, uint64(i+1), shift
+	g, err := forward.Render(lab, p)
+	if err != nil {
+		return err
+	}
+	grey := forward.Uint16(g)
+	grey.VoxelSize = sc.VoxelSize
+	name := filepath.Join(dir, fmt.Sprintf("scan-%04d.raw", i))
+	if err := volio.WriteRaw(name, grey, volio.WriteOptions{TimeS: t, HasTime: true}); err != nil {
+		return err
+	}
+	return os.WriteFile(name+".done", []byte(fmt.Sprintf("{\"time_s\": %g}\n", t)), 0o644)
 }

@@ -24,6 +24,7 @@ import (
 	"sluice/pkg/campaign"
 	"sluice/pkg/layout"
 	"sluice/pkg/queue"
+	"sluice/pkg/register"
 	"sluice/pkg/scan"
 	"sluice/pkg/store"
 	"sluice/pkg/telemetry"
@@ -163,13 +164,23 @@ func (w *Worker) process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.T
 		return nil, queue.Permanent(fmt.Errorf("worker: %s tile %d: core %v outside scan %v", step.Dir(), t.Tile, core, whole))
 	}
 	box := core.Grow(p.plan.Halo).Intersect(whole)
-	grey, err := readBox(ctx, cs, t.InputKey, box)
+	// A registered step is read on the reference grid: its box moved by
+	// the step's shift (widened by the interpolation kernel along a fractional axis),
+	// resampled, the voxels the shifted scan did not see left out of the
+	// mask (package register; the same for every tiling).
+	var shift register.Shift
+	if r := p.plan.Registration; r != nil {
+		shift = r.Applied
+	}
+	grey, err := scan.Registered(func(b volume.Box) (volume.Any, error) { return readBox(ctx, cs, t.InputKey, b) }, whole, shift)(box)
 	if err != nil {
 		return nil, err
 	}
 	var solid *volume.Labels
 	if p.plan.Config.Segment.Reference {
-		m, err := readBox(ctx, cs, step.Campaign().SolidMask(), box)
+		m, err := scan.RegisteredMask(func(b volume.Box) (volume.Any, error) {
+			return readBox(ctx, cs, step.Campaign().SolidMask(), b)
+		}, whole, shift)(box)
 		if err != nil {
 			return nil, err
 		}

@@ -8,7 +8,7 @@
 // amber, dark magenta, light sky) and every series also has its own marker.
 // Axis units, written as the report's figures write them (pkg/plots Unit…;
 // a test in pkg/web holds the two together).
-const U = { none: "–", pressure: "kPa", area: "mm²/mm³ of bulk volume", angleDensity: "1/°", meanCurvDensity: "mm/mm³", eulerDensity: "1/mm³" };
+const U = { none: "–", pressure: "kPa", area: "mm²/mm³ of bulk volume", angleDensity: "1/°", meanCurvDensity: "mm/mm³", eulerDensity: "1/mm³", shift: "µm" };
 
 const C = { a: "#1d3f8f", b: "#d98a00", c: "#8c2d73", d: "#4aa3d8", grid: "#e4e4e4", axis: "#555" };
 
@@ -233,6 +233,13 @@ function draw() {
   // Geometric state (McClure et al. 2018): J_wn and χ_n per bulk volume against S_w.
   plot(qs("plot-jwn"), [{ name: "J_wn(S_w)", color: C.b, marker: "square", pts: pair("saturation_wetting", "specific_mean_curvature_integral_wn_per_m2", 1e-6) }], `S_w (${U.none})`, `J_wn/V (${U.meanCurvDensity})`, { xmin: 0, xmax: 1 });
   plot(qs("plot-chi"), [{ name: "χ_n(S_w)", color: C.d, marker: "triangle", pts: pair("saturation_wetting", "specific_euler_nonwetting_per_m3", 1e-9) }], `S_w (${U.none})`, `χ_n/V (${U.eulerDensity})`, { xmin: 0, xmax: 1 });
+  // Drift registration (reference-scan mode): shown once a step has a shift.
+  const registered = state.series.some(r => num(r.registration_z_m) !== null);
+  qs("registration-fig").hidden = !registered;
+  plot(qs("plot-registration"), [
+    { name: "z", color: C.a, marker: "circle", pts: col("registration_z_m", 1e6) },
+    { name: "y", color: C.b, marker: "square", pts: col("registration_y_m", 1e6) },
+    { name: "x", color: C.c, marker: "triangle", pts: col("registration_x_m", 1e6) }], tl, `shift (${U.shift})`);
   const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s / TU.s, s.latency_s]);
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], tl, "ingest → series (s)", { ymin: 0 });
   summary(last);
@@ -251,6 +258,7 @@ function summary(r) {
     ["θ mean ± SE (sd)", pm(r.contact_angle_mean_deg, r.contact_angle_mean_se_deg, 1, 1) + "° (" + fmt(r.contact_angle_std_deg, 1) + "°)"],
     ["ganglia", r.ganglia_count], ["percolating", r.nonwetting_percolates ? "yes" : "no"], ["voxel", fmt(r.voxel_size_m * 1e6, 2) + " µm"],
     ...rigSummary(r)];
+  if (num(r.registration_z_m) !== null) items.push(["shift z, y, x", [r.registration_z_m, r.registration_y_m, r.registration_x_m].map(v => fmt(v * 1e6, 1)).join(", ") + " µm" + (r.registration_beyond ? " (beyond the limit)" : "")]);
   s.innerHTML = items.map(([k, v]) => `<div>${k}<b>${v}</b></div>`).join("");
 }
 
@@ -271,7 +279,8 @@ function banners() {
   const b = [];
   const failed = state.steps.filter(s => s.status === "failed");
   const inflight = state.steps.filter(s => s.status === "processing" || s.status === "ingested");
-  const kindText = {breakthrough: "Breakthrough", steady_state: "Steady state", grey_drift: "Grey-level drift beyond the bound"};
+  const kindText = {breakthrough: "Breakthrough", steady_state: "Steady state", grey_drift: "Grey-level drift beyond the bound",
+    registration_shift: "Sample moved beyond the registration limit"};
   for (const e of state.events) b.push(["banner-event", `${kindText[e.kind] || e.kind} at step ${e.step} (t = ${fmt(e.time_s, 0)} s): ${e.detail || ""}`]);
   for (const f of failed) b.push(["banner-fail", `Step ${f.step} failed: ${f.reason}`]);
   if (state.rejected.length) b.push(["banner-fail", `${state.rejected.length} scan${state.rejected.length > 1 ? "s" : ""} rejected at ingest (not measured): ` +
