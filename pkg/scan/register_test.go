@@ -88,6 +88,9 @@ func wettingSaturation(lab, mask *volume.Labels) float64 {
 // with the S_n 0.63 step); the unregistered error must exceed 0.02 at the
 // last step, or the campaign proves nothing.
 func TestRegistrationCampaign(t *testing.T) {
+	if testing.Short() {
+		t.Skip("30 forward-model steps segmented whole; runs in the full suite")
+	}
 	const n = 96
 	brine := makeFluidScene(t, n, 1, 0)
 	refGrey := renderShifted(t, brine.lab, 20, 1<<20, register.Shift{})
