@@ -12,16 +12,7 @@ import (
 // BenchmarkPublishTask measures stored (server-acknowledged) task publishes
 // per second on the embedded server's file store.
 func BenchmarkPublishTask(b *testing.B) {
-	srv, err := StartServer(ServerConfig{StoreDir: b.TempDir()})
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer srv.Shutdown()
-	q, err := Open(context.Background(), Config{Server: srv, Logger: quiet})
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer q.Close()
+	_, q := newQueue(b, Policy{})
 	ctx := context.Background()
 	tk := task("bench", "0001", 0, pb.Priority_PRIORITY_BATCH)
 	tk.TileCount = 0
@@ -39,16 +30,7 @@ func BenchmarkPublishTask(b *testing.B) {
 // BenchmarkTaskRoundTrip measures tasks per second through the whole
 // path: publish, pull (one per request, live then batch), handler, confirmed ack.
 func BenchmarkTaskRoundTrip(b *testing.B) {
-	srv, err := StartServer(ServerConfig{StoreDir: b.TempDir()})
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer srv.Shutdown()
-	q, err := Open(context.Background(), Config{Server: srv, Logger: quiet})
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer q.Close()
+	_, q := newQueue(b, Policy{})
 	ctx, cancel := context.WithCancel(context.Background())
 	var handled atomic.Int64
 	all := make(chan struct{})
@@ -86,16 +68,7 @@ func BenchmarkTaskRoundTrip(b *testing.B) {
 // stream is drained. ms/task is the per-tile queue overhead
 // that docs/performance.md sets against the tile's compute time.
 func BenchmarkTaskDrainSerial(b *testing.B) {
-	srv, err := StartServer(ServerConfig{StoreDir: b.TempDir()})
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer srv.Shutdown()
-	q, err := Open(context.Background(), Config{Server: srv, Logger: quiet})
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer q.Close()
+	_, q := newQueue(b, Policy{})
 	ctx, cancel := context.WithCancel(context.Background())
 	defer cancel()
 	tk := task("bench", "0001", 0, pb.Priority_PRIORITY_BATCH)

@@ -27,7 +27,7 @@ var quiet = slog.New(slog.NewTextHandler(io.Discard, nil))
 
 const patience = 30 * time.Second
 
-func startServer(t *testing.T, dir string) *Server {
+func startServer(t testing.TB, dir string) *Server {
 	t.Helper()
 	srv, err := StartServer(ServerConfig{StoreDir: dir})
 	if err != nil {
@@ -36,7 +36,7 @@ func startServer(t *testing.T, dir string) *Server {
 	return srv
 }
 
-func openQueue(t *testing.T, cfg Config) *Queue {
+func openQueue(t testing.TB, cfg Config) *Queue {
 	t.Helper()
 	if cfg.Logger == nil {
 		cfg.Logger = quiet
@@ -51,7 +51,7 @@ func openQueue(t *testing.T, cfg Config) *Queue {
 
 // newQueue starts an embedded server in a temporary directory and opens a
 // queue on it with the given policy.
-func newQueue(t *testing.T, pol Policy) (*Server, *Queue) {
+func newQueue(t testing.TB, pol Policy) (*Server, *Queue) {
 	t.Helper()
 	srv := startServer(t, t.TempDir())
 	t.Cleanup(srv.Shutdown)
