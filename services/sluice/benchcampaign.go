@@ -584,18 +584,24 @@ func vmHWM(path string) (int64, error) {
 
 // scrapeStageSums reads the _sum and _count of a histogram labelled by
 // stage from a Prometheus text exposition: stage → [sum, count].
-// scrapeGauge reads one unlabelled sample from a Prometheus text page.
-func scrapeGauge(url, metric string) (float64, error) {
+// fetchMetrics returns a Prometheus text page (at most 16 MiB).
+func fetchMetrics(url string) (string, error) {
 	r, err := http.Get(url)
 	if err != nil {
-		return 0, err
+		return "", err
 	}
 	defer r.Body.Close()
 	b, err := io.ReadAll(io.LimitReader(r.Body, 16<<20))
+	return string(b), err
+}
+
+// scrapeGauge reads one unlabelled sample from a Prometheus text page.
+func scrapeGauge(url, metric string) (float64, error) {
+	page, err := fetchMetrics(url)
 	if err != nil {
 		return 0, err
 	}
-	for _, l := range strings.Split(string(b), "\n") {
+	for _, l := range strings.Split(page, "\n") {
 		if v, ok := strings.CutPrefix(l, metric+" "); ok {
 			return strconv.ParseFloat(strings.TrimSpace(v), 64)
 		}
@@ -604,17 +610,12 @@ func scrapeGauge(url, metric string) (float64, error) {
 }
 
 func scrapeStageSums(url, metric string) (map[string][2]float64, error) {
-	r, err := http.Get(url)
-	if err != nil {
-		return nil, err
-	}
-	defer r.Body.Close()
-	b, err := io.ReadAll(io.LimitReader(r.Body, 16<<20))
+	page, err := fetchMetrics(url)
 	if err != nil {
 		return nil, err
 	}
 	out := map[string][2]float64{}
-	for _, l := range strings.Split(string(b), "\n") {
+	for _, l := range strings.Split(page, "\n") {
 		for k, suffix := range []string{"_sum{", "_count{"} {
 			rest, ok := strings.CutPrefix(l, metric+suffix)
 			if !ok {
