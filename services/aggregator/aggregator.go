@@ -80,6 +80,7 @@ type Aggregator struct {
 	arrived   map[string]map[int32]bool // tiles seen per (step, hash) tile prefix
 	lastLat   float64
 	rigErr    map[string]string      // the last rig-log error logged per campaign
+	rigSeen   map[string]string      // the stored rig log last re-applied per campaign (riglive.go)
 	workers   map[string]heardWorker // by worker id (WorkerBeat)
 	// plannedSeen (plan keys found) and manifests (by step directory) are
 	// caches of write-once objects for finding a step's previous step

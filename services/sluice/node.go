@@ -433,6 +433,9 @@ func runAggregator(ctx context.Context, q *queue.Queue, a *aggregator.Aggregator
 			}
 		}
 	})
+	// The rig log may grow after the last step is measured: its columns
+	// are re-applied to the series whenever the stored log changes.
+	g.Go("rig log", func(ctx context.Context) error { a.WatchRigLogs(ctx, 5*time.Second); return nil })
 	g.Go("", func(ctx context.Context) error { return watchConn(ctx, q) })
 	return g.Wait()
 }
