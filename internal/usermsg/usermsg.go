@@ -14,7 +14,7 @@ import "strings"
 // Packages are the names of sluice's packages (pkg/*, services/*) whose
 // error prefixes are dropped. A test keeps the list complete.
 var Packages = []string{
-	"aggregator", "blockse", "campaign", "cluster", "contact", "curvature", "distance", "equilibrium", "events", "filling", "filter",
+	"accuracy", "aggregator", "blockse", "campaign", "cluster", "contact", "curvature", "distance", "equilibrium", "events", "filling", "filter",
 	"forward", "ingest", "layout", "levelset", "measure", "mesh", "morph", "phase", "plots",
 	"preview", "queue", "register", "report", "riglog", "scan", "scenario", "segment", "series", "store", "synth",
 	"telemetry", "tracking", "volio", "volume", "web", "worker",

@@ -77,3 +77,9 @@ type ReferenceShape struct {
 func WaitingKey(s layout.Step, hash string) string {
 	return s.Dir() + "runs/" + hash + "/waiting.json"
 }
+
+// AccuracyKey returns the key of the accuracy estimate of a run (`sluice
+// accuracy`: bias and spread of S_w, a_wn, Pc and θ on equilibrium states
+// rendered like the campaign's scans and processed with the run's
+// parameters): runs/<hash>/accuracy.json.
+func AccuracyKey(c layout.Campaign, hash string) string { return RunDir(c, hash) + "accuracy.json" }

@@ -61,6 +61,9 @@ var commandFlags = map[string][]string{
 	// HTTP and works no tasks.
 	"status":  join(storeGroup, natsGroup, []string{"data"}),
 	"compare": join(campaignGroup, []string{"runs", "out"}),
+	// accuracy: a campaign (store) or a mask file (input flags, config,
+	// the scan's levels, noise and blur).
+	"accuracy": join(campaignGroup, inputGroup, []string{"step", "region", "theta", "states", "min-radius", "seed", "workers", "json", "mask", "config", "levels", "noise", "blur"}),
 	// The modes of bench.
 	"bench stages":   {"size", "tile", "workers", "nlm"},
 	"bench compare":  {"size", "repeat", "python", "script", "json", "cpuprofile"},

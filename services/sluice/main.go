@@ -49,6 +49,7 @@ func commands() []command {
 		{"queue-policy", "show or set the task delivery policy (--ack-wait, --max-deliver) of a deployment's queue", runQueuePolicy},
 		{"status", "show a campaign's runs with done, pending and failed steps", runStatus},
 		{"compare", "compare two runs of a campaign step by step, with overlaid plots", runCompare},
+		{"accuracy", "estimate the bias and spread of S_w, a_wn, Pc and θ for a campaign's rock, resolution and parameters", runAccuracy},
 		{"bench", "time each processing stage on a synthetic scan", runBench},
 		{"version", "print the version", func([]string) int { fmt.Fprintln(stdout, "sluice", Version); return exitOK }},
 	}
@@ -146,6 +147,8 @@ var helps = map[string]help{
 	"queue-policy": {synopsis: "queue-policy --nats URL [--ack-wait D --max-deliver N]"},
 	"status":       {synopsis: "status [flags] CAMPAIGN"},
 	"compare":      {synopsis: "compare [flags] CAMPAIGN --runs A,B"},
+	"accuracy": {synopsis: "accuracy [flags] CAMPAIGN  |  accuracy --mask FILE [flags]",
+		notes: "Builds capillary-equilibrium states (level set, prescribed Pc and θ) in a region of the campaign's solid mask,\nrenders them as scans with the grey levels, noise and blur estimated from the step's own scan, segments and\nmeasures them with the current run's parameters, and stores the bias and spread at campaigns/C/runs/HASH/accuracy.json.\nImage-derived Pc and contact angles are estimates; so are these error figures."},
 	"bench stages": {synopsis: "bench [stages] [flags]",
 		sentence: "Time each processing stage on a synthetic scan on this machine.",
 		notes:    "Other modes: `sluice bench compare -h`, `sluice bench campaign -h`."},
