@@ -491,7 +491,7 @@ func notes(r *Report) []string {
 	n := []string{
 		"Image-derived capillary pressure and contact angles are estimates; their error grows as radii of curvature approach a few voxels. These figures hold for this region, resolution and parameter set; do not use them alone for engineering or safety decisions.",
 		"S_w and a_wn are compared with the true labels measured by the same code; Pc (through the curvature κ = Pc/σ) and θ with the prescribed values. The states' own contact angle is a few degrees below the prescribed one (level-set wall treatment), which is part of the θ bias.",
-		"Noise is rendered white and the blur Gaussian, at the levels, σ and blur estimated from the campaign's scan; reconstruction noise of a real scan is correlated over a few voxels, and drift-registration resampling is not modelled.",
+		"Noise is rendered white and the blur Gaussian, at the grey levels, noise σ and blur of the scan (estimated from the campaign's step, or given with --mask); reconstruction noise of a real scan is correlated over a few voxels, and drift-registration resampling is not modelled.",
 	}
 	unconv := 0
 	for _, s := range r.States {

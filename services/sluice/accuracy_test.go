@@ -109,3 +109,54 @@ func TestAccuracyDemoCampaign(t *testing.T) {
 		_ = out
 	}
 }
+
+// TestAccuracyMask runs `sluice accuracy --mask` on a raw solid mask of a
+// converging tube (radius 16 − 0.15z voxels, 48×40×40, solid 0, pore 1)
+// with given levels, noise and blur: one state, the table, the --json
+// file, and nothing stored.
+func TestAccuracyMask(t *testing.T) {
+	if testing.Short() {
+		t.Skip("equilibrium state: seconds of CPU")
+	}
+	dir := t.TempDir()
+	const nz, n = 48, 40
+	b := make([]byte, nz*n*n)
+	c := float64(n-1) / 2
+	for z := 0; z < nz; z++ {
+		for y := 0; y < n; y++ {
+			for x := 0; x < n; x++ {
+				if math.Hypot(float64(y)-c, float64(x)-c) < 16-0.15*float64(z) {
+					b[(z*n+y)*n+x] = 1
+				}
+			}
+		}
+	}
+	path := filepath.Join(dir, "tube.raw")
+	if err := os.WriteFile(path, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	jsonPath := filepath.Join(dir, "acc.json")
+	code, out, errs := runCLI(t, "accuracy", "--mask", path, "--shape", "48,40,40", "--dtype", "uint8", "--voxel-size", "3um",
+		"--levels", "14000,24000,40000", "--noise", "1000", "--blur", "0.8", "--states", "1", "--json", jsonPath)
+	if code != exitOK {
+		t.Fatalf("exit %d\n%s\n%s", code, out, errs)
+	}
+	if strings.Contains(out, "stored at") || !strings.Contains(out, "segmentation + measurement (rendered scans)") {
+		t.Errorf("stdout:\n%s", out)
+	}
+	var rep accuracy.Report
+	raw, err := os.ReadFile(jsonPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(raw, &rep); err != nil {
+		t.Fatal(err)
+	}
+	if len(rep.States) != 1 || rep.Scan.Noise != 1000 || rep.Scan.Blur != 0.8 || rep.VoxelSize != 3e-6 || rep.CNR != 10 {
+		t.Errorf("report: %d states, noise %g, blur %g, voxel %g, CNR %g", len(rep.States), rep.Scan.Noise, rep.Scan.Blur, rep.VoxelSize, rep.CNR)
+	}
+	t.Logf("%s", out)
+	if code, _, errs := runCLI(t, "accuracy", "--mask", path, "--shape", "48,40,40", "--dtype", "uint8", "--voxel-size", "3um", "--step", "s1"); code != exitBadInput || !strings.Contains(errs, "--step reads a campaign") {
+		t.Errorf("--mask with --step: exit %d, %s", code, errs)
+	}
+}
