@@ -153,6 +153,9 @@ type Figure struct {
 	// heights, when set, are the fractions of the figure height of each
 	// panel, top first (panels are then drawn without aligning their axes).
 	heights []float64
+	// sharedX makes the stacked panels one time axis: every panel gets the
+	// union of their x ranges (only the bottom one shows it).
+	sharedX bool
 	empty   bool
 }
 
@@ -185,6 +188,9 @@ func Build(rows []series.Row, evs []events.Event, run Run) []Figure {
 				headroom(p)
 			}
 			finish(p, a)
+		}
+		if f.sharedX {
+			shareX(f.panels, b.times())
 		}
 		t := f.Title
 		if f.empty {
@@ -286,6 +292,29 @@ func finish(p *plot.Plot, a axes) {
 	}
 	round(&p.X, a.fixedX, false)
 	round(&p.Y, a.fixedY, a.intY)
+}
+
+// shareX gives every panel the union of the panels' x ranges and of the
+// steps' times, rounded out to the tick step, so that a time drawn in one
+// panel lies above the same time in the others even when their series
+// start or end at different steps, and the axis spans the whole campaign.
+func shareX(ps []*plot.Plot, times []float64) {
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, p := range ps {
+		lo, hi = math.Min(lo, p.X.Min), math.Max(hi, p.X.Max)
+	}
+	for _, t := range times {
+		if !math.IsNaN(t) {
+			lo, hi = math.Min(lo, t), math.Max(hi, t)
+		}
+	}
+	for range 3 {
+		step := RoundStep(lo, hi, false)
+		lo, hi = math.Floor(lo/step+1e-9)*step, math.Ceil(hi/step-1e-9)*step
+	}
+	for _, p := range ps {
+		p.X.Min, p.X.Max = lo, hi
+	}
 }
 
 // WriteSVG renders f as SVG.
@@ -401,6 +430,9 @@ func newPlot(title, x, y string) *plot.Plot {
 	p.X.Label.Text = x
 	p.Y.Label.Text = y
 	p.Legend.Top = true
+	// Off the right edge of the figure by a few points: the thumbnails'
+	// glyphs would otherwise be cut by it.
+	p.Legend.XOffs = -vg.Points(6)
 	p.Add(plotter.NewGrid())
 	return p
 }
@@ -783,7 +815,7 @@ func (b *builder) ganglia() Figure {
 		b.markEvents(bottom)
 	}
 	top.HideX()
-	return Figure{Name: "ganglia", Title: "Nonwetting ganglia", TimeUnit: b.unit, panels: []*plot.Plot{top, bottom},
+	return Figure{Name: "ganglia", Title: "Nonwetting ganglia", TimeUnit: b.unit, panels: []*plot.Plot{top, bottom}, sharedX: true,
 		specs: []axes{{intY: true}, {fixedY: true}}, empty: n == 0}
 }
 

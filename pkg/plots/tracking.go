@@ -48,6 +48,6 @@ func (b *builder) tracking() Figure {
 		b.markEvents(bottom)
 	}
 	top.HideX()
-	return Figure{Name: "ganglion_tracking", Title: title, TimeUnit: b.unit, panels: []*plot.Plot{top, bottom},
+	return Figure{Name: "ganglion_tracking", Title: title, TimeUnit: b.unit, panels: []*plot.Plot{top, bottom}, sharedX: true,
 		specs: []axes{{fixedY: true}, {intY: true}}, empty: n == 0}
 }

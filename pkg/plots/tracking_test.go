@@ -50,3 +50,37 @@ func TestTrackingFigure(t *testing.T) {
 		t.Error("no tracking: figure not marked empty")
 	}
 }
+
+// TestStackedTimePanelsShareX: in the stacked figures whose panels share
+// the time axis, a time lies at the same place in every panel even when
+// the panels' series cover different steps (here the ganglion count from
+// 0 s, the largest-ganglion fraction only from 100 to 200 s, and the
+// tracking only from 150 s): the x ranges are equal and hold every step.
+func TestStackedTimePanelsShareX(t *testing.T) {
+	var rows []series.Row
+	for i := range 7 {
+		tm := float64(i * 50)
+		r := series.Row{Step: "s" + string(rune('0'+i)), Time: tm}
+		c := int64(10 + i)
+		r.GangliaCount = &c
+		if tm >= 100 && tm <= 200 {
+			f := 0.5
+			r.LargestFraction = &f
+		}
+		if tm >= 150 {
+			r.Extra = map[string]json.RawMessage{"ganglion_tracking": json.RawMessage(`{"previous_step":"x","one_to_one":1,"splits":1,"merges":0,"appeared":0,"vanished":0,"trapped_saturation":0.1,"trapped_moved_fraction":0,"trapped_lifetime_mean_s":0,"trapped":[]}`)}
+		}
+		rows = append(rows, r)
+	}
+	figs := Build(rows, nil, Run{})
+	for _, name := range []string{"ganglia", "ganglion_tracking"} {
+		f := byName(figs, name)
+		top, bottom := f.panels[0].X, f.panels[len(f.panels)-1].X
+		if top.Min != bottom.Min || top.Max != bottom.Max {
+			t.Errorf("%s: top x %g…%g, bottom x %g…%g: one time at two places", name, top.Min, top.Max, bottom.Min, bottom.Max)
+		}
+		if top.Min > 0 || top.Max < 300 {
+			t.Errorf("%s: x %g…%g does not hold the steps 0…300 s", name, top.Min, top.Max)
+		}
+	}
+}
