@@ -124,6 +124,9 @@ type Input struct {
 	FixedThresholds *CampaignThresholds
 	// RigLog is the campaign's rig log (nil: none).
 	RigLog *RigLog
+	// Accuracy is the stored accuracy estimate of `sluice accuracy` (nil:
+	// none), shown next to the measured series.
+	Accuracy *Accuracy
 	// Cautions are shown after the ones every report carries (Cautions),
 	// e.g. about a setting of this campaign.
 	Cautions  []string
@@ -230,6 +233,7 @@ type page struct {
 	ChecksFailed   int
 	ChecksNotEval  int
 	Cautions       []string
+	AccuracyView   *accuracyView
 	ResolvedRadius int
 	Generated      string
 	Breakthrough   string
@@ -301,6 +305,7 @@ func Write(w io.Writer, in Input) error {
 	pg.RigInfo = in.RigLog
 	pg.Settings, pg.DriftRule = settingsTable(rows, in.Steps, in.VoxelSize)
 	pg.CampaignTh = viewCampaign(in.FixedThresholds)
+	pg.AccuracyView = viewAccuracy(in.Accuracy, rows)
 	for _, s := range pg.Settings {
 		if s.Drift || s.VoxelDiffers {
 			pg.DriftFlagged++
@@ -829,6 +834,34 @@ of the areas. Large steps bias it: the mean of two P<sub>c</sub> stands for ∫P
 <figcaption>{{.Caption}}</figcaption>
 </figure>
 {{end}}</section>
+
+<section id="accuracy">
+<h2>Accuracy for this rock and resolution</h2>
+{{with .AccuracyView}}<p>Estimated by <code>sluice accuracy</code>: capillary-equilibrium states (interfaces of one prescribed
+curvature κ = P<sub>c</sub>/σ meeting the solid at a prescribed contact angle; level-set quasi-static displacement after
+Prodanović &amp; Bryant 2006, <i>J. Colloid Interface Sci.</i> 304:442) were built in a region of this campaign's solid
+mask, rendered as scans with the grey levels, noise and blur estimated from step {{.Step}}'s own scan, and segmented and
+measured with run {{.Hash}}'s parameters by the code the workers run. <b>Measurement alone</b> measures the states' true
+labels; <b>segmentation + measurement</b> measures the rendered scans. S<sub>w</sub> and a<sub>wn</sub> are compared with
+the true labels measured by the same code, P<sub>c</sub> and θ with the prescribed values. Bias is the mean error over
+the states, spread its standard deviation; a<sub>wn</sub> and P<sub>c</sub> errors are relative.
+Region {{.Region}}; grey levels {{.Levels}}; noise {{.Noise}} (1.4826 × MAD inside the solid); blur {{.Blur}}
+(edge-spread fit at the solid surface); θ {{.Theta}}; radii of curvature ≥ {{.MinRadius}}; made {{.Created}}.</p>
+{{if .Stale}}<p class="fail">This estimate was made under parameter hash {{.Hash}}, not the campaign's current run: rerun
+<code>sluice accuracy</code>.</p>{{end}}
+<table id="accuracy-table">
+<tr><th>quantity</th><th>measured, latest step</th><th>measured, range over steps</th><th>error: measurement alone (bias ± spread)</th><th>error: segmentation + measurement (bias ± spread)</th></tr>{{range .Rows}}
+<tr><td>{{.Quantity}}</td><td>{{.Latest}}</td><td>{{.Range}}</td><td>{{.Labels}}</td><td>{{.Grey}}</td></tr>{{end}}
+</table>
+<table id="accuracy-states">
+<tr><th>κ set (1/mm)</th><th>P<sub>c</sub> set (kPa)</th><th>σ/P<sub>c</sub> (voxels)</th><th>S<sub>n</sub> true</th><th>S<sub>w</sub> true</th><th>S<sub>w</sub> scan</th><th>a<sub>wn</sub> true (1/mm)</th><th>a<sub>wn</sub> scan</th><th>κ labels (1/mm)</th><th>κ scan</th><th>θ labels (°)</th><th>θ scan</th><th>note</th></tr>{{range .States}}
+<tr><td>{{.Kappa}}</td><td>{{.PcSet}}</td><td>{{.Radius}}</td><td>{{.Sn}}</td><td>{{.Sw}}</td><td>{{.SwGrey}}</td><td>{{.Awn}}</td><td>{{.AwnGrey}}</td><td>{{.KLabels}}</td><td>{{.KGrey}}</td><td>{{.ThLabels}}</td><td>{{.ThGrey}}</td><td>{{.Note}}</td></tr>{{end}}
+</table>
+<ul>{{range .Notes}}<li>{{.}}</li>{{end}}</ul>
+{{else}}<p>No accuracy estimate for this run: <code>sluice accuracy CAMPAIGN</code> makes one (minutes on two cores for
+a 96³ region) and stores it with the run. Image-derived capillary pressure and contact angles are estimates; the
+estimate says how far off they may be for this rock at this resolution.</p>{{end}}
+</section>
 
 <section id="geometric-state">
 <h2>Geometric state</h2>

@@ -230,11 +230,23 @@ func writeReport(ctx context.Context, st store.Store, path, name, scenario strin
 		cautions = append(cautions, "Contact angles: "+greyAngleNote+".")
 	}
 	rig := rigReport(ctx, st, c, rec.Config.RigLog, rows)
+	// The accuracy estimate of the current run (`sluice accuracy`), when
+	// one was made; an unreadable one is named, not left out.
+	var acc *report.Accuracy
+	switch b, err := st.Get(ctx, campaign.AccuracyKey(c, rec.Current)); {
+	case err == nil:
+		if acc, err = report.DecodeAccuracy(b); err != nil {
+			return fmt.Errorf("%s: %w", campaign.AccuracyKey(c, rec.Current), err)
+		}
+		acc.Current = rec.Current
+	case !errors.Is(err, iofs.ErrNotExist):
+		return err
+	}
 	f, err := os.Create(path + ".tmp")
 	if err != nil {
 		return err
 	}
-	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, FixedThresholds: fixed, Checks: report.PhysicalChecks(rows, p.IFT), RigLog: rig, Cautions: cautions, Generated: time.Now()})
+	err = report.Write(f, report.Input{Params: p, Rows: rows, Steps: steps, Rejected: rejected, Events: evs, FixedThresholds: fixed, Checks: report.PhysicalChecks(rows, p.IFT), RigLog: rig, Accuracy: acc, Cautions: cautions, Generated: time.Now()})
 	if cerr := f.Close(); err == nil {
 		err = cerr
 	}
