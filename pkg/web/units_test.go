@@ -268,3 +268,39 @@ func TestPageRigSummary(t *testing.T) {
 		t.Errorf("rigSummary: %s\nwant %s", got, want)
 	}
 }
+
+// TestPageAccuracyRows runs the page's accuracyRows (app.js) in Node: the
+// latest step's values (Pa → kPa, 1/m → 1/mm by hand) beside the stored
+// bias ± spread (fractions → per cent for a_wn and Pc), dashes for what is
+// missing.
+func TestPageAccuracyRows(t *testing.T) {
+	node, err := exec.LookPath("node")
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatal("node is not installed (scripts/setup-test-env installs it)")
+		}
+		t.Skip("node is not installed")
+	}
+	b, err := static.ReadFile("static/app.js")
+	if err != nil {
+		t.Fatal(err)
+	}
+	fn := regexp.MustCompile(`(?s)\nfunction accuracyRows\(a, r\) \{.*?\n\}\n`).FindString(string(b))
+	if fn == "" {
+		t.Fatal("app.js has no function accuracyRows(a, r)")
+	}
+	script := "function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }\n" +
+		"function fmt(v, d) { return v === null || v === undefined ? \"—\" : Number(v).toFixed(d); }\n" + fn +
+		`const a = { labels_path: { saturation_wetting_abs: { bias: 0, spread: 0, n: 2 }, capillary_pressure_rel: { bias: -0.04, spread: null, n: 1 } },
+		  grey_path: { saturation_wetting_abs: { bias: 0.0123, spread: 0.004, n: 2 }, specific_area_wn_rel: { bias: 0.1, spread: 0.02, n: 2 },
+		    capillary_pressure_rel: { bias: 0.04, spread: 0.015, n: 2 }, contact_angle_deg: { bias: -5, spread: 1.5, n: 2 } } };
+		console.log(JSON.stringify(accuracyRows(a, { saturation_wetting: 0.4, specific_area_wn_per_m: 3180, capillary_pressure_pa: 1935, contact_angle_mean_deg: null })));`
+	out, err := exec.Command(node, "-e", script).CombinedOutput()
+	if err != nil {
+		t.Fatalf("node: %v\n%s", err, out)
+	}
+	want := `[["S_w","0.400","+0.0000 ± 0.0000","+0.0123 ± 0.0040"],["a_wn","3.18 1/mm","—","+10.0 ± 2.0 %"],["Pc","1.935 kPa","-4.0 %","+4.0 ± 1.5 %"],["θ mean","—","—","-5.0 ± 1.5°"]]`
+	if got := strings.TrimSpace(string(out)); got != want {
+		t.Errorf("accuracyRows: %s\nwant %s", got, want)
+	}
+}

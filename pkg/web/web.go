@@ -112,6 +112,10 @@ type Source interface {
 	SeriesCSV(ctx context.Context, campaign string) ([]byte, error)
 	Result(ctx context.Context, campaign, step string) ([]byte, error)
 	Events(ctx context.Context, campaign string) ([]byte, error)
+	// Accuracy returns the accuracy estimate of the campaign's current run
+	// (`sluice accuracy`, a JSON object), or the JSON null when none was
+	// made.
+	Accuracy(ctx context.Context, campaign string) ([]byte, error)
 	// Preview renders the three orthogonal slices through point (z, y, x);
 	// a negative coordinate means the centre.
 	Preview(ctx context.Context, campaign, step string, point [3]int) ([]byte, error)
@@ -195,6 +199,10 @@ func Handler(src Source, hub *Hub, log *slog.Logger) *http.ServeMux {
 	}))
 	mux.HandleFunc("GET /api/campaigns/{c}/events", checked(func(w http.ResponseWriter, r *http.Request) {
 		b, err := src.Events(r.Context(), r.PathValue("c"))
+		rp.bytes(w, r, "application/json", b, err)
+	}))
+	mux.HandleFunc("GET /api/campaigns/{c}/accuracy", checked(func(w http.ResponseWriter, r *http.Request) {
+		b, err := src.Accuracy(r.Context(), r.PathValue("c"))
 		rp.bytes(w, r, "application/json", b, err)
 	}))
 	mux.HandleFunc("GET /api/campaigns/{c}/steps/{s}/result", checked(func(w http.ResponseWriter, r *http.Request) {

@@ -169,6 +169,27 @@ func (a *Aggregator) Events(ctx context.Context, c string) ([]byte, error) {
 	return b, err
 }
 
+// Accuracy returns the accuracy estimate of the campaign's current run
+// (campaign.AccuracyKey), or null when none was made.
+func (a *Aggregator) Accuracy(ctx context.Context, c string) ([]byte, error) {
+	cl, err := layout.NewCampaign(c)
+	if err != nil {
+		return nil, badName(err)
+	}
+	var rec campaign.Record
+	if err := campaign.GetJSON(ctx, a.Store, cl.Config(), &rec); err != nil {
+		if _, known := a.known(c); known && errors.Is(err, fs.ErrNotExist) {
+			return []byte("null"), nil
+		}
+		return nil, err
+	}
+	b, err := a.Store.Get(ctx, campaign.AccuracyKey(cl, rec.Current))
+	if errors.Is(err, fs.ErrNotExist) {
+		return []byte("null"), nil
+	}
+	return b, err
+}
+
 // Result returns a step's result.json.
 func (a *Aggregator) Result(ctx context.Context, c, s string) ([]byte, error) {
 	st, err := layout.NewStep(c, s)

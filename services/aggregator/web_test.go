@@ -88,3 +88,53 @@ func TestAPIErrorsKeepInternalsInTheLog(t *testing.T) {
 		t.Errorf("bad campaign name: %d %q, want 400", code, body)
 	}
 }
+
+// TestAccuracyAPI: /api/campaigns/{c}/accuracy serves the accuracy
+// estimate stored under the campaign's current run (campaign.AccuracyKey),
+// null while there is none (and for an estimate of another run only), 404
+// for an unknown campaign.
+func TestAccuracyAPI(t *testing.T) {
+	ctx := context.Background()
+	st, err := store.Open(ctx, t.TempDir(), store.Credentials{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	c, _ := layout.NewCampaign("c")
+	if err := campaign.PutJSON(ctx, st, c.Config(), campaign.Record{Name: "c", Current: fuzzHash, Config: campaign.Default(), Runs: []string{fuzzHash}}); err != nil {
+		t.Fatal(err)
+	}
+	a := &Aggregator{Store: st, Log: slog.New(slog.NewTextHandler(io.Discard, nil))}
+	if err := a.Start(ctx); err != nil {
+		t.Fatal(err)
+	}
+	srv := httptest.NewServer(web.Handler(a, web.NewHub(), a.Log))
+	defer srv.Close()
+	get := func(path string) (int, string) {
+		resp, err := http.Get(srv.URL + path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer resp.Body.Close()
+		b, _ := io.ReadAll(resp.Body)
+		return resp.StatusCode, string(b)
+	}
+	if code, body := get("/api/campaigns/c/accuracy"); code != http.StatusOK || body != "null" {
+		t.Errorf("no estimate: %d %q, want 200 null", code, body)
+	}
+	if err := st.Put(ctx, campaign.AccuracyKey(c, "fedcba9876543210"), []byte(`{"param_hash":"fedcba9876543210"}`)); err != nil {
+		t.Fatal(err)
+	}
+	if code, body := get("/api/campaigns/c/accuracy"); code != http.StatusOK || body != "null" {
+		t.Errorf("estimate of another run only: %d %q, want 200 null", code, body)
+	}
+	want := `{"param_hash":"` + fuzzHash + `"}`
+	if err := st.Put(ctx, campaign.AccuracyKey(c, fuzzHash), []byte(want)); err != nil {
+		t.Fatal(err)
+	}
+	if code, body := get("/api/campaigns/c/accuracy"); code != http.StatusOK || body != want {
+		t.Errorf("estimate of the current run: %d %q, want 200 %s", code, body, want)
+	}
+	if code, _ := get("/api/campaigns/nope/accuracy"); code != http.StatusNotFound {
+		t.Errorf("unknown campaign: %d, want 404", code)
+	}
+}

@@ -12,7 +12,7 @@ const U = { none: "–", pressure: "kPa", area: "mm²/mm³ of bulk volume", angl
 
 const C = { a: "#1d3f8f", b: "#d98a00", c: "#8c2d73", d: "#4aa3d8", grid: "#e4e4e4", axis: "#555" };
 
-const state = { campaign: null, series: [], steps: [], events: [], rejected: [], lastStep: null };
+const state = { campaign: null, series: [], steps: [], events: [], rejected: [], accuracy: null, lastStep: null };
 
 // esc makes text from the server safe inside innerHTML (a rejection reason
 // quotes file paths, which may hold any character).
@@ -180,6 +180,31 @@ function rigSummary(r) {
     ["Δp transducer", num(r.rig_differential_pressure_pa) === null ? "—" : fmt(r.rig_differential_pressure_pa * 1e-3, 2) + " kPa"]];
 }
 
+// accuracyRows pairs the latest step's S_w, a_wn, Pc and θ with the bias ±
+// spread of the stored accuracy estimate a (sluice accuracy): S_w absolute,
+// a_wn and Pc relative in per cent, θ in degrees.
+function accuracyRows(a, r) {
+  const bs = (s, scale, d, unit) => (!s || num(s.bias) === null) ? "—" :
+    (s.bias >= 0 ? "+" : "") + fmt(s.bias * scale, d) + (num(s.spread) === null ? "" : " ± " + fmt(s.spread * scale, d)) + unit;
+  const v = (k, scale, d, unit) => (!r || num(r[k]) === null) ? "—" : fmt(r[k] * scale, d) + unit;
+  const L = a.labels_path || {}, G = a.grey_path || {};
+  return [["S_w", v("saturation_wetting", 1, 3, ""), bs(L.saturation_wetting_abs, 1, 4, ""), bs(G.saturation_wetting_abs, 1, 4, "")],
+    ["a_wn", v("specific_area_wn_per_m", 1e-3, 2, " 1/mm"), bs(L.specific_area_wn_rel, 100, 1, " %"), bs(G.specific_area_wn_rel, 100, 1, " %")],
+    ["Pc", v("capillary_pressure_pa", 1e-3, 3, " kPa"), bs(L.capillary_pressure_rel, 100, 1, " %"), bs(G.capillary_pressure_rel, 100, 1, " %")],
+    ["θ mean", v("contact_angle_mean_deg", 1, 1, "°"), bs(L.contact_angle_deg, 1, 1, "°"), bs(G.contact_angle_deg, 1, 1, "°")]];
+}
+
+function accuracyPanel(last) {
+  const a = state.accuracy;
+  qs("accuracy-fig").hidden = !a;
+  if (!a) return;
+  qs("accuracy").querySelector("tbody").innerHTML = accuracyRows(a, last).map(c => `<tr>${c.map(x => `<td>${esc(x)}</td>`).join("")}</tr>`).join("");
+  const sc = a.scan || {}, sh = a.region_shape_zyx || [];
+  const n = (a.states || []).filter(s => !s.skipped).length;
+  qs("accuracy-note").textContent = `${n} state${n === 1 ? "" : "s"} at θ ${fmt(a.theta_prescribed_deg, 0)}° in a ${sh.join("×")} region; ` +
+    `noise σ ${fmt(sc.noise_sigma, 0)} (CNR ${fmt(a.cnr, 1)}), blur ${fmt(sc.blur_sigma_voxels, 2)} voxels from step ${a.step}; made ${a.created_at}.`;
+}
+
 function draw() {
   TU = timeUnit();
   const tl = `time t (${TU.name})`;
@@ -243,6 +268,7 @@ function draw() {
   const lat = state.steps.filter(s => s.latency_s > 0).map(s => [s.time_s / TU.s, s.latency_s]);
   plot(qs("plot-latency"), [{ name: "step latency", color: C.b, marker: "diamond", pts: lat }], tl, "ingest → series (s)", { ymin: 0 });
   summary(last);
+  accuracyPanel(last);
   stepsTable();
   rejectedTable();
   banners();
@@ -309,12 +335,14 @@ async function health() {
 async function refresh() {
   if (!state.campaign) { health(); return; }
   const c = encodeURIComponent(state.campaign);
-  const [series, steps, events, rejected] = await Promise.all([
+  const [series, steps, events, rejected, accuracy] = await Promise.all([
     getJSON(`/api/campaigns/${c}/series.json`).catch(() => []),
     getJSON(`/api/campaigns/${c}/steps`).catch(() => []),
     getJSON(`/api/campaigns/${c}/events`).catch(() => []),
-    getJSON(`/api/campaigns/${c}/rejected`).catch(() => [])]);
+    getJSON(`/api/campaigns/${c}/rejected`).catch(() => []),
+    getJSON(`/api/campaigns/${c}/accuracy`).catch(() => null)]);
   state.series = series || []; state.steps = steps || []; state.events = events || []; state.rejected = rejected || [];
+  state.accuracy = accuracy || null;
   qs("csv").href = `/api/campaigns/${c}/series.csv`; qs("json").href = `/api/campaigns/${c}/series.json`;
   const last = state.series[state.series.length - 1];
   if (last && last.step !== state.lastStep) {
