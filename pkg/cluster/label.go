@@ -111,6 +111,16 @@ type Tile struct {
 	// existed. Adds over the tiles of a ganglion in Join; the sum over all
 	// ganglia is 8 × the phase's Euler characteristic.
 	Euler8 []int64 `json:"euler8,omitempty"`
+	// Topo[i-1] holds local component i's share of the contact-line
+	// turning sums of the topological contact angle (package measure,
+	// topoangle.go), set with the curvature attribution; sums of
+	// nonwetting voxels outside the core go to CurvForeign. Nil when not
+	// measured or in results written before it existed. Adds over the
+	// tiles of a ganglion in Join.
+	Topo []TopoSums `json:"topo,omitempty"`
+	// TopoMeasured reports that the topological sums were measured (Topo
+	// then has one entry per component, none for a tile without any).
+	TopoMeasured bool `json:"topo_measured,omitempty"`
 	// RimDepth is the number of core layers on each side kept in Rim: the
 	// local ids of planes 0..RimDepth−1 from each of the six faces, plane
 	// (2a+side)·RimDepth + d at depth d from face 2a+side, laid out as
@@ -127,6 +137,34 @@ type Foreign struct {
 	KappaArea float64 `json:"kappa_area"`
 	// Euler8 is 8 × an Euler-characteristic share (see Tile.Euler8).
 	Euler8 int64 `json:"euler8,omitempty"`
+	// Topo is a share of the topological contact-angle sums (Tile.Topo).
+	Topo *TopoSums `json:"topo,omitempty"`
+}
+
+// TopoLevels is the number of distances from the solid at which the
+// topological contact angle's turning sums are taken (package measure).
+const TopoLevels = 5
+
+// TopoSums are a ganglion's (or a share of its) contact-line turning sums:
+// at each of TopoLevels distances d from the solid, WN[k] is the turning
+// ∮κ_g ds (radians) of the boundary of its w–n interface clipped to
+// distance > d from the solid, NS[k] that of the surface at distance d from
+// the solid clipped to the inside of the ganglion. Border reports that the
+// ganglion reaches the image border or voxels outside the sample, where its
+// surface is not closed by fluid and solid.
+type TopoSums struct {
+	WN     [TopoLevels]float64 `json:"wn"`
+	NS     [TopoLevels]float64 `json:"ns"`
+	Border bool                `json:"border,omitempty"`
+}
+
+// Add adds o to s.
+func (s *TopoSums) Add(o TopoSums) {
+	for k := range s.WN {
+		s.WN[k] += o.WN[k]
+		s.NS[k] += o.NS[k]
+	}
+	s.Border = s.Border || o.Border
 }
 
 // HasCurvature reports whether the tile carries per-component curvature

@@ -27,6 +27,9 @@ type Ganglion struct {
 	// the clusters), the sum of the tiles' Tile.Euler8 shares. Valid only
 	// when Merged.Euler is set.
 	Euler8 int64 `json:"euler8,omitempty"`
+	// Topo is the sum of the tiles' Tile.Topo shares. Valid only when
+	// Merged.Topo is set.
+	Topo TopoSums `json:"topo,omitzero"`
 }
 
 // Euler returns the ganglion's Euler characteristic (components − tunnels
@@ -58,6 +61,10 @@ type Merged struct {
 	// (Tile.Euler8) besides the curvature sums, so that Ganglion.Euler8
 	// holds each ganglion's whole Euler characteristic.
 	Euler bool
+	// Topo reports whether every tile carried topological contact-angle
+	// sums (Tile.Topo) besides the curvature sums, so that Ganglion.Topo
+	// holds each ganglion's whole sums.
+	Topo bool
 }
 
 // forest is a disjoint-set forest with union by size and path compression
@@ -129,11 +136,12 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 	for i := range index {
 		index[i] = -1
 	}
-	m := &Merged{Local: make([][]int32, len(tiles)), Curvature: true, Euler: true}
+	m := &Merged{Local: make([][]int32, len(tiles)), Curvature: true, Euler: true, Topo: true}
 	for t, tl := range tiles {
 		curv := tl.HasCurvature()
 		m.Curvature = m.Curvature && curv
 		m.Euler = m.Euler && curv && len(tl.Euler8) == len(tl.Sizes)
+		m.Topo = m.Topo && curv && tl.TopoMeasured && len(tl.Topo) == len(tl.Sizes)
 		m.Local[t] = make([]int32, len(tl.Sizes))
 		for i, sz := range tl.Sizes {
 			r := uf.find(int32(base[t]) + int32(i) + 1)
@@ -152,6 +160,9 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 			}
 			if len(tl.Euler8) == len(tl.Sizes) {
 				m.Ganglia[g].Euler8 += tl.Euler8[i]
+			}
+			if len(tl.Topo) == len(tl.Sizes) {
+				m.Ganglia[g].Topo.Add(tl.Topo[i])
 			}
 			m.Local[t][i] = g
 		}
@@ -192,16 +203,20 @@ func Join(tiles []*Tile, whole volume.Box, opt Options) (*Merged, error) {
 				if err != nil {
 					// Inconsistent tile results: report no per-ganglion
 					// curvature rather than a partial one.
-					m.Curvature, m.Euler = false, false
+					m.Curvature, m.Euler, m.Topo = false, false, false
 					m.CurvatureErr = fmt.Sprintf("tile %d: curvature sum at %v: %v", t, f.At, err)
 					for i := range m.Ganglia {
 						m.Ganglia[i].CurvArea, m.Ganglia[i].CurvKappaArea, m.Ganglia[i].Euler8 = 0, 0, 0
+						m.Ganglia[i].Topo = TopoSums{}
 					}
 					break foreign
 				}
 				m.Ganglia[g].CurvArea += f.Area
 				m.Ganglia[g].CurvKappaArea += f.KappaArea
 				m.Ganglia[g].Euler8 += f.Euler8
+				if f.Topo != nil {
+					m.Ganglia[g].Topo.Add(*f.Topo)
+				}
 			}
 		}
 	}
@@ -303,6 +318,9 @@ func checkTiles(tiles []*Tile, whole volume.Box, opt Options) error {
 		}
 		if len(tl.Euler8) != 0 && len(tl.Euler8) != len(tl.Sizes) {
 			return fmt.Errorf("cluster: tile %d has %d sizes, %d Euler shares", t, len(tl.Sizes), len(tl.Euler8))
+		}
+		if len(tl.Topo) != 0 && len(tl.Topo) != len(tl.Sizes) {
+			return fmt.Errorf("cluster: tile %d has %d sizes, %d topological-angle sums", t, len(tl.Sizes), len(tl.Topo))
 		}
 		n := tl.Core.Size()
 		if tl.RimDepth < 0 || len(tl.Rim) != 6*tl.RimDepth {

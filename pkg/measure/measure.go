@@ -112,7 +112,7 @@ func (o Options) Validate() error {
 func (o Options) Halo() int {
 	h := 1 // 2×2×2 cells reach one voxel past the core
 	if !o.SkipCurvature {
-		h = max(h, o.Curvature.Halo())
+		h = max(h, o.Curvature.Halo(), topoHalo())
 	}
 	if !o.SkipContact {
 		h = max(h, o.Contact.Halo())
@@ -260,7 +260,7 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 	}
 	wg.Wait()
 	if attribute {
-		attributeGanglia(p, att, look, lab, non, core.Grow(rim).Intersect(lab.Box), whole, opt.clusterOptions())
+		attributeGanglia(p, att, look, lab, solid, wet, non, core.Grow(rim).Intersect(lab.Box), whole, opt.clusterOptions())
 	}
 	look.Release()
 	return p, nil
@@ -277,8 +277,9 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 // (cluster.Resolver).
 //
 // It also splits the Euler characteristic of the nonwetting phase by
-// ganglion (Clusters.Euler8, eulerShares).
-func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Lookup, lab *volume.Labels, non *phase.Set, box, whole volume.Box, co cluster.Options) {
+// ganglion (Clusters.Euler8, eulerShares) and the contact-line turnings of
+// the topological contact angle (Clusters.Topo, topoShares).
+func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Lookup, lab *volume.Labels, solid, wet, non *phase.Set, box, whole volume.Box, co cluster.Options) {
 	t := p.Clusters
 	t.CurvArea = make([]float64, len(t.Sizes))
 	t.CurvKappaArea = make([]float64, len(t.Sizes))
@@ -358,6 +359,18 @@ func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Look
 			t.CurvForeign = append(t.CurvForeign, cluster.Foreign{At: ext.First(piece)})
 		}
 		t.CurvForeign[i].Euler8 += e8
+	})
+	topoShares(t, look, lab, solid, wet, non, whole, extOwner, func(piece int32, s cluster.TopoSums) {
+		i, ok := foreign[piece]
+		if !ok {
+			i = len(t.CurvForeign)
+			foreign[piece] = i
+			t.CurvForeign = append(t.CurvForeign, cluster.Foreign{At: ext.First(piece)})
+		}
+		if t.CurvForeign[i].Topo == nil {
+			t.CurvForeign[i].Topo = &cluster.TopoSums{}
+		}
+		t.CurvForeign[i].Topo.Add(s)
 	})
 	ext.Release()
 	p.GangliaBlocks = make([]OwnedBlock, 0, len(acc))

@@ -117,6 +117,20 @@ type Result struct {
 	// holds angles in [i, i+1) degrees, through the wetting phase.
 	AngleHist []int64 `json:"contact_angle_histogram"`
 
+	// The topological contact angle of the trapped ganglia (topoangle.go:
+	// Gauss–Bonnet on each ganglion's w–n interface and footprint, after
+	// Sun et al. 2020, Geophys. Res. Lett. 47:e2019GL086151), through the
+	// wetting phase: from the turnings summed over the ganglia that give
+	// one (TopoAngle, its cosine TopoCos) and the median of the ganglia's
+	// own angles; TopoGanglia counts them. Null without the curvature
+	// measurement (not attempted) or without such a ganglion (TopoNote
+	// says why).
+	TopoAngle   *float64 `json:"contact_angle_topological_deg"`
+	TopoCos     *float64 `json:"contact_angle_topological_cos"`
+	TopoMedian  *float64 `json:"contact_angle_topological_median_deg"`
+	TopoGanglia int      `json:"contact_angle_topological_ganglia"`
+	TopoNote    string   `json:"contact_angle_topological_note,omitempty"`
+
 	EulerNonwetting int64 `json:"euler_nonwetting"`
 	EulerWetting    int64 `json:"euler_wetting"`
 	EulerSolid      int64 `json:"euler_solid"`
@@ -326,6 +340,9 @@ func Combine(parts []*Partial, whole volume.Box, voxelSize float64, opt Options)
 		if r.SatProfile, r.FrontPosition, err = finishProfile(sum.Profile, whole, r.VoxelSize, opt); err != nil {
 			return nil, err
 		}
+	}
+	if m.Topo {
+		r.setTopo(m.Ganglia)
 	}
 	if sum.Curvature != nil {
 		if g, ok := splitGanglia(parts, m); ok {

@@ -22,8 +22,9 @@
 //
 //	contact_angles      the contact angle of each step three ways side by side against time:
 //	                    geometric (median with the 25–75 % range of the step's distribution,
-//	                    and mean ± SE) and thermodynamic (energy balance with the previous
-//	                    step, ± SE from the connected Pc)
+//	                    and mean ± SE), thermodynamic (energy balance with the previous
+//	                    step, ± SE from the connected Pc) and topological (Gauss–Bonnet on
+//	                    the trapped ganglia's surfaces)
 //	ganglia             nonwetting ganglia count and largest-ganglion volume fraction against time
 //	saturation_profile  time × position map of the nonwetting saturation along the flow
 //	                    axis (one column per step, reaching halfway to its neighbours;

@@ -60,9 +60,10 @@ func (r rangePoints) YError(i int) (float64, float64) {
 // median with the 25–75 % range of its distribution as a bar, and the
 // mean ± SE), and the thermodynamic angle from the energy balance between
 // consecutive steps (series.ThermodynamicAngles) ± SE, placed at the later
-// step's time.
+// step's time, and the topological angle of the trapped ganglia
+// (Gauss–Bonnet on their surfaces, pkg/measure topoangle.go).
 func (b *builder) wettability() Figure {
-	title := "Contact angles: geometric and thermodynamic"
+	title := "Contact angles: geometric, thermodynamic and topological"
 	p := newPlot(title, b.timeLabel(), "contact angle θ through the wetting phase ("+UnitAngle+")")
 	ts := b.times()
 	med := make([]float64, len(b.rows))
@@ -89,6 +90,7 @@ func (b *builder) wettability() Figure {
 	th := b.col(func(r *series.Row) *float64 { return r.AngleThermo }, 1)
 	n += addSeries(p, styles[1], "thermodynamic (from previous step) ± SE", ts, th)
 	addErrorBars(p, styles[1], ts, th, b.col(func(r *series.Row) *float64 { return r.AngleThermoSE }, 1))
+	n += addSeries(p, styles[3], "topological (Gauss–Bonnet, trapped ganglia)", ts, b.col(func(r *series.Row) *float64 { return r.AngleTopo }, 1))
 	p.Y.Min, p.Y.Max = 0, 180
 	var ticks []plot.Tick
 	for d := 0; d <= 180; d += 30 {

@@ -28,7 +28,8 @@ func TestAngleQuantiles(t *testing.T) {
 }
 
 // TestWettabilityFigure: the contact_angles figure is drawn from the
-// geometric and thermodynamic angles of the rows and is empty without them.
+// geometric, thermodynamic and topological angles of the rows and is empty
+// without them.
 func TestWettabilityFigure(t *testing.T) {
 	rows := make([]series.Row, 3)
 	for i := range rows {
@@ -37,6 +38,12 @@ func TestWettabilityFigure(t *testing.T) {
 	if f := byName(Build(rows, nil, Run{}), "contact_angles"); !f.empty {
 		t.Error("figure without angles is not marked empty")
 	}
+	w := 72.0
+	rows[1].AngleTopo = &w
+	if f := byName(Build(rows, nil, Run{}), "contact_angles"); f.empty {
+		t.Error("figure with a topological angle is marked empty")
+	}
+	rows[1].AngleTopo = nil
 	v := 61.5
 	rows[2].AngleThermo = &v
 	// Build sorts nothing and derives nothing: the value given is drawn.

@@ -806,7 +806,7 @@ capillary equilibrium.</p>
 {{end}}</section>
 
 <section id="wettability">
-<h2>Wettability: geometric and thermodynamic contact angles</h2>
+<h2>Wettability: geometric, thermodynamic and topological contact angles</h2>
 <p>All angles are measured through the wetting phase. The <b>geometric</b> angle is measured at every sample
 point of the three-phase contact line, between the w–n interface and the solid surface in the plane normal to
 the line (sluice's own method, science.md §4; published automated methods: AlRatrout et al. 2017, <i>Adv. Water
@@ -825,9 +825,24 @@ connected P<sub>c</sub> or σ, when A<sub>ns</sub> changed by less than 1 % (seg
 rest reaches 0.4 %), and when |cos θ<sub>t</sub>| &gt; 1 (the cosine is still shown): no angle balances
 the energy, because the steps were not at equilibrium or the change of A<sub>ns</sub> is small against the errors
 of the areas. Large steps bias it: the mean of two P<sub>c</sub> stands for ∫P<sub>c</sub> dV.</p>
+<p>The <b>topological</b> angle comes from the Gauss–Bonnet theorem applied to the surfaces of the trapped
+nonwetting ganglia, after the idea of Sun, McClure, Mostaghimi, Herring, Berg &amp; Armstrong 2020
+(<i>Geophys. Res. Lett.</i> 47:e2019GL086151); the relation and its discretisation are sluice's own derivation
+(package measure, topoangle.go). A ganglion's surface consists of its interface with the wetting phase (wn) and
+its footprint on the solid (ns), joined along the contact line. Gauss–Bonnet for each, ∫K dA + ∮κ<sub>g</sub> ds
+= 2πχ, gives the turning of the contact line within each patch from its Euler characteristic χ and integrated
+Gaussian curvature K; on a solid that is flat across the line κ<sub>g,wn</sub> = κ<sub>g,ns</sub> cos φ (φ the
+angle inside the nonwetting phase), so cos θ = −(2πχ<sub>wn</sub> − ∫K<sub>wn</sub> dA) / (2πχ<sub>ns</sub> −
+∫K<sub>ns</sub> dA), θ = 180° − φ through the wetting phase (a spherical cap on a plane gives it exactly). The
+integrals are taken on marching-cubes meshes of a smoothed fluid field and of surfaces parallel to the solid at
+4–6 voxels from it (where segmentation does not bias the interface), and cos θ is extrapolated linearly to the
+wall; digitised caps of radius 16–24 voxels at 30–120° read within 6° (low by up to 6° at 120°). Only trapped
+ganglia away from the image border that rise at least 6 voxels above the solid with a footprint give an angle; in a straight throat the
+contact line is a geodesic of the wall (∮κ<sub>g,ns</sub> = 0) and the relation gives none. The table gives the
+angle of the summed turnings (with the median of the ganglia's own angles) and how many ganglia contributed.</p>
 <table id="angle-table">
-<tr><th>step</th><th>t (s)</th><th>geometric mean (°)</th><th>geometric median (25–75 %) (°)</th><th>thermodynamic (°)</th><th>cos θ<sub>t</sub></th></tr>{{range .Angles}}
-<tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.GeoMean}}</td><td>{{.GeoMedian}}</td><td>{{.Thermo}}</td><td>{{.ThermoCos}}</td></tr>{{end}}
+<tr><th>step</th><th>t (s)</th><th>geometric mean (°)</th><th>geometric median (25–75 %) (°)</th><th>thermodynamic (°)</th><th>cos θ<sub>t</sub></th><th>topological (°)</th><th>ganglia</th></tr>{{range .Angles}}
+<tr data-step="{{.Step}}"><td>{{.Step}}</td><td>{{.Time}}</td><td>{{.GeoMean}}</td><td>{{.GeoMedian}}</td><td>{{.Thermo}}</td><td>{{.ThermoCos}}</td><td>{{.Topo}}</td><td>{{.TopoN}}</td></tr>{{end}}
 </table>
 {{range .Wettability}}<figure id="{{.ID}}">
 {{.SVG}}

@@ -13,6 +13,9 @@ import (
 // angle from the previous step (± SE; its cosine).
 type angleRow struct {
 	Step, Time, GeoMean, GeoMedian, Thermo, ThermoCos string
+	// Topo is the topological angle of the trapped ganglia (with the
+	// median of the ganglia's own angles), TopoN how many gave one.
+	Topo, TopoN string
 }
 
 // angleTable tabulates the contact angles of every step (degrees through
@@ -35,7 +38,13 @@ func angleTable(rows []series.Row) []angleRow {
 		r := &rows[i]
 		a := angleRow{Step: r.Step, Time: strconv.FormatFloat(r.Time, 'f', 1, 64),
 			GeoMean: pm(r.AngleMean, r.AngleMeanSE), GeoMedian: "—",
-			Thermo: pm(r.AngleThermo, r.AngleThermoSE), ThermoCos: f(r.AngleThermoCos, 3)}
+			Thermo: pm(r.AngleThermo, r.AngleThermoSE), ThermoCos: f(r.AngleThermoCos, 3), Topo: f(r.AngleTopo, 1), TopoN: "—"}
+		if r.AngleTopo != nil && r.AngleTopoMedian != nil {
+			a.Topo += " (median " + f(r.AngleTopoMedian, 1) + ")"
+		}
+		if r.AngleTopoCount != nil {
+			a.TopoN = strconv.FormatInt(*r.AngleTopoCount, 10)
+		}
 		if q := plots.AngleQuantiles(r.AngleHist, 0.25, 0.5, 0.75); !math.IsNaN(q[1]) {
 			a.GeoMedian = strconv.FormatFloat(q[1], 'f', 1, 64) + " (" + strconv.FormatFloat(q[0], 'f', 1, 64) +
 				"–" + strconv.FormatFloat(q[2], 'f', 1, 64) + ")"

@@ -80,7 +80,9 @@ func icol(key, unit string, f func(*Row) *int64) Column {
 //	rig_pore_volume_m3, rig_cross_section_m2 (the experiment log, pkg/riglog),
 //	registration_z_voxels, registration_y_voxels, registration_x_voxels,
 //	registration_z_m, registration_y_m, registration_x_m,
-//	registration_peak, registration_beyond
+//	registration_peak, registration_beyond,
+//	contact_angle_topological_deg, contact_angle_topological_cos,
+//	contact_angle_topological_median_deg, contact_angle_topological_ganglia
 //
 // The four trapped_ganglia_* columns come from the result's trapped_ganglia_curvature object
 // (series.json keeps the whole object); the six pore_filling_* columns from
@@ -181,6 +183,10 @@ var Columns = []Column{
 	fcol("registration_x_m", "m", func(r *Row) *float64 { return r.RegXM }),
 	fcol("registration_peak", "1", func(r *Row) *float64 { return r.RegPeak }),
 	{Key: "registration_beyond", Unit: "bool", kind: kindBool, get: func(r *Row) any { return r.RegBeyond }},
+	fcol("contact_angle_topological_deg", "deg", func(r *Row) *float64 { return r.AngleTopo }),
+	fcol("contact_angle_topological_cos", "1", func(r *Row) *float64 { return r.AngleTopoCos }),
+	fcol("contact_angle_topological_median_deg", "deg", func(r *Row) *float64 { return r.AngleTopoMedian }),
+	icol("contact_angle_topological_ganglia", "1", func(r *Row) *int64 { return r.AngleTopoCount }),
 }
 
 // Cell returns the CSV text of column c in row r ("" for null).

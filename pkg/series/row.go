@@ -113,6 +113,15 @@ type Row struct {
 	MeanCurvIntegralWN      *float64 `json:"mean_curvature_integral_wn_m"`
 	SpecificMeanCurvWN      *float64 `json:"specific_mean_curvature_integral_wn_per_m2"`
 	SpecificEulerNonwetting *float64 `json:"specific_euler_nonwetting_per_m3"`
+	// Topological contact angle of the trapped ganglia through the wetting
+	// phase (pkg/measure topoangle.go; Gauss–Bonnet, after Sun et al. 2020,
+	// Geophys. Res. Lett. 47:e2019GL086151): from the summed turnings, its
+	// cosine, the median of the ganglia's own angles and how many ganglia
+	// gave one.
+	AngleTopo       *float64 `json:"contact_angle_topological_deg"`
+	AngleTopoCos    *float64 `json:"contact_angle_topological_cos"`
+	AngleTopoMedian *float64 `json:"contact_angle_topological_median_deg"`
+	AngleTopoCount  *int64   `json:"contact_angle_topological_ganglia"`
 	// Experiment log at the step's time (pkg/riglog, which defines them):
 	// injected volume since the log's first record (m³), pore volumes
 	// injected, flow rate (m³/s), Darcy flux q/A (m/s), capillary number

@@ -169,8 +169,8 @@ func TestPageFillingPoints(t *testing.T) {
 
 // TestPageAnglePoints runs the page's anglePts (app.js) in Node: the three
 // contact-angle curves of the wettability panel read the series keys
-// contact_angle_mean_deg, contact_angle_median_deg and
-// contact_angle_thermodynamic_deg against time in the panel's unit (Source:
+// contact_angle_mean_deg, contact_angle_median_deg,
+// contact_angle_thermodynamic_deg and contact_angle_topological_deg against time in the panel's unit (Source:
 // the rows below, s → min by hand), null where a step has none.
 func TestPageAnglePoints(t *testing.T) {
 	node, err := exec.LookPath("node")
@@ -189,14 +189,14 @@ func TestPageAnglePoints(t *testing.T) {
 		t.Fatal("app.js has no function anglePts(series, tuS)")
 	}
 	script := "function num(v) { return (v === null || v === undefined || Number.isNaN(v)) ? null : v; }\n" + fn +
-		`const s = [{ step: "a", time_s: 60, contact_angle_mean_deg: 52.5, contact_angle_median_deg: 50, contact_angle_thermodynamic_deg: null },
+		`const s = [{ step: "a", time_s: 60, contact_angle_mean_deg: 52.5, contact_angle_median_deg: 50, contact_angle_thermodynamic_deg: null, contact_angle_topological_deg: 66.5 },
 		  { step: "b", time_s: 180, contact_angle_mean_deg: 61, contact_angle_median_deg: 58.5, contact_angle_thermodynamic_deg: 47.25 }];
 		console.log(JSON.stringify(anglePts(s, 60)));`
 	out, err := exec.Command(node, "-e", script).CombinedOutput()
 	if err != nil {
 		t.Fatalf("node: %v\n%s", err, out)
 	}
-	want := `{"mean":[[1,52.5],[3,61]],"median":[[1,50],[3,58.5]],"thermo":[[1,null],[3,47.25]]}`
+	want := `{"mean":[[1,52.5],[3,61]],"median":[[1,50],[3,58.5]],"thermo":[[1,null],[3,47.25]],"topo":[[1,66.5],[3,null]]}`
 	if got := strings.TrimSpace(string(out)); got != want {
 		t.Errorf("anglePts: %s\nwant %s", got, want)
 	}

@@ -152,12 +152,13 @@ function fillingPts(series) {
 
 // anglePts returns the contact angles of every step against time (in units of
 // tuS seconds), in degrees through the wetting phase: the geometric mean and
-// median measured at the contact line, and the thermodynamic angle from the
-// energy balance with the previous step (null where not computed).
+// median measured at the contact line, the thermodynamic angle from the
+// energy balance with the previous step and the topological angle of the
+// trapped ganglia (Gauss–Bonnet; null where not computed).
 function anglePts(series, tuS) {
   const at = key => series.map(r => [r.time_s / tuS, num(r[key])]);
   return { mean: at("contact_angle_mean_deg"), median: at("contact_angle_median_deg"),
-    thermo: at("contact_angle_thermodynamic_deg") };
+    thermo: at("contact_angle_thermodynamic_deg"), topo: at("contact_angle_topological_deg") };
 }
 
 // trackingPts returns the trapped saturation and the fraction of trapped
@@ -231,7 +232,8 @@ function draw() {
   plot(qs("plot-angles"), [
     { name: "geometric mean", color: C.c, marker: "circle", pts: ang.mean },
     { name: "geometric median", color: C.d, marker: "triangle", pts: ang.median },
-    { name: "thermodynamic", color: C.a, marker: "square", pts: ang.thermo }], tl, "contact angle θ through wetting phase (°)", { ymin: 0, ymax: 180 });
+    { name: "thermodynamic", color: C.a, marker: "square", pts: ang.thermo },
+    { name: "topological", color: C.b, marker: "diamond", pts: ang.topo }], tl, "contact angle θ through wetting phase (°)", { ymin: 0, ymax: 180 });
   plot(qs("plot-ganglia"), [{ name: "ganglia", color: C.b, marker: "square", pts: col("ganglia_count") }], tl, `number of ganglia (${U.none})`, { ymin: 0 });
   plot(qs("plot-largest"), [{ name: "largest cluster / all nonwetting", color: C.a, marker: "circle", pts: col("ganglion_largest_fraction") }], tl, `largest ganglion fraction (${U.none})`, { ymin: 0, ymax: 1 });
   plot(qs("plot-front"), [{ name: "front", color: C.c, marker: "square", pts: col("front_position_m", 1e3) }], tl, "front from inlet (mm)", { ymin: 0 });
