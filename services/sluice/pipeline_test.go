@@ -119,6 +119,11 @@ func compareResults(t *testing.T, label string, got, want *measure.Result) {
 		if !(v[0] == v[1] || math.Abs(v[0]-v[1]) <= v[2]*math.Max(math.Abs(v[0]), math.Abs(v[1]))) {
 			t.Errorf("%s: %s = %.12g, whole volume %.12g", label, k, v[0], v[1])
 		}
+	}	// The topological contact angle: the same ganglia, the same turnings
+	// to rounding (null in both when no ganglion gives one).
+	if got.TopoGanglia != want.TopoGanglia || (got.TopoCos == nil) != (want.TopoCos == nil) ||
+		(want.TopoCos != nil && math.Abs(*got.TopoCos-*want.TopoCos) > 1e-9) {
+		t.Errorf("%s: topological angle from %d ganglia, cos %v; whole volume %d, %v", label, got.TopoGanglia, fv(got.TopoCos), want.TopoGanglia, fv(want.TopoCos))
 	}
 }
 
@@ -161,8 +166,9 @@ func TestPipelineTilingInvariance(t *testing.T) {
 	if want.PcConnected == nil && want.PcTrapped == nil {
 		t.Fatal("scene has neither connected nor trapped interface")
 	}
-	t.Logf("whole volume: Pc %v ± %v, connected %v ± %v, trapped %v ± %v, θ %v ± %v", fv(want.Pc), fv(want.PcSE),
-		fv(want.PcConnected), fv(want.PcConnectedSE), fv(want.PcTrapped), fv(want.PcTrappedSE), fv(want.AngleMean), fv(want.AngleMeanSE))
+	t.Logf("whole volume: Pc %v ± %v, connected %v ± %v, trapped %v ± %v, θ %v ± %v, topological θ %v from %d ganglia", fv(want.Pc), fv(want.PcSE),
+		fv(want.PcConnected), fv(want.PcConnectedSE), fv(want.PcTrapped), fv(want.PcTrappedSE), fv(want.AngleMean), fv(want.AngleMeanSE),
+		fv(want.TopoAngle), want.TopoGanglia)
 	for _, tile := range []int{64, 30, 21, 23} { // 1, 8, 27 (21, 21, 18 per axis) and 27 uneven tiles; the default halo is 20
 		t.Run(fmt.Sprintf("tile%d", tile), func(t *testing.T) {
 			data := t.TempDir()
