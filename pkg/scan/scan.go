@@ -85,7 +85,9 @@ func MemorySource(v volume.Any) Source {
 
 // Prepare runs pass 1 over a whole step, reading tiles of edge c.Tile from
 // src on `workers` goroutines: the float32 extent first when the range is
-// not configured, then the histogram, then — when the sample cylinder is to
+// not configured (in threshold scope "campaign" widened by
+// segment.FloatMargin; give c the campaign's binning first with
+// CampaignBinning), then the histogram, then — when the sample cylinder is to
 // be detected — the detection and a second histogram restricted to the
 // sample, and finally the thresholds. It returns the configuration with the
 // measured range and sample filled in; pass 2 must use it.
@@ -125,7 +127,11 @@ func Prepare(src Source, whole volume.Box, dtype volume.DType, c campaign.Config
 		if err != nil {
 			return Prepared{}, c, err
 		}
-		c.Segment.Range = e.Range(c.Segment.Bins)
+		if c.Segment.ThresholdScope == segment.ScopeCampaign {
+			c.Segment.Range = e.CampaignRange(c.Segment.Bins)
+		} else {
+			c.Segment.Range = e.Range(c.Segment.Bins)
+		}
 	}
 	hist := func(c campaign.Config) (segment.Hist, error) {
 		var h segment.Hist
@@ -171,6 +177,16 @@ func Whole(grey volume.Any, c campaign.Config, solid *volume.Labels, workers int
 	return lab, res, prep, err
 }
 
+// CampaignBinning returns c with the grey binning of a step of a campaign
+// whose thresholds record so far is stored (segment.CampaignBinning): a
+// float32 step at or after the one that fixed the record bins over the
+// record's range. Call it before Prepare.
+func CampaignBinning(c campaign.Config, dtype volume.DType, stored *segment.CampaignThresholds, step string, timeS float64) (campaign.Config, error) {
+	p, err := segment.CampaignBinning(c.Segment, dtype, stored, step, timeS)
+	c.Segment = p
+	return c, err
+}
+
 // CampaignPrepare turns the pass-1 outcome of a step into its thresholds
 // in threshold scope "campaign" (segment.CampaignStep): stored is the
 // campaign's record (nil when none is stored yet), the returned record is
@@ -196,6 +212,10 @@ func WholeCampaign(grey volume.Any, c campaign.Config, solid *volume.Labels, wor
 	var solidSrc Source
 	if solid != nil {
 		solidSrc = MemorySource(solid)
+	}
+	c, err := CampaignBinning(c, grey.DType(), stored, step, timeS)
+	if err != nil {
+		return nil, nil, Prepared{}, nil, err
 	}
 	prep, c, err := Prepare(MemorySource(grey), grey.Bounds(), grey.DType(), c, solidSrc, workers)
 	if err != nil {

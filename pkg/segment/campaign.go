@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"math"
 	"strings"
+
+	"sluice/pkg/volume"
 )
 
 // Campaign thresholds and grey-level drift
@@ -80,6 +82,12 @@ const (
 	DriftMax    = 0.25
 )
 
+// MaxOutOfRange is the largest share of a float32 step's voxels that may
+// fall outside the campaign's grey range (into the end bins) before the
+// step is flagged as drifted beyond the bound: the widened range
+// (FloatMargin) holds every voxel of the step that fixed it.
+const MaxOutOfRange = 0.001
+
 // MinLevelFraction is the smallest share of the histogram's voxels a class
 // must hold for its grey level to be measured.
 const MinLevelFraction = 0.01
@@ -109,6 +117,62 @@ type CampaignThresholds struct {
 	// Hist is the merged histogram the levels came from (without the
 	// sample-detection columns).
 	Hist Hist `json:"histogram"`
+	// Range and Bins are the float32 binning of the campaign (zero for
+	// integer scans, whose binning follows from the dtype): every step
+	// from Step on bins its filtered grey over Range in Bins bins, so its
+	// histogram, levels and drift are read on the same scale (see
+	// CampaignBinning).
+	Range [2]float64 `json:"range,omitempty"`
+	Bins  int        `json:"bins,omitempty"`
+}
+
+// FloatMargin widens the measured grey range of a float32 step in scope
+// "campaign" on either side, as a fraction of the range, before it is
+// binned: the step may fix the campaign's binning, which later steps keep,
+// and their levels may drift. A level that drifts by DriftMax of a contrast
+// (the most that is followed) moves by less than a quarter of the range,
+// since every contrast lies inside it, so its peak stays inside the
+// widened range. The bins are 1.5 times wider than over the bare range:
+// 1024 bins over 1.5 × (12 500 … 41 500) grey of the forward model's scans
+// after the median are 42 grey wide, finer than uint16's 64.
+const FloatMargin = 0.25
+
+// before reports whether a step (time, then name) comes before the one
+// that fixed ct.
+func (ct CampaignThresholds) before(step string, timeS float64) bool {
+	return timeS < ct.TimeS || (timeS == ct.TimeS && step < ct.Step)
+}
+
+// CampaignBinning returns p with the grey binning a step of a campaign in
+// scope "campaign" must use. Integer scans bin by their dtype and keep p.
+// A float32 step at or after the step that fixed stored bins over the
+// stored range (unless p gives a range, which the record then holds too);
+// without a record, or for a step before it, p is returned unchanged and
+// the step's range is measured (scan.Prepare widens it by FloatMargin).
+// A record fixed on scans of another dtype is refused: its thresholds are
+// grey values on another scale.
+func CampaignBinning(p Params, dtype volume.DType, stored *CampaignThresholds, step string, timeS float64) (Params, error) {
+	if p.ThresholdScope != ScopeCampaign || stored == nil {
+		return p, nil
+	}
+	if d := stored.Hist.DType; d != "" && d != dtype.String() {
+		return p, fmt.Errorf("campaign thresholds (from step %s) were fixed on %s scans; this scan is %s, whose grey values are on another scale (reprocess the campaign from one scan type)", stored.Step, d, dtype)
+	}
+	if dtype != volume.Float32 || p.Range != [2]float64{} || stored.before(step, timeS) {
+		return p, nil
+	}
+	r, n := stored.Range, stored.Bins
+	if n == 0 {
+		// A record written before Range was stored: its histogram's own
+		// binning.
+		n = len(stored.Hist.Counts)
+		r = [2]float64{stored.Hist.Lo, stored.Hist.Lo + float64(n)*stored.Hist.Width}
+	}
+	if !(r[1] > r[0]) || n < 2 || math.IsInf(r[0], 0) || math.IsInf(r[1], 0) {
+		return p, fmt.Errorf("campaign thresholds (from step %s): float32 range %v in %d bins is unusable", stored.Step, r, n)
+	}
+	p.Range, p.Bins = r, n
+	return p, nil
 }
 
 // Drift is the drift measured on one step against the campaign levels.
@@ -270,6 +334,9 @@ func Levels(h Hist, T []float64) []*float64 {
 func NewCampaignThresholds(h Hist, th Thresholds, p Params, step string, timeS float64) (CampaignThresholds, bool, error) {
 	order := classOrder(p)
 	ct := CampaignThresholds{Step: step, TimeS: timeS, Order: order, Hist: Hist{DType: h.DType, Lo: h.Lo, Width: h.Width, Counts: h.Counts}}
+	if h.DType == volume.Float32.String() {
+		ct.Range, ct.Bins = p.Range, p.Bins
+	}
 	if p.Threshold == "fixed" {
 		ct.Source = SourceUser
 		if err := checkUserThresholds(h, p.Fixed, len(order)-1); err != nil {
@@ -413,6 +480,16 @@ func (ct CampaignThresholds) Follow(h Hist) ([]float64, Drift) {
 			T[i] = math.Nextafter(T[i-1], math.Inf(1))
 		}
 	}
+	if h.DType == volume.Float32.String() && len(h.Counts) > 1 {
+		// Voxels beyond the campaign's float32 range sit in the end bins,
+		// where no level can be read.
+		if tot := h.Total(); tot > 0 {
+			if f := float64(h.Counts[0]+h.Counts[len(h.Counts)-1]) / float64(tot); f > MaxOutOfRange {
+				notes = append(notes, fmt.Sprintf("%.2f %% of the voxels lie outside the campaign's float32 range %g…%g", 100*f, h.Lo, h.Lo+float64(len(h.Counts))*h.Width))
+				d.Beyond = true
+			}
+		}
+	}
 	if len(notes) > 0 {
 		d.Note = "grey-level drift beyond the bound: " + strings.Join(notes, "; ")
 	}
@@ -428,7 +505,7 @@ func (ct CampaignThresholds) Follow(h Hist) ([]float64, Drift) {
 // fit p.
 func CampaignStep(h Hist, own Thresholds, stored *CampaignThresholds, p Params, step string, timeS float64) (Thresholds, *CampaignThresholds, error) {
 	var fresh *CampaignThresholds
-	if stored != nil && (timeS < stored.TimeS || (timeS == stored.TimeS && step < stored.Step)) {
+	if stored != nil && stored.before(step, timeS) {
 		// A step before the one that fixed the campaign thresholds.
 		own.Campaign = &StepCampaign{Source: stored.Source, Pending: true}
 		return own, nil, nil

@@ -267,6 +267,9 @@ func Histogram(grey volume.Any, core volume.Box, p Params, solid *volume.Labels)
 			cr := h.Columns[(floorDiv(y, B)-by0)*nbx:][:nbx]
 			sp := spans[y-core.Min[1]]
 			for x := core.Min[2]; x < core.Max[2]; x++ {
+				if v := f.Pix[i]; v-v != 0 {
+					return Hist{}, nonFinite(v, z, y, x)
+				}
 				b := binOf(float64(f.Pix[i]), lo, width, n)
 				i++
 				c := &cr[floorDiv(x, B)-bx0]
@@ -290,6 +293,15 @@ func Histogram(grey volume.Any, core volume.Box, p Params, solid *volume.Labels)
 		}
 	}
 	return h, nil
+}
+
+// nonFinite refuses a filtered grey value that is NaN or ±Inf: it has no
+// bin and no class, and binning it anywhere would be a silent guess. The
+// readers' callers refuse such scans naming the file (volio.CheckFinite);
+// this is the same refusal for grey that reaches the segmentation
+// directly.
+func nonFinite(v float32, z, y, x int) error {
+	return fmt.Errorf("segment: grey value %v at z=%d y=%d x=%d is not a finite number (NaN or ±Inf); refusing the scan", v, z, y, x)
 }
 
 func floorDiv(a, b int) int {
@@ -329,6 +341,15 @@ func (e Extent) Range(bins int) [2]float64 {
 	return [2]float64{e.Min, e.Max + w/2}
 }
 
+// CampaignRange returns Range widened by FloatMargin of Max − Min on either
+// side: the binning of a float32 step in threshold scope "campaign", which
+// the campaign keeps once the step fixes its thresholds
+// (CampaignBinning).
+func (e Extent) CampaignRange(bins int) [2]float64 {
+	m := FloatMargin * (e.Max - e.Min)
+	return Extent{Min: e.Min - m, Max: e.Max + m, N: e.N}.Range(bins)
+}
+
 // MeasureExtent filters grey and returns the extent of the filtered core
 // voxels inside the sample (and the pore space, in reference mode).
 func MeasureExtent(grey volume.Any, core volume.Box, p Params, solid *volume.Labels) (Extent, error) {
@@ -351,7 +372,10 @@ func MeasureExtent(grey volume.Any, core volume.Box, p Params, solid *volume.Lab
 			for x := core.Min[2]; x < core.Max[2]; x++ {
 				v := float64(f.Pix[i])
 				i++
-				if v != v || !p.Sample.Inside(y, x) || (p.Reference && !poreMask(solid, p, z, y, x)) {
+				if v-v != 0 {
+					return Extent{}, nonFinite(f.Pix[i-1], z, y, x)
+				}
+				if !p.Sample.Inside(y, x) || (p.Reference && !poreMask(solid, p, z, y, x)) {
 					continue
 				}
 				e.Min, e.Max, e.N = math.Min(e.Min, v), math.Max(e.Max, v), e.N+1

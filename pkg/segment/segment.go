@@ -136,14 +136,27 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 		}
 	}
 	if ws > 0 {
-		// Pass 1 over lw; pass 2 (wall) over the box it decides.
+		// Boxes inwards: the solid-layer pass on the threshold classes
+		// (over lw) decides lp; the flood (pass 1 and, with the wall,
+		// pass 2 over the box pass 1 decides) decides lf from lp; the
+		// solid-layer pass on the flood's labels decides l1 from lf.
 		reach := p.Watershed.Steps + 1
-		p1 := l1.Grow(reach).Intersect(gb)
+		layers := p.solidLayerPass() && len(c.codes) == 3
+		lf, lp := l1, lw
+		if layers {
+			lf = l1.Grow(SolidLayerReach).Intersect(gb)
+			lp = l1.Grow(ws - SolidLayerReach).Intersect(gb)
+			lab = c.solidLayers(lab, f, lp, false)
+		}
+		p1 := lf.Grow(reach).Intersect(gb)
 		if p.Watershed.Wall {
-			lab = c.flood(lab, cropTo(f, lw), p1, p, false)
-			lab = c.flood(lab, cropTo(f, p1), l1, p, true)
+			lab = c.flood(lab, cropTo(f, lp), p1, p, false)
+			lab = c.flood(lab, cropTo(f, p1), lf, p, true)
 		} else {
-			lab = c.flood(lab, cropTo(f, lw), l1, p, false)
+			lab = c.flood(lab, cropTo(f, lp), lf, p, false)
+		}
+		if layers {
+			lab = c.solidLayers(lab, cropTo(f, lf), l1, true)
 		}
 		if g != nil && steps > 0 {
 			g = cropTo(g, l1)

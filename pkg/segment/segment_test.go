@@ -421,9 +421,28 @@ func BenchmarkSegment256(b *testing.B) {
 func TestWatershedTiling(t *testing.T) {
 	const n = 30
 	grey, truth, fp := scene(n, 4, 9)
+	// The doped-brine order (solid between the fluids) adds the
+	// solid-layer passes around the flood: the same scene's grey with the
+	// brine made brightest (levels n 14000, s 24000, w 40000).
+	var doped *volume.Volume[uint16]
+	{
+		dp := fp
+		dp.Wetting, dp.Solid = 40000, 24000
+		dp.CNR = (dp.Wetting - dp.Nonwetting) / fp.NoiseSigma()
+		img, err := forward.Render(truth, dp)
+		if err != nil {
+			t.Fatal(err)
+		}
+		doped = forward.Uint16(img)
+	}
 	for _, ws := range []Watershed{{Steps: 4, Cost: CostSum}, {Steps: 5, Cost: CostMax}, {Steps: 3, Cost: CostSum, Wall: true}} {
-		for _, ref := range []bool{false, true} {
+		for _, mode := range []string{"3-class", "reference", "nsw"} {
+			ref := mode == "reference"
+			grey := grey
 			p := withFilter(fp, "median")
+			if mode == "nsw" {
+				grey, p.Order = doped, "nsw"
+			}
 			p.MinIsland = 0
 			p.Watershed = ws
 			p.Reference = ref
@@ -443,9 +462,29 @@ func TestWatershedTiling(t *testing.T) {
 					}
 				}
 				if diff != 0 {
-					t.Errorf("%+v, ref %v, %d³ tiles: %d labels differ from the whole volume", ws, ref, k, diff)
+					t.Errorf("%+v, %s, %d³ tiles: %d labels differ from the whole volume", ws, mode, k, diff)
 				}
 			}
+		}
+	}
+}
+
+// TestNonFiniteRefused: a NaN or ±Inf grey value reaching the histogram
+// (or the float32 extent) is refused in one line naming its voxel, not
+// binned into an end bin.
+func TestNonFiniteRefused(t *testing.T) {
+	grey, _, _ := scene(24, 10, 3)
+	for _, bad := range []float32{float32(math.NaN()), float32(math.Inf(1)), float32(math.Inf(-1))} {
+		f := volume.Float(grey)
+		f.Set(5, 6, 7, bad)
+		p := Defaults()
+		p.Filter.Method = "none"
+		if _, err := MeasureExtent(f, f.Box, p, nil); err == nil || !strings.Contains(err.Error(), "z=5 y=6 x=7") || strings.Contains(err.Error(), "\n") {
+			t.Errorf("extent with %v: %v, want a one-line refusal naming z=5 y=6 x=7", bad, err)
+		}
+		p.Range = [2]float64{0, 65536}
+		if _, err := Histogram(f, f.Box, p, nil); err == nil || !strings.Contains(err.Error(), "z=5 y=6 x=7") {
+			t.Errorf("histogram with %v: %v, want a refusal naming z=5 y=6 x=7", bad, err)
 		}
 	}
 }

@@ -457,17 +457,29 @@ func PlanStep(ctx context.Context, st Store, man campaign.Manifest, cfg campaign
 	hash := cfg.Hash()
 	var prep scan.Prepared
 	eff := cfg
+	var stored *segment.CampaignThresholds
+	if cfg.Segment.ThresholdScope == segment.ScopeCampaign {
+		// The campaign's record so far fixes the float32 binning of this
+		// step before pass 1 reads it.
+		if stored, err = campaignRecord(ctx, st, step, hash); err != nil {
+			return campaign.Plan{}, err
+		}
+		if eff, err = scan.CampaignBinning(cfg, dt, stored, step.Name(), man.TimeS); err != nil {
+			key, _ := step.Campaign().Thresholds(hash)
+			return campaign.Plan{}, fmt.Errorf("%s: %s: %w", man.Source, key, err)
+		}
+	}
 	if ThresholdsKnown(cfg, dt) {
 		// Nothing of pass 1 is used: skip reading and filtering the step.
 		prep.Thresholds, err = segment.ComputeThresholds(segment.Hist{}, cfg.Segment)
 	} else {
-		prep, eff, err = scan.Prepare(src, man.Whole(), dt, cfg, solid, workers)
+		prep, eff, err = scan.Prepare(src, man.Whole(), dt, eff, solid, workers)
 	}
 	if err != nil {
 		return campaign.Plan{}, err
 	}
 	if cfg.Segment.ThresholdScope == segment.ScopeCampaign {
-		if prep, err = campaignThresholds(ctx, st, step, man.TimeS, hash, prep, eff); err != nil {
+		if prep, err = campaignThresholds(ctx, st, step, man.TimeS, hash, prep, eff, stored); err != nil {
 			return campaign.Plan{}, err
 		}
 	}
@@ -524,18 +536,9 @@ func RegisterStep(ctx context.Context, st Store, step layout.Step, man campaign.
 // or — when there is none yet and this step holds every phase — stores the
 // one this step fixes. Steps of a run are planned in time order (ingest as
 // they come, reprocess sorted by time), so the first such step fixes them.
-func campaignThresholds(ctx context.Context, st Store, step layout.Step, timeS float64, hash string, prep scan.Prepared, eff campaign.Config) (scan.Prepared, error) {
+func campaignThresholds(ctx context.Context, st Store, step layout.Step, timeS float64, hash string, prep scan.Prepared, eff campaign.Config, stored *segment.CampaignThresholds) (scan.Prepared, error) {
 	key, err := step.Campaign().Thresholds(hash)
 	if err != nil {
-		return prep, err
-	}
-	var stored *segment.CampaignThresholds
-	var ct segment.CampaignThresholds
-	switch err := campaign.GetJSON(ctx, st, key, &ct); {
-	case err == nil:
-		stored = &ct
-	case errors.Is(err, fs.ErrNotExist):
-	default:
 		return prep, err
 	}
 	prep, fresh, err := scan.CampaignPrepare(prep, eff, stored, step.Name(), timeS)
@@ -551,6 +554,24 @@ func campaignThresholds(ctx context.Context, st Store, step layout.Step, timeS f
 		}
 	}
 	return prep, nil
+}
+
+// campaignRecord reads the campaign's thresholds record of run hash (nil
+// when none is stored yet).
+func campaignRecord(ctx context.Context, st Store, step layout.Step, hash string) (*segment.CampaignThresholds, error) {
+	key, err := step.Campaign().Thresholds(hash)
+	if err != nil {
+		return nil, err
+	}
+	var ct segment.CampaignThresholds
+	switch err := campaign.GetJSON(ctx, st, key, &ct); {
+	case err == nil:
+		return &ct, nil
+	case errors.Is(err, fs.ErrNotExist):
+		return nil, nil
+	default:
+		return nil, err
+	}
 }
 
 // ThresholdsKnown reports whether a step's plan follows from cfg alone,
