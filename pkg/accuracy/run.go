@@ -31,7 +31,9 @@ import (
 	"sluice/pkg/equilibrium"
 	"sluice/pkg/forward"
 	"sluice/pkg/measure"
+	"sluice/pkg/phase"
 	"sluice/pkg/scan"
+	"sluice/pkg/scenario"
 	"sluice/pkg/segment"
 	"sluice/pkg/volume"
 )
@@ -331,22 +333,21 @@ func Run(in Input, opt Options, progress Progress) (*Report, error) {
 	if err != nil {
 		return nil, fmt.Errorf("accuracy: %w", err)
 	}
-	// The nonwetting phase enters from the inlet face: start with its
-	// first slice of pore space nonwetting (an all-wetting start gives the
-	// level set no interface to move).
-	start := make([]bool, len(pore))
-	i = 0
-	for z := 0; z < shape[0]; z++ {
-		for y := 0; y < shape[1]; y++ {
-			for x := 0; x < shape[2]; x++ {
-				start[i] = pore[i] && [3]int{z, y, x}[axis] == 0
-				i++
-			}
-		}
-	}
-	if err := solver.SetNonwetting(start); err != nil {
+	// Each state starts from the previous one joined with the
+	// full-morphology state at r_c = 2cos θ/P (Hilpert & Miller 2001, Adv.
+	// Water Resour. 24:243: the pore space reached from the inlet by balls
+	// whose meniscus radius 2/P meets the wall at θ), so the level set
+	// starts near its equilibrium instead of creeping in from the inlet
+	// face (measured on an 86³ region of the 128³ demo, θ 45°, corner
+	// radius 5.5 voxels: from the inlet slice the first state stopped at
+	// the time limit 4000 unconverged; from this start it converged at
+	// t 3696, S_n 0.583 against 0.579).
+	drain, err := scenario.NewDrainage(solidLab, phase.Of(codes.Wetting), scenario.DrainageOptions{Inlet: scenario.Face{Axis: axis}, Connectivity: mo.Connectivity})
+	if err != nil {
 		return nil, fmt.Errorf("accuracy: %w", err)
 	}
+	prev := make([]bool, len(pore))
+	cosT := math.Cos(opt.Theta * math.Pi / 180)
 	var solidForSeg *volume.Labels
 	if cfg.Segment.Reference {
 		solidForSeg = solidLab
@@ -354,6 +355,13 @@ func Run(in Input, opt Options, progress Progress) (*Report, error) {
 	for k, p := range P {
 		progress(done, total, fmt.Sprintf("state %d/%d: relaxing at Pc/σ %.4f per voxel", k+1, len(P), p))
 		tr := time.Now()
+		start := drain.Invade(2*cosT/p, nil)
+		for j := range start {
+			start[j] = (start[j] || prev[j]) && pore[j]
+		}
+		if err := solver.SetNonwetting(start); err != nil {
+			return nil, fmt.Errorf("accuracy: %w", err)
+		}
 		st, err := solver.Relax(p)
 		if err != nil {
 			return nil, fmt.Errorf("accuracy: %w", err)
@@ -364,6 +372,7 @@ func Run(in Input, opt Options, progress Progress) (*Report, error) {
 			s.PcPrescribed = ptr(cfg.IFT * p / h)
 		}
 		nw := solver.Nonwetting()
+		prev = nw
 		truth := solidLab.Clone()
 		nn := 0
 		for j, b := range nw {
