@@ -175,7 +175,10 @@ type Solver struct {
 	// the others of the active tiles hold +5.
 	active []extVoxel
 	groups []int // active[groups[i]:groups[i+1]] share one depth
-	pn     []int32
+	// Per-worker parts of bandList and active while they are built.
+	bandParts [][]int32
+	extParts  [][]extVoxel
+	pn        []int32
 
 	// Tiles (tileE³ voxels of the padded grid): a tile is active while its
 	// interface moves by more than eps per reinitialisation cycle, or a
@@ -563,6 +566,10 @@ func (s *Solver) restart() {
 // voxels, their nonwetting volume and interface area (see volume), and
 // how far φ moved near the interface (|φ| < 1.5) since the last time.
 func (s *Solver) measureTiles(tiles []int32, moved bool) {
+	s.parallelMin(len(tiles), 16, func(lo, hi int) { s.measureTileRange(tiles[lo:hi], moved) })
+}
+
+func (s *Solver) measureTileRange(tiles []int32, moved bool) {
 	f := s.phi
 	for _, tt := range tiles {
 		t := int(tt)
@@ -605,43 +612,77 @@ func (s *Solver) measureTiles(tiles []int32, moved bool) {
 // are set to +band.
 func (s *Solver) buildLists() {
 	f := s.phi
-	s.bandList = s.bandList[:0]
-	for t, a := range s.act {
-		if !a || !s.hasBand[t] {
-			continue
-		}
-		lo, hi := s.tileBounds(t)
-		for z := lo[0]; z < hi[0]; z++ {
-			for y := lo[1]; y < hi[1]; y++ {
-				row := (z*s.n[1] + y) * s.n[2]
-				for p := row + lo[2]; p < row+hi[2]; p++ {
-					if s.kind[p] == kPore && math.Abs(f[p]) < band {
-						s.bandList = append(s.bandList, int32(p))
+	nw := s.workers
+	if len(s.bandParts) < nw {
+		s.bandParts = make([][]int32, nw)
+		s.extParts = make([][]extVoxel, nw)
+	}
+	// Band voxels of the active tiles, in tile order: each worker lists a
+	// range of tiles, the ranges are joined in order.
+	nt := len(s.act)
+	chunk := (nt + nw - 1) / nw
+	s.parallelMin(nw, 2, func(wlo, whi int) {
+		for w := wlo; w < whi; w++ {
+			part := s.bandParts[w][:0]
+			for t := w * chunk; t < min((w+1)*chunk, nt); t++ {
+				if !s.act[t] || !s.hasBand[t] {
+					continue
+				}
+				lo, hi := s.tileBounds(t)
+				for z := lo[0]; z < hi[0]; z++ {
+					for y := lo[1]; y < hi[1]; y++ {
+						row := (z*s.n[1] + y) * s.n[2]
+						for p := row + lo[2]; p < row+hi[2]; p++ {
+							if s.kind[p] == kPore && math.Abs(f[p]) < band {
+								part = append(part, int32(p))
+							}
+						}
 					}
 				}
 			}
+			s.bandParts[w] = part
 		}
+	})
+	s.bandList = s.bandList[:0]
+	for _, part := range s.bandParts[:nw] {
+		s.bandList = append(s.bandList, part...)
 	}
+	// Extension voxels of the active tiles next to the band, in order of
+	// depth (ranges of the depth-sorted ext list joined in order). Workers
+	// read pore voxels and write only their own extension voxels.
+	ne := len(s.ext)
+	echunk := (ne + nw - 1) / nw
+	s.parallelMin(nw, 2, func(wlo, whi int) {
+		for w := wlo; w < whi; w++ {
+			part := s.extParts[w][:0]
+			for _, e := range s.ext[min(w*echunk, ne):min((w+1)*echunk, ne)] {
+				if !s.act[e.tile] {
+					continue
+				}
+				near := false
+				for _, q := range s.pn[e.pn0:e.pn1] {
+					if math.Abs(f[q]) < band {
+						near = true
+						break
+					}
+				}
+				if near {
+					part = append(part, e)
+				} else {
+					f[e.p] = band
+				}
+			}
+			s.extParts[w] = part
+		}
+	})
 	s.active = s.active[:0]
 	s.groups = s.groups[:0]
-	for _, e := range s.ext {
-		if !s.act[e.tile] {
-			continue
-		}
-		near := false
-		for _, q := range s.pn[e.pn0:e.pn1] {
-			if math.Abs(f[q]) < band {
-				near = true
-				break
-			}
-		}
-		if near {
+	for _, part := range s.extParts[:nw] {
+		for _, e := range part {
 			if len(s.active) == 0 || s.active[len(s.active)-1].depth != e.depth {
 				s.groups = append(s.groups, len(s.active))
 			}
 			s.active = append(s.active, e)
-		} else {
-			f[e.p] = band
 		}
 	}
 	s.groups = append(s.groups, len(s.active))
@@ -700,8 +741,11 @@ func (s *Solver) bandNear(t int) bool {
 }
 
 // parallel runs fn over [0, n) split into one range per worker.
-func (s *Solver) parallel(n int, fn func(lo, hi int)) {
-	if n < 4096 || s.workers == 1 {
+func (s *Solver) parallel(n int, fn func(lo, hi int)) { s.parallelMin(n, 4096, fn) }
+
+// parallelMin is parallel that runs fn on one goroutine below grain items.
+func (s *Solver) parallelMin(n, grain int, fn func(lo, hi int)) {
+	if n < grain || s.workers == 1 {
 		fn(0, n)
 		return
 	}
@@ -856,6 +900,34 @@ func (s *Solver) reinit() {
 		}
 	}
 	s.work = work
+	s.sweep(work)
+	for _, pp := range work {
+		p := int(pp)
+		v := fmin(d[p], band)
+		if f[p] < 0 {
+			v = -v
+		}
+		f[p] = v
+	}
+	s.extend(f)
+	s.cycle++
+	if s.cycle%holdN == 0 {
+		s.measureTiles(scanned, true)
+		s.settle(scanned)
+	} else {
+		s.measureTiles(scanned, false)
+		s.buildLists()
+	}
+}
+
+// sweep runs the fast-sweeping updates on the work voxels: Gauss–Seidel
+// in the order of work, forward and back, twice. (Sweeping two halves of
+// the work set in parallel, each reading the other's distances from before
+// the sweeps, was measured: tapered tube at θ 60° κ −8.7 % instead of
+// −0.5 %; the serial order stays.)
+func (s *Solver) sweep(work []int32) {
+	d := s.dist
+	sz, sy := s.st[0], s.st[1]
 	update := func(p int) {
 		if s.fixed[p] {
 			return
@@ -894,23 +966,6 @@ func (s *Solver) reinit() {
 		for i := len(work) - 1; i >= 0; i-- {
 			update(int(work[i]))
 		}
-	}
-	for _, pp := range work {
-		p := int(pp)
-		v := fmin(d[p], band)
-		if f[p] < 0 {
-			v = -v
-		}
-		f[p] = v
-	}
-	s.extend(f)
-	s.cycle++
-	if s.cycle%holdN == 0 {
-		s.measureTiles(scanned, true)
-		s.settle(scanned)
-	} else {
-		s.measureTiles(scanned, false)
-		s.buildLists()
 	}
 }
 
