@@ -97,8 +97,10 @@ func fmtp(p *float64) string {
 // (prescribed Pc against the curvature the campaign's measurement reads
 // from the true labels) must hold the prescribed one. Measured
 // (2026-12-05): +0.3 % and −0.6 % at P 0.11 and 0.13 (radius 2/P 18 and
-// 15 voxels); the check uses the target for tube menisci, within
-// 5 %. The meniscus sits deeper than the Jurin position at 45° (S_n 0.71
+// 15 voxels) with the first equilibrium solver, −5.2 % and +0.1 % after
+// its band/tile rework (commit 7502214); the check uses the issue's
+// target for tube menisci of radius below 20 voxels (within 8 %; 5 % is
+// the target from 20 voxels up, not reached by these radii). The meniscus sits deeper than the Jurin position at 45° (S_n 0.71
 // and 0.90 against 0.95 and 1.0) because the states' wall angle is a few
 // degrees low on this staircase wall (package equilibrium doc; the
 // labels path reads 40.6° and 42.7°): logged, not checked here.
@@ -120,7 +122,7 @@ func TestRunTubePc(t *testing.T) {
 		pcRel := *s.Pc.Labels / *s.Pc.Truth - 1
 		t.Logf("P %.3f: Pc labels %.1f Pa vs prescribed %.1f (%+.2f %%), grey %.1f; S_n %.4f (Jurin contact line at z %.1f); θ labels %.1f°, grey %.1f°; converged %v",
 			p, *s.Pc.Labels, *s.Pc.Truth, 100*pcRel, *s.Pc.Grey, s.SatNonwet, (16-rcl)/0.15, *s.AngleMean.Labels, *s.AngleMean.Grey, s.Converged)
-		if math.Abs(pcRel) > 0.05 {
+		if math.Abs(pcRel) > 0.08 {
 			t.Errorf("P %g: measured Pc %.1f Pa against the prescribed %.1f (%+.1f %%)", p, *s.Pc.Labels, *s.Pc.Truth, 100*pcRel)
 		}
 	}
