@@ -145,9 +145,9 @@ type Options struct {
 
 // Stats describe one relaxation.
 type Stats struct {
-	Steps     int
-	Time      float64
-	Speed     float64 // mean normal interface speed at the end (voxels/time)
+	Steps int
+	Time  float64
+	Speed float64 // mean normal interface speed at the end (voxels/time)
 	// Converged: Speed < SpeedTol at two checks in a row (t ≥ 30), or every
 	// tile held (no interface moved by more than 2·SpeedTol on average over
 	// the last 6 time units; package doc), before MaxTime.
