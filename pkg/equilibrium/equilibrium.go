@@ -86,7 +86,15 @@
 // ~2e-3 voxel per unit time) before the state settles, and the explicit
 // curvature term bounds the time step (0.15). Reinitialising every 20
 // steps instead of 10 was measured and not kept (776 voxels of the pack
-// state and the θ 30° tube angle, 27.7° instead of 25.8°, changed).
+// state and the θ 30° tube angle, 27.7° instead of 25.8°, changed). Nor
+// was a time step of 0.2 for P ≤ 0.25 (our von Neumann estimate of the
+// forward-Euler limit, 2/(8 + 2√3·P), is ≥ 0.2255 there): 25 % fewer steps
+// (20000 instead of 26680 to t 4000, 20.6 s CPU), tube κ −2.0 %/−0.7 %,
+// angle 26.6°/52.8°, pack state +0.2 %, but the corner wetting areas moved
+// (square θ 0° −17.8 % instead of −10.3 %, θ 30° +0.7 % instead of +9.5 %,
+// triangle −29.8 % instead of −26.3 %): the corner states depend on the
+// step, one more sign that they are not yet equilibria to trust. float32
+// storage of φ was measured too: no gain (28.7 s CPU against 28.7–29.0 s).
 //
 // Boundaries: the inlet face borders a nonwetting reservoir, the outlet
 // face a wetting reservoir (fixed φ = −5 and +5 one voxel outside the box);
