@@ -109,6 +109,13 @@ import (
 // the contact-line turnings are taken.
 var topoOffsets = [cluster.TopoLevels]float64{4, 4.5, 5, 5.5, 6}
 
+// topoBandLo and topoBandHi bound the distances from the solid (voxels) at
+// which the fluid field is kept for the w–n mesh: the offsets ± 3 voxels.
+const (
+	topoBandLo = 1.0
+	topoBandHi = 9.0
+)
+
 // topoSigma is the Gaussian σ (voxels) of the fluid field.
 const topoSigma = 1.5
 
@@ -188,6 +195,18 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 	// field: every cube holding a kept vertex of an offset surface, and
 	// every cube sharing a cut edge with it, lies among them.
 	nearN := dilate2(a)
+	// The w–n interface matters only where it crosses the offsets: a cut
+	// point at d_k lies on a mesh edge within a cube, the angles there come
+	// from triangles within a voxel of it, and their vertices from the
+	// samples of their grid edges, so samples farther than 2.8 voxels from
+	// every d_k (d outside [topoBandLo, topoBandHi]) may be dropped from the
+	// fluid (a surface then closes there, away from every cut).
+	band := a.Clone()
+	for i, d := range dist.Pix {
+		if d < topoBandLo || d > topoBandHi {
+			band.Pix[i] = -0.5
+		}
+	}
 	cubes := volume.Box{Min: core.Min, Max: core.Max}
 	for k := 0; k < 3; k++ {
 		cubes.Min[k]--
@@ -246,12 +265,16 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 			sums.WN[k] += turn
 		}
 	}
-	wn := mesh.March(a, 0, cubes)
+	wn := mesh.MarchShape(band, 0, cubes)
+	dv := make([]float64, len(wn.Vertices)) // distance from the solid at each vertex
+	for i, v := range wn.Vertices {
+		dv[i] = mesh.Sample(dist, v)
+	}
 	keep := make([]float64, len(wn.Vertices))
 	od := volume.New[float32](fb, lab.VoxelSize)
 	for k, d := range topoOffsets {
-		for i, v := range wn.Vertices {
-			keep[i] = mesh.Sample(dist, v) - d
+		for i := range keep {
+			keep[i] = dv[i] - d
 		}
 		wn.ClipTurning(keep, func(p [3]float64, _ int32, turn float64) { add(p, k, false, turn) })
 		for i, v := range dist.Pix {
@@ -261,7 +284,7 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 				od.Pix[i] = -1
 			}
 		}
-		ns := mesh.March(od, 0, cubes)
+		ns := mesh.MarchShape(od, 0, cubes)
 		kn := make([]float64, len(ns.Vertices))
 		for i, v := range ns.Vertices {
 			kn[i] = mesh.Sample(a, v)

@@ -400,6 +400,16 @@ func Area(f *volume.Volume[float32], level float64, cubes volume.Box) float64 {
 // March builds the iso-surface mesh {f = level} over the cubes whose lowest
 // corner lies in cubes. Vertices on shared edges are shared.
 func March(f *volume.Volume[float32], level float64, cubes volume.Box) *Mesh {
+	return marchMesh(f, level, cubes, true)
+}
+
+// MarchShape is March without the per-vertex normals (Mesh.Normals nil):
+// the same vertices and triangles, for uses that need only the shape.
+func MarchShape(f *volume.Volume[float32], level float64, cubes volume.Box) *Mesh {
+	return marchMesh(f, level, cubes, false)
+}
+
+func marchMesh(f *volume.Volume[float32], level float64, cubes volume.Box, normals bool) *Mesh {
 	m := &Mesh{}
 	ids := map[int64]int32{}
 	walk(f, level, cubes, func(key [3]int64, p [3][3]float64) {
@@ -410,7 +420,9 @@ func March(f *volume.Volume[float32], level float64, cubes volume.Box) *Mesh {
 				id = int32(len(m.Vertices))
 				ids[key[k]] = id
 				m.Vertices = append(m.Vertices, p[k])
-				m.Normals = append(m.Normals, normalAt(f, p[k]))
+				if normals {
+					m.Normals = append(m.Normals, normalAt(f, p[k]))
+				}
 			}
 			t[k] = id
 		}

@@ -119,7 +119,8 @@ func compareResults(t *testing.T, label string, got, want *measure.Result) {
 		if !(v[0] == v[1] || math.Abs(v[0]-v[1]) <= v[2]*math.Max(math.Abs(v[0]), math.Abs(v[1]))) {
 			t.Errorf("%s: %s = %.12g, whole volume %.12g", label, k, v[0], v[1])
 		}
-	}	// The topological contact angle: the same ganglia, the same turnings
+	}
+	// The topological contact angle: the same ganglia, the same turnings
 	// to rounding (null in both when no ganglion gives one).
 	if got.TopoGanglia != want.TopoGanglia || (got.TopoCos == nil) != (want.TopoCos == nil) ||
 		(want.TopoCos != nil && math.Abs(*got.TopoCos-*want.TopoCos) > 1e-9) {
