@@ -183,18 +183,23 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 	sub := lab.Crop(db, 0)
 	sq := distance.SquaredToSet(sub, solid)
 	dist := volume.New[float32](fb, lab.VoxelSize)
+	nx := fb.Max[2] - fb.Min[2]
 	for z := fb.Min[0]; z < fb.Max[0]; z++ {
 		for y := fb.Min[1]; y < fb.Max[1]; y++ {
-			for x := fb.Min[2]; x < fb.Max[2]; x++ {
-				d := math.Min(math.Sqrt(sq[sub.Index(z, y, x)]), 1e3) - 0.5
-				dist.Pix[dist.Index(z, y, x)] = float32(d)
+			src := sq[sub.Index(z, y, fb.Min[2]):][:nx]
+			dst := dist.Pix[dist.Index(z, y, fb.Min[2]):][:nx]
+			for x, v := range src {
+				dst[x] = float32(math.Min(math.Sqrt(v), 1e3) - 0.5)
 			}
 		}
 	}
-	// Samples within 2 voxels (Chebyshev) of a sample inside the fluid
-	// field: every cube holding a kept vertex of an offset surface, and
-	// every cube sharing a cut edge with it, lies among them.
-	nearN := dilate2(a)
+	// Samples within 3 voxels (Chebyshev) of a sign change of the fluid
+	// field between face neighbours: a cut point of an offset surface lies
+	// within a voxel of such a change, the triangles sharing its edge within
+	// 1.7 voxels, and the corners of their cubes within 3; beyond, every
+	// cube's corners have one sign of the field, so a surface the mask
+	// leaves there (the offset surface stops at the mask) has no cut point.
+	nearN := dilate(interfaceSamples(a), fb.Size(), 3)
 	// The w–n interface matters only where it crosses the offsets: a cut
 	// point at d_k lies on a mesh edge within a cube, the angles there come
 	// from triangles within a voxel of it, and their vertices from the
@@ -318,34 +323,45 @@ func anyIn(lab *volume.Labels, s *phase.Set, box volume.Box) bool {
 	return false
 }
 
-// dilate2 marks the samples of f within Chebyshev distance 2 of a sample
-// with f > 0 (separable running maximum along each axis).
-func dilate2(f *volume.Volume[float32]) []bool {
+// interfaceSamples marks the samples of f whose sign (f > 0) differs from
+// that of a face neighbour.
+func interfaceSamples(f *volume.Volume[float32]) []bool {
 	n := f.Box.Size()
 	m := make([]bool, len(f.Pix))
-	for i, v := range f.Pix {
-		m[i] = v > 0
-	}
 	stride := [3]int{n[1] * n[2], n[2], 1}
-	tmp := make([]bool, len(m))
-	for ax := 0; ax < 3; ax++ {
-		copy(tmp, m)
-		for i := range m {
-			c := i / stride[ax] % n[ax]
-			if tmp[i] {
-				continue
-			}
-			for d := -2; d <= 2 && !m[i]; d++ {
-				if d == 0 || c+d < 0 || c+d >= n[ax] {
-					continue
-				}
-				if tmp[i+d*stride[ax]] {
-					m[i] = true
-				}
+	for i, v := range f.Pix {
+		in := v > 0
+		for ax := 0; ax < 3; ax++ {
+			if i/stride[ax]%n[ax]+1 < n[ax] && (f.Pix[i+stride[ax]] > 0) != in {
+				m[i], m[i+stride[ax]] = true, true
 			}
 		}
 	}
 	return m
+}
+
+// dilate returns the samples of a box of shape n within Chebyshev distance
+// r of a sample marked in m (separable running maximum along each axis).
+func dilate(m []bool, n [3]int, r int) []bool {
+	out := slices.Clone(m)
+	tmp := make([]bool, len(m))
+	stride := [3]int{n[1] * n[2], n[2], 1}
+	for ax := 0; ax < 3; ax++ {
+		copy(tmp, out)
+		for i := range out {
+			if tmp[i] {
+				continue
+			}
+			c := i / stride[ax] % n[ax]
+			for d := max(-r, -c); d <= r && c+d < n[ax]; d++ {
+				if tmp[i+d*stride[ax]] {
+					out[i] = true
+					break
+				}
+			}
+		}
+	}
+	return out
 }
 
 // TopoAngle is the topological contact angle from summed turnings.
