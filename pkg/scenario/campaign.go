@@ -15,12 +15,15 @@
 //     sides are walls (a sleeve).
 //   - Schedule: step 0 is at r_c = RcStart (by default the smaller of the
 //     entry radius — where step 0 holds no gas, a brine-saturated reference
-//     state — and 1.6 × the breakthrough radius). Steps 1 … N−K−1 raise the
+//     state — and 1.6 × the breakthrough radius). Steps 1 … N−K−M−1 raise the
 //     capillary pressure linearly in time (1/r_c linear) to r_c = RcEnd (by
-//     default 0.8 × the breakthrough radius, S_n ≈ 0.5–0.7); the last K
+//     default 0.8 × the breakthrough radius, S_n ≈ 0.5–0.7); the next K
 //     steps (SteadySteps, default 5) lower r_c by only SteadyDrift (default
 //     0.1 %) per step, so the fluid state is nearly constant: ground truth
-//     for a steady-state detector. Scan i is taken at t = i × Interval.
+//     for a steady-state detector. With ImbibitionSteps M > 0 the last M of
+//     the N steps (after the steady ones) raise r_c again to RcImbibition:
+//     brine re-invades and gas is cut into trapped ganglia (imbibition.go).
+//     Scan i is taken at t = i × Interval.
 //
 // Ground truth per step (Truth): r_c in voxels and metres, the imposed
 // capillary pressure Pc = 2σ/r_c (Young–Laplace for the spherical terminal
@@ -103,6 +106,12 @@ type Campaign struct {
 	// Trapping keeps wetting phase that lost contact with the outlet
 	// (Drainage.Trap). Off by default.
 	Trapping bool
+	// ImbibitionSteps is the number of last scans in which brine
+	// re-invades (imbibition.go), counted in Steps, after the steady ones;
+	// default 0 (none). RcImbibition is the r_c they rise to; zero takes
+	// 1.3 × the breakthrough radius.
+	ImbibitionSteps int
+	RcImbibition    float64
 	// Codes are the label codes; the zero value takes phase.Default().
 	Codes phase.Codes
 	// Drainage options (inlet face, connectivity, open sides).
@@ -118,6 +127,9 @@ type Campaign struct {
 	mu        sync.Mutex
 	trapStep  int // last step whose trapped set is cached, −1 for none
 	trapped   []bool
+	imbMu     sync.Mutex
+	imbStep   int // last imbibition step cached in imbNW, −1 for none
+	imbNW     []bool
 	breakOnce sync.Once
 	breakStep int
 }
@@ -134,8 +146,11 @@ type StepTruth struct {
 	// Curvature = 2/r_c in 1/m: the total curvature κ of the terminal
 	// menisci.
 	Curvature float64
-	// Steady marks the last K steps, whose r_c is nearly constant.
+	// Steady marks the K steps after the ramp, whose r_c is nearly
+	// constant.
 	Steady bool
+	// Imbibition marks the last ImbibitionSteps steps (r_c rising).
+	Imbibition bool
 }
 
 func (c *Campaign) resolve() {
@@ -196,8 +211,10 @@ func (c *Campaign) validate() error {
 	switch {
 	case c.Steps < 2:
 		return fmt.Errorf("scenario: campaign of %d steps, want ≥ 2", c.Steps)
-	case c.SteadySteps > c.Steps-2:
-		return fmt.Errorf("scenario: %d steady steps leave no ramp in %d steps", c.SteadySteps, c.Steps)
+	case c.ImbibitionSteps < 0 || c.RcImbibition < 0:
+		return fmt.Errorf("scenario: %d imbibition steps to r_c %g", c.ImbibitionSteps, c.RcImbibition)
+	case c.SteadySteps+c.ImbibitionSteps > c.Steps-2:
+		return fmt.Errorf("scenario: %d steady and %d imbibition steps leave no ramp in %d steps", c.SteadySteps, c.ImbibitionSteps, c.Steps)
 	case c.SteadyDrift >= 0.1:
 		return fmt.Errorf("scenario: steady drift %g per step is not steady (want < 0.1)", c.SteadyDrift)
 	case !(c.VoxelSize > 0) || !(c.IFT > 0) || !(c.Interval > 0):
@@ -243,16 +260,25 @@ func (c *Campaign) prepare() error {
 		return fmt.Errorf("scenario: r_c must fall from start %g to end %g voxels (both > 0)", start, end)
 	}
 	c.RcStart, c.RcEnd = start, end
-	ramp := c.Steps - c.SteadySteps
+	ramp := c.Steps - c.SteadySteps - c.ImbibitionSteps
 	c.rcs = make([]float64, c.Steps)
 	for i := 0; i < ramp; i++ {
 		// 1/r_c, hence Pc, rises linearly with time.
 		f := float64(i) / float64(ramp-1)
 		c.rcs[i] = 1 / (1/start + f*(1/end-1/start))
 	}
-	for i := ramp; i < c.Steps; i++ {
+	for i := ramp; i < ramp+c.SteadySteps; i++ {
 		c.rcs[i] = end * (1 - c.SteadyDrift*float64(i-ramp+1))
 	}
+	if c.ImbibitionSteps > 0 {
+		if c.RcImbibition == 0 {
+			c.RcImbibition = 1.3 * bt
+		}
+		if err := c.imbibitionRadii(c.imbibitionStart(), c.RcImbibition); err != nil {
+			return err
+		}
+	}
+	c.imbStep = -1
 	c.trapStep = -1
 	c.breakStep = -2
 	return nil
@@ -276,13 +302,14 @@ func (c *Campaign) Truth(i int) StepTruth {
 	c.mustPrepare()
 	rc := c.rcs[i]
 	return StepTruth{
-		Step:      i,
-		TimeS:     float64(i) * c.Interval,
-		Rc:        rc,
-		RcMetres:  rc * c.VoxelSize,
-		Pc:        2 * c.IFT / (rc * c.VoxelSize),
-		Curvature: 2 / (rc * c.VoxelSize),
-		Steady:    i >= c.Steps-c.SteadySteps,
+		Step:       i,
+		TimeS:      float64(i) * c.Interval,
+		Rc:         rc,
+		RcMetres:   rc * c.VoxelSize,
+		Pc:         2 * c.IFT / (rc * c.VoxelSize),
+		Curvature:  2 / (rc * c.VoxelSize),
+		Steady:     i >= c.imbibitionStart()-c.SteadySteps && i < c.imbibitionStart(),
+		Imbibition: i >= c.imbibitionStart(),
 	}
 }
 
@@ -300,6 +327,14 @@ func (c *Campaign) Step(i int) (labels *volume.Labels, rc float64, timeS float64
 }
 
 func (c *Campaign) nonwetting(i int) []bool {
+	if i >= c.imbibitionStart() {
+		return c.imbibed(i)
+	}
+	return c.drainageNW(i)
+}
+
+// drainageNW is the nonwetting mask of drainage step i.
+func (c *Campaign) drainageNW(i int) []bool {
 	if !c.Trapping {
 		return c.drain.Invade(c.rcs[i], nil)
 	}
@@ -320,7 +355,8 @@ func (c *Campaign) nonwetting(i int) []bool {
 // Breakthrough returns the first step whose nonwetting phase percolates
 // from the inlet face to the outlet face (connectivity of the drainage,
 // 26 by default), or −1 if none does. It finds it from the step labels by
-// bisection over the steps (drainage only advances as r_c falls).
+// bisection over the drainage steps (drainage only advances as r_c falls;
+// the imbibition steps after them are not searched).
 func (c *Campaign) Breakthrough() int {
 	c.mustPrepare()
 	c.breakOnce.Do(func() {
@@ -328,7 +364,7 @@ func (c *Campaign) Breakthrough() int {
 			lab, _, _ := c.Step(i)
 			return c.Percolating(lab)
 		}
-		lo, hi := 0, c.Steps-1
+		lo, hi := 0, c.imbibitionStart()-1
 		if !perc(hi) {
 			c.breakStep = -1
 			return

@@ -32,8 +32,14 @@ const demoScenario = `Synthetic drainage (our own scenario, for demonstration on
 brine-filled sandstone-like grain pack in a cylindrical sleeve, from the inlet at z = 0. A long-exposure
 reference scan of the brine-saturated core gives the rock; each fast scan is a full-morphology drainage
 state (Hilpert & Miller 2001) at a falling capillary radius r_c, rendered as a noisy, blurred 16-bit
-reconstruction (gas darkest, brine, rock brightest; CNR 5). The last steps hold r_c nearly constant, so
-the run ends at steady state.`
+reconstruction (gas darkest, brine, rock brightest; CNR 5). Then r_c is held nearly constant (steady
+state), and in the last steps it rises again: brine re-invades the throats from the outlet (imbibition),
+cutting the gas into trapped ganglia that stay, shrink and split.`
+
+// demoImbibitionSteps is the number of imbibition steps at the end of a
+// demo of n steps: 4, fewer when the steps leave no drainage ramp of 2
+// before the 5 steady ones.
+func demoImbibitionSteps(n int) int { return min(4, max(0, n-7)) }
 
 // runDemo is `sluice demo`.
 func runDemo(args []string) int {
@@ -64,7 +70,7 @@ func runDemo(args []string) int {
 		return fail(exitBadInput, "demo: %v", err)
 	}
 	incoming := filepath.Join(*data, "incoming")
-	sc := &scenario.Campaign{Shape: [3]int{*size, *size, *size}, Steps: *steps, Seed: *seed}
+	sc := &scenario.Campaign{Shape: [3]int{*size, *size, *size}, Steps: *steps, Seed: *seed, ImbibitionSteps: demoImbibitionSteps(*steps)}
 	start := time.Now()
 	fmt.Fprintln(stdout, demoScenario)
 	fmt.Fprintf(stdout, "\npreparing the rock (%d³ voxels, %d steps) …\n", *size, *steps)
@@ -378,7 +384,13 @@ func summarizeDemo(ctx context.Context, w io.Writer, data, name string, sc *scen
 		fmt.Fprintf(w, "event: %s at step %s (t = %.0f s): %s\n", e.Kind, e.Step, e.Time, e.Detail)
 	}
 	if bt >= 0 && bt < len(rows) {
-		fmt.Fprintf(w, "ground truth: breakthrough at step %s; the last %d steps are near steady state\n", rows[bt].Step, sc.SteadySteps)
+		first := sc.Steps - sc.ImbibitionSteps - sc.SteadySteps
+		fmt.Fprintf(w, "ground truth: breakthrough at step %s; steps %d–%d are near steady state\n", rows[bt].Step, first, first+sc.SteadySteps-1)
+	}
+	for i := sc.Steps - sc.ImbibitionSteps; i < sc.Steps && i < len(rows); i++ {
+		lab, _, _ := sc.Step(i)
+		fmt.Fprintf(w, "ground truth: imbibition step %s, r_c %.2f voxels, trapped gas saturation %.4f (image: %s)\n", rows[i].Step, sc.Rc(i),
+			sc.TrappedSaturation(lab), fmtPtr(rows[i].Tracking().TrappedSaturation, 1, "%.4f"))
 	}
 	st, err := storeAt(filepath.Join(data, "store"))
 	if err != nil {
