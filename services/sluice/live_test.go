@@ -81,7 +81,13 @@ func TestLiveCampaign(t *testing.T) {
 	}
 	ctx, cancel := context.WithCancel(context.Background())
 	nf := nodeFlags{data: data, http: "127.0.0.1:0", ackWait: 30 * time.Second, maxDeliver: 3}
-	f := ingestFlags{campaign: "live", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true}
+	// The demo's rig log, so the experiment-log panels have data too.
+	rigPath := filepath.Join(data, "rig", "rig-log.csv")
+	rig, err := newDemoRig(rigPath, sc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := ingestFlags{campaign: "live", config: cfgPath, watch: filepath.Join(data, "incoming"), createWatch: true, rigLog: rigPath}
 	if st, err := nf.openStore(ctx); err != nil {
 		t.Fatal(err)
 	} else if err := prepareDemoCampaign(ctx, st, "live", sc, demoConfig(sc, 48)); err != nil {
@@ -97,6 +103,9 @@ func TestLiveCampaign(t *testing.T) {
 	base := "http://" + node.url
 	cyl := demoCylinder(sc)
 	for i := 0; i < sc.Steps-1; i++ {
+		if err := rig.writeUntil(sc.Truth(i).TimeS + 2*demoRigEvery); err != nil {
+			t.Fatal(err)
+		}
 		if err := writeScan(f.watch, sc, i, cyl); err != nil {
 			t.Fatal(err)
 		}
@@ -121,6 +130,9 @@ func TestLiveCampaign(t *testing.T) {
 		shot := filepath.Join(out, "live-page.png")
 		// The next scan arrives while the page is open.
 		before, after := browseLivePage(t, dir, base+"/", shot, func() {
+			if err := rig.writeUntil(sc.Truth(sc.Steps-1).TimeS + 2*demoRigEvery); err != nil {
+				t.Fatal(err)
+			}
 			if err := writeScan(f.watch, sc, sc.Steps-1, cyl); err != nil {
 				t.Fatal(err)
 			}
