@@ -101,13 +101,22 @@ func TestDemoSmall(t *testing.T) {
 	// Drainage: the nonwetting phase only invades, so its saturation never
 	// falls from one step to the next (common practice: a drainage series
 	// is monotone in S_nw up to segmentation noise; 0.01 allows for that).
+	// The last demoImbibitionSteps steps are imbibition: S_nw never rises
+	// there and has fallen by the end.
+	imb := steps - demoImbibitionSteps(steps)
 	for i := 1; i < len(rows); i++ {
 		a, b := rows[i-1].SatNonwetting, rows[i].SatNonwetting
 		if a == nil || b == nil {
 			t.Fatalf("step %s or %s has no S_nw", rows[i-1].Step, rows[i].Step)
 		}
-		if *b < *a-0.01 {
+		if i < imb && *b < *a-0.01 {
 			t.Errorf("S_nw fell from %.3f (%s) to %.3f (%s) during drainage", *a, rows[i-1].Step, *b, rows[i].Step)
 		}
+		if i >= imb && *b > *a+0.01 {
+			t.Errorf("S_nw rose from %.3f (%s) to %.3f (%s) during imbibition", *a, rows[i-1].Step, *b, rows[i].Step)
+		}
+	}
+	if imb < steps && !(*rows[steps-1].SatNonwetting < *rows[imb-1].SatNonwetting-0.01) {
+		t.Errorf("S_nw %.3f after imbibition, %.3f before", *rows[steps-1].SatNonwetting, *rows[imb-1].SatNonwetting)
 	}
 }
