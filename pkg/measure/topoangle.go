@@ -58,7 +58,7 @@ package measure
 //     convolution over the pore space) and the distance d(x) from the solid
 //     surface (exact Euclidean distance to the nearest solid voxel centre
 //     minus ½ voxel) are sampled at the voxels;
-//   - for each d_k in topoOffsets (4, 4.5, 5, 5.5, 6 voxels): the w–n
+//   - for each d_k in topoOffsets (4.1, 4.6, 5.1, 5.6, 6.1 voxels): the w–n
 //     interface {φ_n = ½} (marching cubes) clipped to d > d_k gives
 //     ∮κ_g,wn at d_k; the offset surface {d = d_k} clipped to φ_n > ½ (the
 //     ganglion's footprint lifted by d_k) gives ∮κ_g,ns at d_k;
@@ -68,9 +68,9 @@ package measure
 //     extrapolation is exact for caps; for other shapes it is first order.
 //
 // Measured on digitised caps on a plane (radius R 16–24 voxels, θ 30–120°,
-// three digitisation phases of wall and axis): within 5.75°, the largest
-// errors at 120° (−1 to −6°) and where the axis lies on a voxel corner
-// (TestTopologicalAngleCaps states each); with the analytic fields instead
+// three digitisation phases of wall and axis): within 3.92° (5.75° with the
+// offsets at 4, 4.5, …, 6, see topoOffsets; TestTopologicalAngleCaps
+// states each error); with the analytic fields instead
 // of the data within 0.15° (package mesh). Chosen against σ = 1 with
 // offsets 3–5 voxels (3.4° at one phase, but 14.8° where the axis lies on a
 // voxel corner: the aligned terraces of a symmetric digitisation) and
@@ -106,8 +106,14 @@ import (
 )
 
 // topoOffsets are the distances from the solid surface (voxels) at which
-// the contact-line turnings are taken.
-var topoOffsets = [cluster.TopoLevels]float64{4, 4.5, 5, 5.5, 6}
+// the contact-line turnings are taken. The distance field takes the values
+// √k − ½ (k an integer), so d + ½ must not be the root of an integer: at
+// d = 4.5 or 5.5 whole sets of samples lie exactly on the level, marching
+// cubes puts several vertices on each of them, and the turnings of the
+// degenerate triangles there are noise (seen on the demo's rock: a
+// footprint's turning 654 rad at 4.5 voxels between −21 and 12 rad at 4 and
+// 5).
+var topoOffsets = [cluster.TopoLevels]float64{4.1, 4.6, 5.1, 5.6, 6.1}
 
 // topoBandLo and topoBandHi bound the distances from the solid (voxels) at
 // which the fluid field is kept for the w–n mesh: the offsets ± 3 voxels.
@@ -175,7 +181,7 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 		if v != v { // NaN: no pore space within reach
 			v = 0
 		}
-		a.Pix[i] = v - 0.5
+		a.Pix[i] = offLevel(v - 0.5)
 	}
 	// Distance from the solid surface: to the nearest solid voxel centre,
 	// minus half a voxel, computed on the samples grown by topoReach.
@@ -284,7 +290,7 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 		wn.ClipTurning(keep, func(p [3]float64, _ int32, turn float64) { add(p, k, false, turn) })
 		for i, v := range dist.Pix {
 			if nearN[i] {
-				od.Pix[i] = v - float32(d)
+				od.Pix[i] = offLevel(v - float32(d))
 			} else {
 				od.Pix[i] = -1
 			}
@@ -307,6 +313,16 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 }
 
 func sq3(a, b, c float64) float64 { return a*a + b*b + c*c }
+
+// offLevel moves a field value lying exactly on the level 0 a hair below it,
+// so no marching-cubes vertex falls on a sample (where the edges of the
+// sample would put several vertices at one place).
+func offLevel(v float32) float32 {
+	if v == 0 {
+		return -1e-6
+	}
+	return v
+}
 
 // anyIn reports whether a voxel of box (clipped to lab) is in s.
 func anyIn(lab *volume.Labels, s *phase.Set, box volume.Box) bool {

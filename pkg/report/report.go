@@ -836,7 +836,7 @@ angle inside the nonwetting phase), so cos θ = −(2πχ<sub>wn</sub> − ∫K<
 ∫K<sub>ns</sub> dA), θ = 180° − φ through the wetting phase (a spherical cap on a plane gives it exactly). The
 integrals are taken on marching-cubes meshes of a smoothed fluid field and of surfaces parallel to the solid at
 4–6 voxels from it (where segmentation does not bias the interface), and cos θ is extrapolated linearly to the
-wall; digitised caps of radius 16–24 voxels at 30–120° read within 6° (low by up to 6° at 120°). Only trapped
+wall; digitised caps of radius 16–24 voxels at 30–120° read within 4°. Only trapped
 ganglia away from the image border that rise at least 6 voxels above the solid with a footprint give an angle; in a straight throat the
 contact line is a geodesic of the wall (∮κ<sub>g,ns</sub> = 0) and the relation gives none. The table gives the
 angle of the summed turnings (with the median of the ganglia's own angles) and how many ganglia contributed.</p>

@@ -109,7 +109,9 @@ type Campaign struct {
 	// ImbibitionSteps is the number of last scans in which brine
 	// re-invades (imbibition.go), counted in Steps, after the steady ones;
 	// default 0 (none). RcImbibition is the r_c they rise to; zero takes
-	// 1.3 × the breakthrough radius.
+	// 1.8 × the breakthrough radius (in the demo's 256³ pack gas is then
+	// trapped from the third imbibition step of four; at 1.3 × only in the
+	// last).
 	ImbibitionSteps int
 	RcImbibition    float64
 	// Codes are the label codes; the zero value takes phase.Default().
@@ -272,7 +274,7 @@ func (c *Campaign) prepare() error {
 	}
 	if c.ImbibitionSteps > 0 {
 		if c.RcImbibition == 0 {
-			c.RcImbibition = 1.3 * bt
+			c.RcImbibition = 1.8 * bt
 		}
 		if err := c.imbibitionRadii(c.imbibitionStart(), c.RcImbibition); err != nil {
 			return err
