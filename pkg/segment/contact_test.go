@@ -215,7 +215,7 @@ func floatPipeline(t testing.TB, grey volume.Any, p Params) *volume.Labels {
 //
 // Measured 2026-12-05, grey − labels with the gap, caps 60°/90°/120°:
 // uint16 nws −0.9/+0.8/−3.4°, float32 nws −0.9/+1.6/−3.6°, uint16 nsw
-// +2.7/+0.7/−0.3°, float32 nsw +2.4/+0.9/−0.1°. Without the gap the doped
+// +2.7/+0.8/−0.4°, float32 nsw +2.5/+1.0/−0.2°. Without the gap the doped
 // scans read high (+10.5/+5.8/+8.1° uint16) where the undoped read low
 // (−10.3/−24.2/−29.6°). Bands: those of the uint16 test with the gap,
 // max(2 × its measured error, 3°) = 3°, 3°, 7°, for every kind; and

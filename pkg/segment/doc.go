@@ -198,33 +198,38 @@
 // scenes of pkg/scan (96³, CNR 5 with the undoped adjacent contrasts and
 // noise, PSF σ 0.7) at S_n 0.49: ΔA_wn −75 %, pore voxels 90.2 %.
 //
-// Two passes (solidLayers, watershed.go) remove it. A solid voxel whose
-// nearest non-solid voxels along one of the 13 lattice directions, at
-// most SolidLayerReach = 3 moves away on either side, are the two fluids
-// (one each side) is taken for the blurred edge and goes to the fluid
-// whose grey (of that nearest voxel) is nearer its own. The pass runs on
-// the threshold classes before the flood (so the layer does not seed or
-// carry solid) and on the flood's labels after it, where, in addition, a
-// solid voxel next to one fluid only whose grey lies beyond the middle of
-// the solid class towards the other fluid goes to that other fluid (a
-// mixture of the solid and its fluid neighbour cannot be there; it holds
-// some of the other fluid — a brine film against the rock). Measured
-// (same scene): without passes ΔA_wn −75.5 %, after the flood only −31.0 %
-// (reach 2) and −25.1 % (reach 3), with the fluid-neighbour rule −20.1 %,
-// with the pass before the flood too −9.9 %, pore 95.12 % (undoped scan
-// 95.05 %, −9.6 %). Reach 1 and 2 before and after: −33 % and −19 %. The
-// cost: solid called fluid rises from 5 600 to 11 100 voxels of 637 000
-// (grain edges with a fluid on either side within three moves). Each pass
-// reads labels within SolidLayerReach, so the watershed halo grows by
+// Two passes (solidLayers, watershed.go) remove most of it. A solid voxel
+// whose solid run along one of the 13 lattice directions is at most
+// SolidLayerWidth = 4 voxel widths long (4 voxels along an axis, 2 along a
+// diagonal) and ends in the two fluids (one at each end) is taken for the
+// blurred edge and goes to the fluid whose grey (of the voxel at that end)
+// is nearer its own. The pass runs on the threshold classes before the
+// flood (so the layer does not seed or carry solid) and on the flood's
+// labels after it, where, in addition, a solid voxel next to one fluid
+// only whose grey lies beyond the middle of the solid class towards the
+// other fluid goes to that other fluid (a mixture of the solid and its
+// fluid neighbour cannot be there; it holds some of the other fluid — a
+// brine film against the rock). Measured (same scene, first version with
+// a reach of k voxels on either side in every direction): without passes
+// ΔA_wn −75.5 %, after the flood only −31.0 % (k 2) and −25.1 % (k 3),
+// with the fluid-neighbour rule −20.1 %, with the pass before the flood
+// too −9.9 % (pore 95.12 %; undoped 95.05 %, −9.6 %). That reach took the
+// rims off small grains (runs of 5 voxels along body diagonals, 8.7 voxel
+// widths): on a fine-grained rock (grains 8 voxels across, PSF σ 1) 231 000
+// of 532 000 solid voxels were called fluid, hence the run length in voxel
+// widths (see SolidLayerWidth for the choice). Each pass reads labels
+// within SolidLayerReach = 4, so the watershed halo grows by
 // 2·SolidLayerReach; the result stays exact under tiling
-// (TestWatershedTiling, order nsw). Solid plates of at most three voxels
-// between the two fluids are lost; grains of the forward model's packs are
-// much larger. Per step, doped scans are then as accurate as undoped ones
-// (pkg/scan TestFloat32AndDopedBrine); with campaign thresholds they are
-// not yet (|ΔS_w| 0.030 at S_n 0.70: thin brine against the rock blurs to
-// the solid grey and the campaign's w|s midpoint calls it solid, where
-// per-step Otsu sits lower). Sessile caps with the contact-angle wall gap:
-// within 2.7° of the labels (TestContactAngleFloatAndDoped).
+// (TestWatershedTiling, order nsw). Solid plates of up to 4 voxels between
+// the two fluids are lost. Per step, doped scans are then about as
+// accurate as undoped ones in pore voxels and S_w but read the w–n area
+// lower (pkg/scan TestFloat32AndDopedBrine: worst |ΔA_wn| 25.4 % against
+// 14.7 %); with campaign thresholds they are worse (|ΔS_w| 0.032 at S_n
+// 0.70: thin brine against the rock blurs to the solid grey and the
+// campaign's w|s midpoint calls it solid, where per-step Otsu sits
+// lower). Sessile caps with the contact-angle wall gap: within 2.7° of the
+// labels (TestContactAngleFloatAndDoped); without the gap the doped scans
+// read 10–19° high on the drained rocks (TestIssue15Table).
 //
 // # Contact lines
 //

@@ -141,7 +141,7 @@ func Segment(grey volume.Any, core volume.Box, th Thresholds, p Params, solid *v
 		// pass 2 over the box pass 1 decides) decides lf from lp; the
 		// solid-layer pass on the flood's labels decides l1 from lf.
 		reach := p.Watershed.Steps + 1
-		layers := p.solidLayerPass() && len(c.codes) == 3
+		layers := p.solidLayerPass() && len(c.codes) == 3 && !noSolidLayers
 		lf, lp := l1, lw
 		if layers {
 			lf = l1.Grow(SolidLayerReach).Intersect(gb)
