@@ -379,20 +379,30 @@ func TestFloatExtent(t *testing.T) {
 }
 
 // BenchmarkSegment256 segments one 256³ uint16 tile (plus halo) with the
-// median filter (default watershed assignment, and threshold assignment)
-// and with NLM; throughput is reported per core.
+// median filter (default watershed assignment, threshold assignment, and
+// doped brine, order nsw, with the solid-layer passes) and with NLM;
+// throughput is reported per core.
 func BenchmarkSegment256(b *testing.B) {
-	for _, name := range []string{"median", "median-threshold", "nlm"} {
+	for _, name := range []string{"median", "median-threshold", "nlm", "median-nsw"} {
 		method, assign, _ := strings.Cut(name, "-")
 		b.Run(name, func(b *testing.B) {
 			const n = 256
 			lab := volume.NewShape[uint8](n+8, n+8, n+8, 1e-6)
 			forward.Rock{GrainRadius: 8, Porosity: 0.4, BlobRadius: 8, BlobFrac: 0.4, Seed: 1}.Draw(lab, phase.Default())
 			fp := forward.Default()
+			if assign == "nsw" {
+				// Doped brine: the same adjacent contrasts and noise with
+				// the brine brightest; the solid-layer passes run.
+				fp.Solid, fp.Wetting, fp.CNR = 24000, 40000, 13
+			}
 			img, _ := forward.Render(lab, fp)
 			grey := forward.Uint16(img)
 			p := withFilter(fp, method)
-			if assign != "" {
+			switch assign {
+			case "nsw":
+				p.Order = "nsw"
+			case "":
+			default:
 				p.Assign = assign
 			}
 			p.MinIsland = 4

@@ -129,41 +129,62 @@ func (c *classes) solidLayers(lab *volume.Labels, f *volume.Volume[float32], out
 	res := lab.Crop(out, 0)
 	lo, hi, sd := c.codes[0], c.codes[2], c.codes[1]
 	box := lab.Box
-	// side returns the first non-solid label along ±d from (z, y, x)
-	// within SolidLayerReach moves and its grey, ok false when there is
-	// none inside the box.
-	side := func(z, y, x int, d [3]int, sgn, reach int) (uint8, float32, int, bool) {
+	if f.Box != box {
+		f = f.Crop(box, 0)
+	}
+	sz := box.Size()
+	nx, nyx := sz[2], sz[1]*sz[2]
+	var off [13]int
+	for i, d := range dirs13 {
+		off[i] = d[0]*nyx + d[1]*nx + d[2]
+	}
+	pix, grey := lab.Pix, f.Pix
+	// side returns the first non-solid label along sgn·dirs13[di] from the
+	// box-local voxel i at (z, y, x) within reach moves, its grey and its
+	// distance; ok is false when there is none inside the box.
+	side := func(i, z, y, x, di, sgn, reach int) (uint8, float32, int, bool) {
+		d := dirs13[di]
+		o := sgn * off[di]
 		for k := 1; k <= reach; k++ {
 			zz, yy, xx := z+sgn*k*d[0], y+sgn*k*d[1], x+sgn*k*d[2]
-			if !box.Contains(zz, yy, xx) {
+			if uint(zz) >= uint(sz[0]) || uint(yy) >= uint(sz[1]) || uint(xx) >= uint(sz[2]) {
 				return 0, 0, 0, false
 			}
-			l := lab.At(zz, yy, xx)
-			if l != sd {
-				return l, f.At(zz, yy, xx), k, true
+			j := i + k*o
+			if l := pix[j]; l != sd {
+				return l, grey[j], k, true
 			}
 		}
 		return 0, 0, 0, false
 	}
+	sm := float32(0)
+	if len(c.t) == 2 {
+		sm = float32((c.t[0] + c.t[1]) / 2)
+	}
 	nz := out.Max[0] - out.Min[0]
 	w := min(runtime.GOMAXPROCS(0), nz)
 	parallel(w, func(g int) {
-		for z := out.Min[0] + g*nz/w; z < out.Min[0]+(g+1)*nz/w; z++ {
-			for y := out.Min[1]; y < out.Max[1]; y++ {
-				for x := out.Min[2]; x < out.Max[2]; x++ {
-					if lab.At(z, y, x) != sd {
+		for gz := out.Min[0] + g*nz/w; gz < out.Min[0]+(g+1)*nz/w; gz++ {
+			z := gz - box.Min[0]
+			for gy := out.Min[1]; gy < out.Max[1]; gy++ {
+				y := gy - box.Min[1]
+				ri := res.Index(gz, gy, out.Min[2])
+				for gx := out.Min[2]; gx < out.Max[2]; gx++ {
+					x := gx - box.Min[2]
+					i := z*nyx + y*nx + x
+					if pix[i] != sd {
 						continue
 					}
-					v := f.At(z, y, x)
+					v := grey[i]
 					best, bestC := uint8(0), float32(-1)
-					for di, d := range dirs13 {
+					for di := range dirs13 {
 						// The solid run through u along d may hold at most
 						// maxRun[di] voxels (SolidLayerWidth voxel widths).
-						la, ga, ka, ok := side(z, y, x, d, -1, maxRun[di])
+						la, ga, ka, ok := side(i, z, y, x, di, -1, maxRun[di])
 						if !ok || (la != lo && la != hi) {
 							continue
 						}
-						lb, gb, _, ok := side(z, y, x, d, 1, maxRun[di]+1-ka)
+						lb, gb, _, ok := side(i, z, y, x, di, 1, maxRun[di]+1-ka)
 						if !ok || !((la == lo && lb == hi) || (la == hi && lb == lo)) {
 							continue
 						}
@@ -181,7 +202,7 @@ func (c *classes) solidLayers(lab *volume.Labels, f *volume.Volume[float32], out
 						}
 					}
 					if bestC >= 0 {
-						res.Set(z, y, x, best)
+						res.Pix[ri+gx-out.Min[2]] = best
 						continue
 					}
 					if !mix {
@@ -192,26 +213,19 @@ func (c *classes) solidLayers(lab *volume.Labels, f *volume.Volume[float32], out
 					// fluid holds some of that other fluid (a mixture of
 					// the solid and its fluid neighbour cannot be there).
 					var nLo, nHi bool
-					for _, d := range dirs13[:3] {
+					for di := 0; di < 3; di++ {
 						for _, sg := range [2]int{-1, 1} {
-							zz, yy, xx := z+sg*d[0], y+sg*d[1], x+sg*d[2]
-							if !box.Contains(zz, yy, xx) {
-								continue
-							}
-							switch lab.At(zz, yy, xx) {
-							case lo:
-								nLo = true
-							case hi:
-								nHi = true
+							if l, _, k, ok := side(i, z, y, x, di, sg, 1); ok && k == 1 {
+								nLo = nLo || l == lo
+								nHi = nHi || l == hi
 							}
 						}
 					}
-					sm := float32((c.t[0] + c.t[1]) / 2)
 					switch {
 					case nLo && !nHi && v > sm:
-						res.Set(z, y, x, hi)
+						res.Pix[ri+gx-out.Min[2]] = hi
 					case nHi && !nLo && v < sm:
-						res.Set(z, y, x, lo)
+						res.Pix[ri+gx-out.Min[2]] = lo
 					}
 				}
 			}
