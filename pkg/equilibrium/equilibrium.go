@@ -55,7 +55,9 @@
 // 2 · SpeedTol · 6 time units (2.4e-3 voxels at the default), else it is
 // held. A relaxation also ends, converged, when every tile is held. No pass
 // over the whole grid is made per step; volume and area for the stopping
-// rule are kept per tile.
+// rule are kept per tile. Measured on the 96³ pack of BenchmarkRelaxPack at
+// t 4000: 5 of 152877 nonwetting voxels differ from the solver before this
+// restriction (whole-grid passes, no holding).
 //
 // Known limits (measured 2026-12-05, see the tests): the curvature of a
 // free meniscus is held (tapered tube: κ within 2 % of P); the contact
