@@ -343,6 +343,7 @@ type fitter struct {
 	opt                   Options
 	class                 [256]uint8 // label → class
 	faces                 []face     // scratch, reused between samples
+	grad                  *levelset.GradientKernel
 	// box is the classified box; planes[z − box.Min[0]] lists its faces.
 	box    volume.Box
 	planes []facePlane
@@ -368,7 +369,8 @@ type facePlane struct {
 }
 
 func newFitter(lab *volume.Labels, solid, wet, non *phase.Set, opt Options) *fitter {
-	f := &fitter{lab: lab, solid: solid, wet: wet, non: non, pore: levelset.Union(wet, non), opt: opt}
+	f := &fitter{lab: lab, solid: solid, wet: wet, non: non, pore: levelset.Union(wet, non), opt: opt,
+		grad: levelset.NewGradientKernel(opt.SolidSigma)}
 	for v := range f.class {
 		switch {
 		case wet[v]:
@@ -664,7 +666,7 @@ type face struct {
 // angle computes the contact angle at sample p (see the package doc).
 func (f *fitter) angle(p [3]int) (float64, bool) {
 	R, hw := f.opt.Radius, f.opt.LineHalfWidth
-	g := levelset.GradientAt(f.lab, f.solid, p, f.opt.SolidSigma)
+	g := f.grad.At(f.lab, f.solid, p)
 	ns, ok := unit([3]float64{-g[0], -g[1], -g[2]})
 	if !ok {
 		return 0, false

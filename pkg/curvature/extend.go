@@ -2,7 +2,6 @@ package curvature
 
 import (
 	"math"
-	"sort"
 
 	"sluice/pkg/levelset"
 	"sluice/pkg/phase"
@@ -154,6 +153,13 @@ type face struct {
 // within appends to fs the faces whose centre lies within rho of c, with
 // centres relative to c, in z, y, x order of their lower voxel (a fixed
 // order relative to c).
+//
+// A face of row (z, y) at x has centre (z, y, x) + ½e relative to c, one
+// coordinate moved by ½: rows whose nearest possible centre is at least
+// rho away in (z, y) are skipped, and within a row only the x range that
+// can lie inside the ball is searched (widened by a voxel on each side).
+// Faces are still kept by the same test, so the list is the one of the
+// plain scan of every row (TestWithinMatchesScan).
 func (fi *faceIndex) within(c [3]float64, rho float64, fs []face) []face {
 	var lo, hi [3]int
 	for a := 0; a < 3; a++ {
@@ -164,15 +170,34 @@ func (fi *faceIndex) within(c [3]float64, rho float64, fs []face) []face {
 	r2 := rho * rho
 	for z := max(lo[0], fi.box.Min[0]); z <= min(hi[0], fi.box.Max[0]-1); z++ {
 		dz := float64(z) - c[0]
+		az := nearSq(dz)
+		if az >= r2 {
+			continue
+		}
 		for y := max(lo[1], fi.box.Min[1]); y <= min(hi[1], fi.box.Max[1]-1); y++ {
 			dy := float64(y) - c[1]
+			a := az + nearSq(dy)
+			if a >= r2 {
+				continue
+			}
 			row := fi.rows[(z-fi.box.Min[0])*s[1]+y-fi.box.Min[1]]
 			if len(row) == 0 {
 				continue
 			}
-			x0 := int32(lo[2])
-			k := sort.Search(len(row), func(i int) bool { return row[i].x >= x0 })
-			for ; k < len(row) && row[k].x <= int32(hi[2]); k++ {
+			w := math.Sqrt(r2 - a)
+			x0 := int32(max(lo[2], int(math.Floor(c[2]-0.5-w))-1))
+			x1 := int32(min(hi[2], int(math.Ceil(c[2]+w))+1))
+			// First face at x ≥ x0 (binary search).
+			k, n := 0, len(row)
+			for k < n {
+				m := int(uint(k+n) >> 1)
+				if row[m].x < x0 {
+					k = m + 1
+				} else {
+					n = m
+				}
+			}
+			for ; k < len(row) && row[k].x <= x1; k++ {
 				f := row[k]
 				q := [3]float64{dz, dy, float64(f.x) - c[2]}
 				q[f.axis] += 0.5
@@ -186,6 +211,12 @@ func (fi *faceIndex) within(c [3]float64, rho float64, fs []face) []face {
 		}
 	}
 	return fs
+}
+
+// nearSq returns the smaller of d² and (d + ½)²: the nearest a face
+// centre of a voxel at offset d comes to the origin along that axis.
+func nearSq(d float64) float64 {
+	return min(d*d, (d+0.5)*(d+0.5))
 }
 
 // minFitFaces is the fewest faces a plane fit accepts.

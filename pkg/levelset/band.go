@@ -47,61 +47,62 @@ func Holds(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.V
 	}
 	src := box.Grow(r).Intersect(lab.Box)
 	s := src.Size()
-	cur := make([]uint16, src.Voxels())
+	// cur and nxt are recycled: every element is written before it is
+	// read (pass x writes all of nxt, each later pass all of the other).
+	cur, nxt := counts.get(src.Voxels()), counts.get(src.Voxels())
+	defer func() { counts.put(cur); counts.put(nxt) }()
+	// Pass x, fused with reading the codes: a running count along each row
+	// of src, turned into packed 0/1 flags (bit 0 a, bit 8 b).
+	nx := s[2]
 	i := 0
 	for z := src.Min[0]; z < src.Max[0]; z++ {
 		for y := src.Min[1]; y < src.Max[1]; y++ {
-			row := lab.Pix[lab.Index(z, y, src.Min[2]):][:s[2]]
-			for _, l := range row {
-				cur[i] = code[l]
-				i++
+			row := lab.Pix[lab.Index(z, y, src.Min[2]):][:nx]
+			dst := cur[i:][:nx]
+			i += nx
+			var c uint16
+			for t := 0; t < min(r, nx); t++ {
+				c += code[row[t]]
+			}
+			for t := range dst {
+				if t+r < nx {
+					c += code[row[t+r]]
+				}
+				if t-r-1 >= 0 {
+					c -= code[row[t-r-1]]
+				}
+				dst[t] = flags(c)
 			}
 		}
 	}
-	// any turns packed counts into packed 0/1 flags.
-	any := func(c uint16) uint16 {
-		var f uint16
-		if c&0xff != 0 {
-			f = 1
-		}
-		if c>>8 != 0 {
-			f |= 1 << 8
-		}
-		return f
-	}
-	// Each pass is a window sum along one axis over the whole of src (the
-	// other axes keep their extent), then the flags; only box is kept at
-	// the end.
-	nxt := make([]uint16, len(cur))
-	// A line along axis has n voxels at stride st; inner lines side by side
-	// are contiguous (inner = st), outer groups follow each other.
-	for axis := 2; axis >= 0; axis-- {
+	// Passes y and z: a window sum along the axis over the whole of src
+	// (the other axes keep their extent), then the flags; only box is kept
+	// at the end. A line along axis has n voxels at stride st; inner lines
+	// side by side are contiguous (inner = st), outer groups follow each
+	// other.
+	cnt := counts.get(s[1] * s[2])
+	defer counts.put(cnt)
+	for axis := 1; axis >= 0; axis-- {
 		n := s[axis]
 		st := [3]int{s[1] * s[2], s[2], 1}[axis]
 		outer := len(cur) / (n * st)
-		c := make([]uint16, st)
+		c := cnt[:st]
 		for o := 0; o < outer; o++ {
 			base := o * n * st
 			clear(c)
 			for t := 0; t < min(r, n); t++ {
-				for x, v := range cur[base+t*st:][:st] {
-					c[x] += v
-				}
+				addRow(c, cur[base+t*st:][:st])
 			}
 			for t := 0; t < n; t++ {
 				if t+r < n {
-					for x, v := range cur[base+(t+r)*st:][:st] {
-						c[x] += v
-					}
+					addRow(c, cur[base+(t+r)*st:][:st])
 				}
 				if t-r-1 >= 0 {
-					for x, v := range cur[base+(t-r-1)*st:][:st] {
-						c[x] -= v
-					}
+					subRow(c, cur[base+(t-r-1)*st:][:st])
 				}
 				dst := nxt[base+t*st:][:st]
 				for x, v := range c {
-					dst[x] = any(v)
+					dst[x] = flags(v)
 				}
 			}
 		}
@@ -119,6 +120,47 @@ func Holds(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.V
 	}
 	return out
 }
+
+// flags turns packed counts (a in the low, b in the high byte) into
+// packed 0/1 flags.
+func flags(c uint16) uint16 {
+	var f uint16
+	if c&0xff != 0 {
+		f = 1
+	}
+	if c>>8 != 0 {
+		f |= 1 << 8
+	}
+	return f
+}
+
+func addRow(c, v []uint16) {
+	v = v[:len(c)]
+	for x := range c {
+		c[x] += v[x]
+	}
+}
+
+func subRow(c, v []uint16) {
+	v = v[:len(c)]
+	for x := range c {
+		c[x] -= v[x]
+	}
+}
+
+// counts recycles the uint16 buffers of Holds between calls.
+var counts uint16Pool
+
+type uint16Pool struct{ p sync.Pool }
+
+func (f *uint16Pool) get(n int) []uint16 {
+	if v, ok := f.p.Get().(*[]uint16); ok && cap(*v) >= n {
+		return (*v)[:n]
+	}
+	return make([]uint16, n)
+}
+
+func (f *uint16Pool) put(b []uint16) { f.p.Put(&b) }
 
 // maxScratchRadius is the largest kernel radius FractionOn handles itself
 // (σ ≤ 10); wider kernels fall back to Fraction.

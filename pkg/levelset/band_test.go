@@ -137,3 +137,31 @@ func TestFractionPureOutsideMixed(t *testing.T) {
 		t.Fatal("no band voxels in the scene")
 	}
 }
+
+// GradientKernel.At (taps computed once) returns GradientAt bit for bit,
+// at voxels inside the scene and next to its faces, for σ 1, 1.5 and 2.
+func TestGradientKernelMatchesGradientAt(t *testing.T) {
+	lab := bandScene(4)
+	set := phase.Of(0)
+	rng := rand.New(rand.NewSource(9))
+	for _, sigma := range []float64{1, 1.5, 2} {
+		k := NewGradientKernel(sigma)
+		nonzero := 0
+		for i := 0; i < 300; i++ {
+			var p [3]int
+			for a := 0; a < 3; a++ {
+				p[a] = lab.Box.Min[a] + rng.Intn(lab.Box.Max[a]-lab.Box.Min[a])
+			}
+			got, want := k.At(lab, set, p), GradientAt(lab, set, p, sigma)
+			if got != want {
+				t.Fatalf("σ %g at %v: kernel %v, GradientAt %v", sigma, p, got, want)
+			}
+			if want != [3]float64{} {
+				nonzero++
+			}
+		}
+		if nonzero < 100 {
+			t.Fatalf("σ %g: only %d of 300 points with a gradient: the scene tests too little", sigma, nonzero)
+		}
+	}
+}

@@ -283,10 +283,42 @@ func GradientAt(lab *volume.Labels, set *phase.Set, p [3]int, sigma float64) [3]
 	} else {
 		w = make([]float64, 2*r+1)
 	}
+	gaussTaps(w, sigma)
+	return gradientAt(lab, set, p, sigma, w)
+}
+
+// gaussTaps fills w (2r+1 taps) with the unnormalised Gaussian exp(−d²/2σ²)
+// at offsets d = i − r.
+func gaussTaps(w []float64, sigma float64) {
+	r := (len(w) - 1) / 2
 	for i := range w {
 		d := float64(i - r)
 		w[i] = math.Exp(-d * d / (2 * sigma * sigma))
 	}
+}
+
+// GradientKernel is GradientAt for one σ with the Gaussian taps computed
+// once, for callers that evaluate many points: At returns GradientAt's
+// value bit for bit.
+type GradientKernel struct {
+	sigma float64
+	w     []float64
+}
+
+// NewGradientKernel returns the kernel of GradientAt for sigma.
+func NewGradientKernel(sigma float64) *GradientKernel {
+	k := &GradientKernel{sigma: sigma, w: make([]float64, 2*Radius(sigma)+1)}
+	gaussTaps(k.w, sigma)
+	return k
+}
+
+// At returns GradientAt(lab, set, p, σ).
+func (k *GradientKernel) At(lab *volume.Labels, set *phase.Set, p [3]int) [3]float64 {
+	return gradientAt(lab, set, p, k.sigma, k.w)
+}
+
+func gradientAt(lab *volume.Labels, set *phase.Set, p [3]int, sigma float64, w []float64) [3]float64 {
+	r := (len(w) - 1) / 2
 	nb := volume.Box{Min: p, Max: [3]int{p[0] + 1, p[1] + 1, p[2] + 1}}.Grow(r).Intersect(lab.Box)
 	var g [3]float64
 	for z := nb.Min[0]; z < nb.Max[0]; z++ {
