@@ -527,7 +527,24 @@ func (m *Mesh) Euler() int {
 // vertices at edge midpoints; pass a box grown by one voxel around lab.Box
 // to close surfaces at the border.
 func Indicator(lab *volume.Labels, s *phase.Set, box volume.Box) *volume.Volume[float32] {
-	out := volume.New[float32](box, lab.VoxelSize)
+	return IndicatorInto(nil, lab, s, box)
+}
+
+// IndicatorInto is Indicator written into dst's storage when its capacity
+// holds box (dst is returned on box; nil or too small allocates): a caller
+// that builds one indicator after another reuses one buffer instead of a
+// fresh zeroed volume each time. Only the voxels of box outside lab.Box
+// are cleared; the rest are each written once.
+func IndicatorInto(dst *volume.Volume[float32], lab *volume.Labels, s *phase.Set, box volume.Box) *volume.Volume[float32] {
+	out := dst
+	if out == nil || cap(out.Pix) < box.Voxels() {
+		out = volume.New[float32](box, lab.VoxelSize)
+	} else {
+		out.Pix, out.Box, out.VoxelSize = out.Pix[:box.Voxels()], box, lab.VoxelSize
+		if !lab.Box.ContainsBox(box) {
+			clear(out.Pix)
+		}
+	}
 	in := box.Intersect(lab.Box)
 	if in.Empty() {
 		return out

@@ -3,6 +3,7 @@ package mesh
 import (
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"sluice/pkg/phase"
@@ -190,5 +191,35 @@ func TestTileAreasAdd(t *testing.T) {
 	}
 	if math.Abs(sum-whole) > 1e-9*whole {
 		t.Errorf("tile sum %.9g != whole %.9g", sum, whole)
+	}
+}
+
+// IndicatorInto over a reused buffer that holds another phase's indicator
+// (or garbage) gives Indicator's field exactly, for boxes inside lab and
+// boxes reaching past it (the voxels beyond lab must read 0), and reuses the
+// buffer when it is large enough.
+func TestIndicatorIntoReusesBuffer(t *testing.T) {
+	lab := volume.NewShape[uint8](12, 10, 14, 1e-6)
+	for i := range lab.Pix {
+		lab.Pix[i] = uint8(i*7%5) % 3
+	}
+	var buf *volume.Volume[float32]
+	for k, box := range []volume.Box{lab.Box.Grow(1), lab.Box.Grow(-2), lab.Box, lab.Box.Grow(1).Translate([3]int{2, 0, -1})} {
+		for _, code := range []uint8{0, 1, 2} {
+			if buf != nil {
+				for i := range buf.Pix {
+					buf.Pix[i] = 7 // stale values a reuse must not leak
+				}
+			}
+			prev := buf
+			buf = IndicatorInto(buf, lab, phase.Of(code), box)
+			want := Indicator(lab, phase.Of(code), box)
+			if buf.Box != want.Box || !slices.Equal(buf.Pix, want.Pix) {
+				t.Fatalf("box %d %v, phase %d: IndicatorInto differs from Indicator", k, box, code)
+			}
+			if prev != nil && cap(prev.Pix) >= box.Voxels() && &prev.Pix[0] != &buf.Pix[0] {
+				t.Errorf("box %d, phase %d: a large enough buffer was not reused", k, code)
+			}
+		}
 	}
 }

@@ -363,6 +363,15 @@ func OpenZarr(ctx context.Context, b Bucket, prefix string) (*Zarr, error) {
 	return newZarr(b, prefix, m), nil
 }
 
+// Reopen returns the same array on bucket b (for example a wrapper of the
+// bucket z was opened on) without reading its metadata again: for a reader
+// that opens an array whose metadata cannot change many times.
+func (z *Zarr) Reopen(b Bucket) *Zarr {
+	r := newZarr(b, z.prefix, z.meta)
+	r.limit, r.requireChunks = z.limit, z.requireChunks
+	return r
+}
+
 // CreateZarr writes .zarray and .zattrs for a new array under prefix in b
 // and returns it. Zero Chunks default to 64 (clipped to Shape); an empty
 // Separator defaults to "/"; only little-endian, "" or "zstd" compression

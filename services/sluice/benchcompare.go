@@ -399,8 +399,9 @@ func sluiceChain(grey *volume.Volume[uint16], repeat int) (map[string]stageFigur
 	sigma, trunc := curvature.DefaultSigma, levelset.Truncate
 	var smooth [3]*volume.Volume[float32]
 	if err := timed("gaussian", func() (err error) {
+		var ind *volume.Volume[float32] // one buffer for the three indicators
 		for k, name := range comparePhases {
-			ind := mesh.Indicator(lab, phase.Of(code[name]), box)
+			ind = mesh.IndicatorInto(ind, lab, phase.Of(code[name]), box)
 			if smooth[k], err = filter.Gaussian(ind, box, sigma, trunc); err != nil {
 				return err
 			}
@@ -426,8 +427,10 @@ func sluiceChain(grey *volume.Volume[uint16], repeat int) (map[string]stageFigur
 		return nil, res, nil, err
 	}
 	// Untimed: areas of the 0/1 indicators, for information.
+	var ind *volume.Volume[float32]
 	for _, name := range comparePhases {
-		res.MeshAreaBinary[name] = mesh.Area(mesh.Indicator(lab, phase.Of(code[name]), box), 0.5, box)
+		ind = mesh.IndicatorInto(ind, lab, phase.Of(code[name]), box)
+		res.MeshAreaBinary[name] = mesh.Area(ind, 0.5, box)
 	}
 	return times, res, sm, nil
 }

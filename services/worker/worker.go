@@ -49,6 +49,11 @@ type Worker struct {
 
 	mu    sync.Mutex
 	plans map[string]planned // by plan key
+	// inputs caches the opened input arrays (the step's grey, the
+	// campaign's solid mask) by plan key and prefix: ingest stores them
+	// before it publishes a step's tasks and never changes them, so their
+	// metadata is read once per step instead of once per tile.
+	inputs map[string]*volio.Zarr
 }
 
 type planned struct {
@@ -98,6 +103,7 @@ func (w *Worker) load(ctx context.Context, st Store, step layout.Step, hash stri
 	w.mu.Lock()
 	if w.plans == nil || len(w.plans) > 256 {
 		w.plans = map[string]planned{}
+		w.inputs = map[string]*volio.Zarr{}
 	}
 	w.plans[key] = p
 	w.mu.Unlock()
@@ -172,14 +178,15 @@ func (w *Worker) process(ctx context.Context, t *sluicepb.TileTask) (*sluicepb.T
 	if r := p.plan.Registration; r != nil {
 		shift = r.Applied
 	}
-	grey, err := scan.Registered(func(b volume.Box) (volume.Any, error) { return readBox(ctx, cs, t.InputKey, b) }, whole, shift)(box)
+	planKey := campaign.PlanKey(step, t.ParamHash)
+	grey, err := scan.Registered(func(b volume.Box) (volume.Any, error) { return w.readInput(ctx, cs, planKey, t.InputKey, b) }, whole, shift)(box)
 	if err != nil {
 		return nil, err
 	}
 	var solid *volume.Labels
 	if p.plan.Config.Segment.Reference {
 		m, err := scan.RegisteredMask(func(b volume.Box) (volume.Any, error) {
-			return readBox(ctx, cs, step.Campaign().SolidMask(), b)
+			return w.readInput(ctx, cs, planKey, step.Campaign().SolidMask(), b)
 		}, whole, shift)(box)
 		if err != nil {
 			return nil, err
@@ -266,10 +273,27 @@ func writeLabels(ctx context.Context, st Store, key string, p planned, lab *volu
 	return z.WriteBox(ctx, lab)
 }
 
-func readBox(ctx context.Context, st Store, prefix string, box volume.Box) (volume.Any, error) {
-	z, err := volio.OpenZarr(ctx, st, strings.TrimSuffix(prefix, "/"))
-	if err != nil {
-		return nil, err
+// readInput reads box of the input array under prefix through st, its
+// metadata read once per plan (w.inputs).
+func (w *Worker) readInput(ctx context.Context, st Store, planKey, prefix string, box volume.Box) (volume.Any, error) {
+	prefix = strings.TrimSuffix(prefix, "/")
+	key := planKey + "\x00" + prefix
+	w.mu.Lock()
+	z, ok := w.inputs[key]
+	w.mu.Unlock()
+	if ok {
+		z = z.Reopen(st)
+	} else {
+		var err error
+		if z, err = volio.OpenZarr(ctx, st, prefix); err != nil {
+			return nil, err
+		}
+		w.mu.Lock()
+		if w.inputs == nil {
+			w.inputs = map[string]*volio.Zarr{}
+		}
+		w.inputs[key] = z
+		w.mu.Unlock()
 	}
 	return z.ReadBox(ctx, box)
 }

@@ -6,6 +6,7 @@ import (
 	"errors"
 	"path/filepath"
 	"strings"
+	"sync"
 	"testing"
 
 	"sluice/pkg/campaign"
@@ -92,5 +93,53 @@ func TestLabelArrayCreatedOnlyWhenMissing(t *testing.T) {
 	}
 	if b, err := st.Get(ctx, zkey); err != nil || !bytes.Equal(b, corrupt) {
 		t.Errorf("corrupt .zarray was rewritten: now %q (%v)", b, err)
+	}
+}
+
+// getCounter counts the Gets of each key through a Store.
+type getCounter struct {
+	Store
+	mu   sync.Mutex
+	gets map[string]int
+}
+
+func (g *getCounter) Get(ctx context.Context, key string) ([]byte, error) {
+	g.mu.Lock()
+	g.gets[key]++
+	g.mu.Unlock()
+	return g.Store.Get(ctx, key)
+}
+
+// The step's grey array metadata is read once for all tiles of a step, not
+// once per tile, and the tiles read through the cached metadata still give
+// the results of a fresh worker (same partial, byte for byte).
+func TestInputMetadataReadOncePerStep(t *testing.T) {
+	ctx := context.Background()
+	st, tasks := ingestSmall(t)
+	gc := &getCounter{Store: st, gets: map[string]int{}}
+	w := &Worker{Store: gc, ID: "test"}
+	for _, task := range tasks[:4] {
+		if _, err := w.Process(ctx, task); err != nil {
+			t.Fatal(err)
+		}
+	}
+	zkey := strings.TrimSuffix(tasks[0].InputKey, "/") + "/.zarray"
+	if n := gc.gets[zkey]; n != 1 {
+		t.Errorf("%s read %d times over 4 tiles of one step, want 1", zkey, n)
+	}
+	// Tile 3 again on a fresh worker (metadata read anew): same result.
+	cached, err := st.Get(ctx, tasks[3].ResultKey)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := (&Worker{Store: st, ID: "fresh"}).Process(ctx, tasks[3]); err != nil {
+		t.Fatal(err)
+	}
+	fresh, err := st.Get(ctx, tasks[3].ResultKey)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(cached, fresh) {
+		t.Error("tile result through cached metadata differs from a fresh worker's")
 	}
 }
