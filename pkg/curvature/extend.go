@@ -2,6 +2,7 @@ package curvature
 
 import (
 	"math"
+	"math/bits"
 
 	"sluice/pkg/levelset"
 	"sluice/pkg/phase"
@@ -33,6 +34,7 @@ func extendIntoSolid(lab *volume.Labels, solid, wet, non *phase.Set, box volume.
 	holds := levelset.Holds(lab, wet, non, box, reach)
 	var fi *faceIndex
 	var buf []face
+	ball := newBlockBall(rho)
 	// Blocks covering box: fits cached by block.
 	blo := [3]int{floorDiv2(box.Min[0]), floorDiv2(box.Min[1]), floorDiv2(box.Min[2])}
 	bhi := [3]int{floorDiv2(box.Max[0]-1) + 1, floorDiv2(box.Max[1]-1) + 1, floorDiv2(box.Max[2]-1) + 1}
@@ -58,8 +60,7 @@ func extendIntoSolid(lab *volume.Labels, solid, wet, non *phase.Set, box volume.
 					b := [3]int{floorDiv2(z), floorDiv2(y), floorDiv2(x)}
 					bi := ((b[0]-blo[0])*bs[1]+b[1]-blo[1])*bs[2] + b[2] - blo[2]
 					if fitAt[bi] == 0 {
-						c := [3]float64{2*float64(b[0]) + 0.5, 2*float64(b[1]) + 0.5, 2*float64(b[2]) + 0.5}
-						buf = fi.within(c, rho, buf[:0])
+						buf = fi.withinBlock(b, ball, buf[:0])
 						fits = append(fits, fitPlane(buf, rho))
 						fitAt[bi] = int32(len(fits))
 					}
@@ -97,8 +98,15 @@ func extendReach(reach int, rho float64) int {
 // faceIndex lists the faces between a wetting and a nonwetting voxel of a
 // box, per (z, y) row of the face's lower voxel, in increasing x.
 type faceIndex struct {
-	box  volume.Box
-	rows [][]faceRec
+	box volume.Box
+	// recs holds the faces of every row, one row after the other; row
+	// i = (z − box.Min[0])·ny + y − box.Min[1] is recs[start[i]:start[i+1]].
+	recs  []faceRec
+	start []int32
+	// filled has bit y − box.Min[1] of plane z − box.Min[0] set when row
+	// (z, y) holds a face: words of plane k at filled[k·words:].
+	filled []uint64
+	words  int
 }
 
 type faceRec struct {
@@ -110,13 +118,14 @@ type faceRec struct {
 func newFaceIndex(lab *volume.Labels, wet, non *phase.Set, box volume.Box) *faceIndex {
 	box = box.Intersect(lab.Box)
 	s := box.Size()
-	fi := &faceIndex{box: box, rows: make([][]faceRec, s[0]*s[1])}
+	fi := &faceIndex{box: box, start: make([]int32, s[0]*s[1]+1), words: (s[1] + 63) / 64}
+	fi.filled = make([]uint64, s[0]*fi.words)
 	lb := lab.Box
 	ls := lb.Size()
 	step := [3]int{ls[1] * ls[2], ls[2], 1}
 	for z := box.Min[0]; z < box.Max[0]; z++ {
 		for y := box.Min[1]; y < box.Max[1]; y++ {
-			var row []faceRec
+			row := fi.recs
 			base := lab.Index(z, y, box.Min[2])
 			for x := box.Min[2]; x < box.Max[2]; x++ {
 				j := base + x - box.Min[2]
@@ -138,16 +147,25 @@ func newFaceIndex(lab *volume.Labels, wet, non *phase.Set, box volume.Box) *face
 					}
 				}
 			}
-			fi.rows[(z-box.Min[0])*s[1]+y-box.Min[1]] = row
+			i := (z-box.Min[0])*s[1] + y - box.Min[1]
+			n0 := len(fi.recs)
+			fi.recs = row
+			fi.start[i+1] = int32(len(row))
+			if len(row) > n0 {
+				k := y - box.Min[1]
+				fi.filled[(z-box.Min[0])*fi.words+k>>6] |= 1 << (k & 63)
+			}
 		}
 	}
 	return fi
 }
 
 // face is a w–n voxel face: centre q relative to the query voxel and unit
-// normal e along a lattice axis, from the wetting to the nonwetting voxel.
+// normal e = sign·(axis ax), from the wetting to the nonwetting voxel.
 type face struct {
-	q, e [3]float64
+	q    [3]float64
+	ax   int8
+	sign int8
 }
 
 // within appends to fs the faces whose centre lies within rho of c, with
@@ -155,9 +173,10 @@ type face struct {
 // order relative to c).
 //
 // A face of row (z, y) at x has centre (z, y, x) + ½e relative to c, one
-// coordinate moved by ½: rows whose nearest possible centre is at least
-// rho away in (z, y) are skipped, and within a row only the x range that
-// can lie inside the ball is searched (widened by a voxel on each side).
+// coordinate moved by ½: planes and rows whose nearest possible centre is
+// at least rho away are skipped, only rows holding faces are visited (a
+// bit per row), and within a row only the x range that can lie inside the
+// ball is searched (each range widened by a voxel on each side).
 // Faces are still kept by the same test, so the list is the one of the
 // plain scan of every row (TestWithinMatchesScan).
 func (fi *faceIndex) within(c [3]float64, rho float64, fs []face) []face {
@@ -174,40 +193,130 @@ func (fi *faceIndex) within(c [3]float64, rho float64, fs []face) []face {
 		if az >= r2 {
 			continue
 		}
-		for y := max(lo[1], fi.box.Min[1]); y <= min(hi[1], fi.box.Max[1]-1); y++ {
+		// Rows of this plane that hold faces, from y0 to y1.
+		wy := math.Sqrt(r2 - az)
+		y0 := max(lo[1], int(math.Floor(c[1]-0.5-wy))-1, fi.box.Min[1]) - fi.box.Min[1]
+		y1 := min(hi[1], int(math.Ceil(c[1]+wy))+1, fi.box.Max[1]-1) - fi.box.Min[1]
+		plane := fi.filled[(z-fi.box.Min[0])*fi.words:][:fi.words]
+		for k := y0; k <= y1; {
+			m := plane[k>>6] >> (k & 63)
+			if m == 0 {
+				k = (k | 63) + 1
+				continue
+			}
+			k += bits.TrailingZeros64(m)
+			if k > y1 {
+				break
+			}
+			y := fi.box.Min[1] + k
+			k++
 			dy := float64(y) - c[1]
 			a := az + nearSq(dy)
 			if a >= r2 {
 				continue
 			}
-			row := fi.rows[(z-fi.box.Min[0])*s[1]+y-fi.box.Min[1]]
-			if len(row) == 0 {
-				continue
-			}
+			ri := (z-fi.box.Min[0])*s[1] + y - fi.box.Min[1]
+			row := fi.recs[fi.start[ri]:fi.start[ri+1]]
 			w := math.Sqrt(r2 - a)
 			x0 := int32(max(lo[2], int(math.Floor(c[2]-0.5-w))-1))
 			x1 := int32(min(hi[2], int(math.Ceil(c[2]+w))+1))
 			// First face at x ≥ x0 (binary search).
-			k, n := 0, len(row)
-			for k < n {
-				m := int(uint(k+n) >> 1)
-				if row[m].x < x0 {
-					k = m + 1
+			i, n := 0, len(row)
+			for i < n {
+				h := int(uint(i+n) >> 1)
+				if row[h].x < x0 {
+					i = h + 1
 				} else {
-					n = m
+					n = h
 				}
 			}
-			for ; k < len(row) && row[k].x <= x1; k++ {
-				f := row[k]
+			for ; i < len(row) && row[i].x <= x1; i++ {
+				f := row[i]
 				q := [3]float64{dz, dy, float64(f.x) - c[2]}
 				q[f.axis] += 0.5
 				if q[0]*q[0]+q[1]*q[1]+q[2]*q[2] >= r2 {
 					continue
 				}
-				var e [3]float64
-				e[f.axis] = float64(f.sign)
-				fs = append(fs, face{q, e})
+				fs = append(fs, face{q: q, ax: f.axis, sign: f.sign})
 			}
+		}
+	}
+	return fs
+}
+
+// blockBall lists, for a fit centred on a block (centre 2b + ½ on each
+// axis), the rows (z, y) = 2b + (oz, oy) that can hold a face within rho of
+// the centre, in z, y order, each with the x offsets its faces can have:
+// x ∈ 2b[2] + [x0, x1]. Bounds use the nearest a face centre of the row
+// can come (nearSq) and are widened by a voxel, so every face within rho
+// is in range; the faces are then kept by within's own test.
+type blockBall struct {
+	rho  float64
+	rows []ballRow
+}
+
+type ballRow struct{ oz, oy, x0, x1 int }
+
+func newBlockBall(rho float64) *blockBall {
+	bb := &blockBall{rho: rho}
+	r2 := rho * rho
+	R := int(math.Ceil(rho)) + 1
+	for oz := -R; oz <= R+1; oz++ {
+		az := nearSq(float64(oz) - 0.5)
+		if az >= r2 {
+			continue
+		}
+		for oy := -R; oy <= R+1; oy++ {
+			a := az + nearSq(float64(oy)-0.5)
+			if a >= r2 {
+				continue
+			}
+			x0, x1 := R+2, -R-2
+			for ox := -R; ox <= R+1; ox++ {
+				if a+nearSq(float64(ox)-0.5) < r2 {
+					x0, x1 = min(x0, ox), max(x1, ox)
+				}
+			}
+			if x0 <= x1 {
+				bb.rows = append(bb.rows, ballRow{oz, oy, x0 - 1, x1 + 1})
+			}
+		}
+	}
+	return bb
+}
+
+// withinBlock is within(c, bb.rho) for the centre c = 2b + ½ of block b,
+// visiting only the rows and x ranges of bb: the same faces in the same
+// order (TestWithinBlockMatchesScan).
+func (fi *faceIndex) withinBlock(b [3]int, bb *blockBall, fs []face) []face {
+	c := [3]float64{2*float64(b[0]) + 0.5, 2*float64(b[1]) + 0.5, 2*float64(b[2]) + 0.5}
+	r2 := bb.rho * bb.rho
+	ny := fi.box.Max[1] - fi.box.Min[1]
+	for _, br := range bb.rows {
+		z, y := 2*b[0]+br.oz, 2*b[1]+br.oy
+		if z < fi.box.Min[0] || z >= fi.box.Max[0] || y < fi.box.Min[1] || y >= fi.box.Max[1] {
+			continue
+		}
+		ri := (z-fi.box.Min[0])*ny + y - fi.box.Min[1]
+		lo, hi := fi.start[ri], fi.start[ri+1]
+		if lo == hi {
+			continue
+		}
+		row := fi.recs[lo:hi]
+		x0, x1 := int32(2*b[2]+br.x0), int32(2*b[2]+br.x1)
+		i := 0
+		for i < len(row) && row[i].x < x0 {
+			i++
+		}
+		dz, dy := float64(z)-c[0], float64(y)-c[1]
+		for ; i < len(row) && row[i].x <= x1; i++ {
+			f := row[i]
+			q := [3]float64{dz, dy, float64(f.x) - c[2]}
+			q[f.axis] += 0.5
+			if q[0]*q[0]+q[1]*q[1]+q[2]*q[2] >= r2 {
+				continue
+			}
+			fs = append(fs, face{q: q, ax: f.axis, sign: f.sign})
 		}
 	}
 	return fs
@@ -261,9 +370,9 @@ func fitPlane(fs []face, rho float64) planeFit {
 	for _, fc := range fs {
 		t := 1 - (fc.q[0]*fc.q[0]+fc.q[1]*fc.q[1]+fc.q[2]*fc.q[2])/r2
 		t *= t
-		for a := 0; a < 3; a++ {
-			nv[a] += t * fc.e[a]
-		}
+		// τ·e has one non-zero component, ±τ (τ > 0 inside the ball):
+		// the zero ones would add +0 to sums that are never −0.
+		nv[fc.ax] += t * float64(fc.sign)
 	}
 	nn := math.Sqrt(nv[0]*nv[0] + nv[1]*nv[1] + nv[2]*nv[2])
 	if !(nn > 0) {
@@ -291,7 +400,8 @@ func fitPlane(fs []face, rho float64) planeFit {
 	var rhs [3]float64
 	for _, fc := range fs {
 		t := 1 - (fc.q[0]*fc.q[0]+fc.q[1]*fc.q[1]+fc.q[2]*fc.q[2])/r2
-		w := t * t * math.Abs(fc.e[0]*n[0]+fc.e[1]*n[1]+fc.e[2]*n[2])
+		// |e·n| = |n[ax]| exactly: the other products are ±0.
+		w := t * t * math.Abs(n[fc.ax])
 		x := [3]float64{1, fc.q[0]*u[0] + fc.q[1]*u[1] + fc.q[2]*u[2], fc.q[0]*v[0] + fc.q[1]*v[1] + fc.q[2]*v[2]}
 		h := fc.q[0]*n[0] + fc.q[1]*n[1] + fc.q[2]*n[2]
 		for i := 0; i < 3; i++ {

@@ -27,7 +27,8 @@ func withinScan(fi *faceIndex, c [3]float64, rho float64, fs []face) []face {
 		dz := float64(z) - c[0]
 		for y := max(lo[1], fi.box.Min[1]); y <= min(hi[1], fi.box.Max[1]-1); y++ {
 			dy := float64(y) - c[1]
-			row := fi.rows[(z-fi.box.Min[0])*s[1]+y-fi.box.Min[1]]
+			ri := (z-fi.box.Min[0])*s[1] + y - fi.box.Min[1]
+			row := fi.recs[fi.start[ri]:fi.start[ri+1]]
 			x0 := int32(lo[2])
 			k := sort.Search(len(row), func(i int) bool { return row[i].x >= x0 })
 			for ; k < len(row) && row[k].x <= int32(hi[2]); k++ {
@@ -37,9 +38,7 @@ func withinScan(fi *faceIndex, c [3]float64, rho float64, fs []face) []face {
 				if q[0]*q[0]+q[1]*q[1]+q[2]*q[2] >= r2 {
 					continue
 				}
-				var e [3]float64
-				e[f.axis] = float64(f.sign)
-				fs = append(fs, face{q, e})
+				fs = append(fs, face{q: q, ax: f.axis, sign: f.sign})
 			}
 		}
 	}
@@ -77,6 +76,42 @@ func TestWithinMatchesScan(t *testing.T) {
 			want := withinScan(fi, c, rho, nil)
 			if !slices.Equal(got, want) {
 				t.Fatalf("rho %g centre %v: %d faces, the scan finds %d (or another order)", rho, c, len(got), len(want))
+			}
+			total += len(want)
+		}
+	}
+	if total < 10000 {
+		t.Fatalf("only %d faces found over all queries: the scene has too little interface to test", total)
+	}
+}
+
+// withinBlock (the rows and x ranges of a block-centred ball, tabulated
+// once) returns the plain scan's faces in the same order at block centres,
+// for blocks inside the face index and reaching past its faces.
+func TestWithinBlockMatchesScan(t *testing.T) {
+	lab := volume.NewShape[uint8](40, 36, 44, 0)
+	synth.Boolean(lab, synth.BooleanIntensity(0.5, 4), 4, 2, 7)
+	lab.Box = lab.Box.Translate([3]int{-3, 5, 2})
+	rng := rand.New(rand.NewSource(5))
+	for i, v := range lab.Pix {
+		if v == 0 && rng.Intn(4) != 0 {
+			lab.Pix[i] = 1
+		}
+	}
+	fi := newFaceIndex(lab, phase.Of(1), phase.Of(2), lab.Box.Grow(-2))
+	total := 0
+	for _, rho := range []float64{6, 4.3, 8, 2.5, 1} {
+		bb := newBlockBall(rho)
+		for q := 0; q < 600; q++ {
+			var b [3]int
+			for a := 0; a < 3; a++ {
+				b[a] = floorDiv2(lab.Box.Min[a] - 6 + rng.Intn(lab.Box.Max[a]-lab.Box.Min[a]+12))
+			}
+			c := [3]float64{2*float64(b[0]) + 0.5, 2*float64(b[1]) + 0.5, 2*float64(b[2]) + 0.5}
+			got := fi.withinBlock(b, bb, nil)
+			want := withinScan(fi, c, rho, nil)
+			if !slices.Equal(got, want) {
+				t.Fatalf("rho %g block %v: %d faces, the scan finds %d (or another order)", rho, b, len(got), len(want))
 			}
 			total += len(want)
 		}

@@ -49,8 +49,10 @@ func Holds(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.V
 	s := src.Size()
 	// cur and nxt are recycled: every element is written before it is
 	// read (pass x writes all of nxt, each later pass all of the other).
-	cur, nxt := counts.get(src.Voxels()), counts.get(src.Voxels())
-	defer func() { counts.put(cur); counts.put(nxt) }()
+	nv := src.Voxels()
+	all := counts.get(2*nv + s[1]*s[2])
+	defer counts.put(all)
+	cur, nxt, cnt := all[:nv:nv], all[nv:2*nv:2*nv], all[2*nv:]
 	// Pass x, fused with reading the codes: a running count along each row
 	// of src, turned into packed 0/1 flags (bit 0 a, bit 8 b).
 	nx := s[2]
@@ -80,8 +82,6 @@ func Holds(lab *volume.Labels, a, b *phase.Set, box volume.Box, r int) *volume.V
 	// at the end. A line along axis has n voxels at stride st; inner lines
 	// side by side are contiguous (inner = st), outer groups follow each
 	// other.
-	cnt := counts.get(s[1] * s[2])
-	defer counts.put(cnt)
 	for axis := 1; axis >= 0; axis-- {
 		n := s[axis]
 		st := [3]int{s[1] * s[2], s[2], 1}[axis]
@@ -148,19 +148,24 @@ func subRow(c, v []uint16) {
 	}
 }
 
-// counts recycles the uint16 buffers of Holds between calls.
-var counts uint16Pool
+// counts recycles the uint16 buffers of Holds between calls (one slab
+// per call, cut into its three buffers).
+var counts slabPool[uint16]
 
-type uint16Pool struct{ p sync.Pool }
+// slabPool recycles one slab per call between calls. A pooled slab too
+// small for a request is dropped and a new one made with half again the
+// room, so calls of somewhat different sizes (a tile's boxes) settle on
+// one slab each.
+type slabPool[T any] struct{ p sync.Pool }
 
-func (f *uint16Pool) get(n int) []uint16 {
-	if v, ok := f.p.Get().(*[]uint16); ok && cap(*v) >= n {
+func (f *slabPool[T]) get(n int) []T {
+	if v, ok := f.p.Get().(*[]T); ok && cap(*v) >= n {
 		return (*v)[:n]
 	}
-	return make([]uint16, n)
+	return make([]T, n, n+n/2)
 }
 
-func (f *uint16Pool) put(b []uint16) { f.p.Put(&b) }
+func (f *slabPool[T]) put(b []T) { f.p.Put(&b) }
 
 // maxScratchRadius is the largest kernel radius FractionOn handles itself
 // (σ ≤ 10); wider kernels fall back to Fraction.
@@ -168,18 +173,10 @@ const maxScratchRadius = 30
 
 // scratch recycles the float32 pass buffers of FractionOn between calls
 // (their contents are not cleared: only masked voxels are written and read).
-var scratch floatPool
+var scratch slabPool[float32]
 
-type floatPool struct{ p sync.Pool }
-
-func (f *floatPool) get(n int) []float32 {
-	if v, ok := f.p.Get().(*[]float32); ok && cap(*v) >= n {
-		return (*v)[:n]
-	}
-	return make([]float32, n)
-}
-
-func (f *floatPool) put(b []float32) { f.p.Put(&b) }
+// masks recycles the uint8 mask buffers of FractionOn.
+var masks slabPool[uint8]
 
 // FractionOn returns Fraction(lab, num, den, box, sigma) on the voxels of
 // box where need is non-zero (need covers box), with the same float32
@@ -217,17 +214,34 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 	nx := box.Max[2] - box.Min[2]
 	// Masks: mz on box (= need), my on by (mz widened along z), mx on bx
 	// (my widened along y); rows flags say whether a row has any voxel.
-	mz := make([]uint8, box.Voxels())
-	for z := box.Min[0]; z < box.Max[0]; z++ {
-		for y := box.Min[1]; y < box.Max[1]; y++ {
-			copy(mz[((z-box.Min[0])*(box.Max[1]-box.Min[1])+(y-box.Min[1]))*nx:][:nx], need.Pix[need.Index(z, y, box.Min[2]):][:nx])
+	// mz is need itself when it lies on box; my and mx come from a
+	// recycled slab, cleared (widen ORs into them).
+	nm := by.Voxels() + bx.Voxels()
+	if need.Box != box {
+		nm += box.Voxels()
+	}
+	mslab := masks.get(nm)
+	defer masks.put(mslab)
+	clear(mslab)
+	mcut := func(n int) []uint8 {
+		b := mslab[:n:n]
+		mslab = mslab[n:]
+		return b
+	}
+	mz := need.Pix
+	if need.Box != box {
+		mz = mcut(box.Voxels())
+		for z := box.Min[0]; z < box.Max[0]; z++ {
+			for y := box.Min[1]; y < box.Max[1]; y++ {
+				copy(mz[((z-box.Min[0])*(box.Max[1]-box.Min[1])+(y-box.Min[1]))*nx:][:nx], need.Pix[need.Index(z, y, box.Min[2]):][:nx])
+			}
 		}
 	}
 	widen := func(src []uint8, sb volume.Box, db volume.Box, axis int) []uint8 {
 		// dst on db: OR of src over ±r along axis (src on sb, sb ⊂ db on
 		// that axis, equal on the others).
 		ds := db.Size()
-		dst := make([]uint8, db.Voxels())
+		dst := mcut(db.Voxels())
 		ss := sb.Size()
 		for z := sb.Min[0]; z < sb.Max[0]; z++ {
 			for y := sb.Min[1]; y < sb.Max[1]; y++ {
@@ -264,9 +278,16 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 		}
 	}
 	sx := bx.Size()
-	xn, xd := scratch.get(bx.Voxels()), scratch.get(bx.Voxels())
-	defer scratch.put(xn)
-	defer scratch.put(xd)
+	// One slab for the six pass buffers: x pass on bx, y on by, z on box.
+	nbx, nby, nbz := bx.Voxels(), by.Voxels(), box.Voxels()
+	slab := scratch.get(2 * (nbx + nby + nbz))
+	defer scratch.put(slab)
+	cut := func(n int) []float32 {
+		b := slab[:n:n]
+		slab = slab[n:]
+		return b
+	}
+	xn, xd := cut(nbx), cut(nbx)
 	lo, hi := lab.Box.Min[2], lab.Box.Max[2]
 	i := 0
 	for z := bx.Min[0]; z < bx.Max[0]; z++ {
@@ -304,7 +325,7 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 	// the masks are never read.
 	colPass := func(srcN, srcD []float32, sb volume.Box, db volume.Box, mask []uint8, axis int) ([]float32, []float32) {
 		ss, ds := sb.Size(), db.Size()
-		dn, dd := scratch.get(db.Voxels()), scratch.get(db.Voxels())
+		dn, dd := cut(db.Voxels()), cut(db.Voxels())
 		lo, hi := sb.Min[axis], sb.Max[axis]
 		var offs [2*maxScratchRadius + 1]int
 		var ws [2*maxScratchRadius + 1]float64
@@ -350,11 +371,7 @@ func FractionOn(lab *volume.Labels, num, den *phase.Set, box volume.Box, sigma f
 		return dn, dd
 	}
 	yn, yd := colPass(xn, xd, bx, by, my, 1)
-	defer scratch.put(yn)
-	defer scratch.put(yd)
 	zn, zd := colPass(yn, yd, by, box, mz, 0)
-	defer scratch.put(zn)
-	defer scratch.put(zd)
 	for i, v := range mz {
 		if v == 0 {
 			continue
