@@ -88,8 +88,10 @@ func MemorySource(v volume.Any) Source {
 // not configured (in threshold scope "campaign" widened by
 // segment.FloatMargin; give c the campaign's binning first with
 // CampaignBinning), then the histogram, then — when the sample cylinder is to
-// be detected — the detection and a second histogram restricted to the
-// sample, and finally the thresholds. It returns the configuration with the
+// be detected — the detection and the histogram restricted to the sample
+// (from per-superblock counts of the first histogram, only the superblocks
+// the sample's rim cuts read and filtered again), and finally the
+// thresholds. It returns the configuration with the
 // measured range and sample filled in; pass 2 must use it.
 func Prepare(src Source, whole volume.Box, dtype volume.DType, c campaign.Config, solid Source, workers int) (Prepared, campaign.Config, error) {
 	t := volume.Tiling{Whole: whole, Tile: [3]int{c.Tile, c.Tile, c.Tile}}
@@ -133,36 +135,49 @@ func Prepare(src Source, whole volume.Box, dtype volume.DType, c campaign.Config
 			c.Segment.Range = e.Range(c.Segment.Bins)
 		}
 	}
-	hist := func(c campaign.Config) (segment.Hist, error) {
-		var h segment.Hist
-		var mu sync.Mutex
-		err := forTiles(t, workers, func(core volume.Box) error {
-			g, m, err := read(core)
-			if err != nil {
-				return err
-			}
-			x, err := Histogram(g, core, c, m)
-			if err != nil {
-				return err
-			}
-			mu.Lock()
-			defer mu.Unlock()
-			return h.Add(x)
-		})
-		return h, err
+	// With the sample to be detected, pass 1 also keeps the counts of each
+	// column superblock (superblocks): the histogram restricted to the
+	// detected sample is then the sum over the superblocks inside it plus
+	// the superblocks the sample's rim cuts, which alone are read and
+	// filtered again (before, the whole step was filtered twice).
+	var sb *superblocks
+	if c.DetectSample && c.Segment.Sample.Radius == 0 {
+		sb = newSuperblocks(whole)
 	}
-	h, err := hist(c)
+	var h segment.Hist
+	var mu sync.Mutex
+	err := forTiles(t, workers, func(core volume.Box) error {
+		g, m, err := read(core)
+		if err != nil {
+			return err
+		}
+		var x segment.Hist
+		if sb == nil {
+			if x, err = Histogram(g, core, c, m); err != nil {
+				return err
+			}
+		} else if x, err = sb.histogram(g, core, c, m); err != nil {
+			return err
+		}
+		mu.Lock()
+		defer mu.Unlock()
+		return h.Add(x)
+	})
 	if err != nil {
 		return Prepared{}, c, err
 	}
-	if c.DetectSample && c.Segment.Sample.Radius == 0 {
+	if sb != nil {
 		s, err := segment.DetectSample(h, c.Segment, c.SampleMargin)
 		if err != nil {
 			return Prepared{}, c, err
 		}
 		c.Segment.Sample = s
-		if h, err = hist(c); err != nil {
-			return Prepared{}, c, err
+		if s.Radius > 0 {
+			// No sample (radius 0) means every voxel in view is in it:
+			// the histogram is pass 1's as it is.
+			if err := sb.restrict(&h, t, workers, c, read); err != nil {
+				return Prepared{}, c, err
+			}
 		}
 	}
 	th, err := segment.ComputeThresholds(h, c.Segment)
