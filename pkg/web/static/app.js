@@ -255,6 +255,8 @@ function draw() {
   plot(qs("plot-rig-p"), [
     { name: "Δp transducer", color: C.a, marker: "circle", pts: col("rig_differential_pressure_pa", 1e-3) },
     { name: "image Pc connected", color: C.b, marker: "square", pts: col("capillary_pressure_connected_pa", 1e-3) }], tl, `pressure (${U.pressure})`);
+  // Without a rig log with pumped volumes there is no abscissa: the panel is hidden, not left blank.
+  qs("plot-rig-pv").hidden = !state.series.some(r => num(r.pore_volumes_injected) !== null);
   plot(qs("plot-rig-pv"), [{ name: "S_w", color: C.d, marker: "triangle", pts: pair("pore_volumes_injected", "saturation_wetting") }],
     `pore volumes injected (${U.none})`, `S_w (${U.none})`, { xmin: 0, ymin: 0, ymax: 1 });
   // Geometric state (McClure et al. 2018): J_wn and χ_n per bulk volume against S_w.
