@@ -203,7 +203,10 @@ func (c *MinIOCluster) launch(j int, pool string) {
 	h := c.hosts[j]
 	script := fmt.Sprintf("mount --bind %s %s && exec %s server --quiet --address %s:9000 --console-address %s:9001 '%s'",
 		c.dirs[j], c.mnt, c.bin, h.Addr, h.Addr, pool)
-	env := []string{"MINIO_ROOT_USER=" + c.AccessKey, "MINIO_ROOT_PASSWORD=" + c.SecretKey, "MINIO_BROWSER=off", "MINIO_UPDATE=off"}
+	// MINIO_CI_CD: the test's drives are directories on the machine's root
+	// disk, which a distributed MinIO refuses otherwise (it is also implied
+	// by CI=true, so the test ran in CI and failed on a workstation).
+	env := []string{"MINIO_ROOT_USER=" + c.AccessKey, "MINIO_ROOT_PASSWORD=" + c.SecretKey, "MINIO_BROWSER=off", "MINIO_UPDATE=off", "MINIO_CI_CD=1"}
 	c.procs[j] = start(c.t, fmt.Sprintf("minio node %d", j+1), "ip", env, "netns", "exec", h.NS, "unshare", "-m", "--propagation", "private", "sh", "-c", script)
 }
 

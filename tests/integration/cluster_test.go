@@ -35,7 +35,7 @@ func alive(p *proc) bool {
 // a bridge (testenv.Net): a three-node NATS JetStream cluster (streams and
 // KV bucket with 3 replicas, chosen by sluice itself on a cluster), a
 // four-node erasure-coded MinIO, two aggregator hosts, three workers; an 18-step campaign queued by reprocess from
-// the test's own namespace. During it:
+// the test's own namespace in six batches, each just before one fault:
 //   - the JetStream meta leader is killed (SIGKILL) and restarted later;
 //   - the task stream's leader is killed and restarted later;
 //   - the aggregator is killed and started on another host;
@@ -87,8 +87,22 @@ func TestNATSClusterFaults(t *testing.T) {
 	for i, h := range workHosts {
 		workers = append(workers, startOn(t, h, "worker", bin, creds, append([]string{"worker", "--http", "off", "--concurrency", "1", "--id", "w" + string(rune('1'+i))}, common...)...))
 	}
-	out := sluiceRun(t, bin, creds, append([]string{"reprocess", "cl", "--from", scanDir, "--config", cfgPath, "--no-wait"}, common...)...)
-	t.Logf("queued: %s", strings.TrimSpace(out))
+	// The steps are queued in six batches of three, each just before its
+	// fault, so every fault meets work in flight however fast the workers
+	// are (with all 18 queued at once they finished during the MinIO stop).
+	const batch = n / 6
+	queued := 0
+	queue := func() {
+		t.Helper()
+		args := []string{"reprocess", "cl", "--config", cfgPath, "--no-wait", "--steps", fmt.Sprintf("%d-%d", queued, queued+batch-1)}
+		if queued == 0 {
+			args = append(args, "--from", scanDir)
+		}
+		out := sluiceRun(t, bin, creds, append(args, common...)...)
+		queued += batch
+		t.Logf("queued: %s", strings.TrimSpace(out))
+	}
+	queue()
 	if l := cluster.StreamLeader("SLUICE_TASKS"); l == nil {
 		t.Fatal("no leader known for stream SLUICE_TASKS")
 	}
@@ -105,11 +119,12 @@ func TestNATSClusterFaults(t *testing.T) {
 		t.Fatal(err)
 	}
 	done := func() int { return doneSteps(s3, "cl", cfg.Hash()) }
-	until := func(steps int, what string) {
+	// next queues the next batch; the fault that follows meets its tiles.
+	next := func(what string) {
 		t.Helper()
-		waitFor(t, 4*time.Minute, what, func() bool { return done() >= steps })
-		if d := done(); d >= n {
-			t.Fatalf("the campaign finished before %s could be tested (%d steps done)", what, d)
+		queue()
+		if d := done(); d >= queued {
+			t.Fatalf("the steps queued for %s were done before it could be tested (%d steps done)", what, d)
 		}
 	}
 	// progressAfter returns how long after t0 the next step completed.
@@ -121,7 +136,7 @@ func TestNATSClusterFaults(t *testing.T) {
 	}
 
 	// 1. The JetStream meta leader dies; it comes back 10 s later.
-	until(1, "the meta leader's death")
+	waitFor(t, 4*time.Minute, "the first step", func() bool { return done() >= 1 })
 	meta := cluster.MetaLeader()
 	if meta == nil {
 		t.Fatal("no meta leader")
@@ -136,7 +151,7 @@ func TestNATSClusterFaults(t *testing.T) {
 	meta.Start()
 
 	// 2. The leader of the task stream dies; it comes back 10 s later.
-	until(3, "the task stream leader's death")
+	next("the task stream leader's death")
 	sl := cluster.StreamLeader("SLUICE_TASKS")
 	if sl == nil {
 		t.Fatal("no task stream leader")
@@ -149,7 +164,7 @@ func TestNATSClusterFaults(t *testing.T) {
 	sl.Start()
 
 	// 3. The aggregator dies and is started on another host.
-	until(5, "the aggregator's move")
+	next("the aggregator's move")
 	kill(agg)
 	t0 = time.Now()
 	agg2 := startOn(t, aggB, "aggregate", bin, creds, append([]string{"aggregate", "--http", "off"}, common...)...)
@@ -158,7 +173,7 @@ func TestNATSClusterFaults(t *testing.T) {
 
 	// 4. One MinIO node of four is stopped for 30 s (erasure coding: 3
 	// drives keep reads and writes going).
-	until(6, "the MinIO node's stop")
+	next("the MinIO node's stop")
 	t0 = time.Now()
 	minio.Stop(3)
 	prog = progressAfter(t0, "a MinIO node stopped")
@@ -167,7 +182,7 @@ func TestNATSClusterFaults(t *testing.T) {
 	minio.Start(3)
 
 	// 5. A majority of NATS is gone for 20 s: JetStream has no quorum.
-	until(8, "the loss of the NATS majority")
+	next("the loss of the NATS majority")
 	var others []*testenv.NATSNode
 	for _, nd := range cluster.Nodes {
 		if nd != cluster.MetaLeader() && len(others) < 1 {
@@ -204,13 +219,16 @@ func TestNATSClusterFaults(t *testing.T) {
 	}
 
 	// 6. A worker host is cut off for 20 s.
-	until(10, "the worker host cut")
+	next("the worker host cut")
 	t0 = time.Now()
 	workHosts[0].Cut()
 	prog = progressAfter(t0, "a worker host was cut off")
 	t.Logf("host %s cut off at %d steps done: next step done after %.1f s", workHosts[0].Name, done(), prog.Seconds())
 	time.Sleep(max(0, 20*time.Second-time.Since(t0)))
 	workHosts[0].Restore()
+	if queued != n {
+		t.Fatalf("queued %d of %d steps", queued, n)
+	}
 
 	waitFor(t, 5*time.Minute, "every step", func() bool { return done() >= n })
 	waitRows(t, s3, "cl", n, time.Minute)
