@@ -34,8 +34,8 @@ func alive(p *proc) bool {
 // TestNATSClusterFaults: sluice across hosts. Twelve network namespaces on
 // a bridge (testenv.Net): a three-node NATS JetStream cluster (streams and
 // KV bucket with 3 replicas, chosen by sluice itself on a cluster), a
-// four-node erasure-coded MinIO, two aggregator hosts, three workers; an 18-step campaign queued by reprocess from
-// the test's own namespace in six batches, each just before one fault:
+// four-node erasure-coded MinIO, two aggregator hosts, three workers; a 28-step campaign queued by reprocess from
+// the test's own namespace in seven batches, six of them just before a fault:
 //   - the JetStream meta leader is killed (SIGKILL) and restarted later;
 //   - the task stream's leader is killed and restarted later;
 //   - the aggregator is killed and started on another host;
@@ -51,7 +51,7 @@ func TestNATSClusterFaults(t *testing.T) {
 	if testing.Short() {
 		t.Skip("multi-host test")
 	}
-	const n = 18
+	const n = 28
 	nw := testenv.NewNet(t)
 	natsHosts := []*testenv.Host{nw.Host("nats-1"), nw.Host("nats-2"), nw.Host("nats-3")}
 	storeHosts := []*testenv.Host{nw.Host("store-1"), nw.Host("store-2"), nw.Host("store-3"), nw.Host("store-4")}
@@ -87,10 +87,12 @@ func TestNATSClusterFaults(t *testing.T) {
 	for i, h := range workHosts {
 		workers = append(workers, startOn(t, h, "worker", bin, creds, append([]string{"worker", "--http", "off", "--concurrency", "1", "--id", "w" + string(rune('1'+i))}, common...)...))
 	}
-	// The steps are queued in six batches of three, each just before its
-	// fault, so every fault meets work in flight however fast the workers
-	// are (with all 18 queued at once they finished during the MinIO stop).
-	const batch = n / 6
+	// The steps are queued in seven batches of four: the first to start
+	// the campaign, each of the others just before its fault, so every fault
+	// meets work in flight however fast the workers are (with all steps
+	// queued at once they finished during the MinIO stop; with the first
+	// fault waiting on the first batch, that batch was done before it).
+	const batch = n / 7
 	queued := 0
 	queue := func() {
 		t.Helper()
@@ -137,6 +139,7 @@ func TestNATSClusterFaults(t *testing.T) {
 
 	// 1. The JetStream meta leader dies; it comes back 10 s later.
 	waitFor(t, 4*time.Minute, "the first step", func() bool { return done() >= 1 })
+	next("the meta leader's death")
 	meta := cluster.MetaLeader()
 	if meta == nil {
 		t.Fatal("no meta leader")
