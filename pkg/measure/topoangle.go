@@ -94,6 +94,7 @@ package measure
 // those of the whole volume whatever the tiling (to rounding).
 
 import (
+	"fmt"
 	"math"
 	"slices"
 
@@ -172,6 +173,21 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 	})
 	// Samples: the core grown by one (cubes from core.Min−1 to core.Max−1).
 	fb := core.Grow(1).Intersect(whole)
+	// Turnings count only for ganglia that can give an angle, and a local
+	// component touching the border belongs to a ganglion that touches it
+	// (refused whatever the other tiles find). So the fields and meshes are
+	// needed only around the voxels a cut point can be given to that do
+	// not belong to such a component (topoKeepBox); every cut point given to
+	// one of them, the triangles at it and the samples those depend on lie
+	// within topoKeepMargin of it, so the sums of the other components are
+	// those of the whole sample box (TestTopoKeepBoxSameSums).
+	if !topoKeepAll {
+		kb, ok := topoKeepBox(t, look, lab, non, owner)
+		if !ok {
+			return
+		}
+		fb = fb.Intersect(kb.Grow(topoKeepMargin))
+	}
 	if !anyIn(lab, non, fb) {
 		return
 	}
@@ -222,7 +238,7 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 	for k := 0; k < 3; k++ {
 		cubes.Min[k]--
 	}
-	cubes = cubes.Intersect(fb)
+	cubes = cubes.Intersect(volume.Box{Min: fb.Min, Max: [3]int{fb.Max[0] - 1, fb.Max[1] - 1, fb.Max[2] - 1}})
 	// Nearest nonwetting voxel of a cut point and its owner.
 	type slot struct {
 		local, piece int32
@@ -314,6 +330,65 @@ func topoShares(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, solid
 
 func sq3(a, b, c float64) float64 { return a*a + b*b + c*c }
 
+// topoKeepMargin (voxels) bounds how far from the nonwetting voxel it is
+// given to a cut point's turning reads the fields: the cut point lies in a
+// cube within 2 voxels of the voxel, the triangles at it in the cubes
+// around that one, their vertices on the cubes' edges; a sample's offset
+// field depends on the sign changes of the fluid field within 3 voxels
+// (nearN), each between face neighbours. That is 2 + 1 + 1 + 3 + 1 = 8; the
+// margin keeps 6 voxels to spare.
+const topoKeepMargin = 14
+
+// topoKeepAll turns the restriction to topoKeepBox off (for the test that
+// compares both).
+var topoKeepAll = false
+
+// topoKeepBox returns the bounding box of the nonwetting voxels whose cut
+// points can count: core voxels of local components not on the border, and
+// nonwetting voxels within 3 voxels outside the core (a cut point in the
+// core is given to a voxel at most 2 voxels from its cube) that belong to
+// such a component or to a piece of another tile, whose border this tile
+// cannot see. ok is false when there is none.
+func topoKeepBox(t *cluster.Tile, look *cluster.Lookup, lab *volume.Labels, non *phase.Set,
+	owner func(v [3]int) (local, piece int32)) (b volume.Box, ok bool) {
+	add := func(z, y, x0, x1 int) {
+		lo, hi := [3]int{z, y, x0}, [3]int{z + 1, y + 1, x1}
+		if !ok {
+			b, ok = volume.Box{Min: lo, Max: hi}, true
+			return
+		}
+		for k := 0; k < 3; k++ {
+			b.Min[k], b.Max[k] = min(b.Min[k], lo[k]), max(b.Max[k], hi[k])
+		}
+	}
+	look.Runs(func(z, y, x0, x1 int, id int32) {
+		if !t.Topo[id-1].Border {
+			add(z, y, x0, x1)
+		}
+	})
+	core := t.Core
+	shell := core.Grow(3).Intersect(lab.Box)
+	for z := shell.Min[0]; z < shell.Max[0]; z++ {
+		for y := shell.Min[1]; y < shell.Max[1]; y++ {
+			for x := shell.Min[2]; x < shell.Max[2]; x++ {
+				if core.Contains(z, y, x) {
+					x = core.Max[2] - 1 // the rest of the row's core part
+					continue
+				}
+				if !non[lab.At(z, y, x)] {
+					continue
+				}
+				local, piece := owner([3]int{z, y, x})
+				if (local == 0 && piece == 0) || (local > 0 && t.Topo[local-1].Border) {
+					continue
+				}
+				add(z, y, x, x+1)
+			}
+		}
+	}
+	return b, ok
+}
+
 // offLevel moves a field value lying exactly on the level 0 a hair below it,
 // so no marching-cubes vertex falls on a sample (where the edges of the
 // sample would put several vertices at one place).
@@ -344,12 +419,29 @@ func anyIn(lab *volume.Labels, s *phase.Set, box volume.Box) bool {
 func interfaceSamples(f *volume.Volume[float32]) []bool {
 	n := f.Box.Size()
 	m := make([]bool, len(f.Pix))
-	stride := [3]int{n[1] * n[2], n[2], 1}
-	for i, v := range f.Pix {
-		in := v > 0
-		for ax := 0; ax < 3; ax++ {
-			if i/stride[ax]%n[ax]+1 < n[ax] && (f.Pix[i+stride[ax]] > 0) != in {
-				m[i], m[i+stride[ax]] = true, true
+	nx, sz := n[2], n[1]*n[2]
+	for z := 0; z < n[0]; z++ {
+		for y := 0; y < n[1]; y++ {
+			i0 := z*sz + y*nx
+			row := f.Pix[i0 : i0+nx]
+			var up, next []float32 // the row at y+1 and at z+1
+			if y+1 < n[1] {
+				up = f.Pix[i0+nx : i0+2*nx]
+			}
+			if z+1 < n[0] {
+				next = f.Pix[i0+sz : i0+sz+nx]
+			}
+			for x, v := range row {
+				in := v > 0
+				if x+1 < nx && (row[x+1] > 0) != in {
+					m[i0+x], m[i0+x+1] = true, true
+				}
+				if up != nil && (up[x] > 0) != in {
+					m[i0+x], m[i0+nx+x] = true, true
+				}
+				if next != nil && (next[x] > 0) != in {
+					m[i0+x], m[i0+sz+x] = true, true
+				}
 			}
 		}
 	}
@@ -357,23 +449,37 @@ func interfaceSamples(f *volume.Volume[float32]) []bool {
 }
 
 // dilate returns the samples of a box of shape n within Chebyshev distance
-// r of a sample marked in m (separable running maximum along each axis).
+// r of a sample marked in m: a running count of marked samples in the
+// window [c−r, c+r] along each axis in turn (separable, linear in the box
+// whatever r).
 func dilate(m []bool, n [3]int, r int) []bool {
 	out := slices.Clone(m)
 	tmp := make([]bool, len(m))
 	stride := [3]int{n[1] * n[2], n[2], 1}
 	for ax := 0; ax < 3; ax++ {
 		copy(tmp, out)
-		for i := range out {
-			if tmp[i] {
-				continue
-			}
-			c := i / stride[ax] % n[ax]
-			for d := max(-r, -c); d <= r && c+d < n[ax]; d++ {
-				if tmp[i+d*stride[ax]] {
-					out[i] = true
-					break
+		length, st := n[ax], stride[ax]
+		if length == 0 {
+			return out
+		}
+		// Sample (o, c, j) of the box seen as outer × length × st is at
+		// o·length·st + c·st + j; a line along ax is one (o, j).
+		for l := 0; l < len(m)/length; l++ {
+			start := l/st*length*st + l%st
+			cnt := 0
+			for c := 0; c < min(r, length); c++ {
+				if tmp[start+c*st] {
+					cnt++
 				}
+			}
+			for c := 0; c < length; c++ {
+				if c+r < length && tmp[start+(c+r)*st] {
+					cnt++
+				}
+				if c-r-1 >= 0 && tmp[start+(c-r-1)*st] {
+					cnt--
+				}
+				out[start+c*st] = cnt > 0
 			}
 		}
 	}
@@ -424,11 +530,38 @@ func topoEligible(g cluster.Ganglion) bool {
 	return true
 }
 
+// topoNone says why no ganglion gave a topological angle, from the number
+// of trapped ganglia and how many of them touch the border.
+func topoNone(trapped, border int) string {
+	const rise = "rises 6 voxels above the solid with a footprint turning of at least π"
+	const edge = "the image border or the sample's edge"
+	switch {
+	case trapped == 0:
+		return "no trapped ganglion (every ganglion touches the inlet or the outlet face)"
+	case trapped == 1 && border == 1:
+		return "the one trapped ganglion touches " + edge
+	case trapped == 1:
+		return "the one trapped ganglion does not rise 6 voxels above the solid with a footprint turning of at least π"
+	case border == trapped:
+		return fmt.Sprintf("all %d trapped ganglia touch %s", trapped, edge)
+	case border == 0:
+		return fmt.Sprintf("none of the %d trapped ganglia %s", trapped, rise)
+	}
+	return fmt.Sprintf("of the %d trapped ganglia, %d touch %s and none of the other %d %s", trapped, border, edge, trapped-border, rise)
+}
+
 // setTopo fills the topological contact-angle keys from the merged ganglia.
 func (r *Result) setTopo(ganglia []cluster.Ganglion) {
 	var sum cluster.TopoSums
 	var per []float64
+	trapped, border := 0, 0
 	for _, g := range ganglia {
+		if !g.Connected() {
+			trapped++
+			if g.Topo.Border {
+				border++
+			}
+		}
 		if !topoEligible(g) {
 			continue
 		}
@@ -439,7 +572,7 @@ func (r *Result) setTopo(ganglia []cluster.Ganglion) {
 		}
 	}
 	if r.TopoGanglia == 0 {
-		r.TopoNote = "no trapped ganglion away from the image border rises 6 voxels above the solid with a footprint"
+		r.TopoNote = topoNone(trapped, border)
 		return
 	}
 	a := topoFit(sum)
