@@ -209,3 +209,29 @@ func TestRegisterConfig(t *testing.T) {
 		}
 	}
 }
+
+// TestSkipTopological: measure.skip_topological set through --set reaches
+// the measurement options and changes the parameter hash; left false it is
+// not written, so the hashes of existing campaigns stay what they were.
+func TestSkipTopological(t *testing.T) {
+	c := Default()
+	h0 := c.Hash()
+	b, err := json.Marshal(c)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if strings.Contains(string(b), "skip_topological") {
+		t.Errorf("skip_topological written when false: %s", b)
+	}
+	s, err := c.Set([]string{"measure.skip_topological=true"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	o, err := s.MeasureOptions()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !o.SkipTopological || s.Hash() == h0 {
+		t.Errorf("skip_topological=true: options %v, hash %s (default %s)", o.SkipTopological, s.Hash(), h0)
+	}
+}

@@ -70,6 +70,10 @@ type Options struct {
 	Contact        contact.Options
 	// Skip turns off the expensive measurements (for quick looks).
 	SkipCurvature, SkipContact bool
+	// SkipTopological leaves the topological contact angle out (its
+	// result keys null, with a note); it needs the curvature measurement
+	// anyway.
+	SkipTopological bool
 	// Workers is the number of goroutines MeasureTile uses inside one tile
 	// (0 = runtime.GOMAXPROCS). Results do not depend on it.
 	Workers int `json:"-"`
@@ -260,7 +264,7 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 	}
 	wg.Wait()
 	if attribute {
-		attributeGanglia(p, att, look, lab, solid, wet, non, core.Grow(rim).Intersect(lab.Box), whole, opt.clusterOptions())
+		attributeGanglia(p, att, look, lab, solid, wet, non, core.Grow(rim).Intersect(lab.Box), whole, opt.clusterOptions(), !opt.SkipTopological)
 	}
 	look.Release()
 	return p, nil
@@ -279,7 +283,7 @@ func MeasureTile(lab *volume.Labels, core, whole volume.Box, opt Options) (*Part
 // It also splits the Euler characteristic of the nonwetting phase by
 // ganglion (Clusters.Euler8, eulerShares) and the contact-line turnings of
 // the topological contact angle (Clusters.Topo, topoShares).
-func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Lookup, lab *volume.Labels, solid, wet, non *phase.Set, box, whole volume.Box, co cluster.Options) {
+func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Lookup, lab *volume.Labels, solid, wet, non *phase.Set, box, whole volume.Box, co cluster.Options, topo bool) {
 	t := p.Clusters
 	t.CurvArea = make([]float64, len(t.Sizes))
 	t.CurvKappaArea = make([]float64, len(t.Sizes))
@@ -360,18 +364,20 @@ func attributeGanglia(p *Partial, att []curvature.Attributed, look *cluster.Look
 		}
 		t.CurvForeign[i].Euler8 += e8
 	})
-	topoShares(t, look, lab, solid, wet, non, whole, extOwner, func(piece int32, s cluster.TopoSums) {
-		i, ok := foreign[piece]
-		if !ok {
-			i = len(t.CurvForeign)
-			foreign[piece] = i
-			t.CurvForeign = append(t.CurvForeign, cluster.Foreign{At: ext.First(piece)})
-		}
-		if t.CurvForeign[i].Topo == nil {
-			t.CurvForeign[i].Topo = &cluster.TopoSums{}
-		}
-		t.CurvForeign[i].Topo.Add(s)
-	})
+	if topo {
+		topoShares(t, look, lab, solid, wet, non, whole, extOwner, func(piece int32, s cluster.TopoSums) {
+			i, ok := foreign[piece]
+			if !ok {
+				i = len(t.CurvForeign)
+				foreign[piece] = i
+				t.CurvForeign = append(t.CurvForeign, cluster.Foreign{At: ext.First(piece)})
+			}
+			if t.CurvForeign[i].Topo == nil {
+				t.CurvForeign[i].Topo = &cluster.TopoSums{}
+			}
+			t.CurvForeign[i].Topo.Add(s)
+		})
+	}
 	ext.Release()
 	p.GangliaBlocks = make([]OwnedBlock, 0, len(acc))
 	for _, s := range acc {

@@ -343,6 +343,8 @@ func Combine(parts []*Partial, whole volume.Box, voxelSize float64, opt Options)
 	}
 	if m.Topo {
 		r.setTopo(m.Ganglia)
+	} else if opt.SkipTopological && !opt.SkipCurvature {
+		r.TopoNote = "not measured (measure.skip_topological)"
 	}
 	if sum.Curvature != nil {
 		if g, ok := splitGanglia(parts, m); ok {

@@ -1,6 +1,8 @@
 package measure
 
 import (
+	"bytes"
+	"encoding/json"
 	"math"
 	"math/rand/v2"
 	"slices"
@@ -151,6 +153,39 @@ func TestTopoNoneSaysWhy(t *testing.T) {
 	} {
 		if got := topoNone(c.trapped, c.border); got != c.want {
 			t.Errorf("%d trapped, %d on the border: %q, want %q", c.trapped, c.border, got, c.want)
+		}
+	}
+}
+
+// TestSkipTopologicalChangesNothingElse: with SkipTopological the
+// topological keys are null with a note and every other key of the result
+// is byte for byte the same (a cap of 60° on a wall, one tile and tiles of
+// 20); without it the same scene gives the angle.
+func TestSkipTopologicalChangesNothingElse(t *testing.T) {
+	lab := topoCap(16, 60, 6.5, [2]float64{0.3, -0.2})
+	for _, tile := range []int{0, 20} {
+		opt := Defaults()
+		full, err := Volume(lab, opt, tile, 2)
+		if err != nil {
+			t.Fatal(err)
+		}
+		opt.SkipTopological = true
+		skip, err := Volume(lab, opt, tile, 2)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if full.TopoAngle == nil {
+			t.Fatalf("tile %d: the cap gives no topological angle (%s)", tile, full.TopoNote)
+		}
+		if skip.TopoAngle != nil || skip.TopoCos != nil || skip.TopoMedian != nil || skip.TopoGanglia != 0 ||
+			skip.TopoNote != "not measured (measure.skip_topological)" {
+			t.Errorf("tile %d, skipped: angle %s, %d ganglia, note %q", tile, fmtp(skip.TopoAngle), skip.TopoGanglia, skip.TopoNote)
+		}
+		skip.TopoAngle, skip.TopoCos, skip.TopoMedian, skip.TopoGanglia, skip.TopoNote = full.TopoAngle, full.TopoCos, full.TopoMedian, full.TopoGanglia, full.TopoNote
+		a, _ := json.Marshal(full)
+		b, _ := json.Marshal(skip)
+		if !bytes.Equal(a, b) {
+			t.Errorf("tile %d: skipping the topological angle changed other keys", tile)
 		}
 	}
 }

@@ -46,6 +46,7 @@ type benchCampaignOptions struct {
 	data                                                      string
 	keep, json                                                bool
 	timeout                                                   time.Duration
+	sets                                                      []string // --set key=value on the campaign config
 }
 
 // benchStepResult is one step of the benchmark campaign.
@@ -125,6 +126,10 @@ func runBenchCampaign(args []string) int {
 	fs.BoolVar(&o.keep, "keep", false, "keep the data directory")
 	fs.BoolVar(&o.json, "json", false, "print the report as JSON")
 	fs.DurationVar(&o.timeout, "timeout", time.Hour, "give up after this long")
+	fs.Func("set", "change one parameter of the benchmark's campaign config, `key=value` with a dotted YAML key (measure.skip_topological=true); repeatable", func(s string) error {
+		o.sets = append(o.sets, s)
+		return nil
+	})
 	if _, code, ok := parseOrUsage(fs, args); !ok {
 		return code
 	}
@@ -187,6 +192,12 @@ func benchCampaign(ctx context.Context, o benchCampaignOptions) (*benchCampaignR
 	}
 	cfg := singleScanConfig(sc, o.tile)
 	cfg.Segment.Sample.Y, cfg.Segment.Sample.X, cfg.Segment.Sample.Radius = 0, 0, 0
+	if len(o.sets) > 0 {
+		var err error
+		if cfg, err = cfg.Set(o.sets); err != nil {
+			return nil, fmt.Errorf("--set: %w", err)
+		}
+	}
 	cfgPath := filepath.Join(data, "campaign.yaml")
 	if err := writeDemoConfig(cfgPath, cfg); err != nil {
 		return nil, err

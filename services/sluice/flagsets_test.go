@@ -67,7 +67,7 @@ var commandFlags = map[string][]string{
 	// The modes of bench.
 	"bench stages":   {"size", "tile", "workers", "nlm"},
 	"bench compare":  {"size", "repeat", "python", "script", "json", "cpuprofile"},
-	"bench campaign": {"size", "steps", "tile", "workers", "procs", "proc-cores", "base", "ahead", "seed", "data", "keep", "json", "timeout"},
+	"bench campaign": {"size", "steps", "tile", "workers", "procs", "proc-cores", "base", "ahead", "seed", "data", "keep", "json", "timeout", "set"},
 }
 
 // helpFlags returns the flag names `sluice CMD -h` lists.
