@@ -36,6 +36,19 @@ func Halo(c campaign.Config) (int, error) {
 // HistHalo returns the grey halo a pass-1 tile must be read with.
 func HistHalo(c campaign.Config) int { return c.Segment.FilterHalo() }
 
+// HistMaskHalo returns the halo of the solid mask of a pass-1 tile: wider
+// than the grey where the reference-mode histogram blurs the mask
+// (segment.solidFraction reads PVHalo voxels around each voxel). With the
+// grey halo only, the blurred fraction near a tile's edge missed the solid
+// beyond it and the histogram depended on the tile edge
+// (TestReferencePass1Tiling).
+func HistMaskHalo(c campaign.Config) int {
+	if c.Segment.Reference && c.Segment.PartialVolume.Blur > 0 {
+		return max(HistHalo(c), c.Segment.PVHalo())
+	}
+	return HistHalo(c)
+}
+
 // Histogram is pass 1 on one tile: grey covers core plus HistHalo, clipped
 // to the scan. solid is the reference mask in reference mode, else nil.
 func Histogram(grey volume.Any, core volume.Box, c campaign.Config, solid *volume.Labels) (segment.Hist, error) {
@@ -96,13 +109,14 @@ func MemorySource(v volume.Any) Source {
 func Prepare(src Source, whole volume.Box, dtype volume.DType, c campaign.Config, solid Source, workers int) (Prepared, campaign.Config, error) {
 	t := volume.Tiling{Whole: whole, Tile: [3]int{c.Tile, c.Tile, c.Tile}}
 	halo := HistHalo(c)
+	maskHalo := HistMaskHalo(c)
 	read := func(core volume.Box) (volume.Any, *volume.Labels, error) {
 		box := core.Grow(halo).Intersect(whole)
 		g, err := src(box)
 		if err != nil || solid == nil {
 			return g, nil, err
 		}
-		m, err := solid(box)
+		m, err := solid(core.Grow(maskHalo).Intersect(whole))
 		if err != nil {
 			return nil, nil, err
 		}

@@ -31,7 +31,7 @@ func prepareTwoPass(src Source, whole volume.Box, c campaign.Config, solid Sourc
 			}
 			var m *volume.Labels
 			if solid != nil {
-				a, err := solid(box)
+				a, err := solid(core.Grow(HistMaskHalo(c)).Intersect(whole))
 				if err != nil {
 					return err
 				}
